@@ -1,0 +1,1 @@
+"""Command-line interface: thin typer commands over the engine."""

@@ -73,14 +73,14 @@ class ModelConfig:
 @dataclass(frozen=True)
 class ProxyConfig:
     association: float = 0.3  # association with the group at or above this ...
-    influence: float = 0.05  # ... and influence share at or above this make a proxy
+    influence: float = 0.02  # ... and influence share at or above this make a proxy
     extra: tuple[str, ...] = ()  # features always treated as proxies
     never: tuple[str, ...] = ()  # features never treated as proxies
 
 
 @dataclass(frozen=True)
 class MultiplicityConfig:
-    epsilon: float = 0.001  # equally-good set: mean log-loss within this of the best
+    epsilon: float = 0.01  # equally-good set: total loss within (1 + epsilon) of the best
     neighbours: int = 5
 
 
@@ -306,7 +306,7 @@ def parse_config(raw: dict[str, Any], path: Path) -> StudyConfig:
     _check_keys(path, "proxies", p)
     proxies = ProxyConfig(
         association=float(p.get("association", 0.3)),
-        influence=float(p.get("influence", 0.05)),
+        influence=float(p.get("influence", 0.02)),
         extra=_str_tuple(path, "proxies", "extra", p.get("extra", [])),
         never=_str_tuple(path, "proxies", "never", p.get("never", [])),
     )
@@ -314,7 +314,7 @@ def parse_config(raw: dict[str, Any], path: Path) -> StudyConfig:
     mu = raw.get("multiplicity", {})
     _check_keys(path, "multiplicity", mu)
     multiplicity = MultiplicityConfig(
-        epsilon=float(mu.get("epsilon", 0.001)), neighbours=int(mu.get("neighbours", 5))
+        epsilon=float(mu.get("epsilon", 0.01)), neighbours=int(mu.get("neighbours", 5))
     )
     if multiplicity.epsilon <= 0:
         raise UserError(f"{path}: [multiplicity] epsilon must be positive")

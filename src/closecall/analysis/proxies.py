@@ -1,0 +1,184 @@
+"""Proxy detection: association with the group × influence in the group-unaware model.
+
+A feature is a *proxy* when it is both associated with the group attribute and influential in
+the model that leaves the group out: dropping the group does not make a model unaware when
+such features carry the same information.
+
+Association (0 = none, 1 = perfect):
+- numeric feature: 2·|AUC − 0.5| of the feature separating one group level from the rest
+  (the largest over levels when there are more than two);
+- categorical feature: Cramér's V of the feature × group table.
+
+Influence: the share of the unaware model's margin variance carried by the feature's linear
+component, Var(c_j) / Var(margin), with c_j = Σ_k w_k (x_k − E[x_k]) over the feature's design
+columns. Shares need not sum to one when features are correlated.
+
+Group recoverability: cross-validated AUC of predicting the group from all non-group features
+together (macro one-vs-rest when there are more than two levels).
+
+References
+----------
+Datta, Fredrikson, Ko, Mardziel, Sen, "Use privacy in data-driven systems", CCS 2017.
+Yeom, Datta, Fredrikson, "Hunting for discriminatory proxies in linear regression models",
+NeurIPS 2018.
+"""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass
+from typing import Any
+
+import numpy as np
+from scipy.stats import chi2_contingency, rankdata
+from sklearn.linear_model import LogisticRegression
+from sklearn.metrics import roc_auc_score
+from sklearn.model_selection import StratifiedKFold
+
+RECOVERABILITY_MAX_ROWS = 100_000
+
+
+def auc_association(x: np.ndarray, group_codes: np.ndarray, n_levels: int) -> float:
+    """2·|AUC − 0.5| of x for each level against the rest; the largest over levels."""
+    ranks = rankdata(x)
+    best = 0.0
+    levels = range(1) if n_levels == 2 else range(n_levels)
+    for g in levels:
+        pos = group_codes == g
+        n1, n0 = int(pos.sum()), int((~pos).sum())
+        if n1 == 0 or n0 == 0:
+            continue
+        auc = (ranks[pos].sum() - n1 * (n1 + 1) / 2) / (n1 * n0)
+        best = max(best, 2 * abs(auc - 0.5))
+    return float(best)
+
+
+def cramers_v(codes: np.ndarray, group_codes: np.ndarray) -> float:
+    """Cramér's V (no bias correction) of two coded categorical arrays."""
+    _, a = np.unique(codes, return_inverse=True)
+    _, b = np.unique(group_codes, return_inverse=True)
+    table = np.zeros((a.max() + 1, b.max() + 1))
+    np.add.at(table, (a, b), 1)
+    table = table[table.sum(1) > 0][:, table.sum(0) > 0]
+    k = min(table.shape) - 1
+    if k == 0:
+        return 0.0
+    chi2 = chi2_contingency(table, correction=False)[0]
+    return float(np.sqrt(chi2 / (table.sum() * k)))
+
+
+def influence_shares(
+    X: np.ndarray, coef: np.ndarray, column_source: list[str], names: list[str]
+) -> dict[str, float]:
+    """Var(c_j)/Var(margin) for each named source feature, in the model with weights coef."""
+    centred = X - X.mean(axis=0)
+    margin_var = float(np.var(centred @ coef))
+    out: dict[str, float] = {}
+    src = np.array(column_source)
+    for name in names:
+        cols = np.flatnonzero(src == name)
+        c = centred[:, cols] @ coef[cols]
+        out[name] = float(np.var(c) / margin_var) if margin_var > 0 else 0.0
+    return out
+
+
+def group_recoverability(
+    X: np.ndarray, group_codes: np.ndarray, n_levels: int, seed: int, folds: int = 5
+) -> float:
+    """Held-out AUC of predicting the group from the given (non-group) design columns."""
+    rng = np.random.default_rng(seed)
+    idx = np.arange(len(group_codes))
+    if len(idx) > RECOVERABILITY_MAX_ROWS:
+        idx = np.sort(rng.choice(idx, RECOVERABILITY_MAX_ROWS, replace=False))
+    Xs, gs = X[idx], group_codes[idx]
+    scores = np.zeros((len(idx), n_levels))
+    skf = StratifiedKFold(n_splits=folds, shuffle=True, random_state=seed)
+    for train, test in skf.split(Xs, gs):
+        clf = LogisticRegression(C=1.0, max_iter=500)
+        clf.fit(Xs[train], gs[train])
+        proba = clf.predict_proba(Xs[test])
+        scores[np.ix_(test, clf.classes_)] = proba
+    if n_levels == 2:
+        return float(roc_auc_score(gs, scores[:, 1]))
+    return float(roc_auc_score(gs, scores, multi_class="ovr", average="macro"))
+
+
+@dataclass
+class ProxyRow:
+    feature: str
+    kind: str
+    association: float
+    association_measure: str  # "2|AUC-0.5|" or "Cramér's V"
+    influence: float
+    proxy: bool
+    why: str
+
+
+@dataclass
+class ProxyReport:
+    rows: list[ProxyRow]
+    recoverability: float
+    association_threshold: float
+    influence_threshold: float
+
+    @property
+    def proxies(self) -> list[str]:
+        return [r.feature for r in self.rows if r.proxy]
+
+    def to_json(self) -> dict[str, Any]:
+        return {
+            "recoverability_auc": self.recoverability,
+            "association_threshold": self.association_threshold,
+            "influence_threshold": self.influence_threshold,
+            "proxies": self.proxies,
+            "features": [asdict(r) for r in self.rows],
+        }
+
+    @classmethod
+    def from_json(cls, d: dict[str, Any]) -> ProxyReport:
+        return cls(
+            rows=[ProxyRow(**r) for r in d["features"]],
+            recoverability=d["recoverability_auc"],
+            association_threshold=d["association_threshold"],
+            influence_threshold=d["influence_threshold"],
+        )
+
+
+def detect_proxies(
+    *,
+    raw_columns: dict[str, tuple[str, np.ndarray]],
+    X: np.ndarray,
+    unaware_coef: np.ndarray,
+    column_source: list[str],
+    group_codes: np.ndarray,
+    n_levels: int,
+    association_threshold: float,
+    influence_threshold: float,
+    extra: tuple[str, ...] = (),
+    never: tuple[str, ...] = (),
+    seed: int = 0,
+    nongroup_mask: np.ndarray | None = None,
+) -> ProxyReport:
+    """Score every non-group feature and flag the proxies.
+
+    ``raw_columns`` maps feature name to (kind, values): imputed numbers for numeric features,
+    category codes for categorical ones.
+    """
+    names = list(raw_columns)
+    influence = influence_shares(X, unaware_coef, column_source, names)
+    rows: list[ProxyRow] = []
+    for name in names:
+        kind, values = raw_columns[name]
+        if kind == "numeric":
+            assoc, measure = auc_association(values, group_codes, n_levels), "2|AUC-0.5|"
+        else:
+            assoc, measure = cramers_v(values, group_codes), "Cramér's V"
+        flagged = assoc >= association_threshold and influence[name] >= influence_threshold
+        why = "association and influence above thresholds" if flagged else "below a threshold"
+        if name in extra:
+            flagged, why = True, "listed in [proxies] extra"
+        if name in never:
+            flagged, why = False, "listed in [proxies] never"
+        rows.append(ProxyRow(name, kind, assoc, measure, influence[name], flagged, why))
+    mask = nongroup_mask if nongroup_mask is not None else np.ones(X.shape[1], dtype=bool)
+    recover = group_recoverability(X[:, mask], group_codes, n_levels, seed)
+    return ProxyReport(rows, recover, association_threshold, influence_threshold)

@@ -65,7 +65,9 @@ class DataConfig:
 
 @dataclass(frozen=True)
 class ModelConfig:
-    penalty: float = 1.0  # lambda in sum(loss) + lambda/2 * |w|^2 over standardised features; 0 = off
+    penalty: float = (
+        1.0  # lambda in sum(loss) + lambda/2 * |w|^2 over standardised features; 0 = off
+    )
     folds: int = 5
     reference: str = "pooled"  # pooled or deployed
 
@@ -152,7 +154,12 @@ _SCHEMA: dict[str, dict[str, type | tuple[type, ...]]] = {
         "cost_false_favourable": (int, float),
         "cost_false_unfavourable": (int, float),
     },
-    "proxies": {"association": (int, float), "influence": (int, float), "extra": list, "never": list},
+    "proxies": {
+        "association": (int, float),
+        "influence": (int, float),
+        "extra": list,
+        "never": list,
+    },
     "multiplicity": {"epsilon": (int, float), "neighbours": int},
     "review": {
         "band": (int, float),
@@ -207,7 +214,7 @@ def load_config(path: str | Path) -> StudyConfig:
     if not path.exists():
         raise UserError(
             f"{path}: no study config here",
-            f"run 'closecall init DATA' to write one, or pass --config PATH",
+            "run 'closecall init DATA' to write one, or pass --config PATH",
         )
     try:
         raw = tomllib.loads(path.read_text(encoding="utf-8"))

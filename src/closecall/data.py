@@ -134,7 +134,8 @@ def _check_ids(path: Path, frame: pd.DataFrame, id_col: str) -> None:
     ids = frame[id_col]
     if ids.isna().any():
         raise UserError(
-            f"{path}: id column '{id_col}' is empty at {_rows_text(path, np.flatnonzero(ids.isna()))}",
+            f"{path}: id column '{id_col}' is empty at "
+            f"{_rows_text(path, np.flatnonzero(ids.isna()))}",
             "give every case an id",
         )
     dup = ids.duplicated(keep=False).to_numpy()
@@ -150,7 +151,8 @@ def _check_ids(path: Path, frame: pd.DataFrame, id_col: str) -> None:
 def _favourable_mask(path: Path, col: pd.Series, favourable: object, name: str) -> np.ndarray:
     if col.isna().any():
         raise UserError(
-            f"{path}: outcome column '{name}' is empty at {_rows_text(path, np.flatnonzero(col.isna()))}",
+            f"{path}: outcome column '{name}' is empty at "
+            f"{_rows_text(path, np.flatnonzero(col.isna()))}",
             "history cases need a known outcome; move undecided cases to the pending file",
         )
     values = pd.unique(col)
@@ -160,12 +162,16 @@ def _favourable_mask(path: Path, col: pd.Series, favourable: object, name: str) 
             f"{path}: outcome column '{name}' has {len(values)} values ({shown}); it must have two",
             "recode the outcome to two values, e.g. favourable / unfavourable",
         )
-    if isinstance(favourable, (int, float)) and not isinstance(favourable, bool) and (
-        pd.api.types.is_numeric_dtype(col)
+    if (
+        isinstance(favourable, (int, float))
+        and not isinstance(favourable, bool)
+        and (pd.api.types.is_numeric_dtype(col))
     ):
-        mask = (col.to_numpy(dtype=float) == float(favourable))
+        mask = col.to_numpy(dtype=float) == float(favourable)
     else:
-        mask = (col.astype(str).str.strip().str.lower() == str(favourable).strip().lower()).to_numpy()
+        mask = (
+            col.astype(str).str.strip().str.lower() == str(favourable).strip().lower()
+        ).to_numpy()
     if not mask.any():
         shown = ", ".join(repr(v) for v in values)
         raise UserError(
@@ -222,7 +228,7 @@ def resolve_features(cfg: DataConfig, frame: pd.DataFrame, path: Path) -> list[F
         names = [c for c in frame.columns if c not in reserved]
     if not names:
         raise UserError(f"{path}: no feature columns left", "list features under [data] features")
-    for name, kind in cfg.kinds.items():
+    for name in cfg.kinds:
         if name not in names and name not in cfg.group:
             raise UserError(
                 f"[kinds] names '{name}', which is not a feature", "remove it from [kinds]"
@@ -235,7 +241,8 @@ def _check_feature_values(path: Path, frame: pd.DataFrame, features: list[Featur
         col = frame[f.name]
         if col.isna().all():
             raise UserError(
-                f"{path}: feature '{f.name}' is empty in every row", "exclude it under [data] exclude"
+                f"{path}: feature '{f.name}' is empty in every row",
+                "exclude it under [data] exclude",
             )
         if f.kind == "numeric" and not pd.api.types.is_numeric_dtype(col):
             as_num = pd.to_numeric(col, errors="coerce")
@@ -244,7 +251,8 @@ def _check_feature_values(path: Path, frame: pd.DataFrame, features: list[Featur
                 raise UserError(
                     f"{path}: numeric feature '{f.name}' has text {str(col.iloc[bad[0]])!r} "
                     f"at {_rows_text(path, bad)}",
-                    f"fix those values, or declare it categorical: [kinds] {f.name} = \"categorical\"",
+                    "fix those values, or declare it categorical: "
+                    f'[kinds] {f.name} = "categorical"',
                 )
 
 
@@ -278,8 +286,7 @@ def load_study_data(cfg: DataConfig) -> StudyData:
     levels, counts = np.unique(hgroup, return_counts=True)
     if len(levels) < 2:
         raise UserError(
-            f"{hist_path}: group attribute {'/'.join(cfg.group)} has a single level "
-            f"'{levels[0]}'",
+            f"{hist_path}: group attribute {'/'.join(cfg.group)} has a single level '{levels[0]}'",
             "closecall compares groups: the history needs at least two group levels",
         )
     small = [(lv, int(n)) for lv, n in zip(levels, counts, strict=True) if n < cfg.min_group_cases]

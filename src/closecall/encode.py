@@ -111,7 +111,11 @@ def fit_encoder(history: pd.DataFrame, features: list[Feature], group: tuple[str
             sd = float(np.nanstd(x))
             out.append(
                 EncodedFeature(
-                    f.name, "numeric", f.is_group, mean, sd if sd > 0 else 1.0,
+                    f.name,
+                    "numeric",
+                    f.is_group,
+                    mean,
+                    sd if sd > 0 else 1.0,
                     missing_indicator=bool(miss.any()),
                 )
             )

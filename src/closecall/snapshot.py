@@ -246,8 +246,8 @@ def build_snapshot(sid: str, config: StudyConfig, suite: SuiteResult) -> Snapsho
         "cross_fitted": config.cross_fitted,
         "history_file": str(config.data.history),
         "pending_file": str(config.data.pending) if config.data.pending else None,
-        "n_cases": int(len(suite.case_ids)),
-        "n_history": int(len(suite.hist_y)),
+        "n_cases": len(suite.case_ids),
+        "n_history": len(suite.hist_y),
         "models": list(suite.models),
         "reference": reference,
         "lenses": [

@@ -92,9 +92,7 @@ def _nonconstant(X: np.ndarray, rows: np.ndarray, mask: np.ndarray) -> np.ndarra
     return mask & (sub.max(axis=0) > sub.min(axis=0))
 
 
-def fit_suite(
-    config: StudyConfig, data: StudyData, progress: Progress = _quiet
-) -> SuiteResult:
+def fit_suite(config: StudyConfig, data: StudyData, progress: Progress = _quiet) -> SuiteResult:
     """Fit every model of the suite and score the cases under review."""
     penalty = config.model.penalty
     K = config.model.folds
@@ -121,16 +119,16 @@ def fit_suite(
 
     progress("scoring proxies", 0, 1)
     raw: dict[str, tuple[str, np.ndarray]] = {}
-    for f in encoder.features:
-        if f.is_group:
+    for ef in encoder.features:
+        if ef.is_group:
             continue
-        cols = encoder.source_mask([f.name])
-        if f.kind == "numeric":
-            raw[f.name] = ("numeric", hist_X[:, np.flatnonzero(cols)[0]])
+        cols = encoder.source_mask([ef.name])
+        if ef.kind == "numeric":
+            raw[ef.name] = ("numeric", hist_X[:, np.flatnonzero(cols)[0]])
         else:
             block = hist_X[:, cols]
             codes = np.where(block.any(axis=1), block.argmax(axis=1) + 1, 0)
-            raw[f.name] = ("categorical", codes)
+            raw[ef.name] = ("categorical", codes)
     proxies = detect_proxies(
         raw_columns=raw,
         X=hist_X,
@@ -207,9 +205,7 @@ def fit_suite(
         ids = data.pending[config.data.id].astype(str).to_numpy(dtype=str)
         outcome = np.full(len(ids), -1, dtype=np.int8)
         rows_fits, rows_masks = full, masks
-        rows_train = {
-            name: [np.arange(len(y))] for name in ("pooled", "unaware", "proxy_free")
-        }
+        rows_train = {name: [np.arange(len(y))] for name in ("pooled", "unaware", "proxy_free")}
         rows_train["split"] = [np.flatnonzero(hg == g) for g in range(G)]
         row_of_case = {name: np.zeros(len(ids), dtype=np.int32) for name in FITTED_MODELS}
         row_of_case["split"] = codes.astype(np.int32)
@@ -301,7 +297,7 @@ def held_out_metrics(
             row: dict[str, Any] = {
                 "model": name,
                 "group": label,
-                "cases": int(len(yy)),
+                "cases": len(yy),
                 "log_loss": negative_log_likelihood(ee, yy) / len(yy),
                 "auc": float(roc_auc_score(yy, ee)) if 0 < yy.sum() < len(yy) else None,
                 "calibration_in_the_large": float(yy.mean() - p.mean()),

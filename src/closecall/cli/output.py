@@ -8,7 +8,7 @@ import math
 import re
 import sys
 from collections.abc import Iterable, Mapping, Sequence
-from enum import Enum
+from enum import StrEnum
 from typing import Any
 
 import numpy as np
@@ -21,7 +21,7 @@ err_console = Console(stderr=True, highlight=False)
 _CONTROL = re.compile(r"[\x00-\x08\x0b-\x1f\x7f-\x9f\u202a-\u202e\u2066-\u2069]")
 
 
-class Format(str, Enum):
+class Format(StrEnum):
     table = "table"
     json = "json"
     csv = "csv"

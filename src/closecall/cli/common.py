@@ -1,0 +1,61 @@
+"""Options and helpers shared by the commands."""
+
+from __future__ import annotations
+
+import sys
+import time
+from collections.abc import Iterator
+from contextlib import contextmanager
+from pathlib import Path
+
+import typer
+from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
+
+from closecall.cli.output import Format, err_console
+from closecall.study import Study, open_study
+from closecall.suite import Progress as ProgressFn
+
+ConfigOption = typer.Option(
+    Path("closecall.toml"), "--config", "-c", help="The study config file (or its folder)."
+)
+JsonOption = typer.Option(False, "--json", help="Print the result as JSON data.")
+FormatOption = typer.Option(
+    Format.table, "--format", "-f", help="Output as a table, JSON or CSV.", case_sensitive=False
+)
+
+
+def resolve_format(fmt: Format, as_json: bool) -> Format:
+    return Format.json if as_json else fmt
+
+
+@contextmanager
+def progress_bar(enabled: bool) -> Iterator[ProgressFn]:
+    """A rich progress bar on stderr for steps longer than a second; silent when disabled."""
+    if not enabled or not sys.stderr.isatty():
+        yield lambda label, done, total: None
+        return
+    start = time.monotonic()
+    with Progress(
+        TextColumn("{task.description}"),
+        BarColumn(),
+        TimeElapsedColumn(),
+        console=err_console,
+        transient=True,
+    ) as bar:
+        task = bar.add_task("starting", total=1)
+        shown = False
+
+        def update(label: str, done: int, total: int) -> None:
+            nonlocal shown
+            if not shown and time.monotonic() - start < 1.0:
+                bar.update(task, visible=False)
+            shown = True
+            bar.update(task, description=label, completed=done, total=max(total, 1), visible=True)
+
+        yield update
+
+
+def load(config: Path, *, quiet: bool, refit: bool = False) -> Study:
+    """Open the study, fitting (with a progress bar unless quiet) when the cache is stale."""
+    with progress_bar(not quiet) as update:
+        return open_study(config, update, refit=refit)

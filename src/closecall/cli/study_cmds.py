@@ -1,0 +1,256 @@
+"""Commands: init, demo, fit, queue."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any
+
+import typer
+from rich import box
+from rich.table import Table
+
+from closecall.cli.common import (
+    ConfigOption,
+    FormatOption,
+    JsonOption,
+    load,
+    progress_bar,
+    resolve_format,
+)
+from closecall.cli.output import Format, console, emit_json, emit_rows, err_console, format_cell
+from closecall.config import CONFIG_NAME
+from closecall.config_init import infer_config
+from closecall.demo import write_demo
+from closecall.errors import UserError
+from closecall.queue import SORT_KEYS, build_queue, queue_rows
+from closecall.study import open_study
+
+
+def init(
+    data: Path = typer.Argument(..., help="The labelled history file (CSV or Parquet)."),
+    pending: Path | None = typer.Option(None, "--pending", help="Cases awaiting review."),
+    out: Path = typer.Option(Path(CONFIG_NAME), "--out", "-o", help="Where to write the config."),
+    force: bool = typer.Option(False, "--force", help="Overwrite an existing config."),
+    as_json: bool = JsonOption,
+) -> None:
+    """Draft a commented study config from a data file, and say what is left to decide.
+
+    Example: closecall init history.csv --pending pending.csv
+    """
+    if out.exists() and not force:
+        raise UserError(f"{out}: already exists", "pass --force to overwrite, or --out elsewhere")
+    inf = infer_config(data, pending, relative_to=out.resolve().parent)
+    out.write_text(inf.text)
+    if as_json:
+        emit_json({"config": str(out), "inferred": inf.inferred, "to_decide": inf.to_decide})
+        return
+    console.print(f"wrote {out}")
+    for key, value in inf.inferred.items():
+        if key != "kinds":
+            console.print(f"  inferred {key}: {value}")
+    console.print(f"  inferred kinds for {len(inf.inferred.get('kinds', {}))} features")  # type: ignore[arg-type]
+    console.print("still to decide:")
+    for item in inf.to_decide:
+        console.print(f"  - {item}")
+
+
+def demo(
+    out: Path = typer.Option(Path("demo-study"), "--out", "-o", help="Folder for the demo study."),
+    cases: int = typer.Option(5000, "--cases", "-n", help="How many applications to generate."),
+    seed: int = typer.Option(7, "--seed", help="Random seed (same seed, same files)."),
+    fit: bool = typer.Option(True, "--fit/--no-fit", help="Fit the suite right away."),
+    as_json: bool = JsonOption,
+) -> None:
+    """Write the fictional demo study (Harbourside Home Retrofit Grants) and fit it.
+
+    Example: closecall demo --out demo-study --cases 5000 && cd demo-study && closecall queue
+    """
+    config = write_demo(out, cases=cases, seed=seed)
+    sid = None
+    if fit:
+        with progress_bar(not as_json) as update:
+            sid = open_study(config, update).snapshot.id
+    if as_json:
+        emit_json({"config": str(config), "cases": cases, "seed": seed, "snapshot": sid})
+        return
+    console.print(f"wrote the demo study to {out}/ ({cases:,} applications, seed {seed})")
+    if sid:
+        console.print(f"snapshot {sid}")
+    console.print(f"next: cd {out} && closecall queue")
+
+
+def fit(
+    config: Path = ConfigOption,
+    refit: bool = typer.Option(False, "--refit", help="Fit again even if the cache is current."),
+    as_json: bool = JsonOption,
+) -> None:
+    """Fit the model suite and show each model's held-out quality per group.
+
+    Log-loss and AUC are out-of-fold; the error rate is at each cost lens's threshold;
+    calibration-in-the-large is observed minus predicted favourable rate.
+
+    Example: closecall fit --config closecall.toml
+    """
+    study = load(config, quiet=as_json, refit=refit)
+    snap = study.snapshot
+    payload: dict[str, Any] = {
+        "snapshot": snap.id,
+        "fitted_now": study.fitted_now,
+        "cross_fitted": snap.cross_fitted,
+        "cases_under_review": snap.n_cases,
+        "history_cases": snap.meta["n_history"],
+        "models": snap.model_names,
+        "reference": snap.reference,
+        "lenses": [{"name": lens.name, "threshold": lens.threshold} for lens in snap.lenses],
+        "proxies": snap.proxies.proxies,
+        "group_recoverability_auc": snap.proxies.recoverability,
+        "metrics": snap.metrics,
+        "notes": snap.meta.get("notes", []),
+    }
+    if as_json:
+        emit_json(payload)
+        return
+    arrangement = "cross-fitted (one labelled file)" if snap.cross_fitted else "history + pending"
+    console.print(
+        f"snapshot {snap.id}  {arrangement}  {snap.n_cases:,} cases under review, "
+        f"{snap.meta['n_history']:,} history cases  "
+        f"({'fitted now' if study.fitted_now else 'from cache'})"
+    )
+    lens_txt = ", ".join(f"{lens.name} t={lens.threshold:.3f}" for lens in snap.lenses)
+    console.print(f"lenses: {lens_txt}   reference model: {snap.reference}")
+    table = Table(title="held-out quality per group", header_style="bold")
+    cols = ["model", "group", "cases", "log_loss", "auc", "calibration_in_the_large"]
+    cols += [k for k in snap.metrics[0] if k.startswith("error_rate")] if snap.metrics else []
+    for c in cols:
+        table.add_column(
+            c.replace("calibration_in_the_large", "calib.").replace("error_rate", "error")
+        )
+    for row in snap.metrics:
+        table.add_row(*(_metric_cell(row.get(c)) for c in cols))
+    console.print(table)
+    console.print(
+        f"proxies: {', '.join(snap.proxies.proxies) or 'none'}   "
+        f"group recoverable from the other features: AUC {snap.proxies.recoverability:.3f}"
+    )
+    for note in snap.meta.get("notes", []):
+        err_console.print(f"note: {note}")
+
+
+def _metric_cell(value: Any) -> str:
+    if isinstance(value, float):
+        return f"{value:.3f}"
+    return format_cell(value)
+
+
+def queue(
+    config: Path = ConfigOption,
+    limit: int = typer.Option(20, "--limit", "-n", help="How many rows to show (0 = all)."),
+    group: str | None = typer.Option(None, "--group", "-g", help="Only this group level."),
+    flips: bool = typer.Option(False, "--flips", help="Only cases some model or lens flips."),
+    band: float | None = typer.Option(
+        None, "--band", help="Review band in log-odds (default: config)."
+    ),
+    all_cases: bool = typer.Option(False, "--all", help="List every case, not only close calls."),
+    sort: str = typer.Option("closeness", "--sort", help=f"One of: {', '.join(SORT_KEYS)}."),
+    id_prefix: str | None = typer.Option(None, "--id", help="Only ids starting with this text."),
+    fmt: Format = FormatOption,
+    as_json: bool = JsonOption,
+) -> None:
+    """List the close calls: near the threshold, or decided differently by the suite.
+
+    Margins are log-odds distances from the threshold (> 0 favourable) under the reference
+    model and the first cost lens; 'differs' names each model@lens that decides otherwise.
+
+    Example: closecall queue --flips --group Briar --limit 10
+    """
+    fmt = resolve_format(fmt, as_json)
+    study = load(config, quiet=fmt is not Format.table)
+    snap = study.snapshot
+    q = build_queue(
+        snap,
+        band=study.config.review.band if band is None else band,
+        group=group,
+        flips_only=flips,
+        close_only=not all_cases,
+        sort=sort,
+        id_prefix=id_prefix,
+        options={"config": study.config},
+    )
+    rows = queue_rows(snap, q, 0, None if limit == 0 else limit)
+    meta = {
+        "snapshot": snap.id,
+        "reference": snap.reference,
+        "lens": snap.lenses[0].name,
+        "band": q.band,
+        "sort": q.sort,
+        "counts": q.counts,
+    }
+    if fmt is Format.table:
+        _print_queue_table(snap, q, rows)
+        return
+    if fmt is Format.csv:
+        flat = [
+            {
+                "rank": r["rank"],
+                "case_id": r["case_id"],
+                "group": r["group"],
+                "margin": r["margin"],
+                "decision": r["decision"],
+                "flip": r["flip"],
+                "differs": ";".join(r["differs"]),
+                **{f"margin_{m}": r["margins"][m] for m in snap.model_names},
+            }
+            for r in rows
+        ]
+        emit_rows(flat, fmt)
+        return
+    emit_rows(rows, fmt, meta=meta)
+
+
+SHORT_MODEL = {
+    "pooled": "pooled",
+    "unaware": "unaware",
+    "proxy_free": "no-proxy",
+    "split": "split",
+    "deployed": "deployed",
+}
+
+
+def _print_queue_table(snap: Any, q: Any, rows: list[dict[str, Any]]) -> None:
+    """A compact table that fits 80 columns: margins per model, how many pairs flip."""
+    table = Table(
+        title=f"close calls — snapshot {snap.id}",
+        header_style="bold",
+        box=box.SIMPLE_HEAD,
+        caption=(
+            f"{q.counts['listed']:,} listed of {q.counts['cases']:,} cases; "
+            f"{q.counts['within_band']:,} within ±{q.band:g} of the threshold, "
+            f"{q.counts['flips']:,} flips. Margins in log-odds under lens "
+            f"'{snap.lenses[0].name}', > 0 favourable; * marks the reference model; "
+            f"'flips' counts the model × lens pairs that decide otherwise "
+            f"(--json lists them)."
+        ),
+    )
+    table.add_column("#", justify="right", no_wrap=True)
+    table.add_column("case", no_wrap=True)
+    table.add_column("group", no_wrap=True)
+    for m in snap.model_names:
+        star = "*" if m == snap.reference else ""
+        table.add_column(SHORT_MODEL.get(m, m) + star, justify="right", no_wrap=True)
+    table.add_column("flips", justify="right", no_wrap=True)
+    for r in rows:
+        table.add_row(
+            str(r["rank"]),
+            format_cell(r["case_id"]),
+            format_cell(r["group"]),
+            *(f"{r['margins'][m]:+.2f}" for m in snap.model_names),
+            str(len(r["differs"])) if r["differs"] else "—",
+        )
+    console.print(table)
+
+
+def register(app: typer.Typer) -> None:
+    app.command("init")(init)
+    app.command("demo")(demo)
+    app.command("fit")(fit)
+    app.command("queue")(queue)

@@ -1,0 +1,222 @@
+"""`closecall record` and `closecall ledger show|verify`: a thin layer over closecall.reviews."""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+from typing import Any
+
+import typer
+from rich.markup import escape
+
+from closecall.cli.output import Format, console, emit_json, emit_rows, safe_text
+from closecall.config import load_config
+from closecall.errors import UserError
+from closecall.ledger import ACTIONS, Entry, canonical_json
+from closecall.reviews import check_text, ledger_entries, record_review, verify_ledger
+
+CONFIG_HELP = "The study config file."
+NOTE_PREVIEW = 60  # characters of a note shown in the table (the whole note with --json)
+
+
+def _config_option() -> Any:
+    return typer.Option(Path("closecall.toml"), "--config", "-c", help=CONFIG_HELP)
+
+
+def _read_note_file(path: Path) -> str:
+    try:
+        data = sys.stdin.buffer.read() if str(path) == "-" else path.read_bytes()
+    except OSError as exc:
+        raise UserError(f"{path}: cannot read the note file ({exc.strerror})") from None
+    try:
+        return data.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise UserError(
+            f"{path}: the note is not valid UTF-8 (byte {exc.start + 1})",
+            "save the note as UTF-8 text",
+        ) from None
+
+
+def _print(text: str) -> None:
+    console.print(text, markup=False, highlight=False, soft_wrap=True)
+
+
+def record(
+    case_id: str = typer.Argument(..., help="The case reviewed (its id in the data)."),
+    action: str = typer.Option(..., "--action", "-a", help=f"One of: {', '.join(ACTIONS)}."),
+    reason: str | None = typer.Option(
+        None, "--reason", "-r", help="A reason code from [review] reasons; required to override."
+    ),
+    note: str | None = typer.Option(
+        None, "--note", "-n", help="Why; stored exactly as typed. Required to override."
+    ),
+    note_file: Path | None = typer.Option(
+        None, "--note-file", help="Read the note from this UTF-8 file ('-' for standard input)."
+    ),
+    supersedes: int | None = typer.Option(
+        None, "--supersedes", help="Sequence number of an earlier entry for this case to correct."
+    ),
+    config: Path = _config_option(),
+    as_json: bool = typer.Option(False, "--json", help="Print the new entry as JSON."),
+) -> None:
+    """Record your decision on a case in the ledger (as your login; never edited later).
+
+    Prints the new entry's sequence number and hash. A correction is a new entry that names
+    the one it supersedes.
+
+    \b
+    Example:
+      closecall record C-000117 --action override-favourable \\
+          --reason information-not-in-model --note "Income verified by letter of 3 May."
+    """
+    if note is not None and note_file is not None:
+        raise UserError("give the note with --note or with --note-file, not both")
+    text = _read_note_file(note_file) if note_file is not None else (note or "")
+    check_text("--note", text)  # before the study is opened: fail fast on undecodable bytes
+    from closecall.study import open_study
+
+    study = open_study(config)
+    entry = record_review(study, case_id, action, reason, text, supersedes)
+    if as_json:
+        emit_json(entry.to_dict())
+        return
+    _print(
+        f"recorded entry {entry.seq}: case {safe_text(entry.case_id)}, {entry.action}"
+        + (f" ({safe_text(entry.reason)})" if entry.reason else "")
+        + f", by {safe_text(entry.reviewer)}"
+    )
+    _print(f"hash {entry.hash}")
+    if entry.current_snapshot_id:
+        _print(
+            f"note: reviewed against snapshot {entry.snapshot_id[:12]}; the current snapshot "
+            f"is {entry.current_snapshot_id[:12]} (both are recorded)"
+        )
+
+
+ledger_app = typer.Typer(
+    help="Read and check the review ledger.\n\n\b\nExample:\n  closecall ledger verify",
+    no_args_is_help=True,
+    rich_markup_mode=None,
+)
+
+
+def _preview(note: str) -> str:
+    flat = " ".join(note.split())
+    return flat if len(flat) <= NOTE_PREVIEW else flat[: NOTE_PREVIEW - 1] + "…"
+
+
+def _table_row(e: Entry) -> dict[str, Any]:
+    # rich reads table cells as markup: escape "[" so a note like "[/x]" prints as typed
+    margin = "—" if e.reference_margin is None else f"{e.reference_margin:+.3f}"
+    return {
+        "seq": e.seq,
+        "time": e.time[:19].replace("T", " "),
+        "reviewer": escape(e.reviewer),
+        "case": escape(e.case_id),
+        "action": e.action,
+        "reason": None if e.reason is None else escape(e.reason),
+        "model": f"{e.reference_model}: {e.reference_decision} {margin}",
+        "note": escape(_preview(e.note)),
+        "supersedes": e.supersedes,
+    }
+
+
+def _csv_row(e: Entry) -> dict[str, Any]:
+    row = e.to_dict()
+    row["decisions"] = canonical_json(e.decisions).decode("utf-8")
+    # shown on a terminal: escape control characters (exact text: --json or `ledger export`)
+    return {k: safe_text(v) if isinstance(v, str) else v for k, v in row.items()}
+
+
+@ledger_app.command("show")
+def show(
+    case: str | None = typer.Option(None, "--case", help="Only entries for this case id."),
+    reviewer: str | None = typer.Option(None, "--reviewer", help="Only entries by this login."),
+    limit: int | None = typer.Option(None, "--limit", help="Only the most recent N entries."),
+    fmt: Format = typer.Option(Format.table, "--format", help="table, json or csv."),
+    as_json: bool = typer.Option(False, "--json", help="Same as --format json."),
+    config: Path = _config_option(),
+) -> None:
+    """List ledger entries, oldest first.
+
+    The table shortens notes; --json prints every field exactly (JSON escapes included).
+    Control and escape characters in notes are shown as visible codes, never sent to the
+    terminal.
+
+    \b
+    Example:
+      closecall ledger show --case C-000117
+      closecall ledger show --reviewer alice --limit 20 --json
+    """
+    cfg = load_config(config)
+    entries = ledger_entries(cfg, case_id=case, reviewer=reviewer, limit=limit)
+    fmt = Format.json if as_json else fmt
+    meta = {"ledger": str(cfg.review.ledger), "count": len(entries)}
+    if fmt is Format.json:
+        emit_rows([e.to_dict() for e in entries], fmt, meta=meta)
+    elif fmt is Format.csv:
+        emit_rows([_csv_row(e) for e in entries], fmt, columns=_csv_columns())
+    else:
+        emit_rows(
+            [_table_row(e) for e in entries],
+            fmt,
+            title=escape(f"ledger {safe_text(str(cfg.review.ledger))}"),
+            caption=f"{len(entries)} entries" if entries else "no entries",
+        )
+
+
+def _csv_columns() -> list[str]:
+    from closecall.ledger.entry import HASHED_FIELDS
+
+    return [*HASHED_FIELDS, "hash"]
+
+
+@ledger_app.command("verify")
+def verify(
+    anchor: str | None = typer.Option(
+        None, "--anchor", help="A head hash kept elsewhere earlier; it must still be in the chain."
+    ),
+    as_json: bool = typer.Option(False, "--json", help="Print the result as JSON."),
+    config: Path = _config_option(),
+) -> None:
+    """Recompute the hash chain; name the first broken entry; print the head hash.
+
+    Exit code 0 when the chain is intact (and holds the anchor), 1 when it is not.
+    Keep the printed head hash somewhere the ledger's owners cannot write (a daily e-mail,
+    another server); pass it back with --anchor to detect entries cut from the end.
+
+    \b
+    Example:
+      closecall ledger verify
+      closecall ledger verify --anchor 3f1c…(64 hex characters)
+    """
+    cfg = load_config(config)
+    result = verify_ledger(cfg, anchor)
+    if as_json:
+        emit_json({"ledger": str(cfg.review.ledger), **result.to_dict()})
+    else:
+        where = safe_text(str(cfg.review.ledger))
+        if result.ok:
+            _print(f"ledger {where}: {result.entries} entries, chain intact")
+            if result.anchor is not None:
+                _print(f"anchor found at entry {result.anchor_seq}")
+        else:
+            _print(f"ledger {where}: BROKEN after {result.verified} good entries")
+            for problem in result.problems:
+                _print(f"  {problem.message}")
+        _print(f"head {result.head_seq} {result.head_hash}")
+    if not result.ok:
+        raise typer.Exit(1)
+
+
+def register(app: typer.Typer) -> None:
+    """Add `record` and the `ledger` group to the closecall app."""
+    app.command("record")(record)
+    try:
+        from closecall.cli.export_cmds import register_ledger_export
+    except ModuleNotFoundError as exc:  # `ledger export` not written yet
+        if exc.name != "closecall.cli.export_cmds":
+            raise
+    else:
+        register_ledger_export(ledger_app)
+    app.add_typer(ledger_app, name="ledger")

@@ -1,0 +1,40 @@
+"""The review ledger: append-only, hash-chained, shared by several reviewers at once.
+
+See docs/ledger.md for the format and guarantees.
+"""
+
+from closecall.ledger.access import current_login, may_read, may_record
+from closecall.ledger.entry import (
+    ACTIONS,
+    GENESIS_HASH,
+    OVERRIDES,
+    Entry,
+    EntryContent,
+    canonical_json,
+    entry_hash,
+)
+from closecall.ledger.schema import SCHEMA_VERSION
+from closecall.ledger.store import Claim, Draft, Ledger, NoLedger, open_ledger
+from closecall.ledger.verify import Problem, VerifyResult, verify_chain
+
+__all__ = [
+    "ACTIONS",
+    "GENESIS_HASH",
+    "OVERRIDES",
+    "SCHEMA_VERSION",
+    "Claim",
+    "Draft",
+    "Entry",
+    "EntryContent",
+    "Ledger",
+    "NoLedger",
+    "Problem",
+    "VerifyResult",
+    "canonical_json",
+    "current_login",
+    "entry_hash",
+    "may_read",
+    "may_record",
+    "open_ledger",
+    "verify_chain",
+]

@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import csv
 import io
+import os
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -46,12 +47,19 @@ def _rows_text(path: Path, positions: np.ndarray, limit: int = 5) -> str:
     return text + (f" (and {more} more)" if more > 0 else "")
 
 
-def read_table(path: Path, *, text_columns: tuple[str, ...] = ()) -> pd.DataFrame:
-    """Read a CSV (UTF-8) or Parquet file, refusing empty files and duplicate columns."""
+def require_file(path: Path) -> None:
+    """Refuse a data path that is missing, a folder, or unreadable."""
     if not path.exists():
         raise UserError(f"{path}: file not found", "check the path in the study config")
     if path.is_dir():
         raise UserError(f"{path}: is a folder, not a data file", "name a .csv or .parquet file")
+    if not os.access(path, os.R_OK):
+        raise UserError(f"{path}: permission denied", "make the file readable for your login")
+
+
+def read_table(path: Path, *, text_columns: tuple[str, ...] = ()) -> pd.DataFrame:
+    """Read a CSV (UTF-8) or Parquet file, refusing empty files and duplicate columns."""
+    require_file(path)
     suffix = path.suffix.lower()
     try:
         if suffix in (".parquet", ".pq"):

@@ -82,7 +82,7 @@ class Encoder:
                     blocks.append(miss.astype(float)[:, None])
             else:
                 values = _category_strings(col)
-                codes = pd.Categorical(values, categories=f.levels).codes
+                codes = pd.Index(f.levels).get_indexer(values)
                 bad = codes < 0
                 if bad.any():
                     unseen[f.name] = int(bad.sum())

@@ -27,6 +27,7 @@ from scipy.special import logit
 from closecall import __version__
 from closecall.analysis.proxies import ProxyReport
 from closecall.config import CostLens, StudyConfig
+from closecall.data import require_file
 from closecall.encode import Encoder
 from closecall.errors import UserError
 from closecall.suite import SuiteResult
@@ -36,6 +37,7 @@ SNAPSHOT_FORMAT = 1
 
 def file_digest(path: Path) -> str:
     """SHA-256 of a file's bytes."""
+    require_file(path)
     h = hashlib.sha256()
     with path.open("rb") as fh:
         for chunk in iter(lambda: fh.read(1 << 22), b""):

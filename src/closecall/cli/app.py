@@ -6,6 +6,7 @@ import importlib
 import sys
 
 import typer
+from rich.markup import escape
 
 from closecall import __version__
 from closecall.cautions import CAUTIONS_TEXT
@@ -73,24 +74,12 @@ for _name in COMMAND_MODULES:
 def main() -> None:
     """Entry point: runs the app, turning user errors into one message and exit code 2."""
     try:
-        app(standalone_mode=False)
+        app()  # standalone: usage errors print their own message and exit 2
     except UserError as exc:
-        err_console.print(f"[bold red]error:[/] {safe_text(exc.message)}", soft_wrap=True)
+        err_console.print(f"[bold red]error:[/] {escape(safe_text(exc.message))}", soft_wrap=True)
         if exc.fix:
-            err_console.print(f"  [bold]fix:[/] {safe_text(exc.fix)}", soft_wrap=True)
+            err_console.print(f"  [bold]fix:[/] {escape(safe_text(exc.fix))}", soft_wrap=True)
         sys.exit(exc.exit_code)
-    except typer.Exit as exc:
-        sys.exit(exc.exit_code)
-    except typer.Abort:
-        err_console.print("aborted")
-        sys.exit(130)
     except KeyboardInterrupt:
         err_console.print("interrupted")
         sys.exit(130)
-    except Exception as exc:  # click usage errors arrive here in non-standalone mode
-        import click
-
-        if isinstance(exc, click.exceptions.ClickException):
-            exc.show()
-            sys.exit(2 if isinstance(exc, click.UsageError) else exc.exit_code)
-        raise

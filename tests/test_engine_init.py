@@ -1,0 +1,40 @@
+"""`closecall init` drafts a config that loads, and says what is left to decide."""
+
+from __future__ import annotations
+
+import json
+import shutil
+from pathlib import Path
+
+from closecall.config import load_config
+
+FIXTURE = Path(__file__).resolve().parent.parent / "fixtures" / "demo"
+
+
+def test_init_infers_and_lists_decisions(tmp_path: Path, cli) -> None:  # type: ignore[no-untyped-def]
+    shutil.copy(FIXTURE / "history.csv", tmp_path / "history.csv")
+    out = tmp_path / "closecall.toml"
+    res = cli("init", str(tmp_path / "history.csv"), "--out", str(out), "--json")
+    assert res.code == 0, res
+    info = json.loads(res.out)
+    assert info["inferred"]["id"] == "application_id"
+    assert info["inferred"]["outcome"] == "completed"
+    assert info["inferred"]["favourable"] == "yes"
+    assert info["inferred"]["group"] == ["heritage"]
+    assert info["inferred"]["kinds"]["zone"] == "categorical"
+    assert info["inferred"]["kinds"]["household_income_k"] == "numeric"
+    assert any(d.startswith("group:") and "legal" in d for d in info["to_decide"])
+    config = load_config(out)
+    assert config.data.group == ("heritage",) and config.cross_fitted
+    # refuses to overwrite without --force
+    again = cli("init", str(tmp_path / "history.csv"), "--out", str(out))
+    assert again.code == 2 and "--force" in again.err
+
+
+def test_init_without_a_group_column_asks_for_one(tmp_path: Path, cli) -> None:  # type: ignore[no-untyped-def]
+    (tmp_path / "d.csv").write_text("case_id,x,approved\n1,0.5,yes\n2,0.7,no\n3,0.1,yes\n")
+    res = cli("init", str(tmp_path / "d.csv"), "--out", str(tmp_path / "c.toml"))
+    assert res.code == 0, res
+    assert "which column(s) hold the protected attribute" in res.out
+    fit = cli("fit", "--config", str(tmp_path / "c.toml"))
+    assert fit.code == 2 and "[data] needs 'group'" in fit.err

@@ -174,6 +174,7 @@ def queue_rows(
             "flip": bool(diff),
             "differs": diff,
             "margins": margins,
+            "decisions": {m: decision_word(v > 0) for m, v in margins.items()},
             "lens": first,
         }
         for name, values in q.measures.items():

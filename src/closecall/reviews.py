@@ -124,7 +124,7 @@ def _plain_decisions(decisions: Mapping[str, Mapping[str, Any]]) -> dict[str, di
 
 
 def _current_snapshot_id(study: Study) -> str | None:
-    """The id of the snapshot that the study's config and data give now (None if unreadable).
+    """The id of the snapshot the study's config and data give now (None if they can't be read).
 
     Differs from ``study.snapshot.id`` when the data files or the config changed after the
     study was opened: the review was made against a stale snapshot.
@@ -137,7 +137,7 @@ def _current_snapshot_id(study: Study) -> str | None:
         config = study.config
     try:
         return snapshot_id(config)
-    except OSError:
+    except (OSError, UserError):  # data files gone or unreadable: cannot tell
         return None
 
 

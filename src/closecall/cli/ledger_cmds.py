@@ -7,20 +7,16 @@ from pathlib import Path
 from typing import Any
 
 import typer
-from rich.markup import escape
+from rich import box
+from rich.table import Table
+from rich.text import Text
 
+from closecall.cli.common import ConfigOption, FormatOption, JsonOption, load, resolve_format
 from closecall.cli.output import Format, console, emit_json, emit_rows, safe_text
 from closecall.config import load_config
 from closecall.errors import UserError
 from closecall.ledger import ACTIONS, Entry, canonical_json
 from closecall.reviews import check_text, ledger_entries, record_review, verify_ledger
-
-CONFIG_HELP = "The study config file."
-NOTE_PREVIEW = 60  # characters of a note shown in the table (the whole note with --json)
-
-
-def _config_option() -> Any:
-    return typer.Option(Path("closecall.toml"), "--config", "-c", help=CONFIG_HELP)
 
 
 def _read_note_file(path: Path) -> str:
@@ -56,7 +52,7 @@ def record(
     supersedes: int | None = typer.Option(
         None, "--supersedes", help="Sequence number of an earlier entry for this case to correct."
     ),
-    config: Path = _config_option(),
+    config: Path = ConfigOption,
     as_json: bool = typer.Option(False, "--json", help="Print the new entry as JSON."),
 ) -> None:
     """Record your decision on a case in the ledger (as your login; never edited later).
@@ -66,16 +62,14 @@ def record(
 
     \b
     Example:
-      closecall record C-000117 --action override-favourable \\
+      closecall record HR-0000117 --action override-favourable \\
           --reason information-not-in-model --note "Income verified by letter of 3 May."
     """
     if note is not None and note_file is not None:
         raise UserError("give the note with --note or with --note-file, not both")
     text = _read_note_file(note_file) if note_file is not None else (note or "")
     check_text("--note", text)  # before the study is opened: fail fast on undecodable bytes
-    from closecall.study import open_study
-
-    study = open_study(config)
+    study = load(config, quiet=as_json)
     entry = record_review(study, case_id, action, reason, text, supersedes)
     if as_json:
         emit_json(entry.to_dict())
@@ -100,25 +94,63 @@ ledger_app = typer.Typer(
 )
 
 
-def _preview(note: str) -> str:
-    flat = " ".join(note.split())
-    return flat if len(flat) <= NOTE_PREVIEW else flat[: NOTE_PREVIEW - 1] + "…"
+def _preview(note: str, width: int) -> str:
+    flat = " ".join(safe_text(note).split())
+    return flat if len(flat) <= width else flat[: max(width - 1, 0)] + "…"
 
 
-def _table_row(e: Entry) -> dict[str, Any]:
-    # rich reads table cells as markup: escape "[" so a note like "[/x]" prints as typed
-    margin = "—" if e.reference_margin is None else f"{e.reference_margin:+.3f}"
-    return {
-        "seq": e.seq,
-        "time": e.time[:19].replace("T", " "),
-        "reviewer": escape(e.reviewer),
-        "case": escape(e.case_id),
-        "action": e.action,
-        "reason": None if e.reason is None else escape(e.reason),
-        "model": f"{e.reference_model}: {e.reference_decision} {margin}",
-        "note": escape(_preview(e.note)),
-        "supersedes": e.supersedes,
-    }
+def _table(entries: list[Entry], ledger: Path) -> Table:
+    """A compact table as wide as the terminal; the note gets the room that is left.
+
+    Cells are Text, never read as rich markup, and control characters are shown as codes.
+    """
+    headers = ("#", "time (UTC)", "by", "case", "action / reason")
+    cells = [
+        (
+            str(e.seq),
+            e.time[:16].replace("T", " "),
+            safe_text(e.reviewer),
+            safe_text(e.case_id),
+            "\n".join(
+                [e.action]
+                + ([safe_text(e.reason)] if e.reason else [])
+                + ([f"corrects #{e.supersedes}"] if e.supersedes is not None else [])
+            ),
+        )
+        for e in entries
+    ]
+    widths = [
+        max([len(h)] + [max(len(line) for line in row[k].split("\n")) for row in cells])
+        for k, h in enumerate(headers)
+    ]
+    widths[2] = min(widths[2], 12)  # long logins are cut
+    widths[3] = min(widths[3], 24)  # and long case ids
+    widths[4] = min(widths[4], len("override-unfavourable"))  # and long reason codes
+    table = Table(
+        title=Text(f"ledger {safe_text(str(ledger))}"),
+        caption=(
+            f"{len(entries)} entries; notes shortened (--json shows every field)"
+            if entries
+            else "no entries"
+        ),
+        box=box.SIMPLE_HEAD,
+        pad_edge=False,
+        expand=True,
+        header_style="bold",
+    )
+    for header, w in zip(headers, widths, strict=True):
+        table.add_column(
+            header,
+            no_wrap=True,
+            overflow="ellipsis",
+            min_width=w,
+            max_width=w,
+            justify="right" if header == "#" else "left",
+        )
+    table.add_column("note", no_wrap=True, overflow="ellipsis", ratio=1, min_width=12)
+    for e, row in zip(entries, cells, strict=True):
+        table.add_row(*(Text(c) for c in row), Text(_preview(e.note, 400)))
+    return table
 
 
 def _csv_row(e: Entry) -> dict[str, Any]:
@@ -133,9 +165,9 @@ def show(
     case: str | None = typer.Option(None, "--case", help="Only entries for this case id."),
     reviewer: str | None = typer.Option(None, "--reviewer", help="Only entries by this login."),
     limit: int | None = typer.Option(None, "--limit", help="Only the most recent N entries."),
-    fmt: Format = typer.Option(Format.table, "--format", help="table, json or csv."),
-    as_json: bool = typer.Option(False, "--json", help="Same as --format json."),
-    config: Path = _config_option(),
+    fmt: Format = FormatOption,
+    as_json: bool = JsonOption,
+    config: Path = ConfigOption,
 ) -> None:
     """List ledger entries, oldest first.
 
@@ -150,19 +182,14 @@ def show(
     """
     cfg = load_config(config)
     entries = ledger_entries(cfg, case_id=case, reviewer=reviewer, limit=limit)
-    fmt = Format.json if as_json else fmt
+    fmt = resolve_format(fmt, as_json)
     meta = {"ledger": str(cfg.review.ledger), "count": len(entries)}
     if fmt is Format.json:
         emit_rows([e.to_dict() for e in entries], fmt, meta=meta)
     elif fmt is Format.csv:
         emit_rows([_csv_row(e) for e in entries], fmt, columns=_csv_columns())
     else:
-        emit_rows(
-            [_table_row(e) for e in entries],
-            fmt,
-            title=escape(f"ledger {safe_text(str(cfg.review.ledger))}"),
-            caption=f"{len(entries)} entries" if entries else "no entries",
-        )
+        console.print(_table(entries, cfg.review.ledger), width=max(console.width, 80))
 
 
 def _csv_columns() -> list[str]:
@@ -176,8 +203,8 @@ def verify(
     anchor: str | None = typer.Option(
         None, "--anchor", help="A head hash kept elsewhere earlier; it must still be in the chain."
     ),
-    as_json: bool = typer.Option(False, "--json", help="Print the result as JSON."),
-    config: Path = _config_option(),
+    as_json: bool = JsonOption,
+    config: Path = ConfigOption,
 ) -> None:
     """Recompute the hash chain; name the first broken entry; print the head hash.
 

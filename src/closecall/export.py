@@ -262,12 +262,18 @@ def export_reviews(
     Raises
     ------
     UserError
-        Reviewer pseudonyms asked for without a key; a key file that is unsafe or invalid.
+        An empty ledger; reviewer pseudonyms asked for without a key; a key file that is unsafe
+        or invalid.
     """
     if pseudonymise_reviewers and key_file is None:
         raise UserError(
             "--pseudonymise-reviewers needs a key",
             "add --pseudonymise KEYFILE (a new file is created with a fresh key)",
+        )
+    if not entries:
+        raise UserError(
+            f"{study.config.review.ledger}: the ledger has no reviews yet; nothing to export",
+            "record reviews first (closecall record), or for the demo: closecall demo-reviews 300",
         )
     table = review_frame(study, entries, all_entries=all_entries)
     warnings: list[str] = []

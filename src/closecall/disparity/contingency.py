@@ -88,6 +88,7 @@ def independence_test(
     expected = stats.contingency.expected_freq(t)
     min_exp = float(expected.min())
     dropped = _dropped_note(rows, keep_r)
+    kept_rows = [r for r, k in zip(rows, keep_r, strict=True) if k]
     if t.shape == (2, 2):
         res = stats.fisher_exact(t, alternative="two-sided")
         smaller = int(t.sum(axis=0).min())
@@ -101,7 +102,7 @@ def independence_test(
             **base,
             method="fisher-exact",
             statistic=float(res.statistic),
-            statistic_name="odds ratio",
+            statistic_name=f"odds ratio {kept_rows[0]} vs {kept_rows[1]}",
             dof=None,
             p_value=float(res.pvalue),
             min_expected=min_exp,

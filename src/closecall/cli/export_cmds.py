@@ -1,0 +1,95 @@
+"""`closecall ledger export`: the analyst export, a thin layer over closecall.export."""
+
+from __future__ import annotations
+
+import sys
+from enum import StrEnum
+from pathlib import Path
+
+import typer
+
+from closecall.cli.common import ConfigOption, load
+from closecall.cli.output import err_console, safe_text
+from closecall.config import load_config
+from closecall.errors import UserError
+from closecall.export import export_reviews, table_bytes, write_export
+from closecall.reviews import ledger_entries
+
+
+class ExportFormat(StrEnum):
+    csv = "csv"
+    parquet = "parquet"
+    jsonl = "jsonl"
+
+
+def export(
+    fmt: ExportFormat = typer.Option(
+        ExportFormat.csv, "--format", "-f", help="csv, parquet or jsonl.", case_sensitive=False
+    ),
+    all_entries: bool = typer.Option(
+        False, "--all-entries", help="Every ledger entry, not only each case's effective review."
+    ),
+    key_file: Path | None = typer.Option(
+        None,
+        "--pseudonymise",
+        help="Replace case ids with keyed HMAC-SHA256 pseudonyms; the key is kept in this file "
+        "(created, readable by you only, if missing). Same key, same pseudonyms.",
+    ),
+    reviewers: bool = typer.Option(
+        False, "--pseudonymise-reviewers", help="Pseudonymise reviewer names too."
+    ),
+    no_notes: bool = typer.Option(False, "--no-notes", help="Leave the free-text notes out."),
+    out: Path | None = typer.Option(
+        None, "--out", "-o", help="Write to this file (readable by you only); default stdout."
+    ),
+    config: Path = ConfigOption,
+) -> None:
+    """Export the review record for analysis: one row per reviewed case by default.
+
+    Each row: case, group, reviewer, the reference model's margin and decision, the action, the
+    final decision (empty for a deferral), reason, note, and every model's margin and decision
+    as the reviewer saw them. With --pseudonymise the entry hashes are left out (they would
+    let anyone confirm a guessed case id).
+
+    \b
+    Example:
+      closecall ledger export --format parquet --out reviews.parquet
+      closecall ledger export --pseudonymise ~/.closecall-key --no-notes --out reviews.csv
+    """
+    cfg = load_config(config)
+    entries = ledger_entries(cfg)  # checks read access before anything else
+    if fmt is ExportFormat.parquet and out is None and sys.stdout.isatty():
+        raise UserError("Parquet is binary and will not be printed", "add --out FILE.parquet")
+    study = load(config, quiet=True)
+    result = export_reviews(
+        study,
+        entries,
+        all_entries=all_entries,
+        key_file=key_file,
+        pseudonymise_reviewers=reviewers,
+        notes=not no_notes,
+    )
+    if result.key_created and result.key_file is not None:
+        err_console.print(
+            f"created the key file {safe_text(str(result.key_file))} (mode 600): keep it; the "
+            "same key gives the same pseudonyms",
+            markup=False,
+        )
+    for warning in result.warnings:
+        err_console.print(f"note: {safe_text(warning)}", markup=False)
+    what = "entries" if all_entries else "effective reviews"
+    if out is None:
+        sys.stdout.buffer.write(table_bytes(result.table, fmt.value))
+        sys.stdout.flush()
+        return
+    write_export(result.table, fmt.value, out)
+    err_console.print(
+        f"wrote {len(result.table)} {what} ({result.entries} ledger entries read) "
+        f"to {safe_text(str(out))}",
+        markup=False,
+    )
+
+
+def register_ledger_export(ledger_app: typer.Typer) -> None:
+    """Add `export` to the `closecall ledger` group."""
+    ledger_app.command("export")(export)

@@ -5,6 +5,14 @@ cost lens lies within the review band of zero, or when any model of the suite or
 decides it differently (a *flip*). The queue lists close calls with flips first, then by
 closeness (|margin|); other orders and filters are available. All of it is vectorised: one
 argsort over all cases.
+
+Two orders and filters come from the analysis (docs/methods.md):
+
+- ``ambiguity``: the reach h/(h + |margin|) of the pooled model's equally-good band (h its
+  half-width); above 0.5 the band straddles zero (``ambiguous_only`` keeps those cases);
+- ``dependence``: the share of the pooled model's feature pull that comes from the group
+  attribute and its proxies; ``rests_on`` keeps cases whose decision flips when the group
+  (``"group"``) or the group and its proxies (``"proxies"``) are set to their history average.
 """
 
 from __future__ import annotations
@@ -16,14 +24,21 @@ from typing import Any
 import numpy as np
 from scipy.special import logit
 
+from closecall.analysis.dependence import dependence_share, rests_on
+from closecall.analysis.multiplicity import ambiguity_measure, ambiguous_cases
 from closecall.errors import UserError
 from closecall.snapshot import Snapshot, decision_word
 
 SORT_KEYS = ("closeness", "margin", "ambiguity", "dependence", "id")
+RESTS_ON = ("group", "proxies")
 
-# Extra per-case measures (e.g. ambiguity, dependence) registered by analysis modules:
-# name -> function(snapshot, config-like options) -> (n,) float array, larger = more urgent.
-MEASURES: dict[str, Callable[[Snapshot, dict[str, Any]], np.ndarray]] = {}
+# Extra per-case measures registered by analysis modules:
+# name -> function(snapshot, options) -> (n,) float array, larger = more urgent.
+# options may hold "config" (the StudyConfig), "epsilon" (relative ε) and "model".
+MEASURES: dict[str, Callable[[Snapshot, dict[str, Any]], np.ndarray]] = {
+    "ambiguity": ambiguity_measure,
+    "dependence": dependence_share,
+}
 
 
 @dataclass
@@ -90,6 +105,8 @@ def build_queue(
     id_prefix: str | None = None,
     options: dict[str, Any] | None = None,
     exclude_rows: np.ndarray | None = None,
+    ambiguous_only: bool = False,
+    rests_on_part: str | None = None,
 ) -> Queue:
     """Rank and filter the cases of a snapshot.
 
@@ -102,11 +119,20 @@ def build_queue(
     sort : one of SORT_KEYS
     id_prefix : keep ids starting with this text
     exclude_rows : boolean mask of rows to drop (e.g. already reviewed)
+    options : for the analysis measures: "config", "epsilon" (relative ε), "model"
+    ambiguous_only : keep cases whose equally-good band straddles zero
+    rests_on_part : "group" or "proxies": keep cases whose decision flips when that part
+        (the group; the group and its proxies) is neutralised
     """
     if sort not in SORT_KEYS:
         raise UserError(f"unknown sort key '{sort}'", f"use one of: {', '.join(SORT_KEYS)}")
     if band < 0:
         raise UserError("the review band must be >= 0", "pass a band such as 0.5")
+    if rests_on_part is not None and rests_on_part not in RESTS_ON:
+        raise UserError(
+            f"unknown part '{rests_on_part}' for --rests-on", f"use one of: {', '.join(RESTS_ON)}"
+        )
+    options = options or {}
     margin = np.asarray(snap.margins(snap.reference))
     grid = decision_grid(snap)
     flip = grid.flip
@@ -126,12 +152,17 @@ def build_queue(
         keep &= np.char.startswith(np.asarray(snap.case_ids), id_prefix)
     if exclude_rows is not None:
         keep &= ~exclude_rows
-    rows = np.flatnonzero(keep)
     measures: dict[str, np.ndarray] = {}
+    if ambiguous_only:
+        keep &= ambiguous_cases(snap, options)
+        measures["ambiguity"] = MEASURES["ambiguity"](snap, options)
+    if rests_on_part is not None:
+        keep &= rests_on(snap, rests_on_part, options.get("model", "pooled"))
+        measures["dependence"] = MEASURES["dependence"](snap, options)
+    rows = np.flatnonzero(keep)
     if sort in ("ambiguity", "dependence"):
-        if sort not in MEASURES:
-            raise UserError(f"sort key '{sort}' needs the analysis module, which is not installed")
-        measures[sort] = MEASURES[sort](snap, options or {})
+        if sort not in measures:
+            measures[sort] = MEASURES[sort](snap, options)
         key = measures[sort][rows]
         order = rows[np.lexsort((np.abs(margin[rows]), -key))]
     elif sort == "margin":

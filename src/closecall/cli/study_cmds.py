@@ -153,6 +153,24 @@ def queue(
     all_cases: bool = typer.Option(False, "--all", help="List every case, not only close calls."),
     sort: str = typer.Option("closeness", "--sort", help=f"One of: {', '.join(SORT_KEYS)}."),
     id_prefix: str | None = typer.Option(None, "--id", help="Only ids starting with this text."),
+    ambiguous: bool = typer.Option(
+        False,
+        "--ambiguous",
+        help="Only cases whose equally-good band straddles zero (an equally good model "
+        "would decide them the other way).",
+    ),
+    rests_on_part: str | None = typer.Option(
+        None,
+        "--rests-on",
+        help="Only cases whose decision flips when the 'group' (or the group and its "
+        "'proxies') is set to its history average.",
+    ),
+    epsilon: float | None = typer.Option(
+        None,
+        "--epsilon",
+        help="Relative loss slack of the equally-good set for --ambiguous and --sort "
+        "ambiguity (default: [multiplicity] epsilon).",
+    ),
     fmt: Format = FormatOption,
     as_json: bool = JsonOption,
 ) -> None:
@@ -160,8 +178,13 @@ def queue(
 
     Margins are log-odds distances from the threshold (> 0 favourable) under the reference
     model and the first cost lens; 'differs' names each model@lens that decides otherwise.
+    Sorting by ambiguity or dependence, or filtering with --ambiguous / --rests-on, adds
+    that measure as a column (docs/methods.md explains both).
 
-    Example: closecall queue --flips --group Briar --limit 10
+    \b
+    Examples:
+      closecall queue --flips --group Briar --limit 10
+      closecall queue --ambiguous --rests-on proxies --sort dependence
     """
     fmt = resolve_format(fmt, as_json)
     study = load(config, quiet=fmt is not Format.table)
@@ -174,7 +197,9 @@ def queue(
         close_only=not all_cases,
         sort=sort,
         id_prefix=id_prefix,
-        options={"config": study.config},
+        options={"config": study.config, "epsilon": epsilon},
+        ambiguous_only=ambiguous,
+        rests_on_part=rests_on_part,
     )
     rows = queue_rows(snap, q, 0, None if limit == 0 else limit)
     meta = {
@@ -184,6 +209,7 @@ def queue(
         "band": q.band,
         "sort": q.sort,
         "counts": q.counts,
+        "filters": {"ambiguous": ambiguous, "rests_on": rests_on_part, "epsilon": epsilon},
     }
     if fmt is Format.table:
         _print_queue_table(snap, q, rows)
@@ -199,6 +225,7 @@ def queue(
                 "flip": r["flip"],
                 "differs": ";".join(r["differs"]),
                 **{f"margin_{m}": r["margins"][m] for m in snap.model_names},
+                **{name: r[name] for name in q.measures},
             }
             for r in rows
         ]
@@ -222,6 +249,9 @@ def _print_queue_table(snap: Any, q: Any, rows: list[dict[str, Any]]) -> None:
         title=f"close calls — snapshot {snap.id}",
         header_style="bold",
         box=box.SIMPLE_HEAD,
+        show_edge=False,
+        pad_edge=False,
+        padding=(0, 0) if q.measures else (0, 1),  # measure columns: one space between
         caption=(
             f"{q.counts['listed']:,} listed of {q.counts['cases']:,} cases; "
             f"{q.counts['within_band']:,} within ±{q.band:g} of the threshold, "
@@ -229,6 +259,7 @@ def _print_queue_table(snap: Any, q: Any, rows: list[dict[str, Any]]) -> None:
             f"'{snap.lenses[0].name}', > 0 favourable; * marks the reference model; "
             f"'flips' counts the model × lens pairs that decide otherwise "
             f"(--json lists them)."
+            + "".join(MEASURE_NOTES[name] for name in q.measures if name in MEASURE_NOTES)
         ),
     )
     table.add_column("#", justify="right", no_wrap=True)
@@ -238,6 +269,8 @@ def _print_queue_table(snap: Any, q: Any, rows: list[dict[str, Any]]) -> None:
         star = "*" if m == snap.reference else ""
         table.add_column(SHORT_MODEL.get(m, m) + star, justify="right", no_wrap=True)
     table.add_column("flips", justify="right", no_wrap=True)
+    for name in q.measures:
+        table.add_column(MEASURE_HEADERS.get(name, name), justify="right", no_wrap=True)
     for r in rows:
         table.add_row(
             str(r["rank"]),
@@ -245,8 +278,18 @@ def _print_queue_table(snap: Any, q: Any, rows: list[dict[str, Any]]) -> None:
             format_cell(r["group"]),
             *(f"{r['margins'][m]:+.2f}" for m in snap.model_names),
             str(len(r["differs"])) if r["differs"] else "—",
+            *(f"{r[name]:.2f}" for name in q.measures),
         )
     console.print(table)
+
+
+MEASURE_HEADERS = {"ambiguity": "amb.", "dependence": "dep."}
+MEASURE_NOTES = {
+    "ambiguity": " 'amb.' is the reach of the equally-good band (above 0.50: an equally good "
+    "model decides the other way).",
+    "dependence": " 'dep.' is the share of the pooled margin's pull that comes from the group "
+    "and its proxies.",
+}
 
 
 def register(app: typer.Typer) -> None:

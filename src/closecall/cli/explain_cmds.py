@@ -1,0 +1,509 @@
+"""Commands: explain, proxies, bands, compare — a thin layer over closecall.analysis.
+
+Every view reads at 80 columns; decisions, flips and flags carry words or signs as well as
+colour, so nothing is told by colour alone.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any
+
+import typer
+from rich import box
+from rich.table import Table
+from rich.text import Text
+
+from closecall.analysis.comparison import compare_models
+from closecall.analysis.counterparts import counterpart_flip_rates
+from closecall.analysis.dependence import dependence_by_group
+from closecall.analysis.explain import explain_case
+from closecall.analysis.multiplicity import (
+    EPSILON_CURVE,
+    UNCERTAINTY_EPSILON,
+    ambiguity_by_group,
+    epsilon_curve,
+    one_standard_error_epsilon,
+)
+from closecall.cli.common import ConfigOption, JsonOption, load
+from closecall.cli.output import console, emit_json, safe_text
+from closecall.errors import UserError
+
+LensOption = typer.Option(None, "--lens", help="Cost lens name (default: the first one).")
+FLAG = "✱"
+
+
+# --------------------------------------------------------------------------- small helpers
+
+
+def _txt(text: Any, style: str = "") -> Text:
+    return Text(safe_text(str(text)), style=style)
+
+
+def _signed(x: float, digits: int = 2) -> str:
+    return f"{x:+.{digits}f}".replace("-", "−")
+
+
+def _decision(margin: float) -> Text:
+    return _txt("favourable", "green") if margin > 0 else _txt("unfavourable", "red")
+
+
+def _pct(x: float | None, digits: int = 0) -> str:
+    return "—" if x is None else f"{100 * x:.{digits}f} %"
+
+
+def _eps_pct(eps: float) -> str:
+    """A relative ε as a percentage with as many digits as it needs."""
+    pct = 100 * eps
+    if pct == 0:
+        return "0 %"
+    if pct < 0.001:
+        return "<0.001 %"
+    text = f"{pct:.3f}".rstrip("0").rstrip(".") if pct < 10 else f"{pct:.0f}"
+    return f"{text} %"
+
+
+def _bar(value: float, largest: float, width: int = 8) -> Text:
+    """A bar of '+' or '−' characters: the sign is in the characters, not only the colour."""
+    n = 0 if largest <= 0 else max(1, round(width * abs(value) / largest)) if value else 0
+    return _txt(("+" if value > 0 else "−") * n, "green" if value > 0 else "red")
+
+
+def _say(text: str | Text) -> None:
+    """Print a line as plain text (never read as rich markup) or as a styled Text."""
+    console.print(text if isinstance(text, Text) else _txt(text))
+
+
+def _heading(text: str) -> None:
+    console.print()
+    _say(_txt(text, "bold underline"))
+
+
+def _grid(*headers: str, right: tuple[int, ...] = ()) -> Table:
+    table = Table(box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False, header_style="bold")
+    for i, h in enumerate(headers):
+        table.add_column(h, justify="right" if i in right else "left", no_wrap=i in right)
+    return table
+
+
+# --------------------------------------------------------------------------- explain
+
+
+def explain(
+    case_id: str = typer.Argument(..., help="The case to explain (its id in the data)."),
+    exact: bool = typer.Option(
+        False, "--exact", help="Also solve the equally-good band exactly (a convex problem)."
+    ),
+    lens: str | None = LensOption,
+    config: Path = ConfigOption,
+    as_json: bool = JsonOption,
+) -> None:
+    """Why is this case close? Suite decisions, contributions, group dependence,
+    counterparts in other groups, bands and similar past cases.
+
+    All margins are log-odds distances from the cost lens's threshold (> 0 favourable) under
+    the pooled model, which sees the group attribute, so its dependence on it is visible.
+
+    \b
+    Examples:
+      closecall explain HR-0002696
+      closecall explain HR-0002696 --exact --json
+    """
+    study = load(config, quiet=as_json)
+    data = explain_case(study, case_id, exact=exact, lens=lens)
+    if as_json:
+        emit_json(data)
+        return
+    _print_explanation(data)
+
+
+def _print_explanation(d: dict[str, Any]) -> None:
+    lens = d["lens"]
+    head = Text()
+    head.append(safe_text(d["case_id"]), "bold")
+    head.append(f" · group {safe_text(d['group'])} · recorded outcome {d['outcome']}")
+    head.append(f" · snapshot {d['snapshot']}")
+    console.print(head)
+    line = Text(
+        f"{d['model']} model, lens {safe_text(lens['name'])} (t = {lens['threshold']:.3f}): "
+    )
+    line.append(f"margin {_signed(d['margin'], 3)} → ")
+    line.append_text(_decision(d["margin"]))
+    console.print(line)
+
+    _heading("Decisions across the suite")
+    t = _grid("model", "margin", "decision", "", right=(1,))
+    own = d["margin"] > 0
+    for model, md in d["decisions"].items():
+        star = "*" if model == d["reference"] else ""
+        differs = (md["margin"] > 0) != own
+        t.add_row(
+            _txt(model + star),
+            _txt(_signed(md["margin"], 3)),
+            _decision(md["margin"]),
+            _txt(f"{FLAG} differs from {d['model']}" if differs else "", "bold"),
+        )
+    console.print(t)
+    _say(_txt(f"* reference model ({d['reference']})", "dim"))
+
+    dep = d["dependence"]
+    _heading("What the margin is made of (log-odds)")
+    t = _grid("feature", "value", "role", "contribution", "", right=(3,))
+    largest = max((abs(c["contribution"]) for c in dep["contributions"]), default=0.0)
+    for c in dep["contributions"]:
+        role = c["role"].upper() if c["role"] != "other" else ""
+        t.add_row(
+            _txt(c["feature"]),
+            _txt(_value(c["value"])),
+            _txt(role, "bold magenta" if role else ""),
+            _txt(_signed(c["contribution"], 3)),
+            _bar(c["contribution"], largest),
+        )
+    t.add_row(_txt("+ baseline"), _txt("average"), "", _signed(dep["baseline"], 3))
+    t.add_row(_txt("= margin", "bold"), "", "", _txt(_signed(d["margin"], 3), "bold"))
+    console.print(t)
+    _say(
+        f"group {_signed(dep['group_part'], 3)} · proxies {_signed(dep['proxy_part'], 3)}"
+        f" · rest {_signed(dep['rest'], 3)} · {_pct(dep['share'])} of the pull from these two"
+    )
+    t = _grid("neutralised", "margin", "decision", "", right=(1,))
+    for label, key, flag, what in (
+        ("the group", "margin_group_neutral", "rests_on_group", "rests on the group"),
+        ("group and proxies", "margin_neutral", "rests_on_proxies", "rests on group/proxies"),
+    ):
+        t.add_row(
+            _txt(label),
+            _signed(dep[key], 3),
+            _decision(dep[key]),
+            _txt(f"{FLAG} FLIPS: {what}" if dep[flag] else "same decision", "bold"),
+        )
+    console.print(t)
+
+    _heading("Counterparts: the case carried into another group")
+    t = _grid("as group", "what changes", "margin", "decision", "", right=(2,))
+    for cp in d["counterparts"]:
+        moved = "; ".join(
+            f"{c['feature']} {_value(c['from'])}→{_value(c['to'])}" for c in cp["carried"]
+        )
+        for label, mkey, fkey in (
+            ("group only", "margin_group_swapped", "flips_group_swapped"),
+            (
+                f"group; {moved}" if moved else "group (no proxies)",
+                "margin_carried",
+                "flips_carried",
+            ),
+        ):
+            t.add_row(
+                _txt(cp["group"]),
+                _txt(label),
+                _signed(cp[mkey], 3),
+                _decision(cp[mkey]),
+                _txt(f"{FLAG} FLIPS" if cp[fkey] else "same", "bold"),
+            )
+    console.print(t)
+
+    b = d["bands"]
+    _heading("Bands: where the margin could be under other models")
+    t = _grid("band", "low", "high", "", right=(1, 2))
+    unc, eg = b["uncertainty"], b["equally_good"]
+    rows = [
+        (f"uncertainty, 95 % (ε = {UNCERTAINTY_EPSILON:.2f})", unc),
+        (f"equally good (ε = {_eps_pct(eg['epsilon'])} of the loss)", eg),
+    ]
+    for label, band in rows:
+        t.add_row(
+            _txt(label),
+            _signed(band["low"], 3),
+            _signed(band["high"], 3),
+            _txt(f"{FLAG} straddles zero" if band["straddles_zero"] else "one side", "bold"),
+        )
+    if b["exact"] is not None:
+        ex = b["exact"]
+        t.add_row(
+            _txt("equally good, solved exactly"), _signed(ex["low"], 3), _signed(ex["high"], 3), ""
+        )
+    console.print(t)
+    _say(
+        f"a model within {_eps_pct(b['flip_epsilon'])} of the best loss (ε) can decide "
+        "it the other way"
+    )
+
+    nb = d["neighbours"]
+    _heading(f"Similar past cases ({nb['k']} nearest, non-group features)")
+    t = _grid("case", "group", "recorded outcome", "distance", right=(3,))
+    for n in nb["neighbours"]:
+        t.add_row(
+            _txt(n["case_id"]),
+            _txt(n["group"]),
+            _txt(n["outcome"], "green" if n["outcome"] == "favourable" else "red"),
+            f"{n['distance']:.2f}",
+        )
+    console.print(t)
+    per_group = ", ".join(
+        f"{safe_text(g['group'])} {_pct(g['favourable_share'])}" for g in nb["by_group"]
+    )
+    _say(f"favourable among them: {_pct(nb['favourable_share'])}")
+    _say(f"favourable among the {nb['k']} nearest of each group: {per_group}")
+    _say(_txt(f"proxies flagged: {', '.join(d['proxies']['flagged']) or 'none'}", "dim"))
+
+
+def _value(v: Any) -> str:
+    if v is None:
+        return "(missing)"
+    if isinstance(v, float):
+        return f"{v:.4g}"
+    return safe_text(str(v))
+
+
+# --------------------------------------------------------------------------- proxies
+
+
+def proxies(config: Path = ConfigOption, as_json: bool = JsonOption) -> None:
+    """Which features stand in for the group attribute, and how much the margins rest on
+    the group and its proxies, per group.
+
+    A feature is a proxy when its association with the group and its influence in the
+    group-unaware model both reach the thresholds in [proxies]. Group recoverability is the
+    held-out AUC of predicting the group from all non-group features together.
+
+    Example: closecall proxies --json
+    """
+    study = load(config, quiet=as_json)
+    snap = study.snapshot
+    report = snap.proxies
+    dep = dependence_by_group(snap)
+    flips = counterpart_flip_rates(snap)
+    if as_json:
+        emit_json(
+            {
+                "snapshot": snap.id,
+                **report.to_json(),
+                "dependence_by_group": dep,
+                "counterparts": flips,
+            }
+        )
+        return
+    _heading("Proxies: associated with the group and influential without it")
+    t = _grid("feature", "kind", "association", "measure", "influence", "proxy", right=(2, 4))
+    for pr in sorted(report.rows, key=lambda x: (not x.proxy, -x.association)):
+        t.add_row(
+            _txt(pr.feature),
+            _txt("cat." if pr.kind == "categorical" else "num."),
+            f"{pr.association:.2f}",
+            _txt(pr.association_measure),
+            f"{pr.influence:.3f}",
+            _txt(f"{FLAG} PROXY" if pr.proxy else "no", "bold magenta" if pr.proxy else ""),
+        )
+    console.print(t)
+    _say(
+        f"proxy when association ≥ {report.association_threshold:g} and influence ≥ "
+        f"{report.influence_threshold:g} ([proxies] in the config); influence = share of the "
+        "unaware model's margin variance"
+    )
+    _say(
+        f"group recoverable from all non-group features: held-out AUC "
+        f"{report.recoverability:.3f} (0.5 = not at all, 1 = perfectly)"
+    )
+    _heading("How much the pooled margins rest on the group and its proxies")
+    t = _grid(
+        "group",
+        "cases",
+        "group part",
+        "proxy part",
+        "share",
+        "rests: group",
+        "+proxies",
+        right=(1, 2, 3, 4, 5, 6),
+    )
+    for r in dep:
+        t.add_row(
+            _txt(r["group"]),
+            f"{r['cases']:,}",
+            _signed(r["mean_group_part"], 3),
+            _signed(r["mean_proxy_part"], 3),
+            _pct(r["mean_share"]),
+            _pct(r["rests_on_group"], 1),
+            _pct(r["rests_on_proxies"], 1),
+        )
+    console.print(t)
+    _say(
+        "parts are means in log-odds (negative = pulled towards unfavourable); 'rests' = "
+        "share of cases whose decision flips when the group (and its proxies) is neutralised"
+    )
+    _heading("Counterparts: decisions that change in another group")
+    t = _grid(
+        "group",
+        "as group",
+        "group swapped",
+        "proxies carried",
+        "→ fav.",
+        "→ unfav.",
+        right=(2, 3, 4, 5),
+    )
+    for r in flips:
+        t.add_row(
+            _txt(r["group"]),
+            _txt(r["as_group"]),
+            _pct(r["flips_group_swapped"], 1),
+            _pct(r["flips_carried"], 1),
+            _pct(r["to_favourable_carried"], 1),
+            _pct(r["to_unfavourable_carried"], 1),
+        )
+    console.print(t)
+
+
+# --------------------------------------------------------------------------- bands
+
+
+def bands_cmd(
+    epsilon: float | None = typer.Option(
+        None, "--epsilon", help="Relative loss slack of the equally-good set (default: config)."
+    ),
+    lens: str | None = LensOption,
+    config: Path = ConfigOption,
+    as_json: bool = JsonOption,
+) -> None:
+    """How many decisions could flip: the uncertainty band (95 %) and the equally-good band,
+    with ambiguity and discrepancy per group and how ambiguity grows with ε.
+
+    Ambiguity: share of cases some equally-good model decides otherwise. Discrepancy: the
+    largest share one such model decides otherwise (a lower bound from a direction search).
+
+    \b
+    Examples:
+      closecall bands
+      closecall bands --epsilon 0.002 --json
+    """
+    study = load(config, quiet=as_json)
+    snap = study.snapshot
+    eps = float(study.config.multiplicity.epsilon if epsilon is None else epsilon)
+    if eps <= 0:
+        raise UserError(f"--epsilon must be positive, got {eps}", "pass e.g. --epsilon 0.002")
+    per_group = ambiguity_by_group(snap, "pooled", eps, lens, seed=study.config.seed)
+    grid = tuple(sorted({*EPSILON_CURVE, eps}))
+    curve = epsilon_curve(snap, "pooled", grid, lens)
+    one_se = one_standard_error_epsilon(snap)
+    if as_json:
+        emit_json(
+            {
+                "snapshot": snap.id,
+                "model": "pooled",
+                "lens": snap.lens(lens).name,
+                "uncertainty_epsilon": UNCERTAINTY_EPSILON,
+                "epsilon": eps,
+                "one_standard_error_epsilon": one_se,
+                "groups": per_group,
+                "epsilon_curve": curve,
+            }
+        )
+        return
+    _heading(f"Bands of the pooled model (lens {snap.lens(lens).name}, ε = {_eps_pct(eps)})")
+    t = _grid(
+        "group",
+        "cases",
+        "uncertain",
+        "ambiguous",
+        "discrep. ≥",
+        "half-width 95%/eq.",
+        right=(1, 2, 3, 4, 5),
+    )
+    for r in per_group:
+        t.add_row(
+            _txt(r["group"]),
+            f"{r['cases']:,}",
+            _pct(r["uncertain"], 1),
+            _pct(r["ambiguity"], 1),
+            _pct(r["discrepancy_at_least"], 1),
+            f"{r['median_uncertainty_half_width']:.2f} / {r['median_equally_good_half_width']:.2f}",
+        )
+    console.print(t)
+    _say(
+        "uncertain: the 95 % band straddles zero; ambiguous: the equally-good band does; "
+        "half-widths are medians in log-odds"
+    )
+    _heading("Ambiguity as the equally-good set widens")
+    levels = snap.group_levels
+    t = _grid("ε (share of loss)", "all", *levels, "", right=tuple(range(1, len(levels) + 2)))
+    for r in curve:
+        mark = "◀ in use" if abs(r["epsilon"] - eps) < 1e-12 else ""
+        t.add_row(
+            _eps_pct(r["epsilon"]),
+            _pct(r["all"], 1),
+            *(_pct(r[lv], 1) for lv in levels),
+            _txt(mark, "bold"),
+        )
+    console.print(t)
+    if one_se is not None:
+        _say(f"one standard error of the held-out log-loss corresponds to ε = {_eps_pct(one_se)}")
+
+
+# --------------------------------------------------------------------------- compare
+
+
+def compare(
+    lens: str | None = LensOption,
+    boot: int = typer.Option(1000, "--boot", help="Bootstrap replicates."),
+    seed: int | None = typer.Option(None, "--seed", help="Bootstrap seed (default: study seed)."),
+    config: Path = ConfigOption,
+    as_json: bool = JsonOption,
+) -> None:
+    """Which model errs less for whom: pooled vs unaware vs proxy-free vs split, per group,
+    on held-out (cross-fitted) history scores, with bootstrap intervals of the difference.
+
+    Δ is the model's mean loss minus the pooled model's on the same cases (negative = errs
+    less); error is at the lens's threshold. A trade-off is a model that errs less for one
+    group and more for another.
+
+    Example: closecall compare --boot 2000 --json
+    """
+    if boot < 100:
+        raise UserError(f"--boot {boot} is too few", "use at least 100 replicates")
+    study = load(config, quiet=as_json)
+    snap = study.snapshot
+    res = compare_models(
+        snap, lens=lens, n_boot=boot, seed=study.config.seed if seed is None else seed
+    )
+    if as_json:
+        emit_json({"snapshot": snap.id, **res.to_dict()})
+        return
+    _heading(f"Models against {res.baseline}, per group (held-out, lens {res.lens})")
+    t = _grid("group", "model", "metric", "value", "Δ", "95 % interval", "verdict", right=(3, 4))
+    verdict_style = {"errs less": "green", "errs more": "red"}
+    marks = {"errs less": "▼ errs less", "errs more": "▲ errs more"}
+    last = None
+    for r in res.rows:
+        t.add_row(
+            _txt(r["group"] if r["group"] != last else ""),
+            _txt(r["model"]),
+            _txt(r["metric"].replace("_", "-")),
+            f"{r['value']:.3f}",
+            _signed(r["difference"], 3),
+            f"[{_signed(r['low'], 3)}, {_signed(r['high'], 3)}]",
+            _txt(marks.get(r["verdict"], "unclear"), verdict_style.get(r["verdict"], "")),
+        )
+        last = r["group"]
+    console.print(t)
+    _say("▼ interval wholly below zero; ▲ wholly above; unclear: it holds zero")
+    for b in res.best:
+        _say(
+            f"{safe_text(b['group'])}: lowest {b['metric'].replace('_', '-')} "
+            f"with {b['model']} ({b['value']:.3f})"
+        )
+    if res.tradeoffs:
+        for tr in res.tradeoffs:
+            _say(
+                _txt(
+                    f"{FLAG} {tr['model']} ({tr['metric']}) helps {', '.join(tr['helps'])} "
+                    f"but hurts {', '.join(tr['hurts'])}",
+                    "bold",
+                )
+            )
+    else:
+        _say("no model helps one group while clearly hurting another")
+
+
+def register(app: typer.Typer) -> None:
+    app.command("explain")(explain)
+    app.command("proxies")(proxies)
+    app.command("bands")(bands_cmd)
+    app.command("compare")(compare)

@@ -86,9 +86,13 @@ def _air_table(report: DisparityReport) -> Table:
     for g in r.rows:
         t.add_row(
             _t(g.group),
-            _num(g.model_air) + _ci(g.model_air_low, g.model_air_high, False),
+            _num(g.model_air)
+            + ("\n[dim]reference[/]" if g.group == r.model_reference else "")
+            + _ci(g.model_air_low, g.model_air_high, False),
             "[bold red]< 0.8[/]" if g.model_flag else "",
-            _num(g.final_air) + _ci(g.final_air_low, g.final_air_high, False),
+            _num(g.final_air)
+            + ("\n[dim]reference[/]" if g.group == r.final_reference else "")
+            + _ci(g.final_air_low, g.final_air_high, False),
             "[bold red]< 0.8[/]" if g.final_flag else "",
         )
     t.caption = (

@@ -52,6 +52,16 @@ def _ci(lo: float | None, hi: float | None, pct: bool = True) -> str:
     return f" ({f(lo)} to {f(hi)})"
 
 
+def _pts(lo: float, hi: float) -> str:
+    if not (math.isfinite(lo) and math.isfinite(hi)):
+        return ""
+    return f" ({100 * lo:+.1f} to {100 * hi:+.1f})"
+
+
+def _air(v: float, lo: float, hi: float, reference: bool) -> str:
+    return f"{_num(v)} (reference)" if reference else f"{_num(v)}{_ci(lo, hi, False)}"
+
+
 def _p(p: float | None) -> str:
     if p is None or not math.isfinite(p):
         return "—"
@@ -223,7 +233,7 @@ def render_html(report: DisparityReport) -> str:
                     str(g.decided),
                     f"{_pct(g.model_rate)}{_ci(g.model_low, g.model_high)}",
                     f"{_pct(g.final_rate)}{_ci(g.final_low, g.final_high)}",
-                    f"{100 * g.change:+.1f} pts{_ci(g.change_low, g.change_high)}",
+                    f"{100 * g.change:+.1f} pts{_pts(g.change_low, g.change_high)}",
                 ]
                 for g in r.rows
             ],
@@ -237,9 +247,19 @@ def render_html(report: DisparityReport) -> str:
             [
                 [
                     g.group,
-                    f"{_num(g.model_air)}{_ci(g.model_air_low, g.model_air_high, False)}",
+                    _air(
+                        g.model_air,
+                        g.model_air_low,
+                        g.model_air_high,
+                        g.group == r.model_reference,
+                    ),
                     "flagged" if g.model_flag else "no",
-                    f"{_num(g.final_air)}{_ci(g.final_air_low, g.final_air_high, False)}",
+                    _air(
+                        g.final_air,
+                        g.final_air_low,
+                        g.final_air_high,
+                        g.group == r.final_reference,
+                    ),
                     "flagged" if g.final_flag else "no",
                 ]
                 for g in r.rows
@@ -419,6 +439,7 @@ def headline_text(
         verdict = "review widened the largest gap between groups"
     else:
         verdict = "the data do not show whether review narrowed or widened the largest gap"
+    change = round(change, 2) + 0.0  # no "-0.00"
     return (
         f"Lowest adverse impact ratio: {model_air:.2f} under the model, {final_air:.2f} after "
         f"review (change {change:+.2f}, {lvl} interval {low:+.2f} to {high:+.2f}): {verdict}."

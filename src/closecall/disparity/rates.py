@@ -60,7 +60,7 @@ class GroupRates:
     change: float  # final_rate - model_rate
     change_low: float
     change_high: float
-    model_air: float
+    model_air: float  # 1 for the most favoured group, whose bounds are NaN (no interval)
     model_air_low: float
     model_air_high: float
     model_flag: bool
@@ -174,12 +174,12 @@ def favourable_rates(
                 change_low=float(change_lo[i]),
                 change_high=float(change_hi[i]),
                 model_air=model_air[g],
-                model_air_low=float(m_air_lo[i]) if i != ref_m else 1.0,
-                model_air_high=float(m_air_hi[i]) if i != ref_m else 1.0,
+                model_air_low=float(m_air_lo[i]) if i != ref_m else np.nan,
+                model_air_high=float(m_air_hi[i]) if i != ref_m else np.nan,
                 model_flag=four_fifths_flag(model_air[g]),
                 final_air=final_air[g],
-                final_air_low=float(f_air_lo[i]) if i != ref_f else 1.0,
-                final_air_high=float(f_air_hi[i]) if i != ref_f else 1.0,
+                final_air_low=float(f_air_lo[i]) if i != ref_f else np.nan,
+                final_air_high=float(f_air_hi[i]) if i != ref_f else np.nan,
                 final_flag=four_fifths_flag(final_air[g]),
             )
         )

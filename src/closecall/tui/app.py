@@ -1,0 +1,167 @@
+"""The review app: opens a study, then the close-call list; help, ledger and commands anywhere."""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+import signal
+from collections.abc import Iterable
+from pathlib import Path
+from typing import ClassVar
+
+from textual.app import App, SystemCommand
+from textual.binding import Binding, BindingType
+from textual.screen import Screen
+
+from closecall.study import Study
+from closecall.tui.decision_dialog import DecisionDialog
+from closecall.tui.queue_screen import QueueScreen
+from closecall.tui.session import Clock, ReviewSession, utc_clock
+
+
+class ReviewApp(App[None]):
+    """``closecall review``.
+
+    Parameters
+    ----------
+    config_path
+        The study config to open (fitted in a worker when its snapshot is stale).
+    study
+        An already open study (tests, benchmarks); skips opening.
+    write_demo_to
+        Write the demo study into this folder first (``review --demo``).
+    login, clock
+        Shown as "you" and used as "now" on screen (tests inject fixed ones).
+    """
+
+    CSS_PATH = "review.tcss"
+    TITLE = "closecall review"
+    BINDINGS: ClassVar[list[BindingType]] = [
+        Binding("ctrl+q", "quit", "quit", priority=True, show=False),
+    ]
+
+    def __init__(
+        self,
+        config_path: Path | None = None,
+        *,
+        study: Study | None = None,
+        write_demo_to: Path | None = None,
+        login: str | None = None,
+        clock: Clock = utc_clock,
+    ) -> None:
+        super().__init__()
+        self.config_path = config_path
+        self.study = study
+        self.write_demo_to = write_demo_to
+        self.login = login
+        self.clock = clock
+        self.session: ReviewSession | None = None
+
+    def make_session(self, study: Study) -> ReviewSession:
+        self.session = ReviewSession(study, login=self.login, clock=self.clock)
+        return self.session
+
+    def on_mount(self) -> None:
+        from closecall.tui.loading_screen import LoadingScreen
+
+        self.push_screen(
+            LoadingScreen(self.config_path, self.study, self.make_session, self.write_demo_to)
+        )
+        # not possible off the main thread (tests) or on Windows: then a hangup just ends it
+        with contextlib.suppress(NotImplementedError, RuntimeError, ValueError):
+            asyncio.get_running_loop().add_signal_handler(signal.SIGHUP, self._hangup)
+
+    # ------------------------------------------------------------------ leaving
+
+    def open_dialog(self) -> DecisionDialog | None:
+        for screen in reversed(self.screen_stack):
+            if isinstance(screen, DecisionDialog):
+                return screen
+        return None
+
+    async def action_quit(self) -> None:
+        dialog = self.open_dialog()
+        if dialog is not None and dialog.has_unrecorded_note:
+            from closecall.tui.confirm_quit import ConfirmQuit
+
+            if not any(isinstance(s, ConfirmQuit) for s in self.screen_stack):
+                self.push_screen(ConfirmQuit(dialog.case_id), self._quit_answer)
+            return
+        self._save_drafts()
+        self.exit()
+
+    def _quit_answer(self, quit_: bool | None) -> None:
+        if quit_:
+            self._save_drafts()
+            self.exit()
+
+    def _save_drafts(self) -> None:
+        dialog = self.open_dialog()
+        if dialog is not None:
+            dialog.flush_now()
+
+    def _hangup(self) -> None:
+        """The terminal went away (SSH dropped): keep the draft, then leave."""
+        self._save_drafts()
+        self.exit()
+
+    # ------------------------------------------------------------------ screens
+
+    def action_help(self) -> None:
+        from closecall.tui.help_screen import HelpScreen
+
+        if self.session is None or isinstance(self.screen, HelpScreen):
+            return
+        snap = self.session.snap
+        self.push_screen(
+            HelpScreen(snap.model_names, [lens.name for lens in snap.lenses], snap.reference)
+        )
+
+    def action_ledger(self) -> None:
+        from closecall.tui.ledger_screen import LedgerScreen
+
+        if self.session is not None and not isinstance(self.screen, LedgerScreen):
+            self.push_screen(LedgerScreen(self.session))
+
+    # ------------------------------------------------------------------ command palette
+
+    def _queue_screen(self) -> QueueScreen | None:
+
+        for screen in self.screen_stack:
+            if isinstance(screen, QueueScreen):
+                return screen
+        return None
+
+    def get_system_commands(self, screen: Screen[object]) -> Iterable[SystemCommand]:
+        yield SystemCommand("Quit", "Leave closecall review", self.action_quit)
+        if self.session is None:
+            return
+        yield SystemCommand("Help", "Keys, what each mark means, cautions", self.action_help)
+        yield SystemCommand("Ledger", "Recent entries and the chain's state", self.action_ledger)
+        queue = self._queue_screen()
+        if queue is None:
+            return
+        for name in self.session.available_sorts():
+            yield SystemCommand(
+                f"Sort by {name}",
+                f"Order the list by {name}",
+                lambda n=name: queue.action_sort_by(n),
+            )
+        for flag, words in (
+            ("flips", "cases another model or lens decides differently"),
+            ("ambiguous", "cases whose band crosses the threshold"),
+            ("unreviewed", "cases with no decision recorded"),
+        ):
+            yield SystemCommand(
+                f"Only {flag}: on/off", f"Show only {words}", lambda f=flag: queue.action_switch(f)
+            )
+        for level in self.session.snap.group_levels:
+            yield SystemCommand(
+                f"Only group {level}", f"Show only {level}", lambda g=level: queue.only_group(g)
+            )
+        yield SystemCommand("All groups", "Show every group", lambda: queue.only_group(None))
+        yield SystemCommand("Clear filters", "Show every close call", queue.action_clear_filters)
+        yield SystemCommand("Find a case by id", "Jump to an id as you type", queue.action_search)
+        yield SystemCommand(
+            "Read the ledger again", "Refresh review states and claims", queue.action_refresh
+        )

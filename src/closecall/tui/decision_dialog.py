@@ -1,0 +1,244 @@
+"""The decision dialog: action, reason code, note; records through ``closecall.reviews``.
+
+The note is kept as a draft while it is typed (saved after a short pause, in a worker), so a
+closed dialog, a quit or a dropped connection loses nothing. Recording calls
+:func:`closecall.reviews.record_review`, the same function as ``closecall record``; its refusals
+(an override without a reason or a note, …) are shown here word for word.
+"""
+
+from __future__ import annotations
+
+from typing import ClassVar
+
+from rich.text import Text
+from textual import on, work
+from textual.app import ComposeResult
+from textual.binding import Binding, BindingType
+from textual.containers import Horizontal, Vertical
+from textual.screen import ModalScreen
+from textual.timer import Timer
+from textual.widgets import Static, TextArea
+
+from closecall.errors import UserError
+from closecall.ledger import ACTIONS, Entry
+from closecall.reviews import claim_case, load_draft, record_review, release_claim
+from closecall.snapshot import decision_word
+from closecall.tui.choice_list import ChoiceList
+from closecall.tui.draft_keeper import DraftKeeper, DraftValue
+from closecall.tui.key_bar import KeyBar
+from closecall.tui.marks import signed
+from closecall.tui.session import ReviewSession
+
+DRAFT_PAUSE_SECONDS = 0.6  # save the draft this long after the last keystroke
+
+ACTION_LABELS = {
+    "uphold": "uphold the model's decision",
+    "override-favourable": "override → favourable",
+    "override-unfavourable": "override → unfavourable",
+    "defer": "defer: decide later",
+}
+
+
+class DecisionDialog(ModalScreen[Entry | None]):
+    """Record a reviewer's decision on one case; dismisses with the new entry (or None)."""
+
+    BINDINGS: ClassVar[list[BindingType]] = [
+        Binding("ctrl+r,ctrl+s", "record", "record", key_display="^r"),
+        Binding("tab", "app.focus_next", "next field", key_display="tab", show=True),
+        Binding("escape", "close", "close, keep draft", key_display="esc"),
+        Binding("enter", "done", "done", show=False),
+    ]
+
+    def __init__(self, session: ReviewSession, case_id: str, *, claim: bool = True) -> None:
+        super().__init__()
+        self.session = session
+        self.case_id = case_id
+        self.row = session.snap.case_index(case_id)
+        self.keeper = DraftKeeper(session.study, case_id)
+        self.entry: Entry | None = None
+        self._claim = claim
+        self._timer: Timer | None = None
+        self._loading = True
+
+    # ------------------------------------------------------------------ layout
+
+    def compose(self) -> ComposeResult:
+        snap = self.session.snap
+        margin = float(snap.margins(snap.reference)[self.row])
+        reasons = self.session.config.review.reasons
+        with Vertical(id="dialog"):
+            title = Text(no_wrap=True, overflow="ellipsis")
+            title.append(f"Decision on {self.case_id}", "bold")
+            group = str(snap.group_labels[self.row]) if snap.group_levels else ""
+            title.append(f" · {group} · {snap.reference} says ")
+            title.append(f"{decision_word(margin > 0)} {signed(margin)}")
+            yield Static(title, id="dialog-title")
+            with Horizontal(id="dialog-choices"):
+                with Vertical(id="action-box"):
+                    yield Static("Action", classes="field-label")
+                    yield ChoiceList([(a, ACTION_LABELS[a]) for a in ACTIONS], id="action")
+                with Vertical(id="reason-box"):
+                    yield Static("Reason (needed to override)", classes="field-label")
+                    yield ChoiceList(
+                        [(None, "— none —"), *((r, r) for r in reasons)], id="reason"
+                    )
+            yield Static(
+                "Note (stored exactly as typed; needed to override)", classes="field-label"
+            )
+            yield TextArea(id="note", soft_wrap=True, show_line_numbers=False)
+            yield Static("", id="dialog-status", markup=False)
+            yield KeyBar(self.BINDINGS, id="dialog-keys")
+
+    def on_mount(self) -> None:
+        self.query_one("#action", ChoiceList).focus()
+        self._load()
+
+    @work(thread=True, group="dialog-load")
+    def _load(self) -> None:
+        draft = load_draft(self.session.study, self.case_id)
+        if self._claim:
+            claim_case(self.session.study, self.case_id)
+        self.app.call_from_thread(self._loaded, draft)
+
+    def _loaded(self, draft: object) -> None:
+        from closecall.ledger import Draft
+
+        if isinstance(draft, Draft):
+            value = DraftValue(draft.note, draft.action, draft.reason)
+            self.keeper = DraftKeeper(self.session.study, self.case_id, saved=value)
+            self.query_one("#note", TextArea).load_text(draft.note)
+            self.query_one("#action", ChoiceList).choose_value(draft.action)
+            self.query_one("#reason", ChoiceList).choose_value(draft.reason)
+            self.say(f"draft restored (last saved {draft.updated[:16].replace('T', ' ')} UTC)")
+        self._loading = False
+
+    # ------------------------------------------------------------------ values and drafts
+
+    def value(self) -> DraftValue:
+        return DraftValue(
+            self.query_one("#note", TextArea).text,
+            self.query_one("#action", ChoiceList).value,
+            self.query_one("#reason", ChoiceList).value,
+        )
+
+    @property
+    def has_unrecorded_note(self) -> bool:
+        """A note has been typed for this case and not recorded (it is kept as a draft)."""
+        return self.entry is None and bool(self.value().note.strip())
+
+    def _changed(self) -> None:
+        if self._loading or self.entry is not None:
+            return
+        self.keeper.update(self.value())
+        if self._timer is not None:
+            self._timer.stop()
+        self._timer = self.set_timer(DRAFT_PAUSE_SECONDS, self._save_draft)
+
+    @on(TextArea.Changed, "#note")
+    def _note_changed(self) -> None:
+        self._changed()
+
+    @on(ChoiceList.Chosen)
+    def _chosen(self, event: ChoiceList.Chosen) -> None:
+        self._changed()
+        if event.control.id == "action":
+            self.query_one("#reason", ChoiceList).focus()
+        else:
+            self.query_one("#note", TextArea).focus()
+
+    def _save_draft(self) -> None:
+        if self.keeper.unsaved:
+            self._flush()
+
+    @work(thread=True, group="draft")
+    def _flush(self) -> None:
+        try:
+            if self.keeper.flush() is not None:
+                self.app.call_from_thread(self.say, "draft saved")
+        except UserError as exc:
+            self.app.call_from_thread(self.say, f"✗ draft not saved: {exc.message}")
+
+    def flush_now(self) -> None:
+        """Save any unsaved draft text before the app goes away (blocking, brief)."""
+        if self.entry is None:
+            self.keeper.update(self.value())
+            self.keeper.flush()
+
+    # ------------------------------------------------------------------ recording
+
+    def action_record(self) -> None:
+        if self.entry is not None:
+            self.dismiss(self.entry)
+            return
+        value = self.value()
+        if value.action is None:
+            self.say("✗ choose an action first (up/down, then ⏎)")
+            self.query_one("#action", ChoiceList).focus()
+            return
+        self.say("recording…")
+        self._record(value)
+
+    @work(thread=True, exclusive=True, group="record")
+    def _record(self, value: DraftValue) -> None:
+        try:
+            entry = record_review(
+                self.session.study, self.case_id, str(value.action), value.reason, value.note
+            )
+        except UserError as exc:
+            self.app.call_from_thread(self._refused, exc)
+            return
+        self.app.call_from_thread(self._recorded, entry)
+
+    def _refused(self, exc: UserError) -> None:
+        text = Text()
+        text.append("✗ not recorded: ", "bold")
+        text.append(exc.message)
+        if exc.fix:
+            text.append(f"\n  {_dialog_fix(exc.fix)}")
+        self.query_one("#dialog-status", Static).update(text)
+
+    def _recorded(self, entry: Entry) -> None:
+        self.entry = entry
+        self.keeper.close()
+        if self._timer is not None:
+            self._timer.stop()
+        text = Text()
+        text.append(f"✓ recorded entry {entry.seq}", "bold")
+        text.append(f" · {entry.action}\nhash {entry.hash}\n⏎ back")
+        self.query_one("#dialog-status", Static).update(text)
+        self.query_one("#note", TextArea).read_only = True
+        self.query_one("#dialog-keys", KeyBar).display = False
+        self.add_class("-recorded")
+        self.set_focus(None)
+
+    def action_done(self) -> None:
+        if self.entry is not None:
+            self.dismiss(self.entry)
+
+    # ------------------------------------------------------------------ leaving
+
+    def action_close(self) -> None:
+        if self.entry is not None:
+            self.dismiss(self.entry)
+            return
+        if self.keeper.unsaved or self.value() != self.keeper.saved:
+            self.keeper.update(self.value())
+            self.keeper.flush()
+        if self._claim and not self.value().note.strip():
+            self._release()
+        self.dismiss(None)
+
+    @work(thread=True, group="claims")
+    def _release(self) -> None:
+        release_claim(self.session.study, self.case_id)
+
+    def say(self, message: str) -> None:
+        self.query_one("#dialog-status", Static).update(message)
+
+
+def _dialog_fix(fix: str) -> str:
+    """The engine's advice, worded for this dialog instead of the command line."""
+    return (
+        fix.replace("add --reason with one of:", "choose a reason:")
+        .replace('add --note "…" (it is stored exactly as typed)', "write a note below")
+    )

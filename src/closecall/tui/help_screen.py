@@ -1,0 +1,142 @@
+"""Help: every screen's keys, what each quantity and mark means in plain words, the cautions."""
+
+from __future__ import annotations
+
+from typing import ClassVar
+
+from rich.text import Text
+from textual.app import ComposeResult
+from textual.binding import Binding, BindingType
+from textual.containers import VerticalScroll
+from textual.screen import Screen
+from textual.widgets import Static
+
+from closecall.cautions import CAUTIONS
+from closecall.tui.key_bar import KeyBar, key_label
+from closecall.tui.marks import (
+    ACTION_SHORT,
+    AGREE,
+    AMBIGUOUS,
+    CLAIM_MINE,
+    CLAIM_OTHER,
+    CURSOR,
+    REFERENCE,
+    STATE_WORD,
+    model_letters,
+)
+
+MEANINGS = [
+    ("margin", "How far the model's score is from the threshold, in log-odds. Above 0 "
+     "(+) the model gives the favourable decision, below 0 (−) the unfavourable one. "
+     "The list shows the reference model under the first cost lens."),
+    ("close call", "A case within the review band of the threshold (±band), or one that "
+     "another model or cost lens decides differently."),
+    ("flip", "A case that some model of the suite or some cost lens decides differently "
+     "from the reference model."),
+    ("cost lens", "A pair of error costs. It sets the threshold: a lens that counts a wrong "
+     "favourable decision as dearer moves the threshold up."),
+    ("band", "How far the margin could move across models that fit the history almost as "
+     "well (the equally good models). A band that crosses the threshold makes the case "
+     "ambiguous: an equally good model would decide it the other way."),
+    ("dependence (dep)", "The share of the case's pull, away from an average case, that "
+     "comes from the group attribute and the features that stand in for it (proxies)."),
+    ("group part / proxy part", "How many log-odds of the margin come from the group "
+     "attribute itself / from its proxies. 'Rests on' means removing that part would flip "
+     "the decision."),
+    ("counterpart", "The same case carried into another group: the group swapped, and its "
+     "proxies moved to where the case would stand in that group. If the decision changes, "
+     "the group or its proxies decide it."),
+    ("similar cases", "Past cases closest to this one on the non-group features, with what "
+     "happened to them: treat like cases alike."),
+    ("ledger", "The append-only record of decisions. Each entry carries the hash of the one "
+     "before it, so an edited, removed or reordered entry breaks the chain."),
+]
+
+
+def _keys_of(title: str, bindings: list[BindingType]) -> Text:
+    text = Text()
+    text.append(f"{title}\n", "bold")
+    for b in bindings:
+        if isinstance(b, Binding) and b.description:
+            text.append(f"  {key_label(b) if b.show else b.key.replace(',', ' ')[:14]:<14}")
+            text.append(f" {b.description}\n")
+    return text
+
+
+def help_text(model_names: list[str], lens_names: list[str], reference: str) -> Text:
+    """The help page as one text (also used by docs and tests)."""
+    from closecall.tui.case_list import CaseList
+    from closecall.tui.case_screen import CaseScreen
+    from closecall.tui.decision_dialog import DecisionDialog
+    from closecall.tui.ledger_screen import LedgerScreen
+    from closecall.tui.queue_screen import QueueScreen
+
+    text = Text()
+    text.append("Keys\n", "bold underline")
+    text.append(_keys_of("Close-call list", [*QueueScreen.BINDINGS, *CaseList.BINDINGS]))
+    text.append(_keys_of("Case", CaseScreen.BINDINGS))
+    text.append(_keys_of("Decision", DecisionDialog.BINDINGS))
+    text.append(_keys_of("Ledger", LedgerScreen.BINDINGS))
+    text.append("Anywhere\n", "bold")
+    text.append("  ^p             commands (every action by name)\n")
+    text.append("  ^q             quit (asks first if a note is not recorded)\n\n")
+
+    text.append("Marks in the list\n", "bold underline")
+    letters = model_letters(model_names)
+    text.append(f"  {CURSOR}  the case under the cursor\n")
+    text.append("  differs columns: one block per cost lens (" + ", ".join(lens_names) + ");\n")
+    text.append("    in each block one letter per model: ")
+    text.append(", ".join(f"{v} {k}" for k, v in letters.items()) + "\n")
+    text.append(f"    {REFERENCE} = the reference ({reference} under {lens_names[0]}); ")
+    text.append(f"{AGREE} = decides the same; a letter = that model decides differently\n")
+    text.append("  band: a small axis around the threshold: ┼ threshold, ━ band, ● margin,\n")
+    text.append(f"    ┿ the band crosses the threshold; {AMBIGUOUS} after it = ambiguous\n")
+    text.append("  state: " + ", ".join(STATE_WORD.values()))
+    text.append(f", {CLAIM_OTHER} name = someone has it open")
+    text.append(f", {CLAIM_MINE} you = you have it open\n")
+    text.append("  actions in the ledger: " + ", ".join(ACTION_SHORT.values()) + "\n")
+    text.append("  chart: each group's cases near the threshold (│), [ ] the review band;\n")
+    text.append("    each line is scaled to its own tallest bar\n")
+    text.append("  switches: ● on, ○ off\n\n")
+
+    text.append("What the numbers mean\n", "bold underline")
+    for name, meaning in MEANINGS:
+        text.append(f"  {name}: ", "bold")
+        text.append(f"{meaning}\n")
+    text.append("\nCautions\n", "bold underline")
+    for c in CAUTIONS:
+        text.append(f"  ! {c}\n")
+    return text
+
+
+class HelpScreen(Screen[None]):
+    """Keys, meanings and cautions."""
+
+    BINDINGS: ClassVar[list[BindingType]] = [
+        Binding("escape,q,question_mark", "back", "back", key_display="esc"),
+        Binding("down,j", "scroll('down')", "down", show=False),
+        Binding("up,k", "scroll('up')", "up", show=False),
+    ]
+
+    def __init__(self, model_names: list[str], lens_names: list[str], reference: str) -> None:
+        super().__init__()
+        self._text = help_text(model_names, lens_names, reference)
+
+    def compose(self) -> ComposeResult:
+        yield Static(Text("Help ─ keys, meanings, cautions", style="bold"), id="title")
+        with VerticalScroll(id="help-body"):
+            yield Static(self._text, id="help-text")
+        yield KeyBar(self.BINDINGS, id="keys")
+
+    def on_mount(self) -> None:
+        self.query_one("#help-body").focus()
+
+    def action_scroll(self, direction: str) -> None:
+        body = self.query_one("#help-body", VerticalScroll)
+        if direction == "down":
+            body.scroll_down()
+        else:
+            body.scroll_up()
+
+    def action_back(self) -> None:
+        self.dismiss()

@@ -1,0 +1,191 @@
+"""The ledger: recent entries (filter by reviewer or case), one entry in full, the chain's state."""
+
+from __future__ import annotations
+
+from typing import ClassVar
+
+from rich.text import Text
+from textual import on, work
+from textual.app import ComposeResult
+from textual.binding import Binding, BindingType
+from textual.containers import Horizontal
+from textual.screen import Screen
+from textual.timer import Timer
+from textual.widgets import DataTable, Input, Static
+
+from closecall.cli.output import safe_text
+from closecall.errors import UserError
+from closecall.ledger import Entry, VerifyResult
+from closecall.reviews import ledger_entries, verify_ledger
+from closecall.tui.key_bar import KeyBar
+from closecall.tui.marks import ACTION_SHORT, ACTION_WORD, signed
+from closecall.tui.session import ReviewSession
+
+RECENT = 500  # entries listed (the most recent)
+FILTER_PAUSE_SECONDS = 0.3
+
+
+class LedgerScreen(Screen[None]):
+    """Recent ledger entries, newest first."""
+
+    BINDINGS: ClassVar[list[BindingType]] = [
+        Binding("escape", "back", "back", key_display="esc"),
+        Binding("r", "filter('reviewer')", "by reviewer"),
+        Binding("c", "filter('case')", "by case"),
+        Binding("v", "verify", "verify chain"),
+        Binding("question_mark,f1", "app.help", "help", key_display="?"),
+    ]
+
+    def __init__(self, session: ReviewSession, case_id: str | None = None) -> None:
+        super().__init__()
+        self.session = session
+        self.initial_case = case_id
+        self.entries: list[Entry] = []
+        self._timer: Timer | None = None
+
+    def compose(self) -> ComposeResult:
+        where = self.session.config.review.ledger
+        yield Static(Text(f"Ledger ─ {where}", no_wrap=True, overflow="ellipsis"), id="title")
+        yield Static("chain … checking", id="chain", markup=False)
+        with Horizontal(id="ledger-filters"):
+            yield Static("reviewer ", classes="field-label")
+            yield Input(placeholder="any", id="by-reviewer", compact=True)
+            yield Static("  case ", classes="field-label")
+            yield Input(
+                value=self.initial_case or "", placeholder="any", id="by-case", compact=True
+            )
+        table: DataTable[Text] = DataTable(id="entries", cursor_type="row", zebra_stripes=False)
+        yield table
+        yield Static("", id="entry-detail", markup=False)
+        yield KeyBar(self.BINDINGS, id="keys")
+
+    def on_mount(self) -> None:
+        table = self.query_one("#entries", DataTable)
+        table.add_columns("seq", "time (UTC)", "reviewer", "case", "action", "reason", "note")
+        table.focus()
+        self._load()
+        self.action_verify()
+
+    # ------------------------------------------------------------------ loading
+
+    def _filters(self) -> tuple[str | None, str | None]:
+        reviewer = self.query_one("#by-reviewer", Input).value.strip() or None
+        case = self.query_one("#by-case", Input).value.strip() or None
+        return reviewer, case
+
+    @work(thread=True, exclusive=True, group="ledger-entries")
+    def _load(self) -> None:
+        reviewer, case = self.app.call_from_thread(self._filters)
+        try:
+            entries = ledger_entries(
+                self.session.config, case_id=case, reviewer=reviewer, limit=RECENT
+            )
+        except UserError as exc:
+            self.app.call_from_thread(self._show_detail, f"✗ {exc.message}")
+            return
+        self.app.call_from_thread(self._fill, entries)
+
+    def _fill(self, entries: list[Entry]) -> None:
+        self.entries = list(reversed(entries))  # newest first
+        table = self.query_one("#entries", DataTable)
+        table.clear()
+        for e in self.entries:
+            table.add_row(
+                Text(str(e.seq)),
+                Text(e.time[:16].replace("T", " ")),
+                Text(safe_text(e.reviewer)),
+                Text(safe_text(e.case_id)),
+                Text(ACTION_SHORT.get(e.action, e.action)),
+                Text(safe_text(e.reason or "—")),
+                Text(_preview(e.note, 40)),
+                key=str(e.seq),
+            )
+        if not self.entries:
+            self._show_detail("no entries match" if any(self._filters()) else "no entries yet")
+        else:
+            self._show_entry(self.entries[0])
+
+    @on(Input.Changed)
+    def _filter_changed(self) -> None:
+        if self._timer is not None:
+            self._timer.stop()
+        self._timer = self.set_timer(FILTER_PAUSE_SECONDS, self._load)
+
+    @on(Input.Submitted)
+    def _filter_done(self) -> None:
+        self.query_one("#entries", DataTable).focus()
+
+    # ------------------------------------------------------------------ one entry
+
+    @on(DataTable.RowHighlighted)
+    def _highlighted(self, event: DataTable.RowHighlighted) -> None:
+        seq = int(str(event.row_key.value))
+        for e in self.entries:
+            if e.seq == seq:
+                self._show_entry(e)
+                return
+
+    def _show_entry(self, e: Entry) -> None:
+        margin = "—" if e.reference_margin is None else signed(e.reference_margin)
+        text = Text()
+        text.append(f"entry {e.seq}", "bold")
+        text.append(f" · {safe_text(e.case_id)} · {ACTION_WORD.get(e.action, e.action)}")
+        if e.reason:
+            text.append(f" ({safe_text(e.reason)})")
+        text.append(f" · by {safe_text(e.reviewer)}")
+        if e.supersedes is not None:
+            text.append(f" · corrects entry {e.supersedes}")
+        text.append(f"\nmodel {e.reference_model}: {e.reference_decision} {margin}")
+        text.append(f" · snapshot {e.snapshot_id[:12]}\n")
+        text.append(_preview(e.note, 400) or "(no note)")
+        text.append(f"\nhash {e.hash}")
+        self.query_one("#entry-detail", Static).update(text)
+
+    def _show_detail(self, message: str) -> None:
+        self.query_one("#entry-detail", Static).update(message)
+
+    # ------------------------------------------------------------------ chain
+
+    def action_verify(self) -> None:
+        self.query_one("#chain", Static).update("chain … checking")
+        self._verify()
+
+    @work(thread=True, exclusive=True, group="ledger-verify")
+    def _verify(self) -> None:
+        try:
+            result = verify_ledger(self.session.config)
+        except UserError as exc:
+            self.app.call_from_thread(self._chain_text, f"chain ? cannot check: {exc.message}")
+            return
+        self.app.call_from_thread(self._chain_text, chain_state(result))
+
+    def _chain_text(self, text: str) -> None:
+        self.query_one("#chain", Static).update(text)
+
+    # ------------------------------------------------------------------ keys
+
+    def action_filter(self, which: str) -> None:
+        self.query_one(f"#by-{which}", Input).focus()
+
+    def action_back(self) -> None:
+        if isinstance(self.focused, Input):
+            self.query_one("#entries", DataTable).focus()
+            return
+        self.dismiss()
+
+
+def chain_state(result: VerifyResult) -> str:
+    """One line: verified, or broken at which entry and why."""
+    if result.ok:
+        return (
+            f"chain ✓ verified · {result.entries} entries · head {result.head_seq} "
+            f"{result.head_hash[:16]}…"
+        )
+    where = f"entry {result.first_broken}" if result.first_broken else "the chain"
+    message = result.problem.message if result.problem else "see closecall ledger verify"
+    return f"chain ✗ BROKEN at {where} ({result.verified} good before it): {message}"
+
+
+def _preview(note: str, width: int) -> str:
+    flat = safe_text(" ".join(note.split()))
+    return flat if len(flat) <= width else flat[: width - 1] + "…"

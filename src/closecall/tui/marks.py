@@ -1,0 +1,155 @@
+"""The review screens' marks and short words: each meaning has a sign or a word, not colour alone.
+
+All glyphs here are one terminal cell wide (box drawing, geometric shapes, arrows), so columns
+line up in any UTF-8 terminal, with or without colour.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+
+# --------------------------------------------------------------------------- review states
+
+OPEN, UPHELD, TO_FAV, TO_UNFAV, DEFERRED = 0, 1, 2, 3, 4
+STATE_OF_ACTION = {
+    "uphold": UPHELD,
+    "override-favourable": TO_FAV,
+    "override-unfavourable": TO_UNFAV,
+    "defer": DEFERRED,
+}
+#: Short state words for the case list (at most 9 cells).
+STATE_WORD = {
+    OPEN: "open",
+    UPHELD: "✓ upheld",
+    TO_FAV: "✓ →fav",
+    TO_UNFAV: "✓ →unfav",
+    DEFERRED: "… later",
+}
+#: Longer words for the case and ledger screens.
+ACTION_WORD = {
+    "uphold": "upheld the model",
+    "override-favourable": "overrode → favourable",
+    "override-unfavourable": "overrode → unfavourable",
+    "defer": "deferred (decide later)",
+}
+ACTION_SHORT = {
+    "uphold": "= upheld",
+    "override-favourable": "▲ →fav",
+    "override-unfavourable": "▼ →unfav",
+    "defer": "… later",
+}
+CLAIM_OTHER = "◇"  # someone else has the case open
+CLAIM_MINE = "◆"  # you have it open
+
+# --------------------------------------------------------------------------- decisions
+
+FAV, UNFAV = "fav", "unfav"
+AGREE = "·"  # a model/lens that decides as the reference does
+REFERENCE = "*"  # the reference model under the operative lens
+CURSOR = "▶"
+AMBIGUOUS = "≈"  # the band of equally good models straddles the threshold
+
+_KNOWN_LETTERS = {
+    "pooled": "P",
+    "unaware": "U",
+    "proxy_free": "N",  # no proxies
+    "split": "S",
+    "deployed": "D",
+}
+
+
+#: Short names for the standard models where the full name is too wide.
+SHORT_MODEL = {"proxy_free": "no-proxy"}
+
+
+def short_model(name: str) -> str:
+    return SHORT_MODEL.get(name, name)
+
+
+def model_letters(names: Sequence[str]) -> dict[str, str]:
+    """One distinct capital letter per model (P U N S D for the standard suite)."""
+    out: dict[str, str] = {}
+    used: set[str] = set()
+    for name in names:
+        candidates = [_KNOWN_LETTERS.get(name, "")] + [c.upper() for c in name if c.isalnum()]
+        candidates += [chr(c) for c in range(ord("A"), ord("Z") + 1)]
+        letter = next(c for c in candidates if c and c not in used)
+        used.add(letter)
+        out[name] = letter
+    return out
+
+
+def decision_word(margin: float) -> str:
+    return FAV if margin > 0 else UNFAV
+
+
+def signed(value: float, digits: int = 2) -> str:
+    """+0.42 / −0.42 with a true minus sign; '—' when not finite."""
+    if value is None or not math.isfinite(value):
+        return "—"
+    text = f"{value:+.{digits}f}"
+    return text.replace("-", "−")
+
+
+def share(value: float) -> str:
+    """A 0..1 share as a percentage of at most 4 cells; '—' when unknown."""
+    if value is None or not math.isfinite(value):
+        return "—"
+    return f"{round(100 * value):d}%"
+
+
+# --------------------------------------------------------------------------- glyph axes
+
+
+def band_glyph(margin: float, lo: float, hi: float, span: float, width: int = 9) -> str:
+    """A tiny axis of ``width`` cells over [−span, +span], threshold in the middle cell.
+
+    ``┼`` is the threshold, ``━`` the band of equally good margins, ``●`` the margin itself;
+    ``┿`` when the band covers the threshold; ``◂``/``▸`` when something lies off the axis.
+    Without a band (NaN) only the margin and the threshold are drawn.
+    """
+    cells = ["·"] * width
+    mid = width // 2
+    cell = 2 * span / width
+
+    def pos(v: float) -> int:
+        return min(width - 1, max(0, math.floor((v + span) / cell)))
+
+    if math.isfinite(lo) and math.isfinite(hi):
+        for i in range(pos(lo), pos(hi) + 1):
+            cells[i] = "━"
+        straddles = lo <= 0 <= hi
+    else:
+        straddles = False
+    cells[mid] = "┿" if straddles else ("┼" if cells[mid] == "·" else cells[mid])
+    if math.isfinite(margin):
+        cells[pos(margin)] = "●"
+        if margin < -span:
+            cells[0] = "◂"
+        elif margin > span:
+            cells[-1] = "▸"
+    return "".join(cells)
+
+
+def block_bar(value: float, scale: float, width: int) -> str:
+    """A signed bar: ``◂◂◂`` towards unfavourable, ``▸▸▸`` towards favourable."""
+    if not math.isfinite(value) or scale <= 0:
+        return ""
+    n = min(width, max(1, round(abs(value) / scale * width))) if value != 0 else 0
+    return ("▸" if value > 0 else "◂") * n
+
+
+SPARKS = " ▁▂▃▄▅▆▇█"
+
+
+def sparkline(counts: Sequence[float], peak: float) -> str:
+    """Counts as block characters, 0 → blank, ``peak`` → full block."""
+    if peak <= 0:
+        return " " * len(counts)
+    top = len(SPARKS) - 1
+    out = []
+    for c in counts:
+        level = 0 if c <= 0 else max(1, min(top, math.ceil(c / peak * top)))
+        out.append(SPARKS[level])
+    return "".join(out)

@@ -1,0 +1,272 @@
+"""The close-call list: counts, the margin chart per group, the cases, filters and id search."""
+
+from __future__ import annotations
+
+from typing import ClassVar
+
+from rich.text import Text
+from textual import on, work
+from textual.app import ComposeResult
+from textual.binding import Binding, BindingType
+from textual.containers import Horizontal
+from textual.screen import Screen
+from textual.widgets import Input, Static
+from textual.worker import get_current_worker
+
+from closecall.ledger import Entry
+from closecall.tui.case_list import CaseList
+from closecall.tui.key_bar import KeyBar
+from closecall.tui.margin_chart import MarginChart
+from closecall.tui.session import ListSettings, ReviewSession
+
+REFRESH_SECONDS = 15.0  # how often others' claims and reviews are read again
+
+
+class QueueScreen(Screen[None]):
+    """The close calls, most urgent first."""
+
+    BINDINGS: ClassVar[list[BindingType]] = [
+        Binding("enter", "open_case", "open", key_display="⏎"),
+        Binding("d", "decide", "decide"),
+        Binding("slash", "search", "find id", key_display="/"),
+        Binding("l", "app.ledger", "ledger"),
+        Binding("question_mark,f1", "app.help", "help", key_display="?"),
+        Binding("q", "app.quit", "quit"),
+        Binding("s", "cycle_sort", "sort", show=False),
+        Binding("f", "switch('flips')", "flips only", show=False),
+        Binding("a", "switch('ambiguous')", "ambiguous only", show=False),
+        Binding("u", "switch('unreviewed')", "unreviewed only", show=False),
+        Binding("g", "cycle_group", "next group", show=False),
+        Binding("c", "clear_filters", "clear filters", show=False),
+        Binding("r", "refresh", "read ledger again", show=False),
+        Binding("escape", "cancel_search", "close search", show=False),
+    ]
+
+    def __init__(self, session: ReviewSession) -> None:
+        super().__init__()
+        self.session = session
+        self._search_from: int | None = None
+
+    def compose(self) -> ComposeResult:
+        yield Static(self._title(), id="title")
+        yield Static(id="counts")
+        yield Static(id="settings")
+        yield MarginChart(self.session, id="chart")
+        yield CaseList(self.session, id="cases")
+        with Horizontal(id="search-row"):
+            yield Static("find id ", id="search-label")
+            yield Input(placeholder="type the start of a case id", id="search")
+        yield Static("", id="status", markup=False)
+        yield KeyBar(self.BINDINGS, id="keys")
+
+    def on_mount(self) -> None:
+        chart = self.query_one(MarginChart)
+        chart.styles.height = chart.lines_needed()
+        self.query_one("#search-row").display = False
+        self.query_one(CaseList).reload()
+        self._show_counts()
+        self.query_one(CaseList).focus()
+        self.set_interval(REFRESH_SECONDS, self.action_refresh)
+
+    # ------------------------------------------------------------------ header lines
+
+    def _title(self) -> Text:
+        snap = self.session.snap
+        text = Text(no_wrap=True, overflow="ellipsis")
+        text.append("closecall review", "bold")
+        text.append(f" ─ {self.session.config.name} ─ snapshot {snap.id[:8]}")
+        text.append(f" ─ you: {self.session.display_login}")
+        return text
+
+    def _show_counts(self) -> None:
+        c = self.session.counts()
+        q = self.session.queue
+        band = f"{self.session.band:g}"
+        counts = Text(no_wrap=True, overflow="ellipsis")
+        counts.append(f"{c.get('listed', 0):,}", "bold")
+        counts.append(f" listed of {c.get('cases', 0):,} │ ")
+        counts.append(f"{c.get('within_band', 0):,} within ±{band} · {c.get('flips', 0):,} flips")
+        counts.append(f" │ {c['reviewed']:,} reviewed · {c['claimed']:,} claimed")
+        self.query_one("#counts", Static).update(counts)
+        s = self.session.settings
+        settings = Text(no_wrap=True, overflow="ellipsis")
+
+        def item(key: str, label: str, on: bool | None = None) -> None:
+            settings.append(key, "bold reverse")
+            settings.append(f" {label}")
+            if on is not None:
+                settings.append(" ●" if on else " ○")
+            settings.append("  ")
+
+        item("s", f"by {q.sort if q else s.sort}")
+        item("g", f"{s.group} only" if s.group else "all groups")
+        item("f", "flips", s.flips)
+        item("a", "ambiguous", s.ambiguous)
+        item("u", "unreviewed", s.unreviewed)
+        self.query_one("#settings", Static).update(settings)
+
+    def say(self, message: str) -> None:
+        self.query_one("#status", Static).update(message)
+
+    # ------------------------------------------------------------------ list building
+
+    def _apply(self, settings: ListSettings) -> None:
+        self.say("ranking…")
+        self._rebuild(settings, self.query_one(CaseList).current_row)
+
+    @work(thread=True, exclusive=True, group="queue")
+    def _rebuild(self, settings: ListSettings, keep_row: int | None) -> None:
+        worker = get_current_worker()
+        self.session.rebuild(settings)
+        if not worker.is_cancelled:
+            self.app.call_from_thread(self._rebuilt, keep_row)
+
+    def _rebuilt(self, keep_row: int | None) -> None:
+        self.query_one(CaseList).reload(keep_row)
+        self._show_counts()
+        q = self.session.queue
+        self.say("" if q is None or len(q) else "no case matches these filters (c clears them)")
+
+    def action_cycle_sort(self) -> None:
+        sorts = self.session.available_sorts()
+        current = self.session.settings.sort
+        nxt = sorts[(sorts.index(current) + 1) % len(sorts)] if current in sorts else sorts[0]
+        if len(sorts) == 1:
+            self.say("only closeness is available: the analysis module is not installed")
+        self._apply(self._with(sort=nxt))
+
+    def action_sort_by(self, name: str) -> None:
+        self._apply(self._with(sort=name))
+
+    def only_group(self, level: str | None) -> None:
+        self._apply(self._with(group=level))
+
+    def action_switch(self, name: str) -> None:
+        if name == "ambiguous" and self.session.ambiguous_mask() is None:
+            self.say("ambiguity needs the analysis module, which is not installed")
+            return
+        current = getattr(self.session.settings, name)
+        self._apply(self._with(**{name: not current}))
+
+    def action_cycle_group(self) -> None:
+        levels: list[str | None] = [None, *self.session.snap.group_levels]
+        i = levels.index(self.session.settings.group)
+        self._apply(self._with(group=levels[(i + 1) % len(levels)]))
+
+    def action_clear_filters(self) -> None:
+        self._apply(ListSettings(sort=self.session.settings.sort))
+
+    def _with(self, **changes: object) -> ListSettings:
+        from dataclasses import replace
+
+        return replace(self.session.settings, **changes)  # type: ignore[arg-type]
+
+    # ------------------------------------------------------------------ ledger refresh
+
+    def action_refresh(self) -> None:
+        self._read_ledger()
+
+    @work(thread=True, exclusive=True, group="ledger-read")
+    def _read_ledger(self) -> None:
+        self.session.refresh_reviews()
+        self.app.call_from_thread(self._after_ledger)
+
+    def _after_ledger(self) -> None:
+        if self.session.settings.unreviewed:
+            self._apply(self.session.settings)
+        else:
+            self.query_one(CaseList).refresh()
+            self._show_counts()
+
+    def recorded(self, entry: Entry) -> None:
+        """A decision was recorded (here or on the case screen): show it, read states again."""
+        self.say(f"recorded entry {entry.seq} for {entry.case_id} · hash {entry.hash[:16]}…")
+        self._read_ledger()
+
+    # ------------------------------------------------------------------ cases
+
+    @on(CaseList.Chosen)
+    def _chosen(self, event: CaseList.Chosen) -> None:
+        self.open_row(event.row)
+
+    def action_open_case(self) -> None:
+        row = self.query_one(CaseList).current_row
+        if row is not None:
+            self.open_row(row)
+
+    def open_row(self, row: int) -> None:
+        from closecall.tui.case_screen import CaseScreen
+
+        self.app.push_screen(CaseScreen(self.session, row, self.neighbour))
+
+    def neighbour(self, row: int, step: int) -> int | None:
+        """The row ``step`` places after ``row`` in the current list (None past either end)."""
+        cases = self.query_one(CaseList)
+        pos = self.session.position_of_row(row)
+        if pos < 0:
+            return None
+        target = cases.row_at(pos + step)
+        if target is not None:
+            cases.go_to(pos + step)
+        return target
+
+    def action_decide(self) -> None:
+        row = self.query_one(CaseList).current_row
+        if row is None:
+            return
+        from closecall.tui.decision_dialog import DecisionDialog
+
+        case_id = str(self.session.snap.case_ids[row])
+        self.app.push_screen(DecisionDialog(self.session, case_id), self._decided)
+
+    def _decided(self, entry: Entry | None) -> None:
+        if entry is not None:
+            self.recorded(entry)
+
+    # ------------------------------------------------------------------ id search
+
+    def action_search(self) -> None:
+        row = self.query_one("#search-row")
+        row.display = True
+        self._search_from = self.query_one(CaseList).cursor
+        search = self.query_one("#search", Input)
+        search.value = ""
+        search.focus()
+
+    @on(Input.Changed, "#search")
+    def _search_changed(self, event: Input.Changed) -> None:
+        prefix = event.value.strip()
+        if not prefix:
+            return
+        pos, matches = self.session.find(prefix)
+        if pos is not None:
+            self.query_one(CaseList).go_to(pos)
+            self.say(f"{matches:,} ids start with {prefix!r}")
+        elif matches:
+            self.say(f"{prefix!r}: {matches:,} in the study, none listed here; ⏎ opens the first")
+        else:
+            self.say(f"no case id starts with {prefix!r}")
+
+    @on(Input.Submitted, "#search")
+    def _search_done(self, event: Input.Submitted) -> None:
+        prefix = event.value.strip()
+        self._close_search()
+        if not prefix:
+            return
+        pos, _ = self.session.find(prefix)
+        if pos is None:
+            rows = self.session.rows_with_prefix(prefix)
+            if len(rows):
+                self.open_row(int(rows[0]))
+
+    def _close_search(self) -> None:
+        self.query_one("#search-row").display = False
+        self.query_one(CaseList).focus()
+
+    def action_cancel_search(self) -> None:
+        if self.query_one("#search-row").display:
+            cases = self.query_one(CaseList)
+            if self._search_from is not None:
+                cases.go_to(self._search_from)
+            self._close_search()
+            self.say("")

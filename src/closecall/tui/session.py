@@ -1,0 +1,264 @@
+"""One reviewer's session over a study: the list settings, review states, claims, id search.
+
+Plain Python and NumPy, no widgets: the screens call these methods (the slow ones from
+workers) and draw what they return. Everything over all cases is vectorised.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+from dataclasses import dataclass, replace
+from datetime import UTC, datetime
+
+import numpy as np
+
+from closecall.ledger import Claim, Entry, current_login
+from closecall.queue import Queue, build_queue
+from closecall.reviews import active_claims, ledger_entries
+from closecall.study import Study
+from closecall.tui import analysis_bridge
+from closecall.tui.marks import OPEN, STATE_OF_ACTION
+
+SORTS = ("closeness", "ambiguity", "dependence")
+Clock = Callable[[], datetime]
+
+
+def utc_clock() -> datetime:
+    return datetime.now(UTC)
+
+
+@dataclass(frozen=True)
+class ListSettings:
+    """What the case list shows and in which order."""
+
+    sort: str = "closeness"
+    group: str | None = None
+    flips: bool = False
+    ambiguous: bool = False
+    unreviewed: bool = False
+
+    def describe(self) -> str:
+        parts = [f"sort {self.sort}"]
+        parts.append(f"group {self.group}" if self.group else "all groups")
+        if self.flips:
+            parts.append("flips only")
+        if self.ambiguous:
+            parts.append("ambiguous only")
+        if self.unreviewed:
+            parts.append("unreviewed only")
+        return " · ".join(parts)
+
+
+@dataclass(frozen=True)
+class GroupChart:
+    """Counts of reference margins per group in equal bins over [−span, +span]."""
+
+    levels: list[str]
+    counts: np.ndarray  # (groups, bins)
+    span: float
+    band: float
+    within_band: np.ndarray  # (groups,) cases with |margin| <= band
+    totals: np.ndarray  # (groups,) all cases of the group
+
+
+class ReviewSession:
+    """A study opened for review by one login.
+
+    Parameters
+    ----------
+    study
+        The open study (config + snapshot).
+    login
+        The name shown for "you" on screen (tests inject a fixed one). The ledger always
+        records, and claims are compared with, the process's real login.
+    clock
+        Source of the current time for anything the screens show about "now".
+    """
+
+    def __init__(self, study: Study, *, login: str | None = None, clock: Clock = utc_clock):
+        self.study = study
+        self.snap = study.snapshot
+        self.config = study.config
+        self.login = current_login()
+        self.display_login = login or self.login
+        self.clock = clock
+        self.band = float(study.config.review.band)
+        self.settings = ListSettings()
+        self.queue: Queue | None = None
+        self.states = np.zeros(self.snap.n_cases, dtype=np.int8)
+        self.claims: dict[str, list[Claim]] = {}
+        self.entries_seen = 0
+        self._measures: dict[str, np.ndarray | None] = {}
+        self._half_widths: dict[str, np.ndarray | None] = {}
+        self._bands: tuple[np.ndarray, np.ndarray] | tuple[()] | None = None
+        self._sorted_ids: np.ndarray | None = None
+        self._id_order: np.ndarray | None = None
+        self._position: np.ndarray | None = None
+
+    # ------------------------------------------------------------------ measures
+
+    def measure(self, name: str) -> np.ndarray | None:
+        """A per-case measure from the analysis package (computed once; None if unavailable)."""
+        if name not in self._measures:
+            self._measures[name] = analysis_bridge.measure(self.study, name)
+        return self._measures[name]
+
+    def peek(self, name: str) -> np.ndarray | None:
+        """A measure if already computed (for drawing: never starts a computation)."""
+        return self._measures.get(name)
+
+    def band_limits(self, compute: bool = True) -> tuple[np.ndarray, np.ndarray] | None:
+        """(low, high) reference margins over the equally good models, when available."""
+        if self._bands is None and compute:
+            self._bands = analysis_bridge.band_limits(self.study) or ()
+        return self._bands or None
+
+    def half_width(self, model: str, row: int) -> float | None:
+        """The equally-good half-width of one case under a model (None: no band)."""
+        if model not in self._half_widths:
+            self._half_widths[model] = analysis_bridge.half_widths(self.study, model)
+        widths = self._half_widths[model]
+        return None if widths is None else float(widths[row])
+
+    def ambiguous_mask(self) -> np.ndarray | None:
+        """Cases whose band of equally good margins straddles the threshold."""
+        limits = self.band_limits()
+        if limits is None:
+            return None
+        return np.asarray((limits[0] <= 0) & (limits[1] >= 0))
+
+    def warm_up(self) -> None:
+        """Compute the measures the list draws (slow at national scale: from a worker)."""
+        for name in ("dependence", "ambiguity"):
+            self.measure(name)
+        self.band_limits()
+
+    # ------------------------------------------------------------------ the list
+
+    def available_sorts(self) -> list[str]:
+        return [s for s in SORTS if s == "closeness" or self.measure(s) is not None]
+
+    def rebuild(self, settings: ListSettings | None = None) -> Queue:
+        """Build the list for ``settings`` (slow at national scale: call from a worker)."""
+        settings = settings or self.settings
+        exclude = np.zeros(self.snap.n_cases, dtype=bool)
+        if settings.unreviewed:
+            exclude |= (self.states != OPEN) & (self.states != STATE_OF_ACTION["defer"])
+        if settings.ambiguous:
+            amb = self.ambiguous_mask()
+            if amb is not None:
+                exclude |= ~amb
+        if settings.sort != "closeness" and self.measure(settings.sort) is None:
+            settings = replace(settings, sort="closeness")
+        q = build_queue(
+            self.snap,
+            band=self.band,
+            group=settings.group,
+            flips_only=settings.flips,
+            sort=settings.sort,
+            options={"config": self.config},
+            exclude_rows=exclude if exclude.any() else None,
+        )
+        position = np.full(self.snap.n_cases, -1, dtype=np.int64)
+        position[q.order] = np.arange(len(q.order))
+        self.settings, self.queue, self._position = settings, q, position
+        return q
+
+    def position_of_row(self, row: int) -> int:
+        """Where snapshot row ``row`` sits in the current list (−1 if not listed)."""
+        if self._position is None:
+            return -1
+        return int(self._position[row])
+
+    # ------------------------------------------------------------------ id search
+
+    def _ids(self) -> tuple[np.ndarray, np.ndarray]:
+        if self._sorted_ids is None or self._id_order is None:
+            ids = np.asarray(self.snap.case_ids)
+            order = np.argsort(ids, kind="stable")
+            self._id_order, self._sorted_ids = order, ids[order]
+        return self._sorted_ids, self._id_order
+
+    def rows_with_prefix(self, prefix: str) -> np.ndarray:
+        """Snapshot rows whose id starts with ``prefix`` (binary search on sorted ids)."""
+        sorted_ids, order = self._ids()
+        lo = int(np.searchsorted(sorted_ids, prefix, side="left"))
+        hi = int(np.searchsorted(sorted_ids, prefix + "\U0010ffff", side="left"))
+        return np.asarray(order[lo:hi])
+
+    def find(self, prefix: str) -> tuple[int | None, int]:
+        """(first list position whose id starts with prefix or None, matches in the study)."""
+        rows = self.rows_with_prefix(prefix)
+        if len(rows) == 0 or self._position is None:
+            return None, len(rows)
+        pos = self._position[rows]
+        pos = pos[pos >= 0]
+        return (int(pos.min()) if len(pos) else None), len(rows)
+
+    def rows_of(self, case_ids: list[str]) -> np.ndarray:
+        """Snapshot rows of ids (−1 for ids the snapshot does not hold)."""
+        sorted_ids, order = self._ids()
+        wanted = np.asarray(case_ids, dtype=sorted_ids.dtype if case_ids else str)
+        at = np.searchsorted(sorted_ids, wanted)
+        at = np.minimum(at, len(sorted_ids) - 1)
+        found = sorted_ids[at] == wanted
+        return np.where(found, order[at], -1)
+
+    # ------------------------------------------------------------------ ledger and claims
+
+    def refresh_reviews(self) -> list[Entry]:
+        """Read the ledger and claims; update each case's review state (call from a worker)."""
+        entries = ledger_entries(self.config)
+        states = np.zeros(self.snap.n_cases, dtype=np.int8)
+        if entries:
+            rows = self.rows_of([e.case_id for e in entries])
+            codes = np.array([STATE_OF_ACTION[e.action] for e in entries], dtype=np.int8)
+            ok = rows >= 0
+            states[rows[ok]] = codes[ok]  # entries are in sequence order: the latest wins
+        self.states = states
+        self.entries_seen = len(entries)
+        self.claims = active_claims(self.study)
+        return entries
+
+    def claimed_by_others(self, case_id: str) -> list[str]:
+        return [c.reviewer for c in self.claims.get(case_id, []) if c.reviewer != self.login]
+
+    def claimed_by_me(self, case_id: str) -> bool:
+        return any(c.reviewer == self.login for c in self.claims.get(case_id, []))
+
+    def counts(self) -> dict[str, int]:
+        """Header counts: the queue's counts plus reviewed and claimed cases."""
+        q = self.queue
+        out = dict(q.counts) if q is not None else {}
+        out["reviewed"] = int(np.count_nonzero(self.states))
+        out["claimed"] = sum(1 for v in self.claims.values() if v)
+        return out
+
+    # ------------------------------------------------------------------ chart
+
+    def group_chart(self, bins: int) -> GroupChart:
+        """Reference margins per group near the threshold, in ``bins`` equal bins."""
+        span = 3 * self.band if self.band > 0 else 1.5
+        margin = np.asarray(self.snap.margins(self.snap.reference))
+        codes = np.asarray(self.snap.group_codes)
+        levels = self.snap.group_levels
+        edges = np.linspace(-span, span, bins + 1)
+        inside = np.abs(margin) <= span
+        idx = np.clip(np.searchsorted(edges, margin[inside], side="right") - 1, 0, bins - 1)
+        flat = codes[inside].astype(np.int64) * bins + idx
+        counts = np.bincount(flat, minlength=len(levels) * bins).reshape(len(levels), bins)
+        within = np.bincount(codes[np.abs(margin) <= self.band], minlength=len(levels))
+        totals = np.bincount(codes, minlength=len(levels))
+        return GroupChart(levels, counts, span, self.band, within, totals)
+
+
+def fmt_share(part: int, whole: int) -> str:
+    if whole <= 0:
+        return "—"
+    pct = 100 * part / whole
+    return f"{pct:.0f}%" if pct >= 1 or pct == 0 else f"{pct:.1f}%"
+
+
+def finite(value: float | None) -> bool:
+    return value is not None and math.isfinite(value)

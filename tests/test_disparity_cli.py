@@ -142,3 +142,11 @@ def test_demo_reviews_command(cli, demo_config: Path) -> None:  # type: ignore[n
     assert listing["count"] == 40
     assert all(r["reviewer"].startswith("sim-reviewer-") for r in listing["rows"])
     assert all("Simulated review" in r["note"] for r in listing["rows"])
+
+
+def test_outcome_file_without_the_favourable_value(cli, reviewed: Path, tmp_path: Path) -> None:  # type: ignore[no-untyped-def]
+    bad = tmp_path / "outcomes.csv"
+    bad.write_text("application_id,completed\nHR-0000001,1\nHR-0000002,0\n")
+    res = cli("disparity", "-c", str(reviewed), "--outcomes", str(bad))
+    assert res.code == 2
+    assert "never takes the favourable value 'yes'" in res.err

@@ -31,8 +31,8 @@ def load_outcomes(path: str | Path, config: StudyConfig) -> pd.DataFrame:
     Raises
     ------
     UserError
-        Missing columns (the message lists what the file has), duplicate ids, or an outcome
-        column with more than two values.
+        Missing columns (the message lists what the file has), duplicate ids, an outcome
+        column with more than two values or without the favourable value.
     """
     path = Path(path)
     id_col, out_col = config.data.id, config.data.outcome
@@ -75,6 +75,13 @@ def load_outcomes(path: str | Path, config: StudyConfig) -> pd.DataFrame:
         is_fav = raw.to_numpy(dtype=float) == float(fav)
     else:
         is_fav = (raw.astype(str).str.strip().str.lower() == str(fav).strip().lower()).to_numpy()
+    if known.any() and not is_fav[known.to_numpy()].any():
+        shown = ", ".join(repr(v) for v in values[:5])
+        raise UserError(
+            f"{path}: outcome column '{outs}' never takes the favourable value "
+            f"{fav!r} (values: {shown})",
+            "recode the file, or check [data] favourable in the study config",
+        )
     outcome = pd.Series(
         np.where(is_fav, FAVOURABLE, UNFAVOURABLE), index=frame.index, dtype=object
     ).where(known, None)

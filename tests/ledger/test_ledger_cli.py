@@ -371,3 +371,22 @@ def test_reference_margins_match_the_snapshot_arrays(study_config: ConfigMaker) 
     ]
     got = np.array([e.reference_margin for e in entries])
     np.testing.assert_array_equal(got, snap.margins(snap.reference)[picks])
+
+
+def test_tampered_values_are_escaped_in_show_and_verify(
+    study_config: ConfigMaker, cli: Any
+) -> None:
+    config = study_config()
+    r = cli("record", _case(config), "--action", "defer", "--note", "n", "--config", str(config))
+    assert r.code == 0, r
+    conn = sqlite3.connect(_ledger(config), isolation_level=None)
+    conn.execute("DROP TRIGGER entries_no_update")
+    conn.execute(
+        "UPDATE entries SET time = '\x1b[2J2026', action = '\x1b]0;x\x07', hash = '\x1b[31m'"
+    )
+    conn.close()
+    for args in (["ledger", "show"], ["ledger", "show", "--format", "csv"], ["ledger", "verify"]):
+        r = cli(*args, "--config", str(config))
+        assert "\x1b" not in r.out and "\x07" not in r.out, args
+        assert "\\x1b" in r.out, args
+    assert cli("ledger", "verify", "--config", str(config)).code == 1

@@ -20,32 +20,37 @@ from closecall.ledger import NoLedger, open_ledger
 # (partial) entry would show.
 WRITER = textwrap.dedent(
     """
-    import os, sys, time
+    import contextlib, os, sys, time
     from closecall.ledger import EntryContent, open_ledger
 
     path, writer, count, go = sys.argv[1], sys.argv[2], int(sys.argv[3]), sys.argv[4]
-    spread = int(sys.argv[5])
+    spread, reopen = int(sys.argv[5]), sys.argv[6] == "reopen"
     while not os.path.exists(go):
         time.sleep(0.002)
-    with open_ledger(path) as ledger:
-        i = 0
-        while count < 0 or i < count:
-            body = (writer + str(i)) * (1 + (i * 7919) % spread)
-            ledger.append(EntryContent(
+    ledger = None if reopen else open_ledger(path)
+    i = 0
+    while count < 0 or i < count:
+        body = (writer + str(i)) * (1 + (i * 7919) % spread)
+        # reopen: a new connection per entry, as separate `closecall record` runs make
+        with open_ledger(path) if reopen else contextlib.nullcontext(ledger) as lg:
+            lg.append(EntryContent(
                 reviewer=writer, case_id=f"C-{i % 17}", snapshot_id="s1",
                 current_snapshot_id=None, reference_model="pooled",
                 reference_decision="favourable", reference_margin=i / 1000,
                 decisions={"pooled": {"decision": "favourable", "margin": i / 1000}},
                 action="uphold", reason=None, note=f"{writer}|{i}|{body}",
             ))
-            i += 1
+        i += 1
     """
 )
 
 
-def _spawn(path: Path, writer: str, count: int, go: Path, spread: int) -> subprocess.Popen[bytes]:
+def _spawn(
+    path: Path, writer: str, count: int, go: Path, spread: int, reopen: bool = False
+) -> subprocess.Popen[bytes]:
+    mode = "reopen" if reopen else "keep"
     return subprocess.Popen(
-        [sys.executable, "-c", WRITER, str(path), writer, str(count), str(go), str(spread)],
+        [sys.executable, "-c", WRITER, str(path), writer, str(count), str(go), str(spread), mode],
         stderr=subprocess.PIPE,
     )
 
@@ -82,6 +87,24 @@ def test_eight_processes_times_500_entries_make_one_gap_free_chain(tmp_path: Pat
     assert all(e.note == _expected_note(e.reviewer, int(e.note.split("|")[1]), 40) for e in entries)
 
 
+def test_processes_creating_the_ledger_at_once_share_one_file(tmp_path: Path) -> None:
+    path, go = tmp_path / "new" / "l.sqlite", tmp_path / "go"
+    procs = [_spawn(path, f"w{k}", 25, go, spread=5, reopen=True) for k in range(8)]
+    time.sleep(0.3)
+    go.touch()  # nobody has created the ledger yet: all eight race to do it
+    for p in procs:
+        _, err = p.communicate(timeout=120)
+        assert p.returncode == 0, err.decode()
+    with open_ledger(path, readonly=True) as ledger:
+        result = ledger.verify()
+        assert result.ok and result.entries == 200
+        assert sorted((e.reviewer, e.note.split("|")[1]) for e in ledger.entries()) == sorted(
+            (f"w{k}", str(i)) for k in range(8) for i in range(25)
+        )
+    assert sorted(p.name for p in path.parent.iterdir() if ".new" in p.name) == []
+
+
+@pytest.mark.slow
 def test_writers_killed_mid_stream_leave_a_ledger_that_verifies(tmp_path: Path) -> None:
     path, go = tmp_path / "l.sqlite", tmp_path / "go"
     go.touch()

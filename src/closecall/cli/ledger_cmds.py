@@ -149,7 +149,7 @@ def _table(entries: list[Entry], ledger: Path) -> Table:
         )
     table.add_column("note", no_wrap=True, overflow="ellipsis", ratio=1, min_width=12)
     for e, row in zip(entries, cells, strict=True):
-        table.add_row(*(Text(c) for c in row), Text(_preview(e.note, 400)))
+        table.add_row(*(Text(safe_text(c)) for c in row), Text(_preview(e.note, 400)))
     return table
 
 
@@ -229,9 +229,9 @@ def verify(
                 _print(f"anchor found at entry {result.anchor_seq}")
         else:
             _print(f"ledger {where}: BROKEN after {result.verified} good entries")
-            for problem in result.problems:
-                _print(f"  {problem.message}")
-        _print(f"head {result.head_seq} {result.head_hash}")
+            for problem in result.problems:  # may quote tampered values: escape them
+                _print(f"  {safe_text(problem.message)}")
+        _print(f"head {result.head_seq} {safe_text(str(result.head_hash))}")
     if not result.ok:
         raise typer.Exit(1)
 

@@ -15,10 +15,13 @@ SQLite, "PRAGMA synchronous", https://www.sqlite.org/pragma.html#pragma_synchron
 
 from __future__ import annotations
 
+import contextlib
 import json
 import math
 import os
 import sqlite3
+import tempfile
+import time
 import urllib.parse
 from collections.abc import Iterable, Iterator, Sequence
 from dataclasses import dataclass
@@ -92,16 +95,46 @@ def _row_to_entry(row: Sequence[Any]) -> Entry:
 
 
 def _create_file(path: Path) -> None:
-    """Create an empty ledger file with FILE_MODE before any data is written to it."""
+    """Create a complete, empty ledger at ``path`` in one atomic step, with FILE_MODE.
+
+    The new database is built beside it under a temporary name (mode set before SQLite writes
+    a byte), switched to WAL, given its schema, closed, and then hard-linked into place. So no
+    process ever sees a half-made ledger, and when several processes create it at once the
+    first link wins and the others use that file.
+    """
     path.parent.mkdir(parents=True, exist_ok=True)
-    try:
-        fd = os.open(path, os.O_CREAT | os.O_EXCL | os.O_RDWR, FILE_MODE)
-    except FileExistsError:  # another process created it first: theirs stands
+    if path.exists():
         return
+    fd, name = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".new", dir=path.parent)
+    tmp = Path(name)
     try:
-        os.fchmod(fd, FILE_MODE)  # the umask may have removed group bits
-    finally:
+        os.fchmod(fd, FILE_MODE)  # mkstemp gives 0600; the umask does not apply to fchmod
         os.close(fd)
+        conn = sqlite3.connect(tmp, isolation_level=None)
+        try:
+            conn.execute("PRAGMA journal_mode = WAL")
+            conn.execute("PRAGMA synchronous = FULL")
+            with _WriteTransaction(conn):
+                schema.migrate(conn)
+        finally:
+            conn.close()
+        try:
+            os.link(tmp, path)
+        except FileExistsError:  # another process created it first: theirs stands
+            return
+        except OSError:  # no hard links on this file system: rename, if still absent
+            if path.exists():
+                return
+            os.rename(tmp, path)
+        dir_fd = os.open(path.parent, os.O_RDONLY)
+        try:
+            os.fsync(dir_fd)  # make the new name durable
+        finally:
+            os.close(dir_fd)
+    finally:
+        for suffix in ("", "-wal", "-shm", "-journal"):
+            with contextlib.suppress(FileNotFoundError):
+                os.unlink(f"{tmp}{suffix}")
 
 
 def _check_content(content: EntryContent) -> None:
@@ -404,14 +437,25 @@ def open_ledger(path: str | Path, *, readonly: bool = False) -> Ledger:
         if isinstance(exc, sqlite3.Error):
             raise _sqlite_error(path, exc) from None
         raise UserError(f"{path}: cannot create the ledger ({exc.strerror})") from None
-    try:
-        _prepare(conn, path, readonly)
-    except sqlite3.Error as exc:
-        conn.close()
-        raise _sqlite_error(path, exc) from None
-    except BaseException:
-        conn.close()
-        raise
+    deadline = time.monotonic() + BUSY_TIMEOUT_SECONDS
+    while True:
+        try:
+            _prepare(conn, path, readonly)
+            break
+        except sqlite3.OperationalError as exc:
+            # Some lock waits (a journal-mode change, WAL recovery after a crash) return
+            # "locked" without going through the busy timeout: wait and try again.
+            if "locked" in str(exc) and time.monotonic() < deadline:
+                time.sleep(0.01)
+                continue
+            conn.close()
+            raise _sqlite_error(path, exc) from None
+        except sqlite3.Error as exc:
+            conn.close()
+            raise _sqlite_error(path, exc) from None
+        except BaseException:
+            conn.close()
+            raise
     return Ledger(path, conn, readonly)
 
 

@@ -130,3 +130,13 @@ def test_demo_structure_is_recovered(big_demo) -> None:  # type: ignore[no-untyp
     # the split model fits Briar better than the pooled one (held-out log-loss)
     ll = {(m["model"], m["group"]): m["log_loss"] for m in snap.metrics}
     assert ll[("split", "Briar")] < ll[("pooled", "Briar")]
+
+
+def test_a_moved_study_keeps_its_snapshot_id(tmp_path: Path) -> None:
+    import shutil
+
+    config = write_demo(tmp_path / "here", cases=500, seed=4)
+    first = open_study(config).snapshot.id
+    shutil.copytree(tmp_path / "here", tmp_path / "there")
+    moved = open_study(tmp_path / "there" / "closecall.toml")
+    assert moved.snapshot.id == first and not moved.fitted_now

@@ -128,6 +128,10 @@ class StudyConfig:
         d = asdict(self)
         d.pop("path")
         d.pop("review")  # review settings don't change the fit
+        # the data files' bytes are hashed into the snapshot id; where the study folder lives
+        # must not matter, so a copied or moved study keeps its snapshot id
+        d["data"]["history"] = self.data.history.name
+        d["data"]["pending"] = self.data.pending.name if self.data.pending else None
         return hashlib.sha256(json.dumps(d, sort_keys=True, default=str).encode()).hexdigest()
 
 

@@ -140,3 +140,17 @@ def test_a_moved_study_keeps_its_snapshot_id(tmp_path: Path) -> None:
     shutil.copytree(tmp_path / "here", tmp_path / "there")
     moved = open_study(tmp_path / "there" / "closecall.toml")
     assert moved.snapshot.id == first and not moved.fitted_now
+
+
+def test_edited_data_gives_a_new_snapshot(tmp_path: Path) -> None:
+    """The data digest is cached by size and modification time; an edit is still seen."""
+    import os
+
+    config = write_demo(tmp_path, cases=500, seed=4)
+    first = open_study(config).snapshot.id
+    pending = tmp_path / "pending.csv"
+    text = pending.read_text()
+    pending.write_text(text.replace("HR-", "HQ-", 1))
+    st = pending.stat()
+    os.utime(pending, ns=(st.st_atime_ns, st.st_mtime_ns + 1_000_000))
+    assert open_study(config).snapshot.id != first

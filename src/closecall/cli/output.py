@@ -14,6 +14,7 @@ from typing import Any
 import numpy as np
 from rich.console import Console
 from rich.table import Table
+from rich.text import Text
 
 console = Console(highlight=False)
 err_console = Console(stderr=True, highlight=False)
@@ -54,9 +55,16 @@ def to_jsonable(obj: Any) -> Any:
     return obj
 
 
+def json_text(obj: Any) -> str:
+    """JSON for a terminal: readable UTF-8, but control, C1 and bidi-override characters are
+    written as \\uXXXX escapes, so the data stay exact and nothing reaches the screen raw."""
+    text = json.dumps(to_jsonable(obj), indent=2, ensure_ascii=False)
+    return _CONTROL.sub(lambda m: f"\\u{ord(m.group()):04x}", text)
+
+
 def emit_json(obj: Any) -> None:
     """Print data as JSON on stdout (no colour, no wrapping)."""
-    sys.stdout.write(json.dumps(to_jsonable(obj), indent=2, ensure_ascii=False) + "\n")
+    sys.stdout.write(json_text(obj) + "\n")
 
 
 def emit_rows(
@@ -83,11 +91,12 @@ def emit_rows(
     for c in cols:
         table.add_column(c, overflow="fold")
     for r in rows:
-        table.add_row(*(format_cell(r.get(c)) for c in cols))
+        table.add_row(*(Text(format_cell(r.get(c))) for c in cols))
     console.print(table)
 
 
 def format_cell(value: Any) -> str:
+    """A value as plain display text (use it inside rich.text.Text: no markup is read)."""
     if value is None:
         return "—"
     if isinstance(value, (float, np.floating)):

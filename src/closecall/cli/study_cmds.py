@@ -8,6 +8,7 @@ from typing import Any
 import typer
 from rich import box
 from rich.table import Table
+from rich.text import Text
 
 from closecall.cli.common import (
     ConfigOption,
@@ -274,8 +275,8 @@ def _print_queue_table(snap: Any, q: Any, rows: list[dict[str, Any]]) -> None:
     for r in rows:
         table.add_row(
             str(r["rank"]),
-            format_cell(r["case_id"]),
-            format_cell(r["group"]),
+            Text(format_cell(r["case_id"])),
+            Text(format_cell(r["group"])),
             *(f"{r['margins'][m]:+.2f}" for m in snap.model_names),
             str(len(r["differs"])) if r["differs"] else "—",
             *(f"{r[name]:.2f}" for name in q.measures),

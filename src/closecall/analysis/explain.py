@@ -32,7 +32,8 @@ bands : {
     "flip_epsilon": smallest relative ε whose equally-good band reaches zero,
     "quad": x̃ᵀH⁻¹x̃,
     "exact": None, or (with exact=True) {"low", "high", "closed_low", "closed_high",
-        "slack", "epsilon"} for the equally-good set solved exactly }
+        "slack", "epsilon", "unbounded"} for the equally-good set solved exactly; an edge is
+        None (and "unbounded" true) when the set has no edge that way }
 neighbours : {"k", "neighbours": [{"case_id", "group", "outcome", "distance"}],
     "favourable_share", "by_group": [{"group", "neighbours", "favourable_share",
     "mean_distance"}]}
@@ -119,6 +120,10 @@ def explain_case(
         exact_part = {
             k: ex[k] for k in ("low", "high", "closed_low", "closed_high", "slack", "epsilon")
         }
+        exact_part["unbounded"] = bool(not np.isfinite(ex["low"]) or not np.isfinite(ex["high"]))
+        for k in ("low", "high"):
+            if not np.isfinite(exact_part[k]):
+                exact_part[k] = None
 
     return {
         "case_id": str(snap.case_ids[i]),

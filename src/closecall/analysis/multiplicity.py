@@ -66,6 +66,7 @@ DEFAULT_EPSILON = MultiplicityConfig().epsilon
 EPSILON_CURVE = (0.0005, 0.001, 0.002, 0.005, 0.01, 0.02, 0.05, 0.1)
 BLOCK_ROWS = 50_000
 MAX_CASE_DIRECTIONS = 64
+MAX_LOG_TILT = 20.0  # give up looking for an edge e^20 times beyond the quadratic guess
 
 
 def half_width(quad: np.ndarray, slack: np.ndarray | float) -> np.ndarray:
@@ -395,8 +396,9 @@ def exact_band(
 
     Returns
     -------
-    dict with ``low``/``high`` (exact), ``closed_low``/``closed_high`` (closed form), ``slack``
-    (absolute ε used), ``epsilon``, ``absolute``, ``margin``, ``best_objective``.
+    dict with ``low``/``high`` (exact; ±inf when the set is unbounded that way, which only an
+    unpenalised fit of separated data allows), ``closed_low``/``closed_high`` (closed form),
+    ``slack`` (absolute ε used), ``epsilon``, ``absolute``, ``margin``, ``best_objective``.
     """
     snap: Snapshot = study.snapshot
     _weighted(snap, model)
@@ -421,17 +423,41 @@ def exact_band(
     hw = float(np.sqrt(2.0 * slack * quad))
 
     def edge(sign: float) -> float:
-        def excess(log_tau: float) -> float:
-            w = _tilted_minimum(Xt, y, fr.penalty, sign * c, float(np.exp(log_tau)), w_hat)
-            return penalised_objective(w, Xt, y, fr.penalty)[0] - f_hat - slack
+        """The margin at the set's edge in direction sign·x̃; ±inf when it has none.
 
-        guess = np.log(np.sqrt(2.0 * slack / quad))  # the quadratic model's tilt
+        The loss grows only linearly far out, so beyond some tilt the tilted problem has no
+        minimum; such a tilt counts as "past the edge" (excess = +inf), which keeps the
+        excess increasing in the tilt and the search a bisection.
+        """
+
+        def excess(log_tau: float) -> float:
+            try:
+                w = _tilted_minimum(Xt, y, fr.penalty, sign * c, float(np.exp(log_tau)), w_hat)
+            except np.linalg.LinAlgError:
+                return np.inf
+            value = penalised_objective(w, Xt, y, fr.penalty)[0] - f_hat - slack
+            return value if np.isfinite(value) else np.inf
+
+        guess = float(np.log(np.sqrt(2.0 * slack / quad)))  # the quadratic model's tilt
         lo_, hi_ = guess - 1.0, guess + 1.0
         while excess(lo_) > 0:
             lo_ -= 2.0
-        while excess(hi_) < 0:
-            hi_ += 2.0
-        log_tau = brentq(excess, lo_, hi_, xtol=1e-10, rtol=1e-10)
+        while (e_hi := excess(hi_)) < 0:
+            lo_, hi_ = hi_, hi_ + 2.0
+            if hi_ > guess + MAX_LOG_TILT:
+                return sign * np.inf
+        while not np.isfinite(e_hi):  # bisect until the upper end has a minimum
+            if hi_ - lo_ < 1e-9:
+                # the loss stays within the slack however far w moves: an unpenalised fit of
+                # (quasi-)separated data has such directions
+                return sign * np.inf
+            mid = (lo_ + hi_) / 2.0
+            e_mid = excess(mid)
+            if e_mid < 0:
+                lo_ = mid
+            else:
+                hi_, e_hi = mid, e_mid
+        log_tau = brentq(excess, lo_, hi_, xtol=1e-9, rtol=1e-10)
         w = _tilted_minimum(Xt, y, fr.penalty, sign * c, float(np.exp(log_tau)), w_hat)
         return float(c @ w) - t
 

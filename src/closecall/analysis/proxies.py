@@ -108,9 +108,11 @@ class ProxyRow:
     kind: str
     association: float
     association_measure: str  # "2|AUC-0.5|" or "Cramér's V"
-    influence: float
+    influence: float  # in the unaware model
     proxy: bool
     why: str
+    influence_peeled: float | None = None  # largest influence over the peeling rounds
+    round: int = 0  # peeling round that flagged it (1 = unaware model; 0 = not flagged)
 
 
 @dataclass
@@ -143,6 +145,18 @@ class ProxyReport:
         )
 
 
+def _project(X: np.ndarray, margin: np.ndarray, keep: np.ndarray, rows: np.ndarray) -> np.ndarray:
+    """Coefficients (zeros outside keep) of the least-squares projection of a centred margin
+    on the centred columns in keep: what those columns alone can reproduce of the margin."""
+    coef = np.zeros(X.shape[1])
+    if keep.any():
+        Xc = X[rows][:, keep]
+        Xc = Xc - Xc.mean(axis=0)
+        m = margin[rows] - margin[rows].mean()
+        coef[keep] = np.linalg.lstsq(Xc, m, rcond=None)[0]
+    return coef
+
+
 def detect_proxies(
     *,
     raw_columns: dict[str, tuple[str, np.ndarray]],
@@ -162,23 +176,68 @@ def detect_proxies(
 
     ``raw_columns`` maps feature name to (kind, values): imputed numbers for numeric features,
     category codes for categorical ones.
+
+    Flagging runs in rounds (peeling). Round 1 scores influence in the unaware model. When
+    proxies are found, the unaware margin is projected (least squares) on the columns that are
+    left, which approximates refitting without the proxies, and influence is scored again:
+    a feature that takes over the group signal once the stronger proxy is gone is flagged in
+    the next round. Rounds stop when none is added.
     """
     names = list(raw_columns)
-    influence = influence_shares(X, unaware_coef, column_source, names)
-    rows: list[ProxyRow] = []
+    mask = nongroup_mask if nongroup_mask is not None else np.ones(X.shape[1], dtype=bool)
+    src = np.array(column_source)
+    association: dict[str, tuple[float, str]] = {}
     for name in names:
         kind, values = raw_columns[name]
         if kind == "numeric":
-            assoc, measure = auc_association(values, group_codes, n_levels), "2|AUC-0.5|"
+            association[name] = (auc_association(values, group_codes, n_levels), "2|AUC-0.5|")
         else:
-            assoc, measure = cramers_v(values, group_codes), "Cramér's V"
-        flagged = assoc >= association_threshold and influence[name] >= influence_threshold
-        why = "association and influence above thresholds" if flagged else "below a threshold"
-        if name in extra:
-            flagged, why = True, "listed in [proxies] extra"
+            association[name] = (cramers_v(values, group_codes), "Cramér's V")
+    first = influence_shares(X, unaware_coef, column_source, names)
+    rows_used = np.arange(len(X))
+    if len(X) > RECOVERABILITY_MAX_ROWS:
+        rng = np.random.default_rng(seed)
+        rows_used = np.sort(rng.choice(len(X), RECOVERABILITY_MAX_ROWS, replace=False))
+    margin = X @ unaware_coef
+    flagged_in: dict[str, int] = {n: 0 for n in extra if n in association and n not in never}
+    peak = dict(first)
+    coef = unaware_coef
+    for round_no in range(1, len(names) + 2):
+        infl = first if round_no == 1 else influence_shares(X, coef, column_source, names)
+        new = [
+            n
+            for n in names
+            if n not in flagged_in
+            and n not in never
+            and association[n][0] >= association_threshold
+            and infl[n] >= influence_threshold
+        ]
+        for n in names:
+            if n not in flagged_in or flagged_in[n] == round_no:
+                peak[n] = max(peak[n], infl[n])
+        for n in new:
+            flagged_in[n] = round_no
+        if not new and round_no > 1:
+            break
+        keep = mask & ~np.isin(src, list(flagged_in))
+        coef = _project(X, margin, keep, rows_used)
+    rows: list[ProxyRow] = []
+    for name in names:
+        kind, _ = raw_columns[name]
+        assoc, measure = association[name]
+        r = flagged_in.get(name)
         if name in never:
             flagged, why = False, "listed in [proxies] never"
-        rows.append(ProxyRow(name, kind, assoc, measure, influence[name], flagged, why))
-    mask = nongroup_mask if nongroup_mask is not None else np.ones(X.shape[1], dtype=bool)
+        elif name in extra:
+            flagged, why = True, "listed in [proxies] extra"
+        elif r == 1:
+            flagged, why = True, "association and influence above thresholds"
+        elif r is not None:
+            flagged, why = True, "takes over the group signal once other proxies are removed"
+        else:
+            flagged, why = False, "below a threshold"
+        rows.append(
+            ProxyRow(name, kind, assoc, measure, first[name], flagged, why, peak[name], r or 0)
+        )
     recover = group_recoverability(X[:, mask], group_codes, n_levels, seed)
     return ProxyReport(rows, recover, association_threshold, influence_threshold)

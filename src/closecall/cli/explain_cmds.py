@@ -220,7 +220,10 @@ def _print_explanation(d: dict[str, Any]) -> None:
     if b["exact"] is not None:
         ex = b["exact"]
         t.add_row(
-            _txt("equally good, solved exactly"), _signed(ex["low"], 3), _signed(ex["high"], 3), ""
+            _txt("equally good, solved exactly"),
+            "−∞" if ex["low"] is None else _signed(ex["low"], 3),
+            "+∞" if ex["high"] is None else _signed(ex["high"], 3),
+            _txt("unbounded (separation)" if ex["unbounded"] else ""),
         )
     console.print(t)
     _say(
@@ -284,21 +287,25 @@ def proxies(config: Path = ConfigOption, as_json: bool = JsonOption) -> None:
         )
         return
     _heading("Proxies: associated with the group and influential without it")
-    t = _grid("feature", "kind", "association", "measure", "influence", "proxy", right=(2, 4))
+    t = _grid("feature", "kind", "assoc.", "measure", "infl.", "peeled", "proxy", right=(2, 4, 5))
     for pr in sorted(report.rows, key=lambda x: (not x.proxy, -x.association)):
+        peeled = pr.influence if pr.influence_peeled is None else pr.influence_peeled
+        mark = f"{FLAG} PROXY" + (f" (round {pr.round})" if pr.round > 1 else "")
         t.add_row(
             _txt(pr.feature),
             _txt("cat." if pr.kind == "categorical" else "num."),
-            f"{pr.association:.2f}",
+            f"{pr.association:.3f}",
             _txt(pr.association_measure),
             f"{pr.influence:.3f}",
-            _txt(f"{FLAG} PROXY" if pr.proxy else "no", "bold magenta" if pr.proxy else ""),
+            f"{peeled:.3f}",
+            _txt(mark if pr.proxy else "no", "bold magenta" if pr.proxy else ""),
         )
     console.print(t)
     _say(
         f"proxy when association ≥ {report.association_threshold:g} and influence ≥ "
-        f"{report.influence_threshold:g} ([proxies] in the config); influence = share of the "
-        "unaware model's margin variance"
+        f"{report.influence_threshold:g} ([proxies] in the config). infl. = share of the "
+        "unaware model's margin variance; peeled = the largest share once the proxies found "
+        "so far are taken out (round 2 and on)"
     )
     _say(
         f"group recoverable from all non-group features: held-out AUC "

@@ -326,20 +326,6 @@ def epsilon_curve(
     return out
 
 
-def one_standard_error_epsilon(snap: Snapshot, model: str = "pooled") -> float | None:
-    """Relative ε at which the loss slack equals one standard error of the total held-out
-    log-loss: sd(loss_i)·sqrt(n) / Σ loss_i over the out-of-fold history scores. Fits closer
-    than this cannot be told apart on held-out data (the one-standard-error rule)."""
-    eta = np.asarray(snap.arrays.get(f"oof__{model}", np.array([np.nan])), dtype=float)
-    y = np.asarray(snap.hist_y, dtype=float)
-    ok = ~np.isnan(eta)
-    if not ok.any() or len(eta) != len(y):
-        return None
-    e, yy = eta[ok], y[ok]
-    loss = np.logaddexp(0.0, -e) * yy + np.logaddexp(0.0, e) * (1 - yy)
-    return float(loss.std(ddof=1) * np.sqrt(len(loss)) / loss.sum())
-
-
 # --------------------------------------------------------------------------- exact band
 
 

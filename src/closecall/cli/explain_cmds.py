@@ -23,7 +23,6 @@ from closecall.analysis.multiplicity import (
     UNCERTAINTY_EPSILON,
     ambiguity_by_group,
     epsilon_curve,
-    one_standard_error_epsilon,
 )
 from closecall.cli.common import ConfigOption, JsonOption, load
 from closecall.cli.output import console, emit_json, safe_text
@@ -389,7 +388,6 @@ def bands_cmd(
     per_group = ambiguity_by_group(snap, "pooled", eps, lens, seed=study.config.seed)
     grid = tuple(sorted({*EPSILON_CURVE, eps}))
     curve = epsilon_curve(snap, "pooled", grid, lens)
-    one_se = one_standard_error_epsilon(snap)
     if as_json:
         emit_json(
             {
@@ -398,7 +396,6 @@ def bands_cmd(
                 "lens": snap.lens(lens).name,
                 "uncertainty_epsilon": UNCERTAINTY_EPSILON,
                 "epsilon": eps,
-                "one_standard_error_epsilon": one_se,
                 "groups": per_group,
                 "epsilon_curve": curve,
             }
@@ -440,8 +437,10 @@ def bands_cmd(
             _txt(mark, "bold"),
         )
     console.print(t)
-    if one_se is not None:
-        _say(f"one standard error of the held-out log-loss corresponds to ε = {_eps_pct(one_se)}")
+    _say(
+        "ε is the loss slack as a share of the best total log-loss; a case ambiguous at one ε "
+        "is ambiguous at every larger one"
+    )
 
 
 # --------------------------------------------------------------------------- compare

@@ -12,6 +12,7 @@ import statsmodels.api as sm
 from scipy.special import logit
 from scipy.stats import chi2
 
+from analysis_helpers import hmda_study, one_file_demo
 from closecall.analysis.fitted_rows import fitted_row, penalised_objective, row_cholesky, tilde
 from closecall.analysis.multiplicity import (
     UNCERTAINTY_EPSILON,
@@ -23,7 +24,6 @@ from closecall.analysis.multiplicity import (
 )
 from closecall.logit import fit_logit
 from closecall.study import Study, open_study
-from analysis_helpers import hmda_study, one_file_demo
 
 
 @pytest.fixture(scope="module")
@@ -50,7 +50,7 @@ def _row_design(study: Study, row: int) -> tuple[Any, np.ndarray, np.ndarray, np
 
 def test_uncertainty_epsilon_is_half_the_chi2_quantile() -> None:
     # chi-square(1) 95 % quantile 3.841 (scipy.stats.chi2); sqrt(2 * 1.9207) = 1.95996 = z_0.975
-    assert UNCERTAINTY_EPSILON == pytest.approx(chi2.ppf(0.95, 1) / 2)
+    assert pytest.approx(chi2.ppf(0.95, 1) / 2) == UNCERTAINTY_EPSILON
     assert np.sqrt(2 * UNCERTAINTY_EPSILON) == pytest.approx(1.959964, abs=1e-6)
 
 
@@ -222,3 +222,46 @@ def test_discrepancy_search_finds_most_of_the_best_single_model(tmp_path: Path) 
     assert best_total > 0
     assert found >= 0.9 * best_total
     assert found <= b.ambiguous.sum()
+
+
+def test_exact_band_under_separation(tmp_path: Path) -> None:
+    """Every case with flag = on is favourable (quasi-complete separation). Unpenalised, its
+    weight runs off towards infinity (Albert & Anderson 1984): the loss stays within the slack
+    however far the weight goes up, so the exact band has no upper edge, while its lower edge
+    stays finite. The quadratic closed form, built on a nearly flat curvature, is useless
+    there; explain reports the edge as unbounded, in plain JSON."""
+    import json
+
+    import pandas as pd
+
+    from closecall.analysis.explain import explain_case
+
+    rng = np.random.default_rng(0)
+    n = 400
+    x = rng.normal(size=n)
+    flag = np.where(rng.random(n) < 0.05, "on", "off")
+    y = (rng.random(n) < 1 / (1 + np.exp(-x))) | (flag == "on")
+    pd.DataFrame(
+        {
+            "id": np.arange(n),
+            "g": np.where(rng.random(n) < 0.5, "A", "B"),
+            "x": x.round(3),
+            "flag": flag,
+            "y": np.where(y, "good", "bad"),
+        }
+    ).to_csv(tmp_path / "d.csv", index=False)
+    (tmp_path / "closecall.toml").write_text(
+        '[data]\nhistory = "d.csv"\nid = "id"\noutcome = "y"\nfavourable = "good"\n'
+        'group = "g"\n[model]\npenalty = 0\n'
+    )
+    study = open_study(tmp_path / "closecall.toml")
+    snap = study.snapshot
+    on = np.flatnonzero(np.asarray(snap.X)[:, snap.columns.index("flag=on")] == 1)
+    case = str(snap.case_ids[on[0]])
+    ex = exact_band(study, case, 0.01)
+    assert ex["high"] == np.inf
+    assert 0 < ex["low"] < ex["margin"]
+    assert ex["closed_low"] < -100 * abs(ex["low"])  # the quadratic model breaks down
+    d = explain_case(study, case, exact=True)
+    assert d["bands"]["exact"]["unbounded"] is True and d["bands"]["exact"]["high"] is None
+    json.dumps(d, allow_nan=False)

@@ -55,14 +55,24 @@ def block_bootstrap_means(values: np.ndarray, n_boot: int, rng: np.random.Genera
     blocks = min(n, MAX_BLOCKS)
     block_of = np.empty(n, dtype=np.int64)
     block_of[rng.permutation(n)] = np.arange(n) % blocks
-    sums = np.zeros((blocks, values.shape[1]))
-    np.add.at(sums, block_of, values)
+    sums = np.column_stack(
+        [
+            np.bincount(block_of, weights=values[:, j], minlength=blocks)
+            for j in range(values.shape[1])
+        ]
+    )
     sizes = np.bincount(block_of, minlength=blocks).astype(float)
     out = np.empty((n_boot, values.shape[1]))
     for start in range(0, n_boot, BOOT_CHUNK):
         b = min(BOOT_CHUNK, n_boot - start)
         pick = rng.integers(0, blocks, size=(b, blocks))
-        out[start : start + b] = sums[pick].sum(axis=1) / sizes[pick].sum(axis=1)[:, None]
+        # how often each block is drawn in each replicate, then one matrix product
+        counts = (
+            np.bincount((pick + blocks * np.arange(b)[:, None]).ravel(), minlength=b * blocks)
+            .reshape(b, blocks)
+            .astype(float)
+        )
+        out[start : start + b] = (counts @ sums) / (counts @ sizes)[:, None]
     return out
 
 

@@ -40,6 +40,8 @@ from scipy.special import logit
 from closecall.encode import EncodedFeature
 from closecall.snapshot import Snapshot, decision_word
 
+BLOCK_ROWS = 100_000
+
 
 @dataclass
 class Counterparts:
@@ -222,29 +224,43 @@ def counterparts_for_case(
 
 def counterpart_flip_rates(snap: Snapshot, model: str = "pooled") -> list[dict[str, Any]]:
     """Per (own group, other group): share of cases whose decision changes in the counterpart,
-    with the group swapped and with the proxies carried over too."""
-    cp = counterparts(snap, None, model)
-    codes = np.asarray(snap.group_codes)
-    fav = cp.margin > 0
+    with the group swapped and with the proxies carried over too (computed in blocks)."""
+    G = len(snap.group_levels)
+    codes_all = np.asarray(snap.group_codes)
+    # counts[g, h]: cases, flips swapped, flips carried, to favourable, to unfavourable
+    counts = np.zeros((G, G, 5))
+    for start in range(0, snap.n_cases, BLOCK_ROWS):
+        rows = np.arange(start, min(start + BLOCK_ROWS, snap.n_cases))
+        cp = counterparts(snap, rows, model)
+        codes = codes_all[rows]
+        fav = cp.margin > 0
+        for g in range(G):
+            sel = codes == g
+            for h in range(G):
+                a = cp.swapped[sel, h] > 0
+                b = cp.transported[sel, h] > 0
+                counts[g, h] += [
+                    sel.sum(),
+                    (a != fav[sel]).sum(),
+                    (b != fav[sel]).sum(),
+                    (b & ~fav[sel]).sum(),
+                    (~b & fav[sel]).sum(),
+                ]
     out: list[dict[str, Any]] = []
-    for g, own in enumerate(cp.levels):
-        sel = codes == g
-        if not sel.any():
-            continue
-        for h, other in enumerate(cp.levels):
-            if h == g:
+    for g, own in enumerate(snap.group_levels):
+        for h, other in enumerate(snap.group_levels):
+            n = counts[g, h, 0]
+            if h == g or n == 0:
                 continue
-            a = cp.swapped[sel, h] > 0
-            b = cp.transported[sel, h] > 0
             out.append(
                 {
                     "group": own,
                     "as_group": other,
-                    "cases": int(sel.sum()),
-                    "flips_group_swapped": float((a != fav[sel]).mean()),
-                    "flips_carried": float((b != fav[sel]).mean()),
-                    "to_favourable_carried": float((b & ~fav[sel]).mean()),
-                    "to_unfavourable_carried": float((~b & fav[sel]).mean()),
+                    "cases": int(n),
+                    "flips_group_swapped": float(counts[g, h, 1] / n),
+                    "flips_carried": float(counts[g, h, 2] / n),
+                    "to_favourable_carried": float(counts[g, h, 3] / n),
+                    "to_unfavourable_carried": float(counts[g, h, 4] / n),
                 }
             )
     return out

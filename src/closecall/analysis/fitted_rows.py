@@ -127,19 +127,23 @@ def tilde(X: np.ndarray, mask: np.ndarray) -> np.ndarray:
 
 
 def penalised_objective(
-    w: np.ndarray, Xt: np.ndarray, y: np.ndarray, penalty: float
+    w: np.ndarray, Xt: np.ndarray, y: np.ndarray, penalty: float, *, derivatives: bool = True
 ) -> tuple[float, np.ndarray, np.ndarray]:
     """Penalised total negative log-likelihood, its gradient and Hessian at w = [b, β].
 
-    ``Xt`` is the x̃ design (first column ones); the intercept is not penalised.
+    ``Xt`` is the x̃ design (first column ones); the intercept is not penalised. With
+    ``derivatives=False`` only the value is computed (gradient and Hessian are empty).
     """
     eta = Xt @ w
-    f = float(-(y * log_expit(eta) + (1 - y) * log_expit(-eta)).sum())
-    p = np.exp(log_expit(eta))
-    grad = Xt.T @ (p - y)
-    Hm = (Xt * (p * (1 - p))[:, None]).T @ Xt
+    log_p = log_expit(eta)  # log(1 − p) = log_p − eta
+    f = float(((1 - y) * eta - log_p).sum())
     beta = w[1:]
     f += 0.5 * penalty * float(beta @ beta)
+    if not derivatives:
+        return f, np.empty(0), np.empty((0, 0))
+    p = np.exp(log_p)
+    grad = Xt.T @ (p - y)
+    Hm = (Xt * (p * (1 - p))[:, None]).T @ Xt
     grad[1:] += penalty * beta
     Hm[1:, 1:] += penalty * np.eye(len(beta))
     return f, grad, Hm

@@ -349,14 +349,16 @@ def _tilted_minimum(
         if decrement / 2.0 <= tol * max(1.0, abs(value)):
             break
         size = 1.0
-        while True:
+        while True:  # backtracking on the value only; derivatives once a step is taken
             trial = w - size * step
-            f_t, g_t, h_t = penalised_objective(trial, Xt, y, penalty)
+            f_t = penalised_objective(trial, Xt, y, penalty, derivatives=False)[0]
             f_t -= tau * float(c @ trial)
             if f_t <= value - 0.25 * size * decrement or size < 1e-10:
                 break
             size /= 2.0
-        w, value, grad, hess = trial, f_t, g_t - tau * c, h_t
+        w, value = trial, f_t
+        _, g_t, hess = penalised_objective(w, Xt, y, penalty)
+        grad = g_t - tau * c
     return w
 
 
@@ -416,22 +418,38 @@ def exact_band(
         excess increasing in the tilt and the search a bisection.
         """
 
+        last = {"w": w_hat}  # warm start from the previous tilt's solution
+
         def excess(log_tau: float) -> float:
             try:
-                w = _tilted_minimum(Xt, y, fr.penalty, sign * c, float(np.exp(log_tau)), w_hat)
+                w = _tilted_minimum(Xt, y, fr.penalty, sign * c, float(np.exp(log_tau)), last["w"])
             except np.linalg.LinAlgError:
                 return np.inf
-            value = penalised_objective(w, Xt, y, fr.penalty)[0] - f_hat - slack
-            return value if np.isfinite(value) else np.inf
+            value = penalised_objective(w, Xt, y, fr.penalty, derivatives=False)[0]
+            if not np.isfinite(value):
+                return np.inf
+            last["w"] = w
+            return value - f_hat - slack
 
         guess = float(np.log(np.sqrt(2.0 * slack / quad)))  # the quadratic model's tilt
-        lo_, hi_ = guess - 1.0, guess + 1.0
-        while excess(lo_) > 0:
-            lo_ -= 2.0
-        while (e_hi := excess(hi_)) < 0:
-            lo_, hi_ = hi_, hi_ + 2.0
-            if hi_ > guess + MAX_LOG_TILT:
-                return sign * np.inf
+        step = 0.05  # widen a tight bracket around the guess until the sign changes
+        lo_ = hi_ = guess
+        e_hi = excess(guess)
+        if e_hi < 0:
+            while e_hi < 0:
+                lo_, hi_ = hi_, hi_ + step
+                e_hi = excess(hi_)
+                step *= 2.0
+                if hi_ > guess + MAX_LOG_TILT:
+                    return sign * np.inf
+        else:
+            while True:
+                lo_ = hi_ - step
+                e_lo = excess(lo_)
+                if e_lo < 0:
+                    break
+                hi_, e_hi = lo_, e_lo
+                step *= 2.0
         while not np.isfinite(e_hi):  # bisect until the upper end has a minimum
             if hi_ - lo_ < 1e-9:
                 # the loss stays within the slack however far w moves: an unpenalised fit of
@@ -443,10 +461,12 @@ def exact_band(
                 lo_ = mid
             else:
                 hi_, e_hi = mid, e_mid
-        log_tau = brentq(excess, lo_, hi_, xtol=1e-9, rtol=1e-10)
-        w = _tilted_minimum(Xt, y, fr.penalty, sign * c, float(np.exp(log_tau)), w_hat)
+        log_tau = brentq(excess, lo_, hi_, xtol=1e-7, rtol=1e-9)
+        w = _tilted_minimum(Xt, y, fr.penalty, sign * c, float(np.exp(log_tau)), last["w"])
         return float(c @ w) - t
 
+    with np.errstate(over="ignore", invalid="ignore"):  # far tilts may overflow: handled
+        low, high = edge(-1.0), edge(1.0)
     return {
         "case_id": str(case_id),
         "model": model,
@@ -455,8 +475,8 @@ def exact_band(
         "slack": float(slack),
         "best_objective": float(f_hat),
         "margin": m_hat,
-        "low": edge(-1.0),
-        "high": edge(1.0),
+        "low": low,
+        "high": high,
         "closed_low": m_hat - hw,
         "closed_high": m_hat + hw,
     }

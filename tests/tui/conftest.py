@@ -24,7 +24,9 @@ def _config_text(data_dir: Path) -> str:
     text = (FIXTURE / "closecall.toml").read_text()
     for key in ("history", "pending"):
         text = re.sub(
-            rf'^{key} = "([^"]+)"', lambda m, k=key: f'{k} = "{data_dir / m.group(1)}"', text,
+            rf'^{key} = "([^"]+)"',
+            lambda m, k=key: f'{k} = "{data_dir / m.group(1)}"',
+            text,
             flags=re.M,
         )
     return text

@@ -43,7 +43,11 @@ def test_signs_and_bars_carry_direction_without_colour() -> None:
 def test_model_letters_are_distinct() -> None:
     letters = model_letters(["pooled", "unaware", "proxy_free", "split", "deployed", "pilot"])
     assert letters == {
-        "pooled": "P", "unaware": "U", "proxy_free": "N", "split": "S", "deployed": "D",
+        "pooled": "P",
+        "unaware": "U",
+        "proxy_free": "N",
+        "split": "S",
+        "deployed": "D",
         "pilot": "I",
     }
 

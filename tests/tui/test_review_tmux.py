@@ -38,8 +38,20 @@ class Tmux:
         env = {**os.environ, "TERM": "xterm-256color"}
         env.pop("NO_COLOR", None)
         subprocess.run(
-            ["tmux", "new-session", "-d", "-s", self.name, "-x", "80", "-y", "24",
-             "-c", str(self.cwd), command],
+            [
+                "tmux",
+                "new-session",
+                "-d",
+                "-s",
+                self.name,
+                "-x",
+                "80",
+                "-y",
+                "24",
+                "-c",
+                str(self.cwd),
+                command,
+            ],
             check=True,
             env=env,
         )
@@ -105,7 +117,9 @@ def test_review_demo_in_tmux(tmp_path: Path) -> None:
     config = tmp_path / "demo-study" / "closecall.toml"
     shown = subprocess.run(
         [CLOSECALL, "ledger", "show", "--json", "--config", str(config)],
-        capture_output=True, text=True, check=True,
+        capture_output=True,
+        text=True,
+        check=True,
     )
     rows = json.loads(shown.stdout)["rows"]
     assert [(r["case_id"], r["action"], r["hash"]) for r in rows] == [

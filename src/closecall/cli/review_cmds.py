@@ -49,4 +49,3 @@ def review(
 def register(app: typer.Typer) -> None:
     """Add `review` to the closecall app."""
     app.command("review")(review)
-

@@ -229,9 +229,7 @@ class CaseList(ScrollView, can_focus=True):
     def _header(self, width: int, base: Style) -> Strip:
         lay = self.layout_for(width)
         snap = self.session.snap
-        marks = " ".join(
-            "".join(self.letters[m] for m in snap.model_names) for _ in snap.lenses
-        )
+        marks = " ".join("".join(self.letters[m] for m in snap.model_names) for _ in snap.lenses)
         text = (
             f"  {'#':>{lay.rank}} {'case':<{lay.case}} {'group':<{lay.group}} "
             f"{'margin':>6} {'band':<10} {marks:<{lay.marks}} {'dep':>4} {'state':<10}"
@@ -269,12 +267,15 @@ class CaseList(ScrollView, can_focus=True):
         else:
             lo = hi = math.nan
         glyph = band_glyph(margin, lo, hi, span=BAND_SPAN)
+        if not session.measures_ready:
+            glyph = f"{'…':^9}"
         amb = AMBIGUOUS if math.isfinite(lo) and lo <= 0 <= hi else " "
         segs.append(Segment(f"{glyph}{amb} ", row_base))
         flag = self._style("case-list--flag", row_base)
         segs.append(Segment(f"{self._marks(r):<{lay.marks}} ", flag))
         dep = session.peek("dependence")
-        segs.append(Segment(f"{share(float(dep[r])) if dep is not None else '—':>4} ", muted))
+        waiting = "…" if not session.measures_ready else "—"
+        segs.append(Segment(f"{share(float(dep[r])) if dep is not None else waiting:>4} ", muted))
         state = self._state(r, case_id)
         segs.append(Segment(f"{state:<{STATE_WIDTH}}", self._state_style(r, row_base)))
         for m in lay.extra_models:

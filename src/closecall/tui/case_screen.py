@@ -6,7 +6,6 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any, ClassVar
 
-import numpy as np
 from rich.text import Text
 from scipy.special import logit
 from textual import events, work
@@ -19,11 +18,26 @@ from textual.worker import get_current_worker
 
 from closecall.errors import UserError
 from closecall.ledger import Draft, Entry
-from closecall.reviews import case_history, claim_case, load_draft, release_claim
+from closecall.reviews import (
+    active_claims,
+    case_history,
+    claim_case,
+    load_draft,
+    release_claim,
+)
+from closecall.snapshot import decision_word
 from closecall.tui import analysis_bridge, case_sections
 from closecall.tui.key_bar import KeyBar
 from closecall.tui.margin_axis import AxisData, AxisLine, MarginAxis
-from closecall.tui.marks import CLAIM_MINE, CLAIM_OTHER, OPEN, STATE_WORD
+from closecall.tui.marks import (
+    AMBIGUOUS,
+    CLAIM_MINE,
+    CLAIM_OTHER,
+    OPEN,
+    STATE_OF_ACTION,
+    STATE_WORD,
+    signed,
+)
 from closecall.tui.session import ReviewSession
 
 Neighbour = Callable[[int, int], "int | None"]
@@ -97,6 +111,7 @@ class CaseScreen(Screen[None]):
 
     def compose(self) -> ComposeResult:
         yield Static(id="title")
+        yield Static(id="case-summary")
         with VerticalScroll(id="case-body"):
             yield section("Margins on one axis")
             yield MarginAxis(axis_data(self.session, self.row, {}), id="axis")
@@ -162,6 +177,9 @@ class CaseScreen(Screen[None]):
             state = f"{CLAIM_MINE} open by you"
         text.append(f" · {state}")
         self.query_one("#title", Static).update(text)
+        self.query_one("#case-summary", Static).update(
+            case_summary(session, row, self.details.explained if self.details else None)
+        )
 
     @work(thread=True, exclusive=True, group="case")
     def _load(self, row: int) -> None:
@@ -174,7 +192,7 @@ class CaseScreen(Screen[None]):
             explained = analysis_bridge.explain(session.study, case_id)
             history = case_history(session.study, case_id)
             draft = load_draft(session.study, case_id)
-            session.claims = analysis_claims(session)
+            session.claims = active_claims(session.study)
             details = CaseDetails(row, explained, half, history, draft)
         except UserError as exc:
             details = CaseDetails(row, None, {}, [], None, error=exc.message)
@@ -211,9 +229,7 @@ class CaseScreen(Screen[None]):
     def action_decide(self) -> None:
         from closecall.tui.decision_dialog import DecisionDialog
 
-        self.app.push_screen(
-            DecisionDialog(self.session, self.case_id, claim=False), self._decided
-        )
+        self.app.push_screen(DecisionDialog(self.session, self.case_id, claim=False), self._decided)
 
     def _decided(self, entry: Entry | None) -> None:
         from closecall.tui.queue_screen import QueueScreen
@@ -223,7 +239,7 @@ class CaseScreen(Screen[None]):
             for screen in self.app.screen_stack:
                 if isinstance(screen, QueueScreen):
                     screen.recorded(entry)
-            self.session.states[self.row] = _state_code(entry.action)
+            self.session.states[self.row] = STATE_OF_ACTION[entry.action]
         self.show(self.row)
 
     def action_step(self, step: int) -> None:
@@ -259,14 +275,24 @@ class CaseScreen(Screen[None]):
         body.scroll_relative(y=step * max(1, body.size.height - 1), animate=False)
 
 
-def analysis_claims(session: ReviewSession) -> dict[str, list[Any]]:
-    """Current claims (read again after claiming this case)."""
-    from closecall.reviews import active_claims
-
-    return active_claims(session.study)
-
-
-def _state_code(action: str) -> np.int8:
-    from closecall.tui.marks import STATE_OF_ACTION
-
-    return np.int8(STATE_OF_ACTION[action])
+def case_summary(session: ReviewSession, row: int, explained: dict[str, Any] | None) -> Text:
+    """One line on why this case is here: the decision, who disagrees, what it rests on."""
+    snap = session.snap
+    q = session.queue
+    margin = float(snap.margins(snap.reference)[row])
+    text = Text()
+    text.append(f"{snap.reference}: {decision_word(margin > 0)} {signed(margin)}", "bold")
+    if q is not None:
+        fav = q.grid.favourable[row]
+        others = len(q.grid.pairs) - 1
+        differ = int((fav != fav[q.grid.reference_col]).sum())
+        text.append(f" · {differ}/{others} others differ")
+    if explained is not None:
+        if explained["bands"]["equally_good"]["straddles_zero"]:
+            text.append(f" · {AMBIGUOUS} ambiguous")
+        dep = explained["dependence"]
+        if dep["rests_on_group"]:
+            text.append(" · rests on group")
+        elif dep["rests_on_proxies"]:
+            text.append(" · rests on proxies")
+    return text

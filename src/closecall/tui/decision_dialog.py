@@ -79,9 +79,7 @@ class DecisionDialog(ModalScreen[Entry | None]):
                     yield ChoiceList([(a, ACTION_LABELS[a]) for a in ACTIONS], id="action")
                 with Vertical(id="reason-box"):
                     yield Static("Reason (needed to override)", classes="field-label")
-                    yield ChoiceList(
-                        [(None, "— none —"), *((r, r) for r in reasons)], id="reason"
-                    )
+                    yield ChoiceList([(None, "— none —"), *((r, r) for r in reasons)], id="reason")
             yield Static(
                 "Note (stored exactly as typed; needed to override)", classes="field-label"
             )
@@ -238,7 +236,6 @@ class DecisionDialog(ModalScreen[Entry | None]):
 
 def _dialog_fix(fix: str) -> str:
     """The engine's advice, worded for this dialog instead of the command line."""
-    return (
-        fix.replace("add --reason with one of:", "choose a reason:")
-        .replace('add --note "…" (it is stored exactly as typed)', "write a note below")
+    return fix.replace("add --reason with one of:", "choose a reason:").replace(
+        'add --note "…" (it is stored exactly as typed)', "write a note below"
     )

@@ -26,30 +26,60 @@ from closecall.tui.marks import (
 )
 
 MEANINGS = [
-    ("margin", "How far the model's score is from the threshold, in log-odds. Above 0 "
-     "(+) the model gives the favourable decision, below 0 (−) the unfavourable one. "
-     "The list shows the reference model under the first cost lens."),
-    ("close call", "A case within the review band of the threshold (±band), or one that "
-     "another model or cost lens decides differently."),
-    ("flip", "A case that some model of the suite or some cost lens decides differently "
-     "from the reference model."),
-    ("cost lens", "A pair of error costs. It sets the threshold: a lens that counts a wrong "
-     "favourable decision as dearer moves the threshold up."),
-    ("band", "How far the margin could move across models that fit the history almost as "
-     "well (the equally good models). A band that crosses the threshold makes the case "
-     "ambiguous: an equally good model would decide it the other way."),
-    ("dependence (dep)", "The share of the case's pull, away from an average case, that "
-     "comes from the group attribute and the features that stand in for it (proxies)."),
-    ("group part / proxy part", "How many log-odds of the margin come from the group "
-     "attribute itself / from its proxies. 'Rests on' means removing that part would flip "
-     "the decision."),
-    ("counterpart", "The same case carried into another group: the group swapped, and its "
-     "proxies moved to where the case would stand in that group. If the decision changes, "
-     "the group or its proxies decide it."),
-    ("similar cases", "Past cases closest to this one on the non-group features, with what "
-     "happened to them: treat like cases alike."),
-    ("ledger", "The append-only record of decisions. Each entry carries the hash of the one "
-     "before it, so an edited, removed or reordered entry breaks the chain."),
+    (
+        "margin",
+        "How far the model's score is from the threshold, in log-odds. Above 0 "
+        "(+) the model gives the favourable decision, below 0 (−) the unfavourable one. "
+        "The list shows the reference model under the first cost lens.",
+    ),
+    (
+        "close call",
+        "A case within the review band of the threshold (±band), or one that "
+        "another model or cost lens decides differently.",
+    ),
+    (
+        "flip",
+        "A case that some model of the suite or some cost lens decides differently "
+        "from the reference model.",
+    ),
+    (
+        "cost lens",
+        "A pair of error costs. It sets the threshold: a lens that counts a wrong "
+        "favourable decision as dearer moves the threshold up.",
+    ),
+    (
+        "band",
+        "How far the margin could move across models that fit the history almost as "
+        "well (the equally good models). A band that crosses the threshold makes the case "
+        "ambiguous: an equally good model would decide it the other way.",
+    ),
+    (
+        "dependence (dep)",
+        "The share of the case's pull, away from an average case, that "
+        "comes from the group attribute and the features that stand in for it (proxies).",
+    ),
+    (
+        "group part / proxy part",
+        "How many log-odds of the margin come from the group "
+        "attribute itself / from its proxies. 'Rests on' means removing that part would flip "
+        "the decision.",
+    ),
+    (
+        "counterpart",
+        "The same case carried into another group: the group swapped, and its "
+        "proxies moved to where the case would stand in that group. If the decision changes, "
+        "the group or its proxies decide it.",
+    ),
+    (
+        "similar cases",
+        "Past cases closest to this one on the non-group features, with what "
+        "happened to them: treat like cases alike.",
+    ),
+    (
+        "ledger",
+        "The append-only record of decisions. Each entry carries the hash of the one "
+        "before it, so an edited, removed or reordered entry breaks the chain.",
+    ),
 ]
 
 

@@ -24,16 +24,14 @@ SessionFactory = Callable[[Study], ReviewSession]
 
 
 def prepare(session: ReviewSession, progress: Callable[[str, int, int], None]) -> None:
-    """Everything the list needs before its first paint (slow at national scale)."""
-    progress("reading the ledger", 0, 4)
+    """What the list needs before its first paint; the measures follow in the background."""
+    progress("reading the ledger", 0, 3)
     session.refresh_reviews()
-    progress("measuring dependence and ambiguity", 1, 4)
-    session.warm_up()
-    progress("indexing case ids", 2, 4)
+    progress("indexing case ids", 1, 3)
     session.rows_with_prefix("")
-    progress("ranking the close calls", 3, 4)
+    progress("ranking the close calls", 2, 3)
     session.rebuild()
-    progress("ready", 4, 4)
+    progress("ready", 3, 3)
 
 
 class LoadingScreen(Screen[None]):

@@ -105,7 +105,7 @@ class MarginAxis(Widget):
         text.append(header + " ".join(letters) + "\n", self._style("muted"))
         for line in d.lines:
             name = (REFERENCE if line.reference else " ") + short_model(line.name)
-            text.append(f"{name[:NAME_WIDTH - 1]:<{NAME_WIDTH}}")
+            text.append(f"{name[: NAME_WIDTH - 1]:<{NAME_WIDTH}}")
             row = ["·"] * cells
             styles: list[str | None] = [None] * cells
             for p in ticks:

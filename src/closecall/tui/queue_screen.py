@@ -32,6 +32,7 @@ class QueueScreen(Screen[None]):
         Binding("l", "app.ledger", "ledger"),
         Binding("question_mark,f1", "app.help", "help", key_display="?"),
         Binding("q", "app.quit", "quit"),
+        Binding("ctrl+p", "app.command_palette", "commands", key_display="^p"),
         Binding("s", "cycle_sort", "sort", show=False),
         Binding("f", "switch('flips')", "flips only", show=False),
         Binding("a", "switch('ambiguous')", "ambiguous only", show=False),
@@ -67,6 +68,19 @@ class QueueScreen(Screen[None]):
         self._show_counts()
         self.query_one(CaseList).focus()
         self.set_interval(REFRESH_SECONDS, self.action_refresh)
+        if not self.session.measures_ready:
+            self.say("measuring dependence and bands…")
+            self._warm_up()
+
+    @work(thread=True, group="measures")
+    def _warm_up(self) -> None:
+        self.session.warm_up()
+        self.app.call_from_thread(self._measured)
+
+    def _measured(self) -> None:
+        self.query_one(CaseList).refresh()
+        if str(self.query_one("#status", Static).render()).startswith("measuring"):
+            self.say("")
 
     # ------------------------------------------------------------------ header lines
 

@@ -91,6 +91,7 @@ class ReviewSession:
         self.entries_seen = 0
         self._measures: dict[str, np.ndarray | None] = {}
         self._half_widths: dict[str, np.ndarray | None] = {}
+        self.measures_ready = False
         self._bands: tuple[np.ndarray, np.ndarray] | tuple[()] | None = None
         self._sorted_ids: np.ndarray | None = None
         self._id_order: np.ndarray | None = None
@@ -133,6 +134,7 @@ class ReviewSession:
         for name in ("dependence", "ambiguity"):
             self.measure(name)
         self.band_limits()
+        self.measures_ready = True
 
     # ------------------------------------------------------------------ the list
 

@@ -49,12 +49,6 @@ class FittedRow:
         return LogitFit(self.intercept, np.asarray(self.coef), self.objective, len(self.train))
 
 
-def n_rows(snap: Snapshot, model: str) -> int:
-    """How many fitted rows a model has (0 for imported scores)."""
-    W, _ = snap.weights(model)
-    return len(W)
-
-
 def training_rows(snap: Snapshot, model: str, row: int) -> np.ndarray:
     """History row indices that fitted row ``row`` of ``model`` was trained on."""
     G = len(snap.group_levels)

@@ -6,12 +6,21 @@ such features carry the same information.
 
 Association (0 = none, 1 = perfect):
 - numeric feature: 2·|AUC − 0.5| of the feature separating one group level from the rest
-  (the largest over levels when there are more than two);
+  (the largest over levels when there are more than two). It is |Somers' D|, a rank measure:
+  free of units and robust to outliers;
 - categorical feature: Cramér's V of the feature × group table.
+Both run from 0 to 1, so one threshold serves both kinds (normalised mutual information was
+the alternative; it has no natural scale for a numeric feature).
 
 Influence: the share of the unaware model's margin variance carried by the feature's linear
 component, Var(c_j) / Var(margin), with c_j = Σ_k w_k (x_k − E[x_k]) over the feature's design
 columns. Shares need not sum to one when features are correlated.
+
+A feature is a proxy when association ≥ [proxies] association (default 0.3, the usual
+"medium" size for φ-like measures) and influence ≥ [proxies] influence (default 0.02: it moves
+at least 2 % of the unaware margins' variation). Flagging runs in rounds ("peeling", see
+``detect_proxies``): a weaker proxy that takes over the group signal once a stronger one is
+removed is flagged too.
 
 Group recoverability: cross-validated AUC of predicting the group from all non-group features
 together (macro one-vs-rest when there are more than two levels).

@@ -6,12 +6,12 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from analysis_helpers import group_copy_study
 from scipy.special import logit
 
+from analysis_helpers import group_copy_study
 from closecall.analysis.dependence import dependence, dependence_by_group, rests_on
-from closecall.analysis.proxies import cramers_v
 from closecall.analysis.multiplicity import bands
+from closecall.analysis.proxies import cramers_v
 from closecall.queue import build_queue, queue_rows
 from closecall.study import Study, open_study
 
@@ -116,7 +116,7 @@ def test_queue_filters_and_sorts_by_the_analysis(demo_study: Study) -> None:
     assert rows[0]["dependence"] == pytest.approx(listed[0])
     q = build_queue(snap, band=10.0, sort="ambiguity", options=options)
     reach = q.measures["ambiguity"][q.order]
-    assert np.all(np.diff(reach) <= 1e-12) and 0 <= reach.min() and reach.max() <= 1
+    assert np.all(np.diff(reach) <= 1e-12) and reach.min() >= 0 and reach.max() <= 1
 
 
 def test_queue_cli_filters(demo_config: Path, cli) -> None:  # type: ignore[no-untyped-def]

@@ -6,10 +6,10 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from analysis_helpers import one_file_demo
 from scipy.spatial import cKDTree
 
 import closecall.analysis.neighbours as nbmod
+from analysis_helpers import one_file_demo
 from closecall.analysis.neighbours import nearest_history, neighbours_for_case, similarity_weights
 from closecall.study import Study, open_study
 

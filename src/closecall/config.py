@@ -82,7 +82,7 @@ class ProxyConfig:
 
 @dataclass(frozen=True)
 class MultiplicityConfig:
-    epsilon: float = 0.01  # equally-good set: total loss within (1 + epsilon) of the best
+    epsilon: float = 0.001  # equally-good set: total loss within (1 + epsilon) of the best
     neighbours: int = 5
 
 
@@ -325,7 +325,7 @@ def parse_config(raw: dict[str, Any], path: Path) -> StudyConfig:
     mu = raw.get("multiplicity", {})
     _check_keys(path, "multiplicity", mu)
     multiplicity = MultiplicityConfig(
-        epsilon=float(mu.get("epsilon", 0.01)), neighbours=int(mu.get("neighbours", 5))
+        epsilon=float(mu.get("epsilon", 0.001)), neighbours=int(mu.get("neighbours", 5))
     )
     if multiplicity.epsilon <= 0:
         raise UserError(f"{path}: [multiplicity] epsilon must be positive")

@@ -91,7 +91,7 @@ association = 0.3
 influence = 0.02
 
 [multiplicity]
-epsilon = 0.01
+epsilon = 0.001
 neighbours = 5
 
 [review]

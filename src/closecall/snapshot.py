@@ -32,7 +32,7 @@ from closecall.encode import Encoder
 from closecall.errors import UserError
 from closecall.suite import SuiteResult
 
-SNAPSHOT_FORMAT = 1
+SNAPSHOT_FORMAT = 2
 
 
 def file_digest(path: Path) -> str:

@@ -257,3 +257,38 @@ async def test_help_lists_keys_meanings_and_cautions(study: Study, size: tuple[i
         assert caution in text
     for word in ("margin", "flip", "band", "dependence", "counterpart", "ledger"):
         assert f"  {word}" in text
+
+
+@synchronous
+async def test_meaning_survives_without_colour(
+    study: Study, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """Under NO_COLOR the cursor, switches, decisions and states still read as signs and words."""
+    monkeypatch.setenv("NO_COLOR", "1")
+    app = ReviewApp(study=study, login="reviewer")
+    assert app.no_color
+    async with app.run_test(size=SIZE) as pilot:
+        await open_queue(pilot)
+        await pilot.press("f")
+        await wait_until(pilot, lambda: "flips ●" in screen_text(app))
+        lines = screen_text(app).splitlines()
+        cursor_rows = [line for line in lines if line.startswith("▶")]
+        assert len(cursor_rows) == 1
+        assert "open" in cursor_rows[0] and ("+" in cursor_rows[0] or "−" in cursor_rows[0])
+        assert "a ambiguous ○" in screen_text(app)
+
+
+@synchronous
+async def test_leaving_withdraws_the_claim(study: Study) -> None:
+    from closecall.reviews import active_claims
+
+    app = ReviewApp(study=study, login="reviewer")
+    async with app.run_test(size=SIZE) as pilot:
+        await open_queue(pilot)
+        await pilot.press("enter")
+        await wait_until(pilot, lambda: isinstance(app.screen, CaseScreen))
+        case_id = app.screen.case_id  # type: ignore[attr-defined]
+        await wait_until(pilot, lambda: case_id in active_claims(study))
+        await pilot.press("ctrl+q")
+        await wait_until(pilot, lambda: not app.is_running)
+    assert case_id not in active_claims(study)

@@ -13,6 +13,7 @@ from textual.app import App, SystemCommand
 from textual.binding import Binding, BindingType
 from textual.screen import Screen
 
+from closecall.errors import UserError
 from closecall.study import Study
 from closecall.tui.decision_dialog import DecisionDialog
 from closecall.tui.queue_screen import QueueScreen
@@ -96,9 +97,20 @@ class ReviewApp(App[None]):
             self.exit()
 
     def _save_drafts(self) -> None:
+        """Before leaving: keep the open note as a draft, withdraw this session's claims."""
+        from closecall.reviews import release_claim
+        from closecall.tui.case_screen import CaseScreen
+
         dialog = self.open_dialog()
         if dialog is not None:
-            dialog.flush_now()
+            with contextlib.suppress(UserError):
+                dialog.flush_now()
+        if self.session is None:
+            return
+        for screen in self.screen_stack:
+            if isinstance(screen, (CaseScreen, DecisionDialog)):
+                with contextlib.suppress(UserError):
+                    release_claim(self.session.study, screen.case_id)
 
     def _hangup(self) -> None:
         """The terminal went away (SSH dropped): keep the draft, then leave."""

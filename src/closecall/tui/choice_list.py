@@ -42,11 +42,12 @@ class ChoiceList(OptionList):
         self.values = [v for v, _ in choices]
         self.labels = [label for _, label in choices]
         self.chosen = chosen
+        self._focused = False
         prompts = [Option(self._prompt(i, pointer=False)) for i in range(len(choices))]
         super().__init__(*prompts, id=id)
 
     def _prompt(self, i: int, pointer: bool = True) -> str:
-        pointer = pointer and self.highlighted == i and self.has_focus
+        pointer = pointer and self.highlighted == i and self._focused
         mark = CHOSEN if i == self.chosen else NOT_CHOSEN
         key = f"{i + 1}" if i < 9 else " "
         return f"{POINTER if pointer else ' '}{mark} {key} {self.labels[i]}"
@@ -76,11 +77,13 @@ class ChoiceList(OptionList):
         self._redraw()
 
     def on_focus(self) -> None:
+        self._focused = True
         if self.highlighted is None:
             self.highlighted = self.chosen or 0
         self._redraw()
 
     def on_blur(self) -> None:
+        self._focused = False
         self._redraw()
 
     def on_option_list_option_selected(self, event: OptionList.OptionSelected) -> None:

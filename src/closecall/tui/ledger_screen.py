@@ -61,7 +61,7 @@ class LedgerScreen(Screen[None]):
 
     def on_mount(self) -> None:
         table = self.query_one("#entries", DataTable)
-        table.add_columns("seq", "time (UTC)", "reviewer", "case", "action", "reason", "note")
+        table.add_columns("seq", "UTC", "reviewer", "case", "action", "reason", "note")
         table.focus()
         self._load()
         self.action_verify()
@@ -92,7 +92,7 @@ class LedgerScreen(Screen[None]):
         for e in self.entries:
             table.add_row(
                 Text(str(e.seq)),
-                Text(e.time[:16].replace("T", " ")),
+                Text(e.time[5:16].replace("T", " ")),
                 Text(safe_text(e.reviewer)),
                 Text(safe_text(e.case_id)),
                 Text(ACTION_SHORT.get(e.action, e.action)),
@@ -132,7 +132,7 @@ class LedgerScreen(Screen[None]):
         text.append(f" · {safe_text(e.case_id)} · {ACTION_WORD.get(e.action, e.action)}")
         if e.reason:
             text.append(f" ({safe_text(e.reason)})")
-        text.append(f" · by {safe_text(e.reviewer)}")
+        text.append(f" · by {safe_text(e.reviewer)} · {e.time[:19].replace('T', ' ')} UTC")
         if e.supersedes is not None:
             text.append(f" · corrects entry {e.supersedes}")
         text.append(f"\nmodel {e.reference_model}: {e.reference_decision} {margin}")

@@ -47,6 +47,7 @@ class QueueScreen(Screen[None]):
         super().__init__()
         self.session = session
         self._search_from: int | None = None
+        self._last_position: dict[int, int] = {}
 
     def compose(self) -> ComposeResult:
         yield Static(self._title(), id="title")
@@ -211,17 +212,32 @@ class QueueScreen(Screen[None]):
     def open_row(self, row: int) -> None:
         from closecall.tui.case_screen import CaseScreen
 
+        self._remember(row)
         self.app.push_screen(CaseScreen(self.session, row, self.neighbour))
 
+    def _remember(self, row: int) -> None:
+        pos = self.session.position_of_row(row)
+        if pos >= 0:
+            self._last_position[row] = pos
+
     def neighbour(self, row: int, step: int) -> int | None:
-        """The row ``step`` places after ``row`` in the current list (None past either end)."""
+        """The row ``step`` places after ``row`` in the current list (None past either end).
+
+        A case that has left the list (decided, with "unreviewed only" on) is followed by
+        the case that took its place.
+        """
         cases = self.query_one(CaseList)
         pos = self.session.position_of_row(row)
-        if pos < 0:
+        if pos >= 0:
+            target_pos = pos + step
+        elif row in self._last_position:
+            target_pos = self._last_position[row] + (0 if step > 0 else -1)
+        else:
             return None
-        target = cases.row_at(pos + step)
+        target = cases.row_at(target_pos)
         if target is not None:
-            cases.go_to(pos + step)
+            cases.go_to(target_pos)
+            self._remember(target)
         return target
 
     def action_decide(self) -> None:

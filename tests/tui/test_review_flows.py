@@ -292,3 +292,54 @@ async def test_leaving_withdraws_the_claim(study: Study) -> None:
         await pilot.press("ctrl+q")
         await wait_until(pilot, lambda: not app.is_running)
     assert case_id not in active_claims(study)
+
+
+@synchronous
+async def test_command_palette_runs_the_apps_actions(study: Study) -> None:
+    app = ReviewApp(study=study, login="reviewer")
+    async with app.run_test(size=SIZE) as pilot:
+        await open_queue(pilot)
+        session = app.session
+        assert session is not None
+        await pilot.press("ctrl+p")
+        await pilot.press(*"only flips")
+        await wait_until(pilot, lambda: "Only flips" in screen_text(app))
+        await pilot.press("enter")
+        await wait_until(pilot, lambda: session.settings.flips)
+        await pilot.press("ctrl+p")
+        await pilot.press(*"ledger")
+        await wait_until(pilot, lambda: "Recent entries" in screen_text(app))
+        await pilot.press("enter")
+        await wait_until(pilot, lambda: isinstance(app.screen, LedgerScreen))
+
+
+@synchronous
+async def test_a_stale_study_is_fitted_with_progress(tmp_path: Path) -> None:
+    from closecall.demo import write_demo
+    from closecall.tui.fit_progress import FitProgress
+    from closecall.tui.queue_screen import QueueScreen
+
+    config = write_demo(tmp_path / "small", cases=400, seed=3)
+    seen: list[str] = []
+    app = ReviewApp(config, login="reviewer")
+    async with app.run_test(size=SIZE) as pilot:
+        widget = app.screen.query_one(FitProgress)
+        while not isinstance(app.screen, QueueScreen):
+            seen.append(widget.label)
+            await pilot.pause(0.01)
+        assert app.session is not None and app.session.study.fitted_now
+    assert len(set(seen)) >= 3  # the progress line moved through the fitting steps
+    assert (config.parent / ".closecall" / "snapshots").is_dir()
+
+
+def test_chain_state_names_the_broken_entry() -> None:
+    from closecall.ledger import Problem, VerifyResult
+    from closecall.tui.ledger_screen import chain_state
+
+    problem = Problem("edited", 7, "entry 7: its fields do not match its hash")
+    broken = VerifyResult(False, 12, 6, 12, "ab" * 32, problem, None, None, (problem,))
+    assert chain_state(broken) == (
+        "chain ✗ BROKEN at entry 7 (6 good before it): entry 7: its fields do not match its hash"
+    )
+    ok = VerifyResult(True, 3, 3, 3, "cd" * 32, None, None, None)
+    assert chain_state(ok) == "chain ✓ verified · 3 entries · head 3 cdcdcdcdcdcdcdcd…"

@@ -53,7 +53,9 @@ class DecisionDialog(ModalScreen[Entry | None]):
         super().__init__()
         self.session = session
         self.case_id = case_id
-        self.row = session.snap.case_index(case_id)
+        self.row = int(session.rows_of([case_id])[0])  # the session's id index: no re-sort
+        if self.row < 0:
+            self.row = session.snap.case_index(case_id)  # raises the engine's UserError
         self.keeper = DraftKeeper(session.study, case_id)
         self.entry: Entry | None = None
         self._claim = claim

@@ -68,30 +68,62 @@ class Encoder:
 
     def transform(self, frame: pd.DataFrame) -> tuple[np.ndarray, dict[str, int]]:
         """Design matrix for a frame, and counts of unseen category values per column."""
-        blocks: list[np.ndarray] = []
         unseen: dict[str, int] = {}
         n = len(frame)
+        # per design block: (first column, width, values); numeric values are the finished
+        # column, categorical values the level index (0 = the reference level)
+        parts: list[tuple[int, int, np.ndarray]] = []
+        j = 0
         for f in self.features:
             col = frame[f.name]
+            width = len(f.design_names())
             if f.kind == "numeric":
                 x = pd.to_numeric(col, errors="coerce").to_numpy(dtype=float)
                 miss = np.isnan(x)
-                z = (np.where(miss, f.mean, x) - f.mean) / f.sd
-                blocks.append(z[:, None])
+                parts.append((j, 1, (np.where(miss, f.mean, x) - f.mean) / f.sd))
                 if f.missing_indicator:
-                    blocks.append(miss.astype(float)[:, None])
+                    parts.append((j + 1, 1, miss.astype(float)))
             else:
-                values = _category_strings(col)
-                codes = pd.Index(f.levels).get_indexer(values)
-                bad = codes < 0
+                codes, labels = _category_codes(col)
+                level_of = pd.Index(f.levels).get_indexer(pd.Index(labels))
+                bad = level_of < 0
                 if bad.any():
-                    unseen[f.name] = int(bad.sum())
-                    codes = np.where(bad, 0, codes)
-                onehot = np.zeros((n, max(len(f.levels) - 1, 0)))
-                rows = np.flatnonzero(codes > 0)
-                onehot[rows, codes[rows] - 1] = 1.0
-                blocks.append(onehot)
-        return (np.hstack(blocks) if blocks else np.zeros((n, 0))), unseen
+                    count = int(np.bincount(codes, minlength=len(labels))[bad].sum())
+                    if count:
+                        unseen[f.name] = count
+                    level_of = np.where(bad, 0, level_of)
+                parts.append((j, width, level_of[codes]))
+            j += width
+        return _assemble(n, j, parts), unseen
+
+
+def _assemble(n: int, p: int, parts: list[tuple[int, int, np.ndarray]]) -> np.ndarray:
+    """Write the design matrix row chunk by row chunk through a small transposed buffer, so
+    every column is written contiguously and the result is read from cache."""
+    X = np.empty((n, p))
+    step = 8192
+    buf = np.empty((p, step))
+    for start in range(0, n, step):
+        m = min(step, n - start)
+        T = buf[:, :m]
+        for j, width, values in parts:
+            v = values[start : start + m]
+            if width == 1 and values.dtype.kind == "f":
+                T[j] = v
+            else:
+                T[j : j + width] = v[None, :] == np.arange(1, width + 1)[:, None]
+        X[start : start + m] = T.T
+    return X
+
+
+def _category_codes(col: pd.Series) -> tuple[np.ndarray, np.ndarray]:
+    """Each row's index into the column's distinct values, and those values as stripped text
+    (missing as its own level). The text work is done once per distinct value."""
+    codes, uniques = pd.factorize(col, use_na_sentinel=True)
+    labels = _category_strings(pd.Series(np.asarray(uniques, dtype=object), dtype=object))
+    labels = np.append(labels, MISSING_LEVEL).astype(object)
+    codes = np.where(codes < 0, len(labels) - 1, codes)
+    return codes, labels
 
 
 def _category_strings(col: pd.Series) -> np.ndarray:
@@ -120,8 +152,11 @@ def fit_encoder(history: pd.DataFrame, features: list[Feature], group: tuple[str
                 )
             )
         else:
-            values = _category_strings(col)
-            uniq, counts = np.unique(values.astype(str), return_counts=True)
+            codes, labels = _category_codes(col)
+            per_label = np.bincount(codes, minlength=len(labels))
+            uniq, inverse = np.unique(labels.astype(str), return_inverse=True)
+            counts = np.bincount(inverse, weights=per_label, minlength=len(uniq)).astype(np.int64)
+            uniq, counts = uniq[counts > 0], counts[counts > 0]
             order = np.lexsort((uniq, -counts))  # most frequent first, ties by name
             out.append(EncodedFeature(f.name, "categorical", f.is_group, levels=list(uniq[order])))
     return Encoder(out)

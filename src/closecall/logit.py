@@ -1,21 +1,45 @@
 """Logistic regression fits, their Hessians and per-case quadratic forms.
 
-The fit itself is scikit-learn's ``LogisticRegression`` (Newton–Cholesky solver). The penalty is
-written ``lambda``: the fit minimises  sum_i loss_i + lambda/2 * |w|^2  (intercept unpenalised),
-which is scikit-learn's objective with ``C = 1/lambda``; ``lambda = 0`` is the unpenalised
-maximum-likelihood fit that statsmodels' ``Logit`` also computes.
+The penalty is written ``lambda``: a fit minimises  sum_i loss_i + lambda/2 * |w|^2  (intercept
+unpenalised), which is scikit-learn's ``LogisticRegression`` objective with ``C = 1/lambda``;
+``lambda = 0`` is the unpenalised maximum-likelihood fit that statsmodels' ``Logit`` computes.
+
+The solver is Newton–Raphson with Cholesky solves and a backtracking (Armijo) line search, the
+algorithm of scikit-learn's ``newton-cholesky`` solver and of statsmodels'
+``Logit.fit(method="newton")``, with scikit-learn's stopping rule (largest gradient entry of the
+mean loss and half the Newton decrement both ≤ ``tol``). It is written out here so that the
+suite's many fits (whole history, every fold, every group) read the history in place: a fit
+takes the training rows as a list of contiguous row blocks and the model's columns as a mask,
+and streams over the rows in cache-sized chunks, so no row or column subset is ever copied and
+no matrix the size of the history is allocated. The Hessian at the optimum comes with the fit.
+tests/test_engine_references.py checks the fits against statsmodels and scikit-learn.
+
+References
+----------
+Nocedal & Wright, "Numerical Optimization", 2nd ed., Springer 2006, §3.1 (backtracking
+line search) and §3.3 (Newton's method).
 """
 
 from __future__ import annotations
 
-import warnings
-from dataclasses import dataclass
+import os
+from collections.abc import Sequence
+from concurrent.futures import ThreadPoolExecutor
+from contextlib import AbstractContextManager, nullcontext
+from dataclasses import dataclass, field
 
 import numpy as np
-from scipy.linalg import cho_factor, solve_triangular
-from scipy.special import expit, log_expit
-from sklearn.exceptions import ConvergenceWarning
-from sklearn.linear_model import LogisticRegression
+from scipy.linalg import cho_factor, cho_solve, solve_triangular
+from threadpoolctl import ThreadpoolController
+
+TOL = 1e-10
+MAX_ITER = 200
+CHUNK_VALUES = 1 << 18  # values of X per streamed chunk (2 MB of float64)
+COARSE_ROWS = 40_000  # a cold fit on more than 4x this many rows starts from a subsample
+COARSE_TOL = 1e-6
+COARSE_MAX_ITER = 50
+MAX_WORKERS = 4  # threads streaming the rows (numpy and BLAS release the GIL)
+_EPS = 16 * float(np.finfo(np.float64).eps)
 
 
 @dataclass
@@ -26,6 +50,14 @@ class LogitFit:
     coef: np.ndarray  # (p,)
     objective: float  # penalised total negative log-likelihood at the optimum
     n: int
+    hessian: np.ndarray | None = field(default=None, repr=False)  # over [intercept, active]
+    gradient: np.ndarray | None = field(default=None, repr=False)  # the same, at the optimum
+
+    def state(self) -> StartState | None:
+        """Objective, gradient and Hessian at the optimum, when the fit kept them."""
+        if self.hessian is None or self.gradient is None:
+            return None
+        return StartState(self.objective, self.gradient, self.hessian)
 
     def logit(self, X: np.ndarray) -> np.ndarray:
         return self.intercept + X @ self.coef
@@ -33,7 +65,337 @@ class LogitFit:
 
 def negative_log_likelihood(eta: np.ndarray, y: np.ndarray) -> float:
     """Total Bernoulli negative log-likelihood for log-odds eta and 0/1 labels y."""
-    return float(-(y * log_expit(eta) + (1 - y) * log_expit(-eta)).sum())
+    # softplus(eta) - y * eta, with softplus(eta) = max(eta, 0) + log1p(exp(-|eta|))
+    softplus = np.maximum(eta, 0.0) + np.log1p(np.exp(-np.abs(eta)))
+    return float(softplus.sum() - np.dot(y, eta))
+
+
+def _chunk_rows(p: int) -> int:
+    return max(1024, CHUNK_VALUES // max(p, 1))
+
+
+def _workers() -> int:
+    try:
+        cores = len(os.sched_getaffinity(0))
+    except AttributeError:  # not Linux
+        cores = os.cpu_count() or 1
+    return max(1, min(cores, MAX_WORKERS))
+
+
+_POOL: ThreadPoolExecutor | None = None
+_BLAS: ThreadpoolController | None = None
+
+
+def _one_blas_thread() -> AbstractContextManager[object]:
+    """While the row-streaming threads run, BLAS itself stays on one thread per call."""
+    global _BLAS
+    if _workers() <= 1:
+        return nullcontext()
+    if _BLAS is None:
+        _BLAS = ThreadpoolController()
+    return _BLAS.limit(limits=1, user_api="blas")
+
+
+def _pool() -> ThreadPoolExecutor:
+    global _POOL
+    if _POOL is None:
+        _POOL = ThreadPoolExecutor(max_workers=_workers(), thread_name_prefix="closecall-logit")
+    return _POOL
+
+
+def _sums(
+    chunks: list[tuple[np.ndarray, np.ndarray]],
+    theta: np.ndarray,
+    want_loss: bool,
+    want_hessian: bool,
+) -> tuple[float, np.ndarray, np.ndarray]:
+    """Loss, gradient and Hessian sums of the unpenalised loss over some chunks of rows."""
+    p = len(theta) - 1
+    b0, coef = float(theta[0]), theta[1:]
+    loss = 0.0
+    grad = np.zeros(p + 1)
+    hess = np.zeros((p + 1, p + 1))
+    with np.errstate(over="ignore"):
+        for X, y in chunks:
+            eta = X @ coef
+            eta += b0
+            prob = 1.0 / (1.0 + np.exp(-eta))
+            if want_loss:
+                # softplus(eta) = max(eta, 0) - log(max(p, 1 - p)); loss = softplus - y * eta
+                loss += float(
+                    (np.maximum(eta, 0.0) - np.log(0.5 + np.abs(prob - 0.5))).sum() - y @ eta
+                )
+            resid = prob - y
+            grad[0] += resid.sum()
+            grad[1:] += resid @ X
+            if want_hessian:
+                w = prob * (1.0 - prob)
+                hess[0, 0] += w.sum()
+                hess[0, 1:] += w @ X
+                Z = X * np.sqrt(w)[:, None]
+                hess[1:, 1:] += Z.T @ Z  # one symmetric rank-k update
+    return loss, grad, hess
+
+
+def _accumulate(
+    blocks: Sequence[np.ndarray],
+    labels: Sequence[np.ndarray],
+    theta: np.ndarray,
+    want_hessian: bool,
+    want_loss: bool = True,
+) -> tuple[float, np.ndarray, np.ndarray | None]:
+    """Unpenalised loss, gradient and (optionally) Hessian over all p columns, streamed.
+
+    ``theta`` is [intercept, coef (p)]. The rows are read in cache-sized chunks, dealt to the
+    worker threads in a fixed pattern (chunk i to worker i mod w) and summed in a fixed order,
+    so the result does not depend on thread timing.
+    """
+    step = _chunk_rows(len(theta) - 1)
+    chunks = [
+        (X[s : s + step], y[s : s + step])
+        for X, y in zip(blocks, labels, strict=True)
+        for s in range(0, len(X), step)
+    ]
+    w = min(_workers(), len(chunks))
+    if w <= 1:
+        parts = [_sums(chunks, theta, want_loss, want_hessian)]
+    else:
+        with _one_blas_thread():
+            futures = [
+                _pool().submit(_sums, chunks[i::w], theta, want_loss, want_hessian)
+                for i in range(w)
+            ]
+            parts = [f.result() for f in futures]
+    loss = sum(part[0] for part in parts)
+    grad = np.sum([part[1] for part in parts], axis=0)
+    if not want_hessian:
+        return loss, grad, None
+    hess = np.sum([part[2] for part in parts], axis=0)
+    hess[1:, 0] = hess[0, 1:]
+    return loss, grad, hess
+
+
+class _Objective:
+    """The penalised objective of one model over its rows and columns."""
+
+    def __init__(
+        self,
+        blocks: Sequence[np.ndarray],
+        labels: Sequence[np.ndarray],
+        mask: np.ndarray,
+        penalty: float,
+    ) -> None:
+        self.blocks = blocks
+        self.labels = labels
+        self.penalty = penalty
+        self.active = np.concatenate([[0], np.flatnonzero(mask) + 1])
+        self.n = int(sum(len(b) for b in blocks))
+
+    def __call__(
+        self, theta: np.ndarray, want_hessian: bool, want_loss: bool = True
+    ) -> tuple[float, np.ndarray, np.ndarray | None]:
+        loss, grad, hess = _accumulate(self.blocks, self.labels, theta, want_hessian, want_loss)
+        coef = theta[1:]
+        loss += 0.5 * self.penalty * float(coef @ coef)
+        grad[1:] += self.penalty * coef
+        g = grad[self.active]
+        H = None
+        if hess is not None:
+            H = hess[np.ix_(self.active, self.active)]
+            H[1:, 1:] += self.penalty * np.eye(len(self.active) - 1)
+        return loss, g, H
+
+
+@dataclass
+class StartState:
+    """Objective, gradient and Hessian of a fit's training rows at its warm start, in the
+    fit's active coordinates, when the caller can get them without a pass over the rows."""
+
+    objective: float
+    gradient: np.ndarray
+    hessian: np.ndarray
+
+
+def _factor(H: np.ndarray) -> tuple[np.ndarray, bool] | None:
+    try:
+        return cho_factor(H, lower=True)
+    except np.linalg.LinAlgError:  # singular (collinear columns, no penalty)
+        return None
+
+
+def _direction(factor: tuple[np.ndarray, bool] | None, H: np.ndarray, g: np.ndarray) -> np.ndarray:
+    if factor is None:
+        return np.asarray(-np.linalg.lstsq(H, g, rcond=None)[0])
+    return np.asarray(-cho_solve(factor, g))
+
+
+@dataclass
+class _Newton:
+    """Where a Newton run stands: the point, its objective and gradient, and a Hessian."""
+
+    theta: np.ndarray  # [intercept, coef (p)]
+    f: float
+    g: np.ndarray  # active coordinates
+    H: np.ndarray  # active coordinates
+    fresh: bool  # H is the Hessian at theta (not an older or approximate one)
+    converged: bool = False
+
+
+def _newton(objective: _Objective, state: _Newton, tol: float, max_iter: int) -> _Newton:
+    """Newton–Raphson with a lazily refreshed Hessian.
+
+    A step solves with the Hessian in hand and evaluates only the objective and gradient at
+    the new point. The Hessian is recomputed when a step shrinks the largest gradient entry
+    less than tenfold, so close to the optimum (a warm start, a coarse start) most steps skip
+    the Hessian pass, and far from it the run is plain Newton.
+    """
+    active, n = objective.active, objective.n
+    theta, f, g, H, fresh = state.theta, state.f, state.g, state.H, state.fresh
+    factor = _factor(H)
+    for _ in range(max_iter):
+        d = _direction(factor, H, g)
+        slope = float(g @ d)
+        t = 1.0
+        for _ in range(40):
+            trial = theta.copy()
+            trial[active] += t * d
+            f_new, g_new, _ = objective(trial, False)
+            if f_new - f <= 1e-4 * t * slope:
+                break
+            if abs(f_new - f) <= abs(f_new) * _EPS and np.abs(g_new).sum() < np.abs(g).sum():
+                break  # at the optimum up to rounding: accept a step that shrinks the gradient
+            t *= 0.5
+        else:
+            return _Newton(theta, f, g, H, fresh, converged=True)  # no step improves any more
+        decrement = 0.5 * t * t * float(d @ H @ d) / n
+        slow = np.abs(g_new).max() > 0.1 * np.abs(g).max()
+        theta, f, g, fresh = trial, f_new, g_new, False
+        if np.abs(g).max() / n <= tol and decrement <= tol:
+            return _Newton(theta, f, g, H, fresh, converged=True)
+        if slow or t < 1.0:
+            _, _, H_now = objective(theta, True, want_loss=False)
+            assert H_now is not None
+            H, fresh, factor = H_now, True, _factor(H_now)
+    return _Newton(theta, f, g, H, fresh)
+
+
+def _coarse_start(
+    blocks: Sequence[np.ndarray],
+    labels: Sequence[np.ndarray],
+    mask: np.ndarray,
+    penalty: float,
+    n: int,
+) -> tuple[np.ndarray, np.ndarray] | None:
+    """A start point and Hessian guess for a large cold fit, from a fit on every s-th row.
+
+    The subsample's penalty is scaled by its share of the rows so that it aims at the same
+    coefficients; its Hessian, scaled back up, guides the first steps on all rows. None when
+    the subsample fit does not converge (e.g. separation without a penalty).
+    """
+    stride = max(2, n // COARSE_ROWS)
+    sub_blocks = [b[::stride] for b in blocks]
+    sub_labels = [y[::stride] for y in labels]
+    m = int(sum(len(b) for b in sub_blocks))
+    share = m / n
+    objective = _Objective(sub_blocks, sub_labels, mask, penalty * share)
+    theta = np.zeros(blocks[0].shape[1] + 1)
+    f, g, H = objective(theta, True)
+    assert H is not None
+    run = _newton(objective, _Newton(theta, f, g, H, True), COARSE_TOL, COARSE_MAX_ITER)
+    if not run.converged or not np.isfinite(run.theta).all():
+        return None
+    if not run.fresh:
+        _, _, H_sub = objective(run.theta, True, want_loss=False)
+        assert H_sub is not None
+        run.H = H_sub
+    ridge = np.zeros(len(run.H))
+    ridge[1:] = penalty * share
+    guess = (run.H - np.diag(ridge)) / share + np.diag(ridge / share)
+    return run.theta, guess
+
+
+def fit_logit_blocks(
+    blocks: Sequence[np.ndarray],
+    labels: Sequence[np.ndarray],
+    mask: np.ndarray,
+    penalty: float,
+    warm: LogitFit | None = None,
+    *,
+    start: StartState | None = None,
+    final_hessian: bool = True,
+    tol: float = TOL,
+    max_iter: int = MAX_ITER,
+) -> LogitFit:
+    """Fit a logistic regression on the rows of ``blocks`` and the columns in ``mask``.
+
+    Parameters
+    ----------
+    blocks : C-contiguous (n_b, p) float64 row blocks of the design matrix (views, not copies)
+    labels : (n_b,) float64 0/1 labels of each block, 1 = favourable
+    mask : (p,) boolean, the columns this model may use
+    penalty : lambda >= 0 (0 = unpenalised)
+    warm : a previous fit to start from (used when cross-fitting); without one, a large fit
+        starts from a fit on a subsample of its rows
+    start : the objective, gradient and Hessian at ``warm``, when already known (saves the
+        first pass over the rows)
+    final_hessian : return the Hessian at the optimum (costs a pass if the last step kept an
+        older Hessian)
+    tol : stop when the largest gradient entry of the mean objective and half the Newton
+        decrement per case are both at most tol
+    """
+    p = blocks[0].shape[1]
+    objective = _Objective(blocks, labels, mask, penalty)
+    active, n = objective.active, objective.n
+    theta = np.zeros(p + 1)
+    coarse = None
+    if warm is not None:
+        theta[0] = warm.intercept
+        theta[active[1:]] = warm.coef[active[1:] - 1]
+    elif start is None and n >= 4 * COARSE_ROWS:
+        coarse = _coarse_start(blocks, labels, mask, penalty, n)
+    if start is not None:
+        state = _Newton(theta, start.objective, start.gradient, start.hessian, True)
+    elif coarse is not None:
+        theta = coarse[0]
+        f, g, _ = objective(theta, False)
+        state = _Newton(theta, f, g, coarse[1], False)
+    else:
+        f, g, H = objective(theta, True)
+        assert H is not None
+        state = _Newton(theta, f, g, H, True)
+    run = _newton(objective, state, tol, max_iter)
+    if final_hessian and not run.fresh:
+        _, _, H_end = objective(run.theta, True, want_loss=False)
+        assert H_end is not None
+        run.H, run.fresh = H_end, True
+    coef = np.zeros(p)
+    coef[active[1:] - 1] = run.theta[active[1:]]
+    hess = run.H if run.fresh else None
+    return LogitFit(float(run.theta[0]), coef, float(run.f), n, hess, run.g)
+
+
+def held_out_state(
+    full: LogitFit,
+    full_state: StartState,
+    test_blocks: Sequence[np.ndarray],
+    test_labels: Sequence[np.ndarray],
+    mask: np.ndarray,
+) -> StartState:
+    """The state of a fold fit at the whole-history optimum, from the held-out rows alone.
+
+    The training rows' loss is the whole history's minus the held-out rows'; the penalty is the
+    same. So objective, gradient and Hessian on the training rows at the whole-history fit are
+    the whole-history ones minus the held-out rows' sums (a pass over a K-th of the rows).
+    """
+    theta = np.concatenate([[full.intercept], full.coef])
+    loss, grad, hess = _accumulate(test_blocks, test_labels, theta, True)
+    assert hess is not None
+    active = np.concatenate([[0], np.flatnonzero(mask) + 1])
+    return StartState(
+        full_state.objective - loss,
+        full_state.gradient - grad[active],
+        full_state.hessian - hess[np.ix_(active, active)],
+    )
 
 
 def fit_logit(
@@ -43,7 +405,7 @@ def fit_logit(
     penalty: float,
     warm: LogitFit | None = None,
 ) -> LogitFit:
-    """Fit a logistic regression on the columns in ``mask``.
+    """Fit a logistic regression on the columns in ``mask`` (all rows of X).
 
     Parameters
     ----------
@@ -51,46 +413,26 @@ def fit_logit(
     y : (n,) 0/1 labels, 1 = favourable
     mask : (p,) boolean, the columns this model may use
     penalty : lambda >= 0 (0 = unpenalised)
-    warm : a previous fit to start from (used when cross-fitting)
+    warm : a previous fit to start from
     """
-    cols = np.flatnonzero(mask)
-    Xa = X[:, cols]
-    clf = LogisticRegression(
-        C=np.inf if penalty == 0 else 1.0 / penalty,
-        solver="newton-cholesky",
-        tol=1e-10,
-        max_iter=200,
-        warm_start=warm is not None,
-    )
-    if warm is not None:
-        clf.coef_ = warm.coef[cols][None, :].copy()
-        clf.intercept_ = np.array([warm.intercept])
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", ConvergenceWarning)
-        warnings.simplefilter("ignore", RuntimeWarning)
-        warnings.simplefilter("ignore", UserWarning)
-        clf.fit(Xa, y)
-    coef = np.zeros(X.shape[1])
-    coef[cols] = clf.coef_[0]
-    intercept = float(clf.intercept_[0])
-    eta = intercept + Xa @ clf.coef_[0]
-    obj = negative_log_likelihood(eta, y) + 0.5 * penalty * float(coef @ coef)
-    return LogitFit(intercept, coef, obj, len(y))
+    Xc = np.ascontiguousarray(X, dtype=np.float64)
+    return fit_logit_blocks([Xc], [np.asarray(y, dtype=np.float64)], mask, penalty, warm)
+
+
+def hessian_blocks(
+    blocks: Sequence[np.ndarray], mask: np.ndarray, fit: LogitFit, penalty: float
+) -> np.ndarray:
+    """Hessian of the penalised negative log-likelihood over [intercept, active columns]."""
+    theta = np.concatenate([[fit.intercept], fit.coef])
+    labels = [np.zeros(len(b)) for b in blocks]  # the Hessian does not depend on the labels
+    _, _, H = _Objective(blocks, labels, mask, penalty)(theta, True)
+    assert H is not None
+    return H
 
 
 def hessian(X: np.ndarray, mask: np.ndarray, fit: LogitFit, penalty: float) -> np.ndarray:
     """Hessian of the penalised negative log-likelihood over [intercept, active columns]."""
-    cols = np.flatnonzero(mask)
-    Xa = X[:, cols]
-    p = expit(fit.intercept + Xa @ fit.coef[cols])
-    w = p * (1 - p)
-    k = len(cols) + 1
-    H = np.empty((k, k))
-    H[0, 0] = w.sum()
-    H[0, 1:] = H[1:, 0] = w @ Xa
-    H[1:, 1:] = (Xa * w[:, None]).T @ Xa
-    H[1:, 1:] += penalty * np.eye(k - 1)
-    return H
+    return hessian_blocks([np.ascontiguousarray(X, dtype=np.float64)], mask, fit, penalty)
 
 
 def cholesky_lower(H: np.ndarray) -> np.ndarray:
@@ -104,10 +446,21 @@ def cholesky_lower(H: np.ndarray) -> np.ndarray:
 
 
 def quadratic_form(X: np.ndarray, mask: np.ndarray, chol: np.ndarray) -> np.ndarray:
-    """x̃ᵀ H⁻¹ x̃ for every row, x̃ = [1, x_active], via one triangular solve (no inverse)."""
+    """x̃ᵀ H⁻¹ x̃ for every row, x̃ = [1, x_active], via triangular solves (no inverse).
+
+    Rows are taken in cache-sized chunks: each chunk's x̃ is written row-major, so its
+    transpose is the column-major right-hand side the solver reads without a copy.
+    """
     cols = np.flatnonzero(mask)
-    Xt = np.empty((len(cols) + 1, X.shape[0]))
-    Xt[0] = 1.0
-    Xt[1:] = X[:, cols].T
-    Z = solve_triangular(chol, Xt, lower=True, check_finite=False)
-    return np.einsum("ij,ij->j", Z, Z)
+    n, k = X.shape[0], len(cols) + 1
+    out = np.empty(n)
+    step = _chunk_rows(k)
+    buf = np.empty((min(step, n), k))
+    for start in range(0, n, step):
+        m = min(step, n - start)
+        Xt = buf[:m]
+        Xt[:, 0] = 1.0
+        Xt[:, 1:] = X[start : start + m][:, cols]
+        Z = solve_triangular(chol, Xt.T, lower=True, check_finite=False)
+        out[start : start + m] = np.einsum("ij,ij->j", Z, Z)
+    return out

@@ -20,11 +20,11 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass, field
+from functools import cached_property
 from typing import Any
 
 import numpy as np
 from scipy.special import expit, logit
-from sklearn.metrics import roc_auc_score
 from sklearn.model_selection import StratifiedKFold
 
 from closecall.analysis.proxies import ProxyReport, detect_proxies
@@ -34,9 +34,8 @@ from closecall.encode import Encoder, fit_encoder
 from closecall.logit import (
     LogitFit,
     cholesky_lower,
-    fit_logit,
-    hessian,
-    negative_log_likelihood,
+    fit_logit_blocks,
+    held_out_state,
     quadratic_form,
 )
 
@@ -87,9 +86,104 @@ def _strata(y: np.ndarray, g: np.ndarray) -> np.ndarray:
     return g.astype(np.int64) * 2 + y
 
 
-def _nonconstant(X: np.ndarray, rows: np.ndarray, mask: np.ndarray) -> np.ndarray:
-    sub = X[rows]
-    return mask & (sub.max(axis=0) > sub.min(axis=0))
+@dataclass
+class _Layout:
+    """The history sorted by (group, fold): every training or held-out set is a few contiguous
+    row blocks of one matrix, so fits read views and never copy a subset of rows."""
+
+    X: np.ndarray  # (n, p) history rows in sorted order, C-contiguous
+    y: np.ndarray  # (n,) float64 labels in sorted order
+    perm: np.ndarray  # sorted position -> history row
+    bounds: np.ndarray  # (G, K + 1): group g, fold k rows are [bounds[g, k], bounds[g, k + 1])
+
+    @classmethod
+    def build(
+        cls, X: np.ndarray, y: np.ndarray, group: np.ndarray, fold: np.ndarray, G: int, K: int
+    ) -> _Layout:
+        perm = np.lexsort((fold, group))  # stable: history order within each (group, fold)
+        counts = np.bincount(group.astype(np.int64) * K + fold, minlength=G * K)
+        bounds = np.zeros((G, K + 1), dtype=np.int64)
+        bounds[:, 1:] = np.cumsum(counts).reshape(G, K)
+        bounds[1:, 0] = bounds[:-1, K]
+        return cls(np.take(X, perm, axis=0), y[perm].astype(np.float64), perm, bounds)
+
+    def segments(self, groups: range | list[int], keep: Callable[[int], bool]) -> list[slice]:
+        """Contiguous slices holding the given groups' rows in the folds ``keep`` accepts."""
+        out: list[slice] = []
+        for g in groups:
+            for k in range(self.bounds.shape[1] - 1):
+                lo, hi = int(self.bounds[g, k]), int(self.bounds[g, k + 1])
+                if not keep(k) or hi == lo:
+                    continue
+                if out and out[-1].stop == lo:
+                    out[-1] = slice(out[-1].start, hi)
+                else:
+                    out.append(slice(lo, hi))
+        return out
+
+    def blocks(self, segs: list[slice]) -> tuple[list[np.ndarray], list[np.ndarray]]:
+        return [self.X[s] for s in segs], [self.y[s] for s in segs]
+
+    def fit(
+        self, segs: list[slice], mask: np.ndarray, penalty: float, warm: LogitFit | None = None
+    ) -> LogitFit:
+        Xb, yb = self.blocks(segs)
+        return fit_logit_blocks(Xb, yb, mask, penalty, warm)
+
+    def refit_without(
+        self,
+        full: LogitFit,
+        train: list[slice],
+        held_out: list[slice],
+        mask: np.ndarray,
+        penalty: float,
+        keep_hessian: bool,
+    ) -> LogitFit:
+        """Fit on ``train`` starting from ``full``, a fit on train + held_out with the same
+        columns: the start needs a pass over the held-out rows only."""
+        state = full.state()
+        start = None
+        if state is not None:
+            Xh, yh = self.blocks(held_out)
+            start = held_out_state(full, state, Xh, yh, mask)
+        Xb, yb = self.blocks(train)
+        return fit_logit_blocks(
+            Xb, yb, mask, penalty, full, start=start, final_hessian=keep_hessian
+        )
+
+    def nonconstant(self, segs: list[slice], mask: np.ndarray) -> np.ndarray:
+        """``mask`` without the columns that are constant over the rows of ``segs``."""
+        lo, hi = self._cell_ranges
+        cells = [
+            (g, k)
+            for g in range(self.bounds.shape[0])
+            for k in range(self.bounds.shape[1] - 1)
+            if self.bounds[g, k + 1] > self.bounds[g, k]
+            and any(s.start <= self.bounds[g, k] and self.bounds[g, k + 1] <= s.stop for s in segs)
+        ]
+        top = np.max([hi[c] for c in cells], axis=0)
+        bottom = np.min([lo[c] for c in cells], axis=0)
+        return mask & (top > bottom)
+
+    @cached_property
+    def _cell_ranges(
+        self,
+    ) -> tuple[dict[tuple[int, int], np.ndarray], dict[tuple[int, int], np.ndarray]]:
+        """Column minima and maxima of every (group, fold) cell: one pass over the rows."""
+        lo: dict[tuple[int, int], np.ndarray] = {}
+        hi: dict[tuple[int, int], np.ndarray] = {}
+        for g in range(self.bounds.shape[0]):
+            for k in range(self.bounds.shape[1] - 1):
+                a, b = int(self.bounds[g, k]), int(self.bounds[g, k + 1])
+                if b > a:
+                    lo[g, k] = self.X[a:b].min(axis=0)
+                    hi[g, k] = self.X[a:b].max(axis=0)
+        return lo, hi
+
+
+def _warm_from(fit: LogitFit, mask: np.ndarray) -> LogitFit:
+    """A starting point for a model on fewer columns: a fit's weights on those columns."""
+    return LogitFit(fit.intercept, np.where(mask, fit.coef, 0.0), fit.objective, fit.n)
 
 
 def fit_suite(config: StudyConfig, data: StudyData, progress: Progress = _quiet) -> SuiteResult:
@@ -109,12 +203,26 @@ def fit_suite(config: StudyConfig, data: StudyData, progress: Progress = _quiet)
     group_mask = encoder.group_mask
     nongroup = ~group_mask
 
+    skf = StratifiedKFold(n_splits=K, shuffle=True, random_state=config.seed)
+    fold = np.empty(len(y), dtype=np.int16)
+    for k, (_, test) in enumerate(skf.split(np.zeros((len(y), 1)), _strata(y, hg))):
+        fold[test] = k
+    layout = _Layout.build(hist_X, y, hg, fold, G, K)
+    every = range(G)
+
+    def _all(k: int) -> bool:
+        return True
+
     progress("fitting whole-history models", 0, 1)
     full: dict[str, list[LogitFit]] = {}
     masks: dict[str, list[np.ndarray]] = {}
-    full["pooled"] = [fit_logit(hist_X, y, np.ones_like(group_mask), penalty)]
-    masks["pooled"] = [np.ones_like(group_mask)]
-    full["unaware"] = [fit_logit(hist_X, y, nongroup, penalty)]
+    all_rows = layout.segments(every, _all)
+    pooled_mask = np.ones_like(group_mask)
+    full["pooled"] = [layout.fit(all_rows, pooled_mask, penalty)]
+    masks["pooled"] = [pooled_mask]
+    full["unaware"] = [
+        layout.fit(all_rows, nongroup, penalty, _warm_from(full["pooled"][0], nongroup))
+    ]
     masks["unaware"] = [nongroup]
 
     progress("scoring proxies", 0, 1)
@@ -146,49 +254,65 @@ def fit_suite(config: StudyConfig, data: StudyData, progress: Progress = _quiet)
     proxy_free_mask = nongroup & ~encoder.source_mask(proxies.proxies)
     if not proxy_free_mask.any():
         notes.append("every non-group feature is a proxy: the proxy-free model is intercept-only")
-    full["proxy_free"] = [fit_logit(hist_X, y, proxy_free_mask, penalty)]
+    full["proxy_free"] = [
+        layout.fit(
+            all_rows, proxy_free_mask, penalty, _warm_from(full["unaware"][0], proxy_free_mask)
+        )
+    ]
     masks["proxy_free"] = [proxy_free_mask]
     full["split"], masks["split"] = [], []
     for g in range(G):
-        rows = np.flatnonzero(hg == g)
-        m = _nonconstant(hist_X, rows, nongroup)
-        full["split"].append(fit_logit(hist_X[rows], y[rows], m, penalty))
+        segs = layout.segments([g], _all)
+        m = layout.nonconstant(segs, nongroup)
+        full["split"].append(layout.fit(segs, m, penalty, _warm_from(full["unaware"][0], m)))
         masks["split"].append(m)
 
-    # ---- cross-fitting
-    skf = StratifiedKFold(n_splits=K, shuffle=True, random_state=config.seed)
-    fold = np.empty(len(y), dtype=np.int16)
+    # ---- cross-fitting (with one labelled file, the fold fits score the cases: keep Hessians)
+    cross_fitted = data.pending is None
     oof = {name: np.full(len(y), np.nan) for name in FITTED_MODELS}
     fold_fits: dict[str, list[LogitFit]] = {name: [] for name in FITTED_MODELS}
     fold_masks: dict[str, list[np.ndarray]] = {name: [] for name in FITTED_MODELS}
-    fold_rows: dict[str, list[np.ndarray]] = {name: [] for name in FITTED_MODELS}
-    splits = list(skf.split(hist_X, _strata(y, hg)))
-    for k, (train, test) in enumerate(splits):
+    fold_test: dict[str, list[list[slice]]] = {name: [] for name in FITTED_MODELS}
+    for k in range(K):
         progress("cross-fitting", k, K)
-        fold[test] = k
+
+        def _train(j: int, k: int = k) -> bool:
+            return j != k
+
+        def _test(j: int, k: int = k) -> bool:
+            return j == k
+
+        train, test = layout.segments(every, _train), layout.segments(every, _test)
         for name in ("pooled", "unaware", "proxy_free"):
             m = masks[name][0]
-            fit = fit_logit(hist_X[train], y[train], m, penalty, warm=full[name][0])
-            oof[name][test] = fit.logit(hist_X[test])
+            fit = layout.refit_without(full[name][0], train, test, m, penalty, cross_fitted)
+            for s in test:
+                oof[name][layout.perm[s]] = fit.logit(layout.X[s])
             fold_fits[name].append(fit)
             fold_masks[name].append(m)
-            fold_rows[name].append(train)
+            fold_test[name].append(test)
         for g in range(G):
-            tr = train[hg[train] == g]
-            te = test[hg[test] == g]
-            m = _nonconstant(hist_X, tr, nongroup)
-            fit = fit_logit(hist_X[tr], y[tr], m, penalty, warm=full["split"][g])
-            oof["split"][te] = fit.logit(hist_X[te])
+            tr, te = layout.segments([g], _train), layout.segments([g], _test)
+            m = layout.nonconstant(tr, nongroup)
+            if np.array_equal(m, masks["split"][g]):
+                fit = layout.refit_without(full["split"][g], tr, te, m, penalty, cross_fitted)
+            else:  # a column is constant outside this fold: a model on fewer columns
+                Xb, yb = layout.blocks(tr)
+                fit = fit_logit_blocks(
+                    Xb, yb, m, penalty, full["split"][g], final_hessian=cross_fitted
+                )
+            for s in te:
+                oof["split"][layout.perm[s]] = fit.logit(layout.X[s])
             fold_fits["split"].append(fit)
             fold_masks["split"].append(m)
-            fold_rows["split"].append(tr)
+            fold_test["split"].append(te)
     progress("cross-fitting", K, K)
 
     # ---- the cases under review
     if data.pending is None:
         X, codes, ids = hist_X, hg, data.history[config.data.id].astype(str).to_numpy(dtype=str)
         outcome = y.astype(np.int8)
-        rows_fits, rows_masks, rows_train = fold_fits, fold_masks, fold_rows
+        rows_fits, rows_masks = fold_fits, fold_masks
         row_of_case = {
             name: (fold.astype(np.int32) * G + hg if name == "split" else fold.astype(np.int32))
             for name in FITTED_MODELS
@@ -205,8 +329,6 @@ def fit_suite(config: StudyConfig, data: StudyData, progress: Progress = _quiet)
         ids = data.pending[config.data.id].astype(str).to_numpy(dtype=str)
         outcome = np.full(len(ids), -1, dtype=np.int8)
         rows_fits, rows_masks = full, masks
-        rows_train = {name: [np.arange(len(y))] for name in ("pooled", "unaware", "proxy_free")}
-        rows_train["split"] = [np.flatnonzero(hg == g) for g in range(G)]
         row_of_case = {name: np.zeros(len(ids), dtype=np.int32) for name in FITTED_MODELS}
         row_of_case["split"] = codes.astype(np.int32)
     for col, count in unseen_h.items():
@@ -221,13 +343,20 @@ def fit_suite(config: StudyConfig, data: StudyData, progress: Progress = _quiet)
         lg = np.empty(len(ids))
         quad = np.empty(len(ids))
         for r, f in enumerate(fits):
+            assert f.hessian is not None  # the fit's Hessian at its optimum
+            chol = cholesky_lower(f.hessian)
+            if data.pending is None:  # the held-out fold's rows, read in place
+                for s in fold_test[name][r]:
+                    rows = layout.perm[s]
+                    lg[rows] = f.logit(layout.X[s])
+                    quad[rows] = quadratic_form(layout.X[s], rows_masks[name][r], chol)
+                continue
             sel = np.flatnonzero(rc == r)
             if len(sel) == 0:
                 continue
-            lg[sel] = f.logit(X[sel])
-            tr = rows_train[name][r]
-            H = hessian(hist_X[tr], rows_masks[name][r], f, penalty)
-            quad[sel] = quadratic_form(X[sel], rows_masks[name][r], cholesky_lower(H))
+            Xs = X[sel]
+            lg[sel] = f.logit(Xs)
+            quad[sel] = quadratic_form(Xs, rows_masks[name][r], chol)
         models[name] = ModelScores(
             name=name,
             W=W,
@@ -239,6 +368,7 @@ def fit_suite(config: StudyConfig, data: StudyData, progress: Progress = _quiet)
             oof_logit=oof[name],
             full_W=np.array([[f.intercept, *f.coef] for f in full[name]]),
         )
+    del layout
     if data.deployed_probability is not None:
         dl = logit(data.deployed_probability)
         models["deployed"] = ModelScores(
@@ -274,6 +404,26 @@ def fit_suite(config: StudyConfig, data: StudyData, progress: Progress = _quiet)
     )
 
 
+def auc_sorted(scores: np.ndarray, labels: np.ndarray) -> float:
+    """Area under the ROC curve of ascending ``scores`` with 0/1 ``labels``.
+
+    The Mann–Whitney form with tied scores at their average rank, which equals the trapezoidal
+    ROC area scikit-learn's ``roc_auc_score`` computes (ties count one half).
+
+    References
+    ----------
+    Hanley & McNeil, "The meaning and use of the area under a receiver operating
+    characteristic (ROC) curve", Radiology 143 (1982) 29–36.
+    """
+    n = len(scores)
+    starts = np.flatnonzero(np.r_[True, scores[1:] != scores[:-1]])
+    ends = np.r_[starts[1:], n]
+    ranks = np.repeat((starts + ends + 1) / 2.0, ends - starts)
+    n1 = int(labels.sum())
+    n0 = n - n1
+    return float((ranks[labels == 1].sum() - n1 * (n1 + 1) / 2.0) / (n1 * n0))
+
+
 def held_out_metrics(
     models: dict[str, ModelScores],
     y: np.ndarray,
@@ -281,28 +431,57 @@ def held_out_metrics(
     levels: list[str],
     config: StudyConfig,
 ) -> list[dict[str, Any]]:
-    """Per group and overall: held-out log-loss, AUC, error rate per lens, calibration."""
+    """Per group and overall: held-out log-loss, AUC, error rate per lens, calibration.
+
+    Per-case quantities are computed once per model and summed per group with ``bincount``;
+    one sort per model serves the AUC of every group.
+    """
     rows: list[dict[str, Any]] = []
+    G = len(levels)
     for name, ms in models.items():
         eta = ms.oof_logit
-        if np.isnan(eta).all():
+        valid = ~np.isnan(eta)
+        if not valid.any():
             continue
+        e, yy, gg = (eta, y, groups) if valid.all() else (eta[valid], y[valid], groups[valid])
+        gg = gg.astype(np.int64)
+        yf = yy.astype(np.float64)
+        p = expit(e)
+        per_case: dict[str, np.ndarray] = {
+            "loss": np.maximum(e, 0.0) + np.log1p(np.exp(-np.abs(e))) - yf * e,
+            "y": yf,
+            "p": p,
+        }
+        for lens in config.lenses:
+            per_case[lens.name] = ((p > lens.threshold) != (yy == 1)).astype(np.float64)
+        by_group = {k: np.bincount(gg, weights=v, minlength=G) for k, v in per_case.items()}
+        cases = np.bincount(gg, minlength=G)
+        order = np.argsort(e)
+        e_sorted, y_sorted, g_sorted = e[order], yy[order], gg[order]
         for gi, label in [*enumerate(levels), (-1, "all")]:
-            sel = np.ones(len(y), dtype=bool) if gi < 0 else groups == gi
-            sel &= ~np.isnan(eta)
-            yy, ee = y[sel], eta[sel]
-            if len(yy) == 0:
+            n = int(cases[gi]) if gi >= 0 else len(e)
+            if n == 0:
                 continue
-            p = expit(ee)
+            total = {
+                k: float(v[gi]) if gi >= 0 else float(per_case[k].sum())
+                for k, v in by_group.items()
+            }
+            auc = None
+            if 0 < total["y"] < n:
+                if gi < 0:
+                    auc = auc_sorted(e_sorted, y_sorted)
+                else:
+                    here = g_sorted == gi
+                    auc = auc_sorted(e_sorted[here], y_sorted[here])
             row: dict[str, Any] = {
                 "model": name,
                 "group": label,
-                "cases": len(yy),
-                "log_loss": negative_log_likelihood(ee, yy) / len(yy),
-                "auc": float(roc_auc_score(yy, ee)) if 0 < yy.sum() < len(yy) else None,
-                "calibration_in_the_large": float(yy.mean() - p.mean()),
+                "cases": n,
+                "log_loss": total["loss"] / n,
+                "auc": auc,
+                "calibration_in_the_large": total["y"] / n - total["p"] / n,
             }
             for lens in config.lenses:
-                row[f"error_rate[{lens.name}]"] = float(((p > lens.threshold) != (yy == 1)).mean())
+                row[f"error_rate[{lens.name}]"] = total[lens.name] / n
             rows.append(row)
     return rows

@@ -128,3 +128,37 @@ def test_case_list_rows_fit_the_width(study: Study, width: int) -> None:
     lay = Layout.fit(session, width, len(q))
     used = 2 + lay.rank + 1 + lay.case + 1 + lay.group + 1 + 7 + 11 + lay.marks + 1 + 5 + 10
     assert used + 9 * len(lay.extra_models) <= width - 1
+
+
+@pytest.mark.parametrize("sort", ["ambiguity", "dependence"])
+def test_session_order_matches_the_queue_command(study: Study, sort: str) -> None:
+    """The session reuses cached measures; its order must be build_queue's own."""
+    from closecall.queue import build_queue
+
+    session = ReviewSession(study)
+    mine = session.rebuild(ListSettings(sort=sort, flips=True))
+    engine = build_queue(
+        study.snapshot,
+        band=session.band,
+        flips_only=True,
+        sort=sort,
+        options={"config": study.config},
+    )
+    assert mine.order.tolist() == engine.order.tolist()
+
+
+@pytest.mark.parametrize("part", ["group", "proxies"])
+def test_rests_on_filter_matches_the_queue_command(study: Study, part: str) -> None:
+    from closecall.queue import build_queue
+
+    session = ReviewSession(study)
+    mine = session.rebuild(ListSettings(rests_on=part, ambiguous=True))
+    engine = build_queue(
+        study.snapshot,
+        band=session.band,
+        rests_on_part=part,
+        ambiguous_only=True,
+        options={"config": study.config},
+    )
+    assert len(mine) > 0
+    assert mine.order.tolist() == engine.order.tolist()

@@ -47,8 +47,17 @@ def _measure_function(name: str) -> Callable[..., np.ndarray] | None:
     return func
 
 
+#: Per-case yes/no filters -> (module, function, extra arguments).
+MASK_SOURCES: dict[str, tuple[str, str, tuple[str, ...]]] = {
+    "ambiguous": ("closecall.analysis.multiplicity", "ambiguous_cases", ()),
+    "rests_on_group": ("closecall.analysis.dependence", "rests_on", ("group",)),
+    "rests_on_proxies": ("closecall.analysis.dependence", "rests_on", ("proxies",)),
+}
+
+
 def options(study: Study) -> dict[str, Any]:
-    return {"config": study.config, "model": study.snapshot.reference}
+    """The options ``closecall queue`` passes to the measures (the analysis's own model)."""
+    return {"config": study.config}
 
 
 def measure(study: Study, name: str) -> np.ndarray | None:
@@ -59,6 +68,21 @@ def measure(study: Study, name: str) -> np.ndarray | None:
     try:
         return np.asarray(func(study.snapshot, options(study)), dtype=float)
     except (UserError, ValueError):  # e.g. a reference model with imported scores
+        return None
+
+
+def mask(study: Study, name: str) -> np.ndarray | None:
+    """A per-case filter of the analysis (same function as ``closecall queue``), or None."""
+    module_name, func_name, extra = MASK_SOURCES[name]
+    module = _module(module_name)
+    func = getattr(module, func_name, None) if module is not None else None
+    if func is None:
+        return None
+    try:
+        if extra:
+            return np.asarray(func(study.snapshot, *extra), dtype=bool)
+        return np.asarray(func(study.snapshot, options(study)), dtype=bool)
+    except (UserError, ValueError):
         return None
 
 

@@ -171,6 +171,16 @@ class ReviewApp(App[None]):
             yield SystemCommand(
                 f"Only group {level}", f"Show only {level}", lambda g=level: queue.only_group(g)
             )
+        parts = (("group", "the group attribute"), ("proxies", "the group or its proxies"))
+        for part, words in parts:
+            yield SystemCommand(
+                f"Only decisions resting on the {part}",
+                f"Cases whose decision flips without {words}",
+                lambda p=part: queue.rests_on(p),
+            )
+        yield SystemCommand(
+            "Any dependence", "Drop the resting-on filter", lambda: queue.rests_on(None)
+        )
         yield SystemCommand("All groups", "Show every group", lambda: queue.only_group(None))
         yield SystemCommand("Clear filters", "Show every close call", queue.action_clear_filters)
         yield SystemCommand("Find a case by id", "Jump to an id as you type", queue.action_search)

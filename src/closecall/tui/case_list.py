@@ -269,7 +269,8 @@ class CaseList(ScrollView, can_focus=True):
         glyph = band_glyph(margin, lo, hi, span=BAND_SPAN)
         if not session.measures_ready:
             glyph = f"{'…':^9}"
-        amb = AMBIGUOUS if math.isfinite(lo) and lo <= 0 <= hi else " "
+        ambiguous = session.peek_mask("ambiguous")
+        amb = AMBIGUOUS if ambiguous is not None and ambiguous[r] else " "
         segs.append(Segment(f"{glyph}{amb} ", row_base))
         flag = self._style("case-list--flag", row_base)
         segs.append(Segment(f"{self._marks(r):<{lay.marks}} ", flag))

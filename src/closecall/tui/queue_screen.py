@@ -38,6 +38,7 @@ class QueueScreen(Screen[None]):
         Binding("a", "switch('ambiguous')", "ambiguous only", show=False),
         Binding("u", "switch('unreviewed')", "unreviewed only", show=False),
         Binding("g", "cycle_group", "next group", show=False),
+        Binding("o", "cycle_rests_on", "rests on group / proxies", show=False),
         Binding("c", "clear_filters", "clear filters", show=False),
         Binding("r", "refresh", "read ledger again", show=False),
         Binding("escape", "cancel_search", "close search", show=False),
@@ -118,6 +119,8 @@ class QueueScreen(Screen[None]):
         item("f", "flips", s.flips)
         item("a", "ambiguous", s.ambiguous)
         item("u", "unreviewed", s.unreviewed)
+        if s.rests_on:
+            item("o", f"rests on {s.rests_on}", True)
         self.query_one("#settings", Static).update(settings)
 
     def say(self, message: str) -> None:
@@ -157,11 +160,23 @@ class QueueScreen(Screen[None]):
         self._apply(self._with(group=level))
 
     def action_switch(self, name: str) -> None:
-        if name == "ambiguous" and self.session.ambiguous_mask() is None:
-            self.say("ambiguity needs the analysis module, which is not installed")
+        if name == "ambiguous" and self._unavailable("ambiguous"):
+            self.say("ambiguity is not available for this study (no band for its models)")
             return
         current = getattr(self.session.settings, name)
         self._apply(self._with(**{name: not current}))
+
+    def _unavailable(self, mask: str) -> bool:
+        return self.session.measures_ready and self.session.peek_mask(mask) is None
+
+    def action_cycle_rests_on(self) -> None:
+        steps: list[str | None] = [None, "group", "proxies"]
+        nxt = steps[(steps.index(self.session.settings.rests_on) + 1) % len(steps)]
+        self.rests_on(nxt)
+
+    def rests_on(self, part: str | None) -> None:
+        """Only cases whose decision flips without the group (or the group and its proxies)."""
+        self._apply(self._with(rests_on=part))
 
     def action_cycle_group(self) -> None:
         levels: list[str | None] = [None, *self.session.snap.group_levels]

@@ -37,6 +37,7 @@ class ListSettings:
     flips: bool = False
     ambiguous: bool = False
     unreviewed: bool = False
+    rests_on: str | None = None  # "group" or "proxies": the decision flips without that part
 
     def describe(self) -> str:
         parts = [f"sort {self.sort}"]
@@ -47,6 +48,8 @@ class ListSettings:
             parts.append("ambiguous only")
         if self.unreviewed:
             parts.append("unreviewed only")
+        if self.rests_on:
+            parts.append(f"resting on the {self.rests_on}")
         return " · ".join(parts)
 
 
@@ -92,6 +95,7 @@ class ReviewSession:
         self._measures: dict[str, np.ndarray | None] = {}
         self._half_widths: dict[str, np.ndarray | None] = {}
         self.measures_ready = False
+        self._masks: dict[str, np.ndarray | None] = {}
         self._bands: tuple[np.ndarray, np.ndarray] | tuple[()] | None = None
         self._sorted_ids: np.ndarray | None = None
         self._id_order: np.ndarray | None = None
@@ -122,18 +126,26 @@ class ReviewSession:
         widths = self._half_widths[model]
         return None if widths is None else float(widths[row])
 
+    def mask(self, name: str) -> np.ndarray | None:
+        """A per-case filter of the analysis package (computed once; None if unavailable)."""
+        if name not in self._masks:
+            self._masks[name] = analysis_bridge.mask(self.study, name)
+        return self._masks[name]
+
+    def peek_mask(self, name: str) -> np.ndarray | None:
+        """A filter if already computed (for drawing: never starts a computation)."""
+        return self._masks.get(name)
+
     def ambiguous_mask(self) -> np.ndarray | None:
         """Cases whose band of equally good margins straddles the threshold."""
-        limits = self.band_limits()
-        if limits is None:
-            return None
-        return np.asarray((limits[0] <= 0) & (limits[1] >= 0))
+        return self.mask("ambiguous")
 
     def warm_up(self) -> None:
         """Compute the measures the list draws (slow at national scale: from a worker)."""
         for name in ("dependence", "ambiguity"):
             self.measure(name)
         self.band_limits()
+        self.mask("ambiguous")
         self.measures_ready = True
 
     # ------------------------------------------------------------------ the list
@@ -142,26 +154,39 @@ class ReviewSession:
         return [s for s in SORTS if s == "closeness" or self.measure(s) is not None]
 
     def rebuild(self, settings: ListSettings | None = None) -> Queue:
-        """Build the list for ``settings`` (slow at national scale: call from a worker)."""
+        """Build the list for ``settings`` (slow at national scale: call from a worker).
+
+        Filters and the closeness order come from :func:`closecall.queue.build_queue`; the
+        analysis measures and filters are computed once per session and reused, and a sort by
+        a measure follows build_queue's rule (largest first, then nearest the threshold).
+        """
         settings = settings or self.settings
+        if settings.sort != "closeness" and self.measure(settings.sort) is None:
+            settings = replace(settings, sort="closeness")
         exclude = np.zeros(self.snap.n_cases, dtype=bool)
         if settings.unreviewed:
             exclude |= (self.states != OPEN) & (self.states != STATE_OF_ACTION["defer"])
-        if settings.ambiguous:
-            amb = self.ambiguous_mask()
-            if amb is not None:
-                exclude |= ~amb
-        if settings.sort != "closeness" and self.measure(settings.sort) is None:
-            settings = replace(settings, sort="closeness")
+        wanted = [("ambiguous", settings.ambiguous)]
+        wanted.append((f"rests_on_{settings.rests_on}", settings.rests_on is not None))
+        for name, on in wanted:
+            mask = self.mask(name) if on else None
+            if mask is not None:
+                exclude |= ~mask
         q = build_queue(
             self.snap,
             band=self.band,
             group=settings.group,
             flips_only=settings.flips,
-            sort=settings.sort,
-            options={"config": self.config},
+            sort="closeness",
+            options=analysis_bridge.options(self.study),
             exclude_rows=exclude if exclude.any() else None,
         )
+        key = self.measure(settings.sort) if settings.sort != "closeness" else None
+        if key is not None:
+            rows = q.order
+            q.order = rows[np.lexsort((np.abs(q.margin[rows]), -key[rows]))]
+            q.sort = settings.sort
+            q.measures[settings.sort] = key
         position = np.full(self.snap.n_cases, -1, dtype=np.int64)
         position[q.order] = np.arange(len(q.order))
         self.settings, self.queue, self._position = settings, q, position

@@ -18,6 +18,7 @@ shown in the review app headless at 80×24. Measured:
   fixed cost per key on every size (about 70 ms on these machines) — compare sizes by ratio;
 - draw: mean time to format every visible line of the list (``render_line``), which is the part
   of a key press that could grow with the data;
+- filter: from pressing ``f`` (flips only) to the list ranked again and drawn;
 - case open: from ⏎ on the list to the case screen filled in (explanation, bands of every
   model, history, draft), the first time (per-model bands computed and cached) and after.
 """
@@ -99,6 +100,16 @@ async def _measure(study: Study, keys: int) -> dict[str, float]:
             measures_ready = time.perf_counter() - start
             assert isinstance(app.screen, QueueScreen)
             key_times = await _keys(pilot, app.screen.query_one(CaseList), keys)
+            session = app.session
+            t = time.perf_counter()
+            await pilot.press("f")  # flips only: the list is ranked again in a worker
+            while not (session.settings.flips and session.queue is not None):
+                await pilot.pause(0.005)
+            await pilot.pause()
+            refilter = time.perf_counter() - t
+            await pilot.press("f")
+            while session.settings.flips:
+                await pilot.pause(0.005)
             case_open = []
             for _ in range(3):
                 t = time.perf_counter()
@@ -111,6 +122,7 @@ async def _measure(study: Study, keys: int) -> dict[str, float]:
                 "first_paint_s": first_paint,
                 "measures_ready_s": measures_ready,
                 **key_times,
+                "filter_s": refilter,
                 "case_open_first_s": case_open[0],
                 "case_open_next_s": statistics.mean(case_open[1:]),
             }
@@ -175,6 +187,7 @@ def main(argv: list[str] | None = None) -> dict[str, Any]:
             "key_down_s",
             "key_pagedown_s",
             "draw_visible_lines_s",
+            "filter_s",
             "case_open_first_s",
             "case_open_next_s",
         )
@@ -191,6 +204,7 @@ def main(argv: list[str] | None = None) -> dict[str, Any]:
                 f"key j {r['key_down_s'] * 1000:6.1f} ms  "
                 f"pagedown {r['key_pagedown_s'] * 1000:6.1f} ms  "
                 f"draw {r['draw_visible_lines_s'] * 1000:6.2f} ms  "
+                f"filter {r['filter_s'] * 1000:6.1f} ms  "
                 f"case {r['case_open_first_s'] * 1000:6.1f}/{r['case_open_next_s'] * 1000:.1f} ms  "
                 f"({int(r['listed']):,} listed)"
             )

@@ -20,13 +20,14 @@ from pathlib import Path
 
 import pytest
 
+CLOSECALL = Path(sys.executable).with_name("closecall")
+
 pytestmark = [
     pytest.mark.e2e,
     pytest.mark.slow,
     pytest.mark.skipif(shutil.which("tmux") is None, reason="tmux is not installed"),
+    pytest.mark.skipif(not CLOSECALL.exists(), reason="the closecall command is not installed"),
 ]
-
-CLOSECALL = Path(sys.executable).with_name("closecall")
 
 
 class Tmux:

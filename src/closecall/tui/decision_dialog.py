@@ -46,7 +46,7 @@ class DecisionDialog(ModalScreen[Entry | None]):
         Binding("ctrl+r,ctrl+s", "record", "record", key_display="^r"),
         Binding("tab", "app.focus_next", "next field", key_display="tab", show=True),
         Binding("escape", "close", "close, keep draft", key_display="esc"),
-        Binding("enter", "done", "done", show=False),
+        Binding("enter", "done", "back (once recorded)", show=False),
     ]
 
     def __init__(self, session: ReviewSession, case_id: str, *, claim: bool = True) -> None:

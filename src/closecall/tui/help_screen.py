@@ -12,7 +12,7 @@ from textual.screen import Screen
 from textual.widgets import Static
 
 from closecall.cautions import CAUTIONS
-from closecall.tui.key_bar import KeyBar, key_label
+from closecall.tui.key_bar import KeyBar, key_label, one_key
 from closecall.tui.marks import (
     ACTION_SHORT,
     AGREE,
@@ -23,6 +23,7 @@ from closecall.tui.marks import (
     REFERENCE,
     STATE_WORD,
     model_letters,
+    short_model,
 )
 
 MEANINGS = [
@@ -84,12 +85,20 @@ MEANINGS = [
 
 
 def _keys_of(title: str, bindings: list[BindingType]) -> Text:
+    """One line per binding, each key written once (the first binding of a key wins)."""
     text = Text()
     text.append(f"{title}\n", "bold")
+    seen: set[str] = set()
     for b in bindings:
-        if isinstance(b, Binding) and b.description:
-            text.append(f"  {key_label(b) if b.show else b.key.replace(',', ' ')[:14]:<14}")
-            text.append(f" {b.description}\n")
+        if not isinstance(b, Binding) or not b.description:
+            continue
+        keys = [k.strip() for k in b.key.split(",") if k.strip() not in seen]
+        if not keys:
+            continue
+        seen.update(keys)
+        label = key_label(b) if b.key_display else "/".join(one_key(k) for k in keys)
+        text.append(f"  {label:<12}")
+        text.append(f" {b.description}\n")
     return text
 
 
@@ -108,15 +117,15 @@ def help_text(model_names: list[str], lens_names: list[str], reference: str) -> 
     text.append(_keys_of("Decision", DecisionDialog.BINDINGS))
     text.append(_keys_of("Ledger", LedgerScreen.BINDINGS))
     text.append("Anywhere\n", "bold")
-    text.append("  ^p             commands (every action by name)\n")
-    text.append("  ^q             quit (asks first if a note is not recorded)\n\n")
+    text.append("  ^p           commands (every action by name)\n")
+    text.append("  ^q           quit (asks first if a note is not recorded)\n\n")
 
     text.append("Marks in the list\n", "bold underline")
     letters = model_letters(model_names)
     text.append(f"  {CURSOR}  the case under the cursor\n")
     text.append("  differs columns: one block per cost lens (" + ", ".join(lens_names) + ");\n")
     text.append("    in each block one letter per model: ")
-    text.append(", ".join(f"{v} {k}" for k, v in letters.items()) + "\n")
+    text.append(", ".join(f"{v} {short_model(k)}" for k, v in letters.items()) + "\n")
     text.append(f"    {REFERENCE} = the reference ({reference} under {lens_names[0]}); ")
     text.append(f"{AGREE} = decides the same; a letter = that model decides differently\n")
     text.append("  band: a small axis around the threshold: ┼ threshold, ━ band, ● margin,\n")
@@ -127,7 +136,8 @@ def help_text(model_names: list[str], lens_names: list[str], reference: str) -> 
     text.append("  actions in the ledger: " + ", ".join(ACTION_SHORT.values()) + "\n")
     text.append("  chart: each group's cases near the threshold (│), [ ] the review band;\n")
     text.append("    each line is scaled to its own tallest bar\n")
-    text.append("  switches: ● on, ○ off\n\n")
+    text.append("  switches: ● on, ○ off\n")
+    text.append("  wider terminals add the other models' margins at the right\n\n")
 
     text.append("What the numbers mean\n", "bold underline")
     for name, meaning in MEANINGS:

@@ -8,23 +8,37 @@ from rich.text import Text
 from textual.binding import Binding, BindingType
 from textual.widget import Widget
 
+KEY_NAMES = {
+    "enter": "⏎",
+    "escape": "esc",
+    "question_mark": "?",
+    "slash": "/",
+    "space": "space",
+    "tab": "tab",
+    "down": "↓",
+    "up": "↑",
+    "pagedown": "PgDn",
+    "pageup": "PgUp",
+    "home": "Home",
+    "end": "End",
+}
 
-def key_label(binding: Binding) -> str:
-    """How a binding's first key is written on screen (``⏎`` for enter, ``^s`` for ctrl+s)."""
-    if binding.key_display:
-        return binding.key_display
-    key = binding.key.split(",")[0]
-    names = {
-        "enter": "⏎",
-        "escape": "esc",
-        "question_mark": "?",
-        "slash": "/",
-        "space": "space",
-        "tab": "tab",
-    }
+
+def one_key(key: str) -> str:
+    """How one key is written on screen (``⏎`` for enter, ``^r`` for ctrl+r)."""
     if key.startswith("ctrl+"):
         return "^" + key[5:]
-    return names.get(key, key)
+    return KEY_NAMES.get(key, key)
+
+
+def key_label(binding: Binding) -> str:
+    """How a binding's first key is written on screen."""
+    return binding.key_display or one_key(binding.key.split(",")[0])
+
+
+def all_keys_label(binding: Binding) -> str:
+    """Every key of a binding, e.g. ``↓/j``."""
+    return "/".join(one_key(k.strip()) for k in binding.key.split(","))
 
 
 class KeyBar(Widget):

@@ -44,6 +44,43 @@ COMMAND_MODULES = (
     "closecall.cli.disparity_cmds",
     "closecall.cli.review_cmds",
 )
+# Which module holds each command: a command loads only its own module (and so only the
+# engine parts it needs), which keeps `closecall ledger verify` or `closecall review` quick to
+# start. Help, completion and unknown words load them all.
+COMMAND_HOME = {
+    "init": "study_cmds",
+    "demo": "study_cmds",
+    "fit": "study_cmds",
+    "queue": "study_cmds",
+    "explain": "explain_cmds",
+    "proxies": "explain_cmds",
+    "bands": "explain_cmds",
+    "compare": "explain_cmds",
+    "record": "ledger_cmds",
+    "ledger": "ledger_cmds",
+    "disparity": "disparity_cmds",
+    "demo-reviews": "disparity_cmds",
+    "review": "review_cmds",
+}
+_registered: set[str] = set()
+
+
+def _register(names: tuple[str, ...]) -> None:
+    for name in names:
+        if name in _registered:
+            continue
+        _registered.add(name)
+        importlib.import_module(name).register(app)
+
+
+def register_for(argv: list[str]) -> None:
+    """Register the command module the first word of argv needs (all of them if unsure)."""
+    first = next((a for a in argv if not a.startswith("-")), None)
+    home = COMMAND_HOME.get(first or "")
+    if home is None or any(a in ("--help", "-h") for a in argv[:1]):
+        _register(COMMAND_MODULES)
+    else:
+        _register((f"closecall.cli.{home}",))
 
 
 def _version(value: bool) -> None:
@@ -61,18 +98,9 @@ def _root(
     """Find, explain and review close calls made with a scoring model."""
 
 
-for _name in COMMAND_MODULES:
-    try:
-        _module = importlib.import_module(_name)
-    except ModuleNotFoundError as exc:  # a command module not written yet
-        if exc.name != _name:
-            raise
-        continue
-    _module.register(app)
-
-
 def main() -> None:
     """Entry point: runs the app, turning user errors into one message and exit code 2."""
+    register_for(sys.argv[1:])
     try:
         app()  # standalone: usage errors print their own message and exit 2
     except UserError as exc:

@@ -7,13 +7,16 @@ import time
 from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import typer
 from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 
 from closecall.cli.output import Format, err_console
-from closecall.study import Study, open_study
-from closecall.suite import Progress as ProgressFn
+
+if TYPE_CHECKING:
+    from closecall.study import Study
+    from closecall.suite import Progress as ProgressFn
 
 ConfigOption = typer.Option(
     Path("closecall.toml"), "--config", "-c", help="The study config file (or its folder)."
@@ -57,5 +60,7 @@ def progress_bar(enabled: bool) -> Iterator[ProgressFn]:
 
 def load(config: Path, *, quiet: bool, refit: bool = False) -> Study:
     """Open the study, fitting (with a progress bar unless quiet) when the cache is stale."""
+    from closecall.study import open_study
+
     with progress_bar(not quiet) as update:
         return open_study(config, update, refit=refit)

@@ -12,7 +12,6 @@ from closecall.cli.common import ConfigOption, load
 from closecall.cli.output import err_console, safe_text
 from closecall.config import load_config
 from closecall.errors import UserError
-from closecall.export import export_reviews, table_bytes, write_export
 from closecall.reviews import ledger_entries
 
 
@@ -56,6 +55,8 @@ def export(
       closecall ledger export --format parquet --out reviews.parquet
       closecall ledger export --pseudonymise ~/.closecall-key --no-notes --out reviews.csv
     """
+    from closecall.export import export_reviews, table_bytes, write_export  # heavy: on use
+
     cfg = load_config(config)
     entries = ledger_entries(cfg)  # checks read access before anything else
     if fmt is ExportFormat.parquet and out is None and sys.stdout.isatty():

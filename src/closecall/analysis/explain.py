@@ -34,7 +34,7 @@ bands : {
     "exact": None, or (with exact=True) {"low", "high", "closed_low", "closed_high",
         "slack", "epsilon", "unbounded"} for the equally-good set solved exactly; an edge is
         None (and "unbounded" true) when the set has no edge that way }
-neighbours : {"k", "neighbours": [{"case_id", "group", "outcome", "distance"}],
+neighbours : {"k", "neighbours": [{"case_id", "group", "outcome", "distance", "review"}],
     "favourable_share", "by_group": [{"group", "neighbours", "favourable_share",
     "mean_distance"}]}
 proxies : {"flagged": [feature names], "recoverability_auc": float}
@@ -171,9 +171,36 @@ def explain_case(
             "quad": float(b.quad[i]),
             "exact": exact_part,
         },
-        "neighbours": neighbours_for_case(snap, i, config.multiplicity.neighbours),
+        "neighbours": _with_reviews(
+            config, neighbours_for_case(snap, i, config.multiplicity.neighbours)
+        ),
         "proxies": {
             "flagged": snap.proxies.proxies,
             "recoverability_auc": snap.proxies.recoverability,
         },
     }
+
+
+def _with_reviews(config: Any, nb: dict[str, Any]) -> dict[str, Any]:
+    """Add each similar case's effective review (latest ledger entry), when there is one.
+
+    Treat like cases alike: a reviewer sees how similar cases were decided by people as well
+    as how they turned out. Without a ledger, or without read access, ``review`` is None.
+    """
+    from closecall.errors import UserError
+    from closecall.reviews import ledger_entries
+
+    for n in nb["neighbours"]:
+        n["review"] = None
+    if not config.review.ledger.exists():
+        return nb
+    try:
+        for n in nb["neighbours"]:
+            entries = ledger_entries(config, case_id=n["case_id"], limit=1)
+            if entries:
+                e = entries[-1]
+                n["review"] = {"action": e.action, "reason": e.reason, "seq": e.seq}
+    except UserError:
+        pass
+    return nb
+

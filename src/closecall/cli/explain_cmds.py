@@ -232,13 +232,14 @@ def _print_explanation(d: dict[str, Any]) -> None:
 
     nb = d["neighbours"]
     _heading(f"Similar past cases ({nb['k']} nearest, non-group features)")
-    t = _grid("case", "group", "recorded outcome", "distance", right=(3,))
+    t = _grid("case", "group", "recorded outcome", "distance", "review", right=(3,))
     for n in nb["neighbours"]:
         t.add_row(
             _txt(n["case_id"]),
             _txt(n["group"]),
             _txt(n["outcome"], "green" if n["outcome"] == "favourable" else "red"),
             f"{n['distance']:.2f}",
+            _txt(n["review"]["action"] if n.get("review") else "—"),
         )
     console.print(t)
     per_group = ", ".join(

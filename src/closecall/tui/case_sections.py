@@ -116,9 +116,12 @@ def similar(d: dict[str, Any]) -> Text:
     text = Text()
     for n in nb["neighbours"]:
         mark = "+" if n["outcome"] == "favourable" else "−"
+        review = n.get("review")
         text.append(
             f"{mark} {safe_text(n['case_id']):<14} {safe_text(n['group']):<8} "
-            f"{n['outcome']:<13} distance {n['distance']:.2f}\n"
+            f"{n['outcome']:<13} distance {n['distance']:.2f}"
+            + (f"  reviewed: {review['action']}" if review else "")
+            + "\n"
         )
     if not nb["neighbours"]:
         text.append("no history cases to compare with\n")

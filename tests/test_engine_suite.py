@@ -45,7 +45,7 @@ def test_cross_fitted_cases_are_scored_by_models_that_never_saw_them(crossfit_co
             np.asarray(snap.logit("pooled"))[held], ref.logit(X[held]), atol=1e-5
         )
     # the split model scores a case with its own group's model from the other folds
-    Ws, rows = snap.weights("split")
+    _, rows = snap.weights("split")
     G = len(snap.group_levels)
     np.testing.assert_array_equal(rows, fold * G + np.asarray(snap.group_codes))
 
@@ -112,7 +112,8 @@ def test_demo_structure_is_recovered(big_demo) -> None:  # type: ignore[no-untyp
     pooled = raw_coefficients(snap, "pooled")
     # label bias: 30 % of Briar completions recorded as failures. The implied shift in the
     # log-odds of a recorded completion is log(0.7) at low rates and larger near 50 %.
-    assert -1.0 < pooled["heritage=Briar"] < np.log(1 - TRUE["briar_completion_recorded_as_failure"]) / 2
+    bias = TRUE["briar_completion_recorded_as_failure"]
+    assert -1.0 < pooled["heritage=Briar"] < np.log(1 - bias) / 2
     # true effects with their signs and rough sizes (raw units)
     assert pooled["quotes_obtained"] == pytest.approx(TRUE["quotes"], rel=0.35)
     assert pooled["prior_grant=yes"] == pytest.approx(TRUE["prior_grant"], rel=0.5)

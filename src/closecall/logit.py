@@ -23,10 +23,11 @@ line search) and §3.3 (Newton's method).
 from __future__ import annotations
 
 import os
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from concurrent.futures import ThreadPoolExecutor
 from contextlib import AbstractContextManager, nullcontext
 from dataclasses import dataclass, field
+from typing import TypeVar
 
 import numpy as np
 from scipy.linalg import cho_factor, cho_solve, solve_triangular
@@ -84,9 +85,18 @@ def _workers() -> int:
 
 _POOL: ThreadPoolExecutor | None = None
 _BLAS: ThreadpoolController | None = None
+T = TypeVar("T")
+R = TypeVar("R")
 
 
-def _one_blas_thread() -> AbstractContextManager[object]:
+def map_threads(fn: Callable[[T], R], items: Sequence[T]) -> list[R]:
+    """``[fn(x) for x in items]`` on the worker threads (numpy work that releases the GIL)."""
+    if _workers() <= 1 or len(items) <= 1:
+        return [fn(x) for x in items]
+    return list(_pool().map(fn, items))
+
+
+def one_blas_thread() -> AbstractContextManager[object]:
     """While the row-streaming threads run, BLAS itself stays on one thread per call."""
     global _BLAS
     if _workers() <= 1:
@@ -160,7 +170,7 @@ def _accumulate(
     if w <= 1:
         parts = [_sums(chunks, theta, want_loss, want_hessian)]
     else:
-        with _one_blas_thread():
+        with one_blas_thread():
             futures = [
                 _pool().submit(_sums, chunks[i::w], theta, want_loss, want_hessian)
                 for i in range(w)
@@ -322,6 +332,7 @@ def fit_logit_blocks(
     warm: LogitFit | None = None,
     *,
     start: StartState | None = None,
+    hessian_guess: np.ndarray | None = None,
     final_hessian: bool = True,
     tol: float = TOL,
     max_iter: int = MAX_ITER,
@@ -338,6 +349,8 @@ def fit_logit_blocks(
         starts from a fit on a subsample of its rows
     start : the objective, gradient and Hessian at ``warm``, when already known (saves the
         first pass over the rows)
+    hessian_guess : an approximate Hessian at ``warm`` (active coordinates) to start with
+        instead of computing one; it is replaced by the real one if progress is slow
     final_hessian : return the Hessian at the optimum (costs a pass if the last step kept an
         older Hessian)
     tol : stop when the largest gradient entry of the mean objective and half the Newton
@@ -355,6 +368,9 @@ def fit_logit_blocks(
         coarse = _coarse_start(blocks, labels, mask, penalty, n)
     if start is not None:
         state = _Newton(theta, start.objective, start.gradient, start.hessian, True)
+    elif hessian_guess is not None:
+        f, g, _ = objective(theta, False)
+        state = _Newton(theta, f, g, hessian_guess, False)
     elif coarse is not None:
         theta = coarse[0]
         f, g, _ = objective(theta, False)
@@ -372,6 +388,33 @@ def fit_logit_blocks(
     coef[active[1:] - 1] = run.theta[active[1:]]
     hess = run.H if run.fresh else None
     return LogitFit(float(run.theta[0]), coef, float(run.f), n, hess, run.g)
+
+
+def restricted_start(
+    parent: LogitFit, parent_mask: np.ndarray, mask: np.ndarray
+) -> tuple[LogitFit, np.ndarray] | None:
+    """A start for a model on a subset of a fitted model's columns (same rows, same penalty).
+
+    The parent's objective is approximated by its quadratic expansion at the parent's optimum;
+    the start is that quadratic's minimum with the dropped columns held at zero, and its
+    Hessian block on the kept columns is the Hessian guess. None if the parent kept no Hessian
+    or ``mask`` is not within ``parent_mask``.
+    """
+    if parent.hessian is None or parent.gradient is None or np.any(mask & ~parent_mask):
+        return None
+    p_cols = np.flatnonzero(parent_mask)
+    keep = np.concatenate([[0], 1 + np.flatnonzero(mask[p_cols])])  # in the parent's coords
+    drop = 1 + np.flatnonzero(~mask[p_cols])
+    theta = np.concatenate([[parent.intercept], parent.coef[p_cols]])
+    H, g = parent.hessian, parent.gradient
+    H_kk = H[np.ix_(keep, keep)]
+    rhs = g[keep] - H[np.ix_(keep, drop)] @ theta[drop]
+    factor = _factor(H_kk)
+    step = _direction(factor, H_kk, rhs)
+    new = theta[keep] + step
+    coef = np.zeros(len(parent.coef))
+    coef[np.flatnonzero(mask)] = new[1:]
+    return LogitFit(float(new[0]), coef, parent.objective, parent.n), H_kk
 
 
 def held_out_state(

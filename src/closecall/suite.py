@@ -19,6 +19,7 @@ learning", FAT* 2018 (the split model).
 from __future__ import annotations
 
 from collections.abc import Callable
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from functools import cached_property
 from typing import Any
@@ -36,7 +37,10 @@ from closecall.logit import (
     cholesky_lower,
     fit_logit_blocks,
     held_out_state,
+    map_threads,
+    one_blas_thread,
     quadratic_form,
+    restricted_start,
 )
 
 Progress = Callable[[str, int, int], None]
@@ -130,6 +134,22 @@ class _Layout:
         Xb, yb = self.blocks(segs)
         return fit_logit_blocks(Xb, yb, mask, penalty, warm)
 
+    def fit_within(
+        self,
+        parent: LogitFit,
+        parent_mask: np.ndarray,
+        segs: list[slice],
+        mask: np.ndarray,
+        penalty: float,
+    ) -> LogitFit:
+        """Fit on ``segs`` and a subset of the columns of ``parent``, a fit on the same rows,
+        starting from the parent's quadratic expansion (see logit.restricted_start)."""
+        Xb, yb = self.blocks(segs)
+        begin = restricted_start(parent, parent_mask, mask)
+        if begin is None:
+            return fit_logit_blocks(Xb, yb, mask, penalty, _warm_from(parent, mask))
+        return fit_logit_blocks(Xb, yb, mask, penalty, begin[0], hessian_guess=begin[1])
+
     def refit_without(
         self,
         full: LogitFit,
@@ -181,13 +201,40 @@ class _Layout:
         return lo, hi
 
 
+def proxy_columns(encoder: Encoder, hist_X: np.ndarray) -> dict[str, tuple[str, np.ndarray]]:
+    """Each non-group feature as proxy detection reads it: the standardised (imputed) value
+    of a numeric feature, the level code (0 = reference) of a categorical one."""
+    raw: dict[str, tuple[str, np.ndarray]] = {}
+    for ef in encoder.features:
+        if ef.is_group:
+            continue
+        cols = encoder.source_mask([ef.name])
+        if ef.kind == "numeric":
+            raw[ef.name] = ("numeric", hist_X[:, np.flatnonzero(cols)[0]])
+        else:
+            block = hist_X[:, cols]
+            codes = np.where(block.any(axis=1), block.argmax(axis=1) + 1, 0)
+            raw[ef.name] = ("categorical", codes)
+    return raw
+
+
 def _warm_from(fit: LogitFit, mask: np.ndarray) -> LogitFit:
     """A starting point for a model on fewer columns: a fit's weights on those columns."""
     return LogitFit(fit.intercept, np.where(mask, fit.coef, 0.0), fit.objective, fit.n)
 
 
 def fit_suite(config: StudyConfig, data: StudyData, progress: Progress = _quiet) -> SuiteResult:
-    """Fit every model of the suite and score the cases under review."""
+    """Fit every model of the suite and score the cases under review.
+
+    The heavy passes stream the rows over a few threads of their own (see logit.py), so BLAS
+    is held to one thread per call meanwhile: two layers of threads on a small machine only
+    wait on each other.
+    """
+    with one_blas_thread():
+        return _fit_suite(config, data, progress)
+
+
+def _fit_suite(config: StudyConfig, data: StudyData, progress: Progress) -> SuiteResult:
     penalty = config.model.penalty
     K = config.model.folds
     progress("encoding", 0, 1)
@@ -203,6 +250,7 @@ def fit_suite(config: StudyConfig, data: StudyData, progress: Progress = _quiet)
     group_mask = encoder.group_mask
     nongroup = ~group_mask
 
+    progress("fitting whole-history models", 0, 1)
     skf = StratifiedKFold(n_splits=K, shuffle=True, random_state=config.seed)
     fold = np.empty(len(y), dtype=np.int16)
     for k, (_, test) in enumerate(skf.split(np.zeros((len(y), 1)), _strata(y, hg))):
@@ -213,7 +261,6 @@ def fit_suite(config: StudyConfig, data: StudyData, progress: Progress = _quiet)
     def _all(k: int) -> bool:
         return True
 
-    progress("fitting whole-history models", 0, 1)
     full: dict[str, list[LogitFit]] = {}
     masks: dict[str, list[np.ndarray]] = {}
     all_rows = layout.segments(every, _all)
@@ -221,91 +268,88 @@ def fit_suite(config: StudyConfig, data: StudyData, progress: Progress = _quiet)
     full["pooled"] = [layout.fit(all_rows, pooled_mask, penalty)]
     masks["pooled"] = [pooled_mask]
     full["unaware"] = [
-        layout.fit(all_rows, nongroup, penalty, _warm_from(full["pooled"][0], nongroup))
+        layout.fit_within(full["pooled"][0], pooled_mask, all_rows, nongroup, penalty)
     ]
     masks["unaware"] = [nongroup]
 
+    # Proxy detection reads the history and the unaware fit only, and mostly keeps one core
+    # busy: it runs beside the fits that do not need its answer (split, and the folds of
+    # pooled and unaware); the proxy-free model is fitted once it is done.
     progress("scoring proxies", 0, 1)
-    raw: dict[str, tuple[str, np.ndarray]] = {}
-    for ef in encoder.features:
-        if ef.is_group:
-            continue
-        cols = encoder.source_mask([ef.name])
-        if ef.kind == "numeric":
-            raw[ef.name] = ("numeric", hist_X[:, np.flatnonzero(cols)[0]])
-        else:
-            block = hist_X[:, cols]
-            codes = np.where(block.any(axis=1), block.argmax(axis=1) + 1, 0)
-            raw[ef.name] = ("categorical", codes)
-    proxies = detect_proxies(
-        raw_columns=raw,
-        X=hist_X,
-        unaware_coef=full["unaware"][0].coef,
-        column_source=encoder.column_source,
-        group_codes=hg,
-        n_levels=G,
-        association_threshold=config.proxies.association,
-        influence_threshold=config.proxies.influence,
-        extra=config.proxies.extra,
-        never=config.proxies.never,
-        seed=config.seed,
-        nongroup_mask=nongroup,
-    )
+    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="closecall-proxies") as side:
+        scoring = side.submit(
+            detect_proxies,
+            raw_columns=proxy_columns(encoder, hist_X),
+            X=hist_X,
+            unaware_coef=full["unaware"][0].coef,
+            column_source=encoder.column_source,
+            group_codes=hg,
+            n_levels=G,
+            association_threshold=config.proxies.association,
+            influence_threshold=config.proxies.influence,
+            extra=config.proxies.extra,
+            never=config.proxies.never,
+            seed=config.seed,
+            nongroup_mask=nongroup,
+        )
+        full["split"], masks["split"] = [], []
+        for g in range(G):
+            segs = layout.segments([g], _all)
+            m = layout.nonconstant(segs, nongroup)
+            full["split"].append(layout.fit(segs, m, penalty, _warm_from(full["unaware"][0], m)))
+            masks["split"].append(m)
+
+        # ---- cross-fitting (with one labelled file the fold fits score the cases: they keep
+        # their Hessians)
+        cross_fitted = data.pending is None
+        oof = {name: np.full(len(y), np.nan) for name in FITTED_MODELS}
+        fold_fits: dict[str, list[LogitFit]] = {name: [] for name in FITTED_MODELS}
+        fold_masks: dict[str, list[np.ndarray]] = {name: [] for name in FITTED_MODELS}
+        fold_test: dict[str, list[list[slice]]] = {name: [] for name in FITTED_MODELS}
+
+        def cross_fit(name: str, k: int) -> None:
+            """Fit fold k of a model on the other folds and score fold k with it."""
+
+            def _train(j: int) -> bool:
+                return j != k
+
+            def _test(j: int) -> bool:
+                return j == k
+
+            for g in every if name == "split" else [None]:
+                rows = every if g is None else [g]
+                train, test = layout.segments(rows, _train), layout.segments(rows, _test)
+                if g is None:
+                    m = masks[name][0]
+                    start = full[name][0]
+                else:
+                    m = layout.nonconstant(train, nongroup)
+                    start = full["split"][g]
+                if np.array_equal(m, masks[name][0 if g is None else g]):
+                    fit = layout.refit_without(start, train, test, m, penalty, cross_fitted)
+                else:  # a column is constant outside this fold: a model on fewer columns
+                    Xb, yb = layout.blocks(train)
+                    fit = fit_logit_blocks(Xb, yb, m, penalty, start, final_hessian=cross_fitted)
+                for s in test:
+                    oof[name][layout.perm[s]] = fit.logit(layout.X[s])
+                fold_fits[name].append(fit)
+                fold_masks[name].append(m)
+                fold_test[name].append(test)
+
+        for k in range(K):
+            progress("cross-fitting", k, K)
+            for name in ("pooled", "unaware", "split"):
+                cross_fit(name, k)
+        proxies = scoring.result()
     proxy_free_mask = nongroup & ~encoder.source_mask(proxies.proxies)
     if not proxy_free_mask.any():
         notes.append("every non-group feature is a proxy: the proxy-free model is intercept-only")
     full["proxy_free"] = [
-        layout.fit(
-            all_rows, proxy_free_mask, penalty, _warm_from(full["unaware"][0], proxy_free_mask)
-        )
+        layout.fit_within(full["unaware"][0], nongroup, all_rows, proxy_free_mask, penalty)
     ]
     masks["proxy_free"] = [proxy_free_mask]
-    full["split"], masks["split"] = [], []
-    for g in range(G):
-        segs = layout.segments([g], _all)
-        m = layout.nonconstant(segs, nongroup)
-        full["split"].append(layout.fit(segs, m, penalty, _warm_from(full["unaware"][0], m)))
-        masks["split"].append(m)
-
-    # ---- cross-fitting (with one labelled file, the fold fits score the cases: keep Hessians)
-    cross_fitted = data.pending is None
-    oof = {name: np.full(len(y), np.nan) for name in FITTED_MODELS}
-    fold_fits: dict[str, list[LogitFit]] = {name: [] for name in FITTED_MODELS}
-    fold_masks: dict[str, list[np.ndarray]] = {name: [] for name in FITTED_MODELS}
-    fold_test: dict[str, list[list[slice]]] = {name: [] for name in FITTED_MODELS}
     for k in range(K):
-        progress("cross-fitting", k, K)
-
-        def _train(j: int, k: int = k) -> bool:
-            return j != k
-
-        def _test(j: int, k: int = k) -> bool:
-            return j == k
-
-        train, test = layout.segments(every, _train), layout.segments(every, _test)
-        for name in ("pooled", "unaware", "proxy_free"):
-            m = masks[name][0]
-            fit = layout.refit_without(full[name][0], train, test, m, penalty, cross_fitted)
-            for s in test:
-                oof[name][layout.perm[s]] = fit.logit(layout.X[s])
-            fold_fits[name].append(fit)
-            fold_masks[name].append(m)
-            fold_test[name].append(test)
-        for g in range(G):
-            tr, te = layout.segments([g], _train), layout.segments([g], _test)
-            m = layout.nonconstant(tr, nongroup)
-            if np.array_equal(m, masks["split"][g]):
-                fit = layout.refit_without(full["split"][g], tr, te, m, penalty, cross_fitted)
-            else:  # a column is constant outside this fold: a model on fewer columns
-                Xb, yb = layout.blocks(tr)
-                fit = fit_logit_blocks(
-                    Xb, yb, m, penalty, full["split"][g], final_hessian=cross_fitted
-                )
-            for s in te:
-                oof["split"][layout.perm[s]] = fit.logit(layout.X[s])
-            fold_fits["split"].append(fit)
-            fold_masks["split"].append(m)
-            fold_test["split"].append(te)
+        cross_fit("proxy_free", k)
     progress("cross-fitting", K, K)
 
     # ---- the cases under review
@@ -368,7 +412,6 @@ def fit_suite(config: StudyConfig, data: StudyData, progress: Progress = _quiet)
             oof_logit=oof[name],
             full_W=np.array([[f.intercept, *f.coef] for f in full[name]]),
         )
-    del layout
     if data.deployed_probability is not None:
         dl = logit(data.deployed_probability)
         models["deployed"] = ModelScores(
@@ -434,54 +477,61 @@ def held_out_metrics(
     """Per group and overall: held-out log-loss, AUC, error rate per lens, calibration.
 
     Per-case quantities are computed once per model and summed per group with ``bincount``;
-    one sort per model serves the AUC of every group.
+    one sort per model serves the AUC of every group. Models run on the worker threads.
     """
+    per_model = map_threads(
+        lambda ms: _model_metrics(ms, y, groups, levels, config), list(models.values())
+    )
+    return [row for rows in per_model for row in rows]
+
+
+def _model_metrics(
+    ms: ModelScores, y: np.ndarray, groups: np.ndarray, levels: list[str], config: StudyConfig
+) -> list[dict[str, Any]]:
     rows: list[dict[str, Any]] = []
     G = len(levels)
-    for name, ms in models.items():
-        eta = ms.oof_logit
-        valid = ~np.isnan(eta)
-        if not valid.any():
+    eta = ms.oof_logit
+    valid = ~np.isnan(eta)
+    if not valid.any():
+        return rows
+    e, yy, gg = (eta, y, groups) if valid.all() else (eta[valid], y[valid], groups[valid])
+    gg = gg.astype(np.int64)
+    yf = yy.astype(np.float64)
+    p = expit(e)
+    per_case: dict[str, np.ndarray] = {
+        "loss": np.maximum(e, 0.0) + np.log1p(np.exp(-np.abs(e))) - yf * e,
+        "y": yf,
+        "p": p,
+    }
+    for lens in config.lenses:
+        per_case[lens.name] = ((p > lens.threshold) != (yy == 1)).astype(np.float64)
+    by_group = {k: np.bincount(gg, weights=v, minlength=G) for k, v in per_case.items()}
+    cases = np.bincount(gg, minlength=G)
+    order = np.argsort(e)
+    e_sorted, y_sorted, g_sorted = e[order], yy[order], gg[order]
+    for gi, label in [*enumerate(levels), (-1, "all")]:
+        n = int(cases[gi]) if gi >= 0 else len(e)
+        if n == 0:
             continue
-        e, yy, gg = (eta, y, groups) if valid.all() else (eta[valid], y[valid], groups[valid])
-        gg = gg.astype(np.int64)
-        yf = yy.astype(np.float64)
-        p = expit(e)
-        per_case: dict[str, np.ndarray] = {
-            "loss": np.maximum(e, 0.0) + np.log1p(np.exp(-np.abs(e))) - yf * e,
-            "y": yf,
-            "p": p,
+        total = {
+            k: float(v[gi]) if gi >= 0 else float(per_case[k].sum()) for k, v in by_group.items()
+        }
+        auc = None
+        if 0 < total["y"] < n:
+            if gi < 0:
+                auc = auc_sorted(e_sorted, y_sorted)
+            else:
+                here = g_sorted == gi
+                auc = auc_sorted(e_sorted[here], y_sorted[here])
+        row: dict[str, Any] = {
+            "model": ms.name,
+            "group": label,
+            "cases": n,
+            "log_loss": total["loss"] / n,
+            "auc": auc,
+            "calibration_in_the_large": total["y"] / n - total["p"] / n,
         }
         for lens in config.lenses:
-            per_case[lens.name] = ((p > lens.threshold) != (yy == 1)).astype(np.float64)
-        by_group = {k: np.bincount(gg, weights=v, minlength=G) for k, v in per_case.items()}
-        cases = np.bincount(gg, minlength=G)
-        order = np.argsort(e)
-        e_sorted, y_sorted, g_sorted = e[order], yy[order], gg[order]
-        for gi, label in [*enumerate(levels), (-1, "all")]:
-            n = int(cases[gi]) if gi >= 0 else len(e)
-            if n == 0:
-                continue
-            total = {
-                k: float(v[gi]) if gi >= 0 else float(per_case[k].sum())
-                for k, v in by_group.items()
-            }
-            auc = None
-            if 0 < total["y"] < n:
-                if gi < 0:
-                    auc = auc_sorted(e_sorted, y_sorted)
-                else:
-                    here = g_sorted == gi
-                    auc = auc_sorted(e_sorted[here], y_sorted[here])
-            row: dict[str, Any] = {
-                "model": name,
-                "group": label,
-                "cases": n,
-                "log_loss": total["loss"] / n,
-                "auc": auc,
-                "calibration_in_the_large": total["y"] / n - total["p"] / n,
-            }
-            for lens in config.lenses:
-                row[f"error_rate[{lens.name}]"] = total[lens.name] / n
-            rows.append(row)
+            row[f"error_rate[{lens.name}]"] = total[lens.name] / n
+        rows.append(row)
     return rows

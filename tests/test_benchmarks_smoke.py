@@ -11,9 +11,12 @@ import subprocess
 import sys
 from pathlib import Path
 
+import pytest
+
 ROOT = Path(__file__).resolve().parents[1]
 
 
+@pytest.mark.slow  # about 5 s: a subprocess running every step once
 def test_benchmark_script_runs_end_to_end(tmp_path: Path) -> None:
     out = tmp_path / "bench.json"
     cmd = [

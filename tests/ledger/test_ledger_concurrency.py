@@ -108,36 +108,45 @@ def test_processes_creating_the_ledger_at_once_share_one_file(tmp_path: Path) ->
 def test_writers_killed_mid_stream_leave_a_ledger_that_verifies(tmp_path: Path) -> None:
     path, go = tmp_path / "l.sqlite", tmp_path / "go"
     go.touch()
-    total_before = 0
-    for round_no in range(12):
-        # two endless writers, killed with SIGKILL after a varying time
-        procs = [_spawn(path, f"r{round_no}w{k}", -1, go, spread=3000) for k in range(2)]
-        deadline = time.monotonic() + 30
-        while time.monotonic() < deadline:  # wait until both have really been writing
-            try:
-                with open_ledger(path, readonly=True) as ledger:
-                    if ledger.count() >= total_before + 20:
-                        break
-            except NoLedger:  # not created (or not yet initialised) by the writers
-                pass
-            time.sleep(0.01)
-        time.sleep(0.01 * (round_no % 4))
-        for p in procs:
-            os.kill(p.pid, signal.SIGKILL)
-        for p in procs:
-            p.wait(timeout=30)
-            assert p.returncode == -signal.SIGKILL
-        with open_ledger(path, readonly=True) as ledger:
-            result = ledger.verify()
-            entries = ledger.entries()
-        assert result.ok, (round_no, result.problem)
-        assert [e.seq for e in entries] == list(range(1, len(entries) + 1))
-        # no partial entry: every note is exactly what its writer meant to write
-        assert all(
-            e.note == _expected_note(e.reviewer, int(e.note.split("|")[1]), 3000) for e in entries
-        )
-        assert len(entries) > total_before
-        total_before = len(entries)
+    spawned: list[subprocess.Popen[bytes]] = []
+    try:
+        total_before = 0
+        for round_no in range(12):
+            # two endless writers, killed with SIGKILL after a varying time
+            procs = [_spawn(path, f"r{round_no}w{k}", -1, go, spread=3000) for k in range(2)]
+            spawned += procs
+            deadline = time.monotonic() + 30
+            while time.monotonic() < deadline:  # wait until both have really been writing
+                try:
+                    with open_ledger(path, readonly=True) as ledger:
+                        if ledger.count() >= total_before + 20:
+                            break
+                except NoLedger:  # not created (or not yet initialised) by the writers
+                    pass
+                time.sleep(0.01)
+            time.sleep(0.01 * (round_no % 4))
+            for p in procs:
+                os.kill(p.pid, signal.SIGKILL)
+            for p in procs:
+                p.wait(timeout=30)
+                assert p.returncode == -signal.SIGKILL
+            with open_ledger(path, readonly=True) as ledger:
+                result = ledger.verify()
+                entries = ledger.entries()
+            assert result.ok, (round_no, result.problem)
+            assert [e.seq for e in entries] == list(range(1, len(entries) + 1))
+            # no partial entry: every note is exactly what its writer meant to write
+            assert all(
+                e.note == _expected_note(e.reviewer, int(e.note.split("|")[1]), 3000)
+                for e in entries
+            )
+            assert len(entries) > total_before
+            total_before = len(entries)
+    finally:  # endless writers must never outlive the test, whatever failed
+        for p in spawned:
+            if p.poll() is None:
+                p.kill()
+                p.wait(timeout=30)
     # and the ledger takes new entries after all that
     with open_ledger(path) as ledger:
         assert ledger.verify().ok

@@ -63,11 +63,10 @@ def auc_association(x: np.ndarray, group_codes: np.ndarray, n_levels: int) -> fl
 
 def cramers_v(codes: np.ndarray, group_codes: np.ndarray) -> float:
     """Cramér's V (no bias correction) of two coded categorical arrays."""
-    _, a = np.unique(codes, return_inverse=True)
-    _, b = np.unique(group_codes, return_inverse=True)
-    table = np.zeros((a.max() + 1, b.max() + 1))
-    np.add.at(table, (a, b), 1)
-    table = table[table.sum(1) > 0][:, table.sum(0) > 0]
+    a, b = _dense_codes(codes), _dense_codes(group_codes)
+    nb = int(b.max()) + 1
+    table = np.bincount(a * nb + b, minlength=(int(a.max()) + 1) * nb).reshape(-1, nb)
+    table = table[table.sum(1) > 0][:, table.sum(0) > 0].astype(float)
     k = min(table.shape) - 1
     if k == 0:
         return 0.0
@@ -75,30 +74,60 @@ def cramers_v(codes: np.ndarray, group_codes: np.ndarray) -> float:
     return float(np.sqrt(chi2 / (table.sum() * k)))
 
 
+def _dense_codes(codes: np.ndarray) -> np.ndarray:
+    """Codes renumbered 0..k-1 in order of value (np.unique's inverse, without the sort)."""
+    codes = np.asarray(codes)
+    if codes.dtype.kind in "iub" and len(codes) and codes.min() >= 0:
+        present = np.bincount(codes) > 0
+        return np.asarray((np.cumsum(present) - 1)[codes])
+    return np.asarray(np.unique(codes, return_inverse=True)[1])
+
+
 def influence_shares(
-    X: np.ndarray, coef: np.ndarray, column_source: list[str], names: list[str]
+    X: np.ndarray,
+    coef: np.ndarray,
+    column_source: list[str],
+    names: list[str],
+    cov: np.ndarray | None = None,
 ) -> dict[str, float]:
-    """Var(c_j)/Var(margin) for each named source feature, in the model with weights coef."""
-    centred = X - X.mean(axis=0)
-    margin_var = float(np.var(centred @ coef))
+    """Var(c_j)/Var(margin) for each named source feature, in the model with weights coef.
+
+    Both variances are quadratic forms in the design's covariance matrix, so one covariance
+    (``cov``, computed here if not given) serves every feature and every peeling round.
+    """
+    if cov is None:
+        cov = np.atleast_2d(np.cov(X, rowvar=False, bias=True))
+    margin_var = float(coef @ cov @ coef)
     out: dict[str, float] = {}
     src = np.array(column_source)
     for name in names:
         cols = np.flatnonzero(src == name)
-        c = centred[:, cols] @ coef[cols]
-        out[name] = float(np.var(c) / margin_var) if margin_var > 0 else 0.0
+        w = coef[cols]
+        var = float(w @ cov[np.ix_(cols, cols)] @ w)
+        out[name] = var / margin_var if margin_var > 0 else 0.0
     return out
 
 
 def group_recoverability(
-    X: np.ndarray, group_codes: np.ndarray, n_levels: int, seed: int, folds: int = 5
+    X: np.ndarray,
+    group_codes: np.ndarray,
+    n_levels: int,
+    seed: int,
+    folds: int = 5,
+    columns: np.ndarray | None = None,
 ) -> float:
-    """Held-out AUC of predicting the group from the given (non-group) design columns."""
+    """Held-out AUC of predicting the group from the given (non-group) design columns.
+
+    ``columns`` (a boolean mask) picks the columns after the rows are subsampled, so a large
+    history is never copied whole.
+    """
     rng = np.random.default_rng(seed)
     idx = np.arange(len(group_codes))
     if len(idx) > RECOVERABILITY_MAX_ROWS:
         idx = np.sort(rng.choice(idx, RECOVERABILITY_MAX_ROWS, replace=False))
     Xs, gs = X[idx], group_codes[idx]
+    if columns is not None:
+        Xs = Xs[:, columns]
     scores = np.zeros((len(idx), n_levels))
     skf = StratifiedKFold(n_splits=folds, shuffle=True, random_state=seed)
     for train, test in skf.split(Xs, gs):
@@ -202,7 +231,8 @@ def detect_proxies(
             association[name] = (auc_association(values, group_codes, n_levels), "2|AUC-0.5|")
         else:
             association[name] = (cramers_v(values, group_codes), "Cramér's V")
-    first = influence_shares(X, unaware_coef, column_source, names)
+    cov = np.atleast_2d(np.cov(X, rowvar=False, bias=True))
+    first = influence_shares(X, unaware_coef, column_source, names, cov)
     rows_used = np.arange(len(X))
     if len(X) > RECOVERABILITY_MAX_ROWS:
         rng = np.random.default_rng(seed)
@@ -212,7 +242,7 @@ def detect_proxies(
     peak = dict(first)
     coef = unaware_coef
     for round_no in range(1, len(names) + 2):
-        infl = first if round_no == 1 else influence_shares(X, coef, column_source, names)
+        infl = first if round_no == 1 else influence_shares(X, coef, column_source, names, cov)
         new = [
             n
             for n in names
@@ -248,5 +278,5 @@ def detect_proxies(
         rows.append(
             ProxyRow(name, kind, assoc, measure, first[name], flagged, why, peak[name], r or 0)
         )
-    recover = group_recoverability(X[:, mask], group_codes, n_levels, seed)
+    recover = group_recoverability(X, group_codes, n_levels, seed, columns=mask)
     return ProxyReport(rows, recover, association_threshold, influence_threshold)

@@ -38,6 +38,7 @@ from typing import Any
 import numpy as np
 from scipy.special import logit
 
+from closecall.groups import group_slices
 from closecall.snapshot import Snapshot
 
 BLOCK_ROWS = 100_000
@@ -195,11 +196,8 @@ def dependence_by_group(
     dep = dependence(snap, model, lens)
     codes = np.asarray(snap.group_codes)
     out: list[dict[str, Any]] = []
-    for gi, label in [*enumerate(snap.group_levels), (-1, "all")]:
-        sel = np.ones(len(codes), dtype=bool) if gi < 0 else codes == gi
+    for _, label, sel in group_slices(codes, snap.group_levels):
         n = int(sel.sum())
-        if n == 0:
-            continue
         out.append(
             {
                 "group": label,

@@ -59,6 +59,7 @@ from closecall.analysis.fitted_rows import (
 )
 from closecall.config import MultiplicityConfig
 from closecall.errors import UserError
+from closecall.groups import group_slices
 from closecall.snapshot import Snapshot
 
 UNCERTAINTY_EPSILON = float(chi2.ppf(0.95, df=1) / 2.0)  # 1.9207: the 95 % Wald band
@@ -283,13 +284,9 @@ def ambiguity_by_group(
     b = bands(snap, model, epsilon, lens)
     codes = np.asarray(snap.group_codes)
     disc = discrepancy_counts(snap, model, epsilon, lens, seed)
-    G = len(snap.group_levels)
     out: list[dict[str, Any]] = []
-    for gi, label in [*enumerate(snap.group_levels), (G, "all")]:
-        sel = np.ones(len(codes), dtype=bool) if gi == G else codes == gi
+    for gi, label, sel in group_slices(codes, snap.group_levels):
         n = int(sel.sum())
-        if n == 0:
-            continue
         out.append(
             {
                 "group": label,

@@ -5,6 +5,7 @@ from __future__ import annotations
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import typer
 from rich import box
 from rich.table import Table
@@ -24,6 +25,7 @@ from closecall.config_init import infer_config
 from closecall.demo import write_demo
 from closecall.errors import UserError
 from closecall.queue import SORT_KEYS, build_queue, queue_rows
+from closecall.review_states import STATE_NAMES, study_review_states
 from closecall.study import open_study
 
 
@@ -166,6 +168,9 @@ def queue(
         help="Only cases whose decision flips when the 'group' (or the group and its "
         "'proxies') is set to its history average.",
     ),
+    unreviewed: bool = typer.Option(
+        False, "--unreviewed", help="Only cases with no review in the ledger yet."
+    ),
     epsilon: float | None = typer.Option(
         None,
         "--epsilon",
@@ -190,6 +195,13 @@ def queue(
     fmt = resolve_format(fmt, as_json)
     study = load(config, quiet=fmt is not Format.table)
     snap = study.snapshot
+    known = study_review_states(study)
+    if unreviewed and known is None:
+        raise UserError(
+            "--unreviewed needs to read the ledger, and this login may not",
+            "ask for your login to be listed under [review] reviewers or analysts",
+        )
+    states, claimed = known if known is not None else (None, {})
     q = build_queue(
         snap,
         band=study.config.review.band if band is None else band,
@@ -201,8 +213,15 @@ def queue(
         options={"config": study.config, "epsilon": epsilon},
         ambiguous_only=ambiguous,
         rests_on_part=rests_on_part,
+        exclude_rows=(states > 0) if unreviewed and states is not None else None,
     )
     rows = queue_rows(snap, q, 0, None if limit == 0 else limit)
+    if states is not None:
+        shown = states[q.order[: len(rows)]]  # rows are the queue's first len(rows) cases
+        for r, code in zip(rows, shown, strict=True):
+            r["state"] = STATE_NAMES[int(code)]
+            r["claimed_by"] = claimed.get(r["case_id"], [])
+        q.counts["reviewed"] = int(np.count_nonzero(states))
     meta = {
         "snapshot": snap.id,
         "reference": snap.reference,
@@ -210,7 +229,12 @@ def queue(
         "band": q.band,
         "sort": q.sort,
         "counts": q.counts,
-        "filters": {"ambiguous": ambiguous, "rests_on": rests_on_part, "epsilon": epsilon},
+        "filters": {
+            "ambiguous": ambiguous,
+            "rests_on": rests_on_part,
+            "epsilon": epsilon,
+            "unreviewed": unreviewed,
+        },
     }
     if fmt is Format.table:
         _print_queue_table(snap, q, rows)
@@ -225,6 +249,7 @@ def queue(
                 "decision": r["decision"],
                 "flip": r["flip"],
                 "differs": ";".join(r["differs"]),
+                "state": r.get("state"),
                 **{f"margin_{m}": r["margins"][m] for m in snap.model_names},
                 **{name: r[name] for name in q.measures},
             }

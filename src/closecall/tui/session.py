@@ -15,6 +15,7 @@ import numpy as np
 
 from closecall.ledger import Claim, Entry, current_login
 from closecall.queue import Queue, build_queue
+from closecall.review_states import review_states
 from closecall.reviews import active_claims, ledger_entries
 from closecall.study import Study
 from closecall.tui import analysis_bridge
@@ -237,13 +238,7 @@ class ReviewSession:
     def refresh_reviews(self) -> list[Entry]:
         """Read the ledger and claims; update each case's review state (call from a worker)."""
         entries = ledger_entries(self.config)
-        states = np.zeros(self.snap.n_cases, dtype=np.int8)
-        if entries:
-            rows = self.rows_of([e.case_id for e in entries])
-            codes = np.array([STATE_OF_ACTION[e.action] for e in entries], dtype=np.int8)
-            ok = rows >= 0
-            states[rows[ok]] = codes[ok]  # entries are in sequence order: the latest wins
-        self.states = states
+        self.states = review_states(self.snap, entries)  # codes match marks.STATE_OF_ACTION
         self.entries_seen = len(entries)
         self.claims = active_claims(self.study)
         return entries

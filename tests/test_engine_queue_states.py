@@ -1,0 +1,37 @@
+"""The queue shows each case's review state from the ledger, as the review screen does."""
+
+from __future__ import annotations
+
+import json
+
+from closecall.ledger import ACTIONS
+from closecall.reviews import record_review
+from closecall.tui.marks import STATE_OF_ACTION
+
+
+def test_state_codes_match_the_review_screen() -> None:
+    assert all(STATE_OF_ACTION[a] == 1 + ACTIONS.index(a) for a in ACTIONS)
+
+
+def test_queue_states_and_unreviewed_filter(tmp_path, cli) -> None:  # type: ignore[no-untyped-def]
+    from closecall.demo import write_demo
+    from closecall.study import open_study
+
+    config = write_demo(tmp_path, cases=800, seed=6)
+    study = open_study(config)
+    first = json.loads(cli("queue", "--config", str(config), "--json", "--limit", "3").out)
+    assert [r["state"] for r in first["rows"]] == ["open"] * 3
+    a, b = first["rows"][0]["case_id"], first["rows"][1]["case_id"]
+    record_review(study, a, "uphold", None, "")
+    record_review(study, b, "override-favourable", "data-error", "quote was misread")
+    record_review(study, b, "defer", None, "waiting for the survey", supersedes=2)
+    after = json.loads(cli("queue", "--config", str(config), "--json", "--limit", "3").out)
+    states = {r["case_id"]: r["state"] for r in after["rows"]}
+    assert states[a] == "uphold" and states[b] == "defer"  # the latest entry wins
+    assert after["counts"]["reviewed"] == 2
+    rest = json.loads(
+        cli("queue", "--config", str(config), "--json", "--unreviewed", "--limit", "0").out
+    )
+    ids = {r["case_id"] for r in rest["rows"]}
+    assert a not in ids and b not in ids
+    assert rest["counts"]["listed"] == first["counts"]["listed"] - 2

@@ -18,18 +18,6 @@ NOT_REVIEWED = 0
 STATE_NAMES = ("open", *ACTIONS)
 
 
-def case_rows(snap: Snapshot, case_ids: Sequence[str]) -> np.ndarray:
-    """Snapshot rows of case ids, −1 for ids the snapshot does not hold (vectorised)."""
-    ids = np.asarray(snap.case_ids)
-    if len(case_ids) == 0 or len(ids) == 0:
-        return np.full(len(case_ids), -1, dtype=np.int64)
-    order = np.argsort(ids, kind="stable")
-    sorted_ids = ids[order]
-    wanted = np.asarray(case_ids, dtype=sorted_ids.dtype)
-    at = np.minimum(np.searchsorted(sorted_ids, wanted), len(sorted_ids) - 1)
-    return np.where(sorted_ids[at] == wanted, order[at], -1)
-
-
 def review_states(snap: Snapshot, entries: Sequence[Entry]) -> np.ndarray:
     """(n,) int8 per case: 0 not reviewed, else 1 + ACTIONS.index(its latest action).
 
@@ -39,7 +27,7 @@ def review_states(snap: Snapshot, entries: Sequence[Entry]) -> np.ndarray:
     """
     states = np.zeros(snap.n_cases, dtype=np.int8)
     if entries:
-        rows = case_rows(snap, [e.case_id for e in entries])
+        rows = snap.rows_of([e.case_id for e in entries])
         codes = np.array([1 + ACTIONS.index(e.action) for e in entries], dtype=np.int8)
         ok = rows >= 0
         states[rows[ok]] = codes[ok]

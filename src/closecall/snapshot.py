@@ -120,18 +120,35 @@ class Snapshot:
         return self.arrays["outcome"]
 
     @cached_property
-    def _id_order(self) -> np.ndarray:
-        return np.argsort(self.case_ids, kind="stable")
+    def _id_index(self) -> tuple[np.ndarray, np.ndarray]:
+        """(sorted ids, rows in that order): one sort serves every id look-up."""
+        ids = np.asarray(self.case_ids)
+        order = np.argsort(ids, kind="stable")
+        return ids[order], order
+
+    def rows_of(self, case_ids: list[str] | np.ndarray) -> np.ndarray:
+        """Rows of many case ids at once (−1 for ids this snapshot does not hold)."""
+        sorted_ids, order = self._id_index
+        if len(case_ids) == 0 or len(sorted_ids) == 0:
+            return np.full(len(case_ids), -1, dtype=np.int64)
+        wanted = np.asarray(case_ids, dtype=sorted_ids.dtype)
+        at = np.minimum(np.searchsorted(sorted_ids, wanted), len(sorted_ids) - 1)
+        return np.where(sorted_ids[at] == wanted, order[at], -1)
+
+    def rows_with_prefix(self, prefix: str) -> np.ndarray:
+        """Rows whose id starts with ``prefix`` (binary search on the sorted ids)."""
+        sorted_ids, order = self._id_index
+        lo = int(np.searchsorted(sorted_ids, prefix, side="left"))
+        hi = int(np.searchsorted(sorted_ids, prefix + "\U0010ffff", side="left"))
+        return np.asarray(order[lo:hi])
 
     def case_index(self, case_id: str) -> int:
         """Row of a case id; UserError if the snapshot has no such case."""
-        order = self._id_order
-        ids = self.case_ids
-        pos = int(np.searchsorted(ids[order], str(case_id)))
-        if pos < len(order) and ids[order[pos]] == str(case_id):
-            return int(order[pos])
+        row = int(self.rows_of([str(case_id)])[0])
+        if row >= 0:
+            return row
         raise UserError(
-            f"case '{case_id}' is not among the {len(ids):,} cases of snapshot {self.id}",
+            f"case '{case_id}' is not among the {self.n_cases:,} cases of snapshot {self.id}",
             "check the id; 'closecall queue' lists the cases under review",
         )
 

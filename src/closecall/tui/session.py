@@ -98,8 +98,6 @@ class ReviewSession:
         self.measures_ready = False
         self._masks: dict[str, np.ndarray | None] = {}
         self._bands: tuple[np.ndarray, np.ndarray] | tuple[()] | None = None
-        self._sorted_ids: np.ndarray | None = None
-        self._id_order: np.ndarray | None = None
         self._position: np.ndarray | None = None
 
     # ------------------------------------------------------------------ measures
@@ -201,19 +199,9 @@ class ReviewSession:
 
     # ------------------------------------------------------------------ id search
 
-    def _ids(self) -> tuple[np.ndarray, np.ndarray]:
-        if self._sorted_ids is None or self._id_order is None:
-            ids = np.asarray(self.snap.case_ids)
-            order = np.argsort(ids, kind="stable")
-            self._id_order, self._sorted_ids = order, ids[order]
-        return self._sorted_ids, self._id_order
-
     def rows_with_prefix(self, prefix: str) -> np.ndarray:
         """Snapshot rows whose id starts with ``prefix`` (binary search on sorted ids)."""
-        sorted_ids, order = self._ids()
-        lo = int(np.searchsorted(sorted_ids, prefix, side="left"))
-        hi = int(np.searchsorted(sorted_ids, prefix + "\U0010ffff", side="left"))
-        return np.asarray(order[lo:hi])
+        return self.snap.rows_with_prefix(prefix)
 
     def find(self, prefix: str) -> tuple[int | None, int]:
         """(first list position whose id starts with prefix or None, matches in the study)."""
@@ -226,12 +214,7 @@ class ReviewSession:
 
     def rows_of(self, case_ids: list[str]) -> np.ndarray:
         """Snapshot rows of ids (−1 for ids the snapshot does not hold)."""
-        sorted_ids, order = self._ids()
-        wanted = np.asarray(case_ids, dtype=sorted_ids.dtype if case_ids else str)
-        at = np.searchsorted(sorted_ids, wanted)
-        at = np.minimum(at, len(sorted_ids) - 1)
-        found = sorted_ids[at] == wanted
-        return np.where(found, order[at], -1)
+        return self.snap.rows_of(case_ids)
 
     # ------------------------------------------------------------------ ledger and claims
 

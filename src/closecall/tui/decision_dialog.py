@@ -44,7 +44,13 @@ class DecisionDialog(ModalScreen[Entry | None]):
 
     BINDINGS: ClassVar[list[BindingType]] = [
         Binding("ctrl+r,ctrl+s", "record", "record", key_display="^r"),
-        Binding("tab", "app.focus_next", "next field", key_display="tab", show=True),
+        Binding(
+            "tab",
+            "app.focus_next",
+            "next field (a digit picks and moves on)",
+            key_display="tab",
+            show=True,
+        ),
         Binding("escape", "close", "close, keep draft", key_display="esc"),
         Binding("enter", "done", "back (once recorded)", show=False),
     ]

@@ -144,3 +144,21 @@ def test_empty_ledger_is_a_clear_error(cli, demo_config: Path) -> None:  # type:
     res = cli("ledger", "export", "-c", str(config_with_ledger(demo_config)))
     assert res.code == 2
     assert "no reviews yet" in res.err and "Traceback" not in res.err
+
+
+def test_spreadsheet_safe_export_defuses_formulas(tmp_path: Path, cli) -> None:  # type: ignore[no-untyped-def]
+    """Formula injection guard (OWASP "CSV Injection"; common practice): off by default so
+    the export is exact, on request text cells starting with = + - @ get an apostrophe."""
+    from closecall.demo import write_demo
+
+    config = write_demo(tmp_path, cases=600, seed=12)
+    study = open_study(config)
+    case = str(study.snapshot.case_ids[0])
+    note = '=HYPERLINK("http://example.invalid","x")'
+    record_review(study, case, "override-favourable", "other", note)
+    exact = _csv(cli("ledger", "export", "--config", str(config)).out)
+    assert exact.loc[0, "note"] == note
+    safe = _csv(cli("ledger", "export", "--config", str(config), "--spreadsheet-safe").out)
+    assert safe.loc[0, "note"] == "'" + note
+    assert safe.loc[0, "case_id"] == case  # ordinary text is untouched
+    assert safe.loc[0, "margin"] == pytest.approx(exact.loc[0, "margin"])  # numbers untouched

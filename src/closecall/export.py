@@ -307,6 +307,28 @@ def export_reviews(
     )
 
 
+FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
+
+
+def spreadsheet_safe(table: pd.DataFrame) -> pd.DataFrame:
+    """A copy whose text cells cannot run as spreadsheet formulas.
+
+    A text cell that starts with = + - @ (or a tab or carriage return) gets a leading
+    apostrophe, the usual guard against formula injection when a CSV is opened in a
+    spreadsheet (OWASP, "CSV Injection"; common practice). Numbers are left alone. The export
+    is then no longer byte-exact, which is why this is an option and not the default.
+    """
+    out = table.copy()
+    for col in out.columns:
+        series = out[col]
+        if series.dtype == object or pd.api.types.is_string_dtype(series):
+            text = series.astype("string")
+            risky = text.str.startswith(FORMULA_STARTS).fillna(False).to_numpy(dtype=bool)
+            if risky.any():
+                out[col] = series.astype(object).where(~risky, "'" + text.astype(object))
+    return out
+
+
 def table_bytes(table: pd.DataFrame, fmt: str) -> bytes:
     """The table encoded as CSV, Parquet or JSON Lines (UTF-8; missing values empty/null)."""
     if fmt == "csv":

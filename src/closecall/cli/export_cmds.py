@@ -38,6 +38,12 @@ def export(
         False, "--pseudonymise-reviewers", help="Pseudonymise reviewer names too."
     ),
     no_notes: bool = typer.Option(False, "--no-notes", help="Leave the free-text notes out."),
+    spreadsheet: bool = typer.Option(
+        False,
+        "--spreadsheet-safe",
+        help="Prefix an apostrophe to text cells that start with = + - @, so a spreadsheet "
+        "opening the file cannot run them as formulas (the text is then not byte-exact).",
+    ),
     out: Path | None = typer.Option(
         None, "--out", "-o", help="Write to this file (readable by you only); default stdout."
     ),
@@ -54,8 +60,14 @@ def export(
     Example:
       closecall ledger export --format parquet --out reviews.parquet
       closecall ledger export --pseudonymise ~/.closecall-key --no-notes --out reviews.csv
+      closecall ledger export --spreadsheet-safe --out reviews-for-excel.csv
     """
-    from closecall.export import export_reviews, table_bytes, write_export  # heavy: on use
+    from closecall.export import (  # heavy: on use
+        export_reviews,
+        spreadsheet_safe,
+        table_bytes,
+        write_export,
+    )
 
     cfg = load_config(config)
     entries = ledger_entries(cfg)  # checks read access before anything else
@@ -78,14 +90,15 @@ def export(
         )
     for warning in result.warnings:
         err_console.print(f"note: {safe_text(warning)}", markup=False)
+    table = spreadsheet_safe(result.table) if spreadsheet else result.table
     what = "entries" if all_entries else "effective reviews"
     if out is None:
-        sys.stdout.buffer.write(table_bytes(result.table, fmt.value))
+        sys.stdout.buffer.write(table_bytes(table, fmt.value))
         sys.stdout.flush()
         return
-    write_export(result.table, fmt.value, out)
+    write_export(table, fmt.value, out)
     err_console.print(
-        f"wrote {len(result.table)} {what} ({result.entries} ledger entries read) "
+        f"wrote {len(table)} {what} ({result.entries} ledger entries read) "
         f"to {safe_text(str(out))}",
         markup=False,
     )

@@ -35,3 +35,26 @@ def test_queue_states_and_unreviewed_filter(tmp_path, cli) -> None:  # type: ign
     ids = {r["case_id"] for r in rest["rows"]}
     assert a not in ids and b not in ids
     assert rest["counts"]["listed"] == first["counts"]["listed"] - 2
+
+
+def test_queue_chart_counts_match_numpy_histogram(demo_config, cli) -> None:  # type: ignore[no-untyped-def]
+    """The margin distribution (review screen chart, `queue --chart`) against numpy.histogram."""
+    import numpy as np
+
+    from closecall.study import open_study
+
+    snap = open_study(demo_config).snapshot
+    res = cli("queue", "--config", str(demo_config), "--json", "--chart", "--limit", "1")
+    dist = json.loads(res.out)["distribution"]
+    margin = np.asarray(snap.margins(snap.reference))
+    labels = np.asarray(snap.group_labels)
+    edges = np.asarray(dist["edges"])
+    assert dist["span"] == 3 * dist["band"]
+    for g in dist["groups"]:
+        mine = margin[labels == g["group"]]
+        ref, _ = np.histogram(mine, bins=edges)
+        np.testing.assert_array_equal(g["counts"], ref)
+        assert g["within_band"] == int((np.abs(mine) <= dist["band"]).sum())
+        assert g["cases"] == len(mine)
+    table = cli("queue", "--config", str(demo_config), "--chart", "--limit", "1")
+    assert table.code == 0 and "│" in table.out and "within ±" in table.out

@@ -24,6 +24,7 @@ from closecall.config import CONFIG_NAME
 from closecall.config_init import infer_config
 from closecall.demo import write_demo
 from closecall.errors import UserError
+from closecall.margin_distribution import MarginDistribution, margin_distribution
 from closecall.queue import SORT_KEYS, build_queue, queue_rows
 from closecall.review_states import STATE_NAMES, study_review_states
 from closecall.study import open_study
@@ -171,6 +172,12 @@ def queue(
     unreviewed: bool = typer.Option(
         False, "--unreviewed", help="Only cases with no review in the ledger yet."
     ),
+    chart: bool = typer.Option(
+        False,
+        "--chart",
+        help="Also show where each group's margins sit near the threshold (with --json: the "
+        "bin counts).",
+    ),
     epsilon: float | None = typer.Option(
         None,
         "--epsilon",
@@ -236,7 +243,12 @@ def queue(
             "unreviewed": unreviewed,
         },
     }
+    dist = margin_distribution(snap, q.band, CHART_BINS) if chart else None
+    if dist is not None:
+        meta["distribution"] = dist.to_json()
     if fmt is Format.table:
+        if dist is not None:
+            _print_chart(dist)
         _print_queue_table(snap, q, rows)
         return
     if fmt is Format.csv:
@@ -258,6 +270,32 @@ def queue(
         emit_rows(flat, fmt)
         return
     emit_rows(rows, fmt, meta=meta)
+
+
+CHART_BINS = 48
+
+
+def _print_chart(dist: MarginDistribution) -> None:
+    """One line of block characters per group (each scaled to its tallest bin), then an axis."""
+    from closecall.tui.marks import sparkline
+
+    width = max(len(g) for g in dist.levels) + 1
+    bins = dist.counts.shape[1]
+    for g, level in enumerate(dist.levels):
+        line = sparkline(dist.counts[g].tolist(), float(dist.counts[g].max()))
+        within, total = int(dist.within_band[g]), int(dist.totals[g])
+        share = f"{within / total:.0%}" if total else "—"
+        console.print(
+            Text(
+                f"{level:<{width}}{line[: bins // 2]}│{line[bins // 2 :]} "
+                f"{within:,} within ±{dist.band:g} ({share})"
+            )
+        )
+    left, right = f"−{dist.span:g}", f"+{dist.span:g}"
+    gap = bins // 2 - len(left)
+    axis = left + " " * gap + "0" + " " * (bins - bins // 2 - len(right)) + right
+    console.print(Text(" " * width + axis + "  margin, log-odds"))
+    console.print(Text("each group's line is scaled to its own tallest bin", style="dim"))
 
 
 SHORT_MODEL = {

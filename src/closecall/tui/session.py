@@ -14,6 +14,7 @@ from datetime import UTC, datetime
 import numpy as np
 
 from closecall.ledger import Claim, Entry, current_login
+from closecall.margin_distribution import MarginDistribution, margin_distribution
 from closecall.queue import Queue, build_queue
 from closecall.review_states import review_states
 from closecall.reviews import active_claims, ledger_entries
@@ -54,16 +55,7 @@ class ListSettings:
         return " · ".join(parts)
 
 
-@dataclass(frozen=True)
-class GroupChart:
-    """Counts of reference margins per group in equal bins over [−span, +span]."""
-
-    levels: list[str]
-    counts: np.ndarray  # (groups, bins)
-    span: float
-    band: float
-    within_band: np.ndarray  # (groups,) cases with |margin| <= band
-    totals: np.ndarray  # (groups,) all cases of the group
+GroupChart = MarginDistribution  # the chart's counts come from the engine
 
 
 class ReviewSession:
@@ -244,18 +236,7 @@ class ReviewSession:
 
     def group_chart(self, bins: int) -> GroupChart:
         """Reference margins per group near the threshold, in ``bins`` equal bins."""
-        span = 3 * self.band if self.band > 0 else 1.5
-        margin = np.asarray(self.snap.margins(self.snap.reference))
-        codes = np.asarray(self.snap.group_codes)
-        levels = self.snap.group_levels
-        edges = np.linspace(-span, span, bins + 1)
-        inside = np.abs(margin) <= span
-        idx = np.clip(np.searchsorted(edges, margin[inside], side="right") - 1, 0, bins - 1)
-        flat = codes[inside].astype(np.int64) * bins + idx
-        counts = np.bincount(flat, minlength=len(levels) * bins).reshape(len(levels), bins)
-        within = np.bincount(codes[np.abs(margin) <= self.band], minlength=len(levels))
-        totals = np.bincount(codes, minlength=len(levels))
-        return GroupChart(levels, counts, span, self.band, within, totals)
+        return margin_distribution(self.snap, self.band, bins)
 
 
 def fmt_share(part: int, whole: int) -> str:

@@ -17,7 +17,6 @@ from __future__ import annotations
 
 import csv
 import io
-import os
 from dataclasses import dataclass, field
 from functools import cache
 from pathlib import Path
@@ -27,6 +26,7 @@ import pandas as pd
 
 from closecall.config import DataConfig
 from closecall.errors import UserError
+from closecall.files import require_file
 
 MISSING_LEVEL = "(missing)"
 GROUP_SEPARATOR = "/"
@@ -46,16 +46,6 @@ def _rows_text(path: Path, positions: np.ndarray, limit: int = 5) -> str:
         text = "row " + ", ".join(str(p) for p in pos)
     more = len(positions) - limit
     return text + (f" (and {more} more)" if more > 0 else "")
-
-
-def require_file(path: Path) -> None:
-    """Refuse a data path that is missing, a folder, or unreadable."""
-    if not path.exists():
-        raise UserError(f"{path}: file not found", "check the path in the study config")
-    if path.is_dir():
-        raise UserError(f"{path}: is a folder, not a data file", "name a .csv or .parquet file")
-    if not os.access(path, os.R_OK):
-        raise UserError(f"{path}: permission denied", "make the file readable for your login")
 
 
 def read_table(path: Path, *, text_columns: tuple[str, ...] = ()) -> pd.DataFrame:

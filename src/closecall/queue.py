@@ -24,8 +24,6 @@ from typing import Any
 import numpy as np
 from scipy.special import logit
 
-from closecall.analysis.dependence import dependence_share, rests_on
-from closecall.analysis.multiplicity import ambiguity_measure, ambiguous_cases
 from closecall.errors import UserError
 from closecall.snapshot import Snapshot, decision_word
 
@@ -35,9 +33,24 @@ RESTS_ON = ("group", "proxies")
 # Extra per-case measures registered by analysis modules:
 # name -> function(snapshot, options) -> (n,) float array, larger = more urgent.
 # options may hold "config" (the StudyConfig), "epsilon" (relative ε) and "model".
+# The analysis modules load on first use, so listing cases stays quick to start.
+
+
+def _ambiguity(snap: Snapshot, options: dict[str, Any]) -> np.ndarray:
+    from closecall.analysis.multiplicity import ambiguity_measure
+
+    return ambiguity_measure(snap, options)
+
+
+def _dependence(snap: Snapshot, options: dict[str, Any]) -> np.ndarray:
+    from closecall.analysis.dependence import dependence_share
+
+    return dependence_share(snap, options)
+
+
 MEASURES: dict[str, Callable[[Snapshot, dict[str, Any]], np.ndarray]] = {
-    "ambiguity": ambiguity_measure,
-    "dependence": dependence_share,
+    "ambiguity": _ambiguity,
+    "dependence": _dependence,
 }
 
 
@@ -154,9 +167,13 @@ def build_queue(
         keep &= ~exclude_rows
     measures: dict[str, np.ndarray] = {}
     if ambiguous_only:
+        from closecall.analysis.multiplicity import ambiguous_cases
+
         keep &= ambiguous_cases(snap, options)
         measures["ambiguity"] = MEASURES["ambiguity"](snap, options)
     if rests_on_part is not None:
+        from closecall.analysis.dependence import rests_on
+
         keep &= rests_on(snap, rests_on_part, options.get("model", "pooled"))
         measures["dependence"] = MEASURES["dependence"](snap, options)
     rows = np.flatnonzero(keep)

@@ -19,18 +19,20 @@ import tempfile
 from dataclasses import dataclass, field
 from functools import cached_property
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 from scipy.special import logit
 
 from closecall import __version__
-from closecall.analysis.proxies import ProxyReport
 from closecall.config import CostLens, StudyConfig
-from closecall.data import require_file
 from closecall.encode import Encoder
 from closecall.errors import UserError
-from closecall.suite import SuiteResult
+from closecall.files import require_file
+
+if TYPE_CHECKING:  # heavy modules, needed only when fitting
+    from closecall.analysis.proxies import ProxyReport
+    from closecall.suite import SuiteResult
 
 SNAPSHOT_FORMAT = 2
 
@@ -251,6 +253,8 @@ class Snapshot:
 
     @cached_property
     def proxies(self) -> ProxyReport:
+        from closecall.analysis.proxies import ProxyReport
+
         return ProxyReport.from_json(self.meta["proxies"])
 
     @property

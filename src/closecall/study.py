@@ -6,7 +6,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from closecall.config import StudyConfig, load_config
-from closecall.data import load_study_data
+from closecall.progress import Progress, quiet
 from closecall.snapshot import (
     Snapshot,
     build_snapshot,
@@ -15,7 +15,6 @@ from closecall.snapshot import (
     snapshot_dir,
     snapshot_id,
 )
-from closecall.suite import Progress, _quiet, fit_suite
 
 
 @dataclass
@@ -27,13 +26,16 @@ class Study:
     fitted_now: bool = False
 
 
-def fit_study(config: StudyConfig, progress: Progress = _quiet, *, refit: bool = False) -> Study:
+def fit_study(config: StudyConfig, progress: Progress = quiet, *, refit: bool = False) -> Study:
     """Load the cached snapshot for this data + config, or fit the suite and cache it."""
     progress("hashing data", 0, 1)
     sid = snapshot_id(config)
     folder = snapshot_dir(config, sid)
     if folder.exists() and not refit:
         return Study(config, load_snapshot(folder))
+    from closecall.data import load_study_data  # fitting needs pandas and the solvers
+    from closecall.suite import fit_suite
+
     progress("reading data", 0, 1)
     data = load_study_data(config.data)
     suite = fit_suite(config, data, progress)
@@ -45,7 +47,7 @@ def fit_study(config: StudyConfig, progress: Progress = _quiet, *, refit: bool =
 
 def open_study(
     config_path: str | Path = "closecall.toml",
-    progress: Progress = _quiet,
+    progress: Progress = quiet,
     *,
     refit: bool = False,
 ) -> Study:

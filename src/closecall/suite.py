@@ -42,13 +42,9 @@ from closecall.logit import (
     quadratic_form,
     restricted_start,
 )
+from closecall.progress import Progress, quiet
 
-Progress = Callable[[str, int, int], None]
 FITTED_MODELS = ("pooled", "unaware", "proxy_free", "split")
-
-
-def _quiet(label: str, done: int, total: int) -> None:
-    return None
 
 
 @dataclass
@@ -223,7 +219,7 @@ def _warm_from(fit: LogitFit, mask: np.ndarray) -> LogitFit:
     return LogitFit(fit.intercept, np.where(mask, fit.coef, 0.0), fit.objective, fit.n)
 
 
-def fit_suite(config: StudyConfig, data: StudyData, progress: Progress = _quiet) -> SuiteResult:
+def fit_suite(config: StudyConfig, data: StudyData, progress: Progress = quiet) -> SuiteResult:
     """Fit every model of the suite and score the cases under review.
 
     The heavy passes stream the rows over a few threads of their own (see logit.py), so BLAS

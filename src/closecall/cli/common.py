@@ -15,8 +15,8 @@ from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 from closecall.cli.output import Format, err_console
 
 if TYPE_CHECKING:
+    from closecall.progress import Progress as ProgressFn
     from closecall.study import Study
-    from closecall.suite import Progress as ProgressFn
 
 ConfigOption = typer.Option(
     Path("closecall.toml"), "--config", "-c", help="The study config file (or its folder)."

@@ -21,8 +21,6 @@ from closecall.cli.common import (
 )
 from closecall.cli.output import Format, console, emit_json, emit_rows, err_console, format_cell
 from closecall.config import CONFIG_NAME
-from closecall.config_init import infer_config
-from closecall.demo import write_demo
 from closecall.errors import UserError
 from closecall.margin_distribution import MarginDistribution, margin_distribution
 from closecall.queue import SORT_KEYS, build_queue, queue_rows
@@ -43,6 +41,8 @@ def init(
     """
     if out.exists() and not force:
         raise UserError(f"{out}: already exists", "pass --force to overwrite, or --out elsewhere")
+    from closecall.config_init import infer_config
+
     inf = infer_config(data, pending, relative_to=out.resolve().parent)
     out.write_text(inf.text)
     if as_json:
@@ -69,6 +69,8 @@ def demo(
 
     Example: closecall demo --out demo-study --cases 5000 && cd demo-study && closecall queue
     """
+    from closecall.demo import write_demo
+
     config = write_demo(out, cases=cases, seed=seed)
     sid = None
     if fit:

@@ -8,5 +8,3 @@ CAUTIONS = (
     "before you load one.",
     "Its statistics are evidence for review, not legal findings.",
 )
-
-CAUTIONS_TEXT = "\n".join(f"- {line}" for line in CAUTIONS)

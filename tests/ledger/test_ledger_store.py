@@ -197,3 +197,20 @@ def test_claims_expire_and_are_listed_per_case(tmp_path: Path) -> None:
         assert [c.reviewer for c in ledger.claims()["A-1"]] == ["bob"]
         ledger.append(content("recorded while bob holds a claim", case_id="A-1"))
         assert ledger.count() == 1
+
+
+def test_latest_actions_is_each_cases_last_entry(tmp_path: Path) -> None:
+    """The one-query summary the review screen reads equals a walk over every entry."""
+    import random
+
+    rng = random.Random(3)
+    actions = ("uphold", "defer", "override-favourable", "override-unfavourable")
+    with open_ledger(tmp_path / "l.sqlite") as ledger:
+        for _ in range(300):
+            ledger.append(content(case_id=f"C-{rng.randrange(40)}", action=rng.choice(actions)))
+        walked: dict[str, str] = {}
+        for e in ledger.entries():  # sequence order: the last one of a case wins
+            walked[e.case_id] = e.action
+        latest = ledger.latest_actions()
+    assert dict(latest) == walked
+    assert len(latest) == len(walked)

@@ -271,6 +271,19 @@ class Ledger:
         rows = self._conn.execute(sql, params).fetchall()
         return [_row_to_entry(r) for r in reversed(rows)]
 
+    def latest_actions(self) -> list[tuple[str, str]]:
+        """(case_id, action) of each case's latest entry, in one indexed query.
+
+        The review screen's states need only this; reading every entry as an ``Entry`` would
+        grow with the ledger.
+        """
+        rows = self._conn.execute(
+            "SELECT e.case_id, e.action FROM entries AS e JOIN "
+            "(SELECT case_id, MAX(seq) AS last FROM entries GROUP BY case_id) AS m "
+            "ON e.seq = m.last ORDER BY e.seq"
+        ).fetchall()
+        return [(str(r[0]), str(r[1])) for r in rows]
+
     def entry(self, seq: int) -> Entry | None:
         row = self._conn.execute(_SELECT + " WHERE seq = ?", (seq,)).fetchone()
         return _row_to_entry(row) if row else None

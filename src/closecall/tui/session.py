@@ -13,11 +13,11 @@ from datetime import UTC, datetime
 
 import numpy as np
 
-from closecall.ledger import Claim, Entry, current_login
+from closecall.ledger import Claim, current_login
 from closecall.margin_distribution import MarginDistribution, margin_distribution
 from closecall.queue import Queue, build_queue
 from closecall.review_states import review_states
-from closecall.reviews import active_claims, ledger_entries
+from closecall.reviews import active_claims, latest_actions
 from closecall.study import Study
 from closecall.tui import analysis_bridge
 from closecall.tui.marks import OPEN, STATE_OF_ACTION
@@ -84,7 +84,6 @@ class ReviewSession:
         self.queue: Queue | None = None
         self.states = np.zeros(self.snap.n_cases, dtype=np.int8)
         self.claims: dict[str, list[Claim]] = {}
-        self.entries_seen = 0
         self._measures: dict[str, np.ndarray | None] = {}
         self._half_widths: dict[str, np.ndarray | None] = {}
         self.measures_ready = False
@@ -210,13 +209,11 @@ class ReviewSession:
 
     # ------------------------------------------------------------------ ledger and claims
 
-    def refresh_reviews(self) -> list[Entry]:
-        """Read the ledger and claims; update each case's review state (call from a worker)."""
-        entries = ledger_entries(self.config)
-        self.states = review_states(self.snap, entries)  # codes match marks.STATE_OF_ACTION
-        self.entries_seen = len(entries)
+    def refresh_reviews(self) -> None:
+        """Read each case's latest action and the claims (call from a worker)."""
+        latest = latest_actions(self.config)  # one query, however long the ledger
+        self.states = review_states(self.snap, latest)  # codes match marks.STATE_OF_ACTION
         self.claims = active_claims(self.study)
-        return entries
 
     def claimed_by_others(self, case_id: str) -> list[str]:
         return [c.reviewer for c in self.claims.get(case_id, []) if c.reviewer != self.login]

@@ -247,17 +247,23 @@ def ledger_entries(
     case_id: str | None = None,
     reviewer: str | None = None,
     limit: int | None = None,
+    before: int | None = None,
 ) -> list[Entry]:
     """Entries in sequence order, filtered; with ``limit``, the most recent ``limit``.
 
-    An absent ledger reads as empty. Needs read permission (reviewers or analysts).
+    With ``before``, only entries numbered below it: ``before`` = the smallest ``seq`` of
+    one page and the same ``limit`` give the page before it (the review screen pages back
+    this way, reading only what it shows). An absent ledger reads as empty. Needs read
+    permission (reviewers or analysts).
     """
     require_read(config.review, config.path)
     if limit is not None and limit < 1:
         raise UserError(f"--limit {limit}: must be at least 1")
+    if before is not None and before < 1:
+        raise UserError(f"entries before {before}: sequence numbers start at 1")
     try:
         with open_ledger(config.review.ledger, readonly=True) as ledger:
-            return ledger.entries(case_id=case_id, reviewer=reviewer, limit=limit)
+            return ledger.entries(case_id=case_id, reviewer=reviewer, limit=limit, before=before)
     except NoLedger:
         return []
 
@@ -346,6 +352,17 @@ def load_draft(study: Study, case_id: str) -> Draft | None:
             return ledger.load_draft(login, case_id)
     except NoLedger:
         return None
+
+
+def my_drafts(study: Study) -> list[Draft]:
+    """This login's saved drafts on every case, most recently updated first."""
+    config = study.config
+    login = require_record(config.review, config.path)
+    try:
+        with open_ledger(config.review.ledger, readonly=True) as ledger:
+            return ledger.drafts_of(login)
+    except NoLedger:
+        return []
 
 
 def drop_draft(study: Study, case_id: str) -> None:

@@ -156,3 +156,19 @@ def test_verify_ledger_checks_the_anchor_format(tmp_path: Path) -> None:
     entry = reviews.record_review(study, "A-1", "uphold", None, "")
     result = reviews.verify_ledger(study.config, entry.hash)
     assert result.ok and result.anchor_seq == 1 and result.head_hash == entry.hash
+
+
+def test_my_drafts_and_pages_of_entries(tmp_path: Path) -> None:
+    study = _study(tmp_path)
+    assert reviews.my_drafts(study) == []  # no ledger yet
+    reviews.save_draft(study, "A-2", "letter seen")
+    reviews.save_draft(study, "B-1", "ask for payslips")
+    assert sorted(d.case_id for d in reviews.my_drafts(study)) == ["A-2", "B-1"]
+    assert {d.reviewer for d in reviews.my_drafts(study)} == {current_login()}
+    for case_id in ("A-1", "A-2", "A-3"):
+        reviews.record_review(study, case_id, "defer", None, "")
+    assert [d.case_id for d in reviews.my_drafts(study)] == ["B-1"]  # A-2's went on record
+    older = reviews.ledger_entries(study.config, limit=2, before=3)
+    assert [(e.seq, e.case_id) for e in older] == [(1, "A-1"), (2, "A-2")]
+    with pytest.raises(UserError, match="entries before 0"):
+        reviews.ledger_entries(study.config, before=0)

@@ -214,3 +214,47 @@ def test_latest_actions_is_each_cases_last_entry(tmp_path: Path) -> None:
         latest = ledger.latest_actions()
     assert dict(latest) == walked
     assert len(latest) == len(walked)
+
+
+def test_pages_before_a_seq_walk_back_through_the_whole_ledger(tmp_path: Path) -> None:
+    """Page after page (``before`` = the smallest seq shown) gives every entry exactly once."""
+    import dataclasses
+    import random
+
+    rng = random.Random(5)
+    with open_ledger(tmp_path / "l.sqlite") as ledger:
+        for i in range(230):
+            base = content(f"n{i}", case_id=f"C-{rng.randrange(9)}")
+            ledger.append(dataclasses.replace(base, reviewer=rng.choice(["ann", "bo"])))
+        for case_id, reviewer in ((None, None), ("C-3", None), (None, "bo"), ("C-4", "ann")):
+            everything = ledger.entries(case_id=case_id, reviewer=reviewer)
+            paged: list[int] = []
+            before: int | None = None
+            while True:
+                page = ledger.entries(case_id=case_id, reviewer=reviewer, limit=50, before=before)
+                if not page:
+                    break
+                assert len(page) <= 50
+                assert [e.seq for e in page] == sorted(e.seq for e in page)
+                assert before is None or page[-1].seq < before
+                paged = [e.seq for e in page] + paged
+                before = page[0].seq
+            assert paged == [e.seq for e in everything]
+            assert everything, "each filter should match something in 230 entries"
+        assert ledger.entries(before=1) == []
+        assert [e.seq for e in ledger.entries(limit=3, before=101)] == [98, 99, 100]
+
+
+def test_drafts_of_lists_one_reviewers_drafts_newest_first(tmp_path: Path) -> None:
+    with open_ledger(tmp_path / "l.sqlite") as ledger:
+        assert ledger.drafts_of("tester") == []
+        ledger.save_draft("tester", "A-1", "first", None, None)
+        ledger.save_draft("other", "A-2", "not mine", None, None)
+        ledger.save_draft("tester", "A-3", "second", "defer", None)
+        ledger.save_draft("tester", "A-1", "first, changed", None, None)  # now the newest
+        mine = ledger.drafts_of("tester")
+        assert [(d.case_id, d.note) for d in mine] == [("A-1", "first, changed"), ("A-3", "second")]
+        assert all(d.reviewer == "tester" for d in mine)
+        ledger.append(content("recorded", case_id="A-3"))  # recording drops that draft
+        assert [d.case_id for d in ledger.drafts_of("tester")] == ["A-1"]
+        assert [d.case_id for d in ledger.drafts_of("other")] == ["A-2"]

@@ -255,9 +255,18 @@ class Ledger:
         case_id: str | None = None,
         reviewer: str | None = None,
         limit: int | None = None,
+        before: int | None = None,
     ) -> list[Entry]:
-        """Entries in sequence order; with ``limit``, the most recent ``limit`` of them."""
+        """Entries in sequence order; with ``limit``, the most recent ``limit`` of them.
+
+        With ``before``, only entries whose sequence number is below it (one page further
+        back: pass the smallest ``seq`` of the page shown). An indexed range read, so a page
+        costs the same at any depth of the ledger.
+        """
         where, params = [], []
+        if before is not None:
+            where.append("seq < ?")
+            params.append(str(int(before)))
         if case_id is not None:
             where.append("case_id = ?")
             params.append(case_id)
@@ -337,6 +346,17 @@ class Ledger:
             (reviewer, case_id),
         ).fetchone()
         return Draft(*row) if row else None
+
+    def drafts_of(self, reviewer: str) -> list[Draft]:
+        """Every draft ``reviewer`` has saved, most recently updated first."""
+        if not _has_table(self._conn, "drafts"):  # an older file opened read-only
+            return []
+        rows = self._conn.execute(
+            "SELECT reviewer, case_id, note, action, reason, updated FROM drafts "
+            "WHERE reviewer = ? ORDER BY updated DESC, case_id",
+            (reviewer,),
+        ).fetchall()
+        return [Draft(*row) for row in rows]
 
     def drop_draft(self, reviewer: str, case_id: str) -> None:
         with self._write() as conn:

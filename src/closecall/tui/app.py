@@ -86,10 +86,23 @@ class ReviewApp(App[None]):
             from closecall.tui.confirm_quit import ConfirmQuit
 
             if not any(isinstance(s, ConfirmQuit) for s in self.screen_stack):
-                self.push_screen(ConfirmQuit(dialog.case_id), self._quit_answer)
+                others = self._other_drafts(dialog.case_id)
+                self.push_screen(ConfirmQuit(dialog.case_id, others), self._quit_answer)
             return
         self._save_drafts()
         self.exit()
+
+    def _other_drafts(self, case_id: str) -> list[str]:
+        """Case ids of this login's saved drafts other than ``case_id`` (newest first)."""
+        from closecall.reviews import my_drafts
+
+        if self.session is None:
+            return []
+        try:
+            drafts = my_drafts(self.session.study)  # one small indexed read
+        except UserError:
+            return []
+        return [d.case_id for d in drafts if d.case_id != case_id]
 
     def _quit_answer(self, quit_: bool | None) -> None:
         if quit_:

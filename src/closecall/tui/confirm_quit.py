@@ -1,4 +1,4 @@
-"""Asked before quitting while a typed note is not recorded."""
+"""Asked before quitting while a typed note is not recorded (and which other drafts stay)."""
 
 from __future__ import annotations
 
@@ -11,7 +11,10 @@ from textual.containers import Vertical
 from textual.screen import ModalScreen
 from textual.widgets import Static
 
+from closecall.cli.output import safe_text
 from closecall.tui.key_bar import KeyBar
+
+LISTED = 3  # other drafts named by case id; the rest are counted
 
 
 class ConfirmQuit(ModalScreen[bool]):
@@ -22,9 +25,10 @@ class ConfirmQuit(ModalScreen[bool]):
         Binding("n,escape", "answer(False)", "stay"),
     ]
 
-    def __init__(self, case_id: str) -> None:
+    def __init__(self, case_id: str, other_drafts: list[str] | None = None) -> None:
         super().__init__()
         self.case_id = case_id
+        self.other_drafts = other_drafts or []
 
     def compose(self) -> ComposeResult:
         with Vertical(id="confirm"):
@@ -34,8 +38,26 @@ class ConfirmQuit(ModalScreen[bool]):
                 f"The note on {self.case_id} is not recorded in the ledger. It is kept as a "
                 "draft and comes back when you open the case again."
             )
+            others = other_drafts_line(self.other_drafts)
+            if others:
+                text.append("\n" + others)
             yield Static(text, id="confirm-text")
             yield KeyBar(self.BINDINGS, id="confirm-keys")
 
     def action_answer(self, quit_: bool) -> None:
         self.dismiss(quit_)
+
+
+def other_drafts_line(case_ids: list[str]) -> str:
+    """One sentence: how many saved drafts on other cases are kept, naming the first few."""
+    if not case_ids:
+        return ""
+    n = len(case_ids)
+    named = ", ".join(safe_text(c) for c in case_ids[:LISTED])
+    rest = f" and {n - LISTED} more" if n > LISTED else ""
+    if n == 1:
+        return f"Your saved draft on another case ({named}) is kept as it is: nothing is lost."
+    return (
+        f"Your {n} saved drafts on other cases ({named}{rest}) are kept as they are: "
+        "nothing is lost."
+    )

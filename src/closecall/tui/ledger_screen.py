@@ -1,4 +1,8 @@
-"""The ledger: recent entries (filter by reviewer or case), one entry in full, the chain's state."""
+"""The ledger, a page at a time (filter by reviewer or case), one entry in full, the chain's state.
+
+Only the page shown is read: older pages come from an indexed range read (entries numbered below
+the page's oldest), so paging costs the same at entry 100,000 as at entry 1,000.
+"""
 
 from __future__ import annotations
 
@@ -21,18 +25,21 @@ from closecall.tui.key_bar import KeyBar
 from closecall.tui.marks import ACTION_SHORT, ACTION_WORD, signed
 from closecall.tui.session import ReviewSession
 
-RECENT = 500  # entries listed (the most recent)
+PAGE = 500  # entries listed at a time (the newest page first)
 FILTER_PAUSE_SECONDS = 0.3
 
 
 class LedgerScreen(Screen[None]):
-    """Recent ledger entries, newest first."""
+    """Ledger entries a page at a time, newest first; ``o``/``n`` page back and forth."""
 
     BINDINGS: ClassVar[list[BindingType]] = [
         Binding("escape", "back", "back", key_display="esc"),
         Binding("r", "filter('reviewer')", "by reviewer"),
         Binding("c", "filter('case')", "by case"),
-        Binding("v", "verify", "verify chain"),
+        Binding("o", "page('older')", "older"),
+        Binding("n", "page('newer')", "newer"),
+        Binding("t", "page('newest')", "newest"),
+        Binding("v", "verify", "verify"),
         Binding("question_mark,f1", "app.help", "help", key_display="?"),
     ]
 
@@ -40,7 +47,11 @@ class LedgerScreen(Screen[None]):
         super().__init__()
         self.session = session
         self.initial_case = case_id
-        self.entries: list[Entry] = []
+        self.entries: list[Entry] = []  # the page shown, newest first
+        self.has_older = False
+        self._pages: list[int | None] = [None]  # "before" of each page from the newest down
+        self._wanted: list[int | None] = [None]
+        self._generation = 0  # only the latest request's page is shown
         self._timer: Timer | None = None
 
     def compose(self) -> ComposeResult:
@@ -54,6 +65,7 @@ class LedgerScreen(Screen[None]):
             yield Input(
                 value=self.initial_case or "", placeholder="any", id="by-case", compact=True
             )
+            yield Static("", id="page", markup=False)
         table: DataTable[Text] = DataTable(id="entries", cursor_type="row", zebra_stripes=False)
         yield table
         yield Static("", id="entry-detail", markup=False)
@@ -63,7 +75,7 @@ class LedgerScreen(Screen[None]):
         table = self.query_one("#entries", DataTable)
         table.add_columns("seq", "UTC", "reviewer", "case", "action", "reason", "note")
         table.focus()
-        self._load()
+        self._request([None])
         self.action_verify()
 
     # ------------------------------------------------------------------ loading
@@ -73,20 +85,32 @@ class LedgerScreen(Screen[None]):
         case = self.query_one("#by-case", Input).value.strip() or None
         return reviewer, case
 
-    @work(thread=True, exclusive=True, group="ledger-entries")
-    def _load(self) -> None:
+    def _request(self, pages: list[int | None]) -> None:
+        """Read the page ``pages[-1]`` (entries before that seq; None: the newest) in a worker."""
+        self._generation += 1
+        self._wanted = pages
+        self.query_one("#page", Static).update("  reading…")
+        self._load(self._generation, pages[-1])
+
+    @work(thread=True, group="ledger-entries")
+    def _load(self, generation: int, before: int | None) -> None:
         reviewer, case = self.app.call_from_thread(self._filters)
         try:
             entries = ledger_entries(
-                self.session.config, case_id=case, reviewer=reviewer, limit=RECENT
+                self.session.config, case_id=case, reviewer=reviewer, limit=PAGE + 1, before=before
             )
         except UserError as exc:
             self.app.call_from_thread(self._show_detail, f"✗ {exc.message}")
             return
-        self.app.call_from_thread(self._fill, entries)
+        self.app.call_from_thread(self._fill, generation, entries)
 
-    def _fill(self, entries: list[Entry]) -> None:
-        self.entries = list(reversed(entries))  # newest first
+    def _fill(self, generation: int, entries: list[Entry]) -> None:
+        if generation != self._generation:  # overtaken by a newer filter or page request
+            return
+        self._pages = self._wanted
+        self.has_older = len(entries) > PAGE  # one extra entry read only to know this
+        self.entries = list(reversed(entries[-PAGE:]))  # newest first
+        self.query_one("#page", Static).update(self._page_label())
         table = self.query_one("#entries", DataTable)
         table.clear()
         for e in self.entries:
@@ -109,7 +133,7 @@ class LedgerScreen(Screen[None]):
     def _filter_changed(self) -> None:
         if self._timer is not None:
             self._timer.stop()
-        self._timer = self.set_timer(FILTER_PAUSE_SECONDS, self._load)
+        self._timer = self.set_timer(FILTER_PAUSE_SECONDS, lambda: self._request([None]))
 
     @on(Input.Submitted)
     def _filter_done(self) -> None:
@@ -163,6 +187,32 @@ class LedgerScreen(Screen[None]):
         self.query_one("#chain", Static).update(text)
 
     # ------------------------------------------------------------------ keys
+
+    def action_page(self, which: str) -> None:
+        """Show the older or newer page, or the newest one (any filters stay)."""
+        if which == "older":
+            if not self.entries or not self.has_older:
+                self.app.bell()  # the oldest page is shown; its label says so
+                return
+            self._request([*self._pages, self.entries[-1].seq])
+        elif which == "newer":
+            if len(self._pages) == 1:
+                self.app.bell()  # the newest page is shown
+                return
+            self._request(self._pages[:-1])
+        else:
+            self._request([None])
+        self.query_one("#entries", DataTable).focus()
+
+    def _page_label(self) -> str:
+        """Where the page sits: its number back from the newest, its entries, the oldest?"""
+        page = len(self._pages)
+        where = "newest" if page == 1 else f"{page - 1} back"
+        if not self.entries:
+            return f"  page {page} ({where})"
+        span = f"{self.entries[-1].seq:,}–{self.entries[0].seq:,}"
+        end = "" if self.has_older else " · oldest"
+        return f"  page {page} ({where}) · {span}{end}"
 
     def action_filter(self, which: str) -> None:
         self.query_one(f"#by-{which}", Input).focus()

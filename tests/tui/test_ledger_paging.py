@@ -78,6 +78,8 @@ async def test_ledger_pages_back_to_the_first_entry_and_forward_again(study: Stu
         text = screen_text(app)
         assert "page 1 (newest) · 1,801–2,300" in text
         assert "o older" in text and "n newer" in text  # the keys are on screen
+        title = text.splitlines()[0]
+        assert "ledger.sqlite" in title  # a long path is cut at the front, the name stays
 
         seen: list[int] = []
         for page in range(1, 6):

@@ -29,6 +29,9 @@ PAGE = 500  # entries listed at a time (the newest page first)
 FILTER_PAUSE_SECONDS = 0.3
 
 
+TITLE_PATH_CELLS = 68  # fits the title line at 80 columns
+
+
 class LedgerScreen(Screen[None]):
     """Ledger entries a page at a time, newest first; ``o``/``n`` page back and forth."""
 
@@ -55,7 +58,9 @@ class LedgerScreen(Screen[None]):
         self._timer: Timer | None = None
 
     def compose(self) -> ComposeResult:
-        where = self.session.config.review.ledger
+        where = str(self.session.config.review.ledger)
+        if len(where) > TITLE_PATH_CELLS:  # keep the file name: cut the front of the path
+            where = "…" + where[-(TITLE_PATH_CELLS - 1) :]
         yield Static(Text(f"Ledger ─ {where}", no_wrap=True, overflow="ellipsis"), id="title")
         yield Static("chain … checking", id="chain", markup=False)
         with Horizontal(id="ledger-filters"):

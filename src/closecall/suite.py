@@ -216,7 +216,8 @@ def proxy_columns(encoder: Encoder, hist_X: np.ndarray) -> dict[str, tuple[str, 
 
 
 def _id_text(column: pd.Series) -> np.ndarray:
-    """The case ids as a NumPy text array (pandas' per-value conversion; holds the GIL)."""
+    """The case ids as a NumPy text array (pandas converts value by value, holding the GIL,
+    so running it beside the fits gains nothing)."""
     return column.astype(str).to_numpy(dtype=str)
 
 
@@ -276,8 +277,7 @@ def _fit_suite(config: StudyConfig, data: StudyData, progress: Progress) -> Suit
 
     # Proxy detection reads the history and the unaware fit only, and mostly keeps one core
     # busy: it runs beside the fits that do not need its answer (split, and the folds of
-    # pooled and unaware); the proxy-free model is fitted once it is done. The ids' text
-    # arrays are made on the same side thread after it, beside the proxy-free fits.
+    # pooled and unaware); the proxy-free model is fitted once it is done.
     progress("scoring proxies", 0, 1)
     with ThreadPoolExecutor(max_workers=1, thread_name_prefix="closecall-proxies") as side:
         scoring = side.submit(
@@ -294,10 +294,6 @@ def _fit_suite(config: StudyConfig, data: StudyData, progress: Progress) -> Suit
             never=config.proxies.never,
             seed=config.seed,
             nongroup_mask=nongroup,
-        )
-        hist_id_text = side.submit(_id_text, data.history[config.data.id])
-        pending_id_text = (
-            None if data.pending is None else side.submit(_id_text, data.pending[config.data.id])
         )
         full["split"], masks["split"] = [], []
         for g in range(G):
@@ -348,22 +344,19 @@ def _fit_suite(config: StudyConfig, data: StudyData, progress: Progress) -> Suit
             for name in ("pooled", "unaware", "split"):
                 cross_fit(name, k)
         proxies = scoring.result()
-        proxy_free_mask = nongroup & ~encoder.source_mask(proxies.proxies)
-        if not proxy_free_mask.any():
-            notes.append(
-                "every non-group feature is a proxy: the proxy-free model is intercept-only"
-            )
-        full["proxy_free"] = [
-            layout.fit_within(full["unaware"][0], nongroup, all_rows, proxy_free_mask, penalty)
-        ]
-        masks["proxy_free"] = [proxy_free_mask]
-        for k in range(K):
-            cross_fit("proxy_free", k)
-        progress("cross-fitting", K, K)
-        hist_ids = hist_id_text.result()
-        pending_ids = None if pending_id_text is None else pending_id_text.result()
+    proxy_free_mask = nongroup & ~encoder.source_mask(proxies.proxies)
+    if not proxy_free_mask.any():
+        notes.append("every non-group feature is a proxy: the proxy-free model is intercept-only")
+    full["proxy_free"] = [
+        layout.fit_within(full["unaware"][0], nongroup, all_rows, proxy_free_mask, penalty)
+    ]
+    masks["proxy_free"] = [proxy_free_mask]
+    for k in range(K):
+        cross_fit("proxy_free", k)
+    progress("cross-fitting", K, K)
 
     # ---- the cases under review
+    hist_ids = _id_text(data.history[config.data.id])  # once: the cases' ids when cross-fitted
     if data.pending is None:
         X, codes, ids = hist_X, hg, hist_ids
         outcome = y.astype(np.int8)
@@ -381,8 +374,7 @@ def _fit_suite(config: StudyConfig, data: StudyData, progress: Progress) -> Suit
             )
         assert data.pending_group is not None
         codes = np.searchsorted(level_array, data.pending_group)
-        assert pending_ids is not None
-        ids = pending_ids
+        ids = _id_text(data.pending[config.data.id])
         outcome = np.full(len(ids), -1, dtype=np.int8)
         rows_fits, rows_masks = full, masks
         row_of_case = {name: np.zeros(len(ids), dtype=np.int32) for name in FITTED_MODELS}

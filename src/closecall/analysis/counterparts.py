@@ -35,7 +35,6 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
-from scipy.special import logit
 
 from closecall.encode import EncodedFeature
 from closecall.snapshot import Snapshot, decision_word
@@ -127,11 +126,10 @@ def counterparts(
     if len(W) == 0:
         raise ValueError(f"model '{model}' has no fitted weights")
     lens_obj = snap.lens(lens)
-    t = float(logit(lens_obj.threshold))
     rows = np.arange(snap.n_cases) if rows is None else np.asarray(rows, dtype=np.int64)
     X = np.asarray(snap.X[rows], dtype=float)
     w_case = np.asarray(W, dtype=float)[np.asarray(row_of_case)[rows]]  # (n, p+1)
-    margin = w_case[:, 0] + np.einsum("ij,ij->i", X, w_case[:, 1:]) - t
+    margin = np.asarray(snap.margins(model, lens_obj.name))[rows]  # the snapshot's own margins
     codes = np.asarray(snap.group_codes)[rows]
     G = len(snap.group_levels)
     gcols, gvec = _group_vectors(snap)

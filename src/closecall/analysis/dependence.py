@@ -159,7 +159,7 @@ def dependence(
     X = snap.X
     C = np.empty((len(sel_rows), len(features)))
     base = np.empty(len(sel_rows))
-    marg = np.empty(len(sel_rows))
+    marg = np.asarray(snap.margins(model, lens_obj.name))[sel_rows]  # the snapshot's margins
     for r in np.unique(rc):
         w = W[r]
         pos = np.flatnonzero(rc == r)
@@ -168,7 +168,6 @@ def dependence(
             chunk = pos[start : start + BLOCK_ROWS]
             Xc = np.asarray(X[sel_rows[chunk]], dtype=float)
             C[chunk] = ((Xc - mu) * w[1:]) @ S
-            marg[chunk] = w[0] + Xc @ w[1:] - t
     return Dependence(model, lens_obj.name, features, roles, sel_rows, C, base, marg)
 
 

@@ -215,3 +215,12 @@ def test_bad_queue_options(tmp_path: Path, cli, args: list[str]) -> None:  # typ
     config = _study(tmp_path)
     res = cli(*args, "--config", str(config))
     assert res.code == 2 and "error:" in res.err and "Traceback" not in res.err
+
+
+def test_markup_like_group_labels_print_as_written(tmp_path: Path, cli) -> None:  # type: ignore[no-untyped-def]
+    """Data values reach the table as plain text: rich markup in them is not interpreted."""
+    frame = _frame()
+    frame["grp"] = np.where(frame["grp"] == "B", "[bold]B[/]", "A")
+    res = cli("fit", "--config", str(_study(tmp_path, frame)))
+    assert res.code == 0, res
+    assert "[bold]B[/]" in res.out

@@ -132,7 +132,7 @@ def fit(
             c.replace("calibration_in_the_large", "calib.").replace("error_rate", "error")
         )
     for row in snap.metrics:
-        table.add_row(*(_metric_cell(row.get(c)) for c in cols))
+        table.add_row(*(Text(_metric_cell(row.get(c))) for c in cols))
     console.print(table)
     console.print(
         f"proxies: {', '.join(snap.proxies.proxies) or 'none'}   "

@@ -160,8 +160,16 @@ def generate(cases: int = 5000, seed: int = 7) -> tuple[pd.DataFrame, np.ndarray
 
 
 def write_demo(out_dir: Path, cases: int = 5000, seed: int = 7) -> Path:
-    """Write the demo study (data files and closecall.toml) into out_dir; return the config."""
+    """Write the demo study (data files and closecall.toml) into out_dir; return the config.
+
+    ``out_dir`` must be new, empty or free of study files: a folder that already holds a
+    study config, a data file of the demo, a ledger or a snapshot folder is refused
+    (:func:`closecall.output_files.check_demo_folder`).
+    """
+    from closecall.output_files import check_demo_folder
+
     out_dir = Path(out_dir)
+    check_demo_folder(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
     frame, truth, recorded = generate(cases, seed)
     rng = np.random.default_rng(seed + 1)

@@ -39,6 +39,7 @@ from closecall.disparity.table import (
 )
 from closecall.errors import UserError
 from closecall.ledger import Entry
+from closecall.output_files import StudyFile, check_key_file, study_files, write_output
 
 if TYPE_CHECKING:
     from closecall.study import Study
@@ -58,8 +59,13 @@ HASH_COLUMNS = ("prev_hash", "hash")
 # --------------------------------------------------------------------------- keys and pseudonyms
 
 
-def load_or_create_key(path: str | Path) -> tuple[bytes, bool]:
+def load_or_create_key(
+    path: str | Path, protected: Sequence[StudyFile] = ()
+) -> tuple[bytes, bool]:
     """Read a pseudonymisation key file, or create one (owner-only) if it does not exist.
+
+    ``path`` may not be one of the ``protected`` study files (its ledger, config, data or
+    snapshot folder): a key is never created, or looked for, there.
 
     Returns
     -------
@@ -69,9 +75,11 @@ def load_or_create_key(path: str | Path) -> tuple[bytes, bool]:
     Raises
     ------
     UserError
-        The file is readable by others, or does not hold a key written by closecall.
+        The path is a study file; the file is readable by others, or does not hold a key
+        written by closecall.
     """
     path = Path(path)
+    check_key_file(path, protected)
     created = False
     if not path.exists():
         path.parent.mkdir(parents=True, exist_ok=True)
@@ -288,7 +296,7 @@ def export_reviews(
     key_path = Path(key_file) if key_file is not None else None
     created = False
     if key_path is not None:
-        key, created = load_or_create_key(key_path)
+        key, created = load_or_create_key(key_path, study_files(study.config))
         table["case_id"] = pseudonymise(table["case_id"], key, "case")
         if pseudonymise_reviewers:
             table["reviewer"] = pseudonymise(table["reviewer"], key, "reviewer")
@@ -345,21 +353,27 @@ def table_bytes(table: pd.DataFrame, fmt: str) -> bytes:
     raise UserError(f"unknown export format '{fmt}'", f"use one of: {', '.join(EXPORT_FORMATS)}")
 
 
-def write_export(table: pd.DataFrame, fmt: str, out: str | Path) -> Path:
-    """Write the table to ``out`` (owner-only permissions; replaced atomically)."""
-    out = Path(out)
+def write_export(
+    table: pd.DataFrame,
+    fmt: str,
+    out: str | Path,
+    *,
+    protected: Sequence[StudyFile] = (),
+    force: bool = False,
+) -> Path:
+    """Write the table to ``out``: owner-only, via a temporary file renamed into place.
+
+    ``out`` may not be one of the ``protected`` study files (see
+    :func:`closecall.output_files.study_files`) and replaces an existing file only with
+    ``force``; returns the real path written.
+    """
     data = table_bytes(table, fmt)
-    if out.is_dir():
-        raise UserError(f"{out}: is a folder", "name a file for --out")
-    tmp = out.with_name(f".{out.name}.{os.getpid()}.tmp")
-    try:
-        fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_TRUNC, EXPORT_FILE_MODE)
-        with os.fdopen(fd, "wb") as fh:
-            fh.write(data)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, out)
-    except OSError as exc:
-        tmp.unlink(missing_ok=True)
-        raise UserError(f"{out}: cannot write the export ({exc.strerror})") from None
-    return out
+    return write_output(
+        out,
+        data,
+        protected,
+        option="--out",
+        force=force,
+        mode=EXPORT_FILE_MODE,
+        example=f"reviews.{fmt}",
+    )

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import math
-import os
 from pathlib import Path
 
 import typer
@@ -12,11 +11,13 @@ from rich.table import Table
 
 from closecall.cli.common import ConfigOption, JsonOption, load
 from closecall.cli.output import console, emit_json, err_console, safe_text
+from closecall.config import load_config
 from closecall.disparity.contingency import IndependenceTest
 from closecall.disparity.from_study import study_report
 from closecall.disparity.html import headline_text, render_html
 from closecall.disparity.report import DisparityReport
 from closecall.errors import UserError
+from closecall.output_files import check_key_file, check_output, study_files, write_output
 
 BAR_WIDTH = 10
 
@@ -261,8 +262,12 @@ def print_report(report: DisparityReport) -> None:
 def disparity(
     as_json: bool = JsonOption,
     html: Path | None = typer.Option(
-        None, "--html", help="Also write the report as one self-contained HTML file."
+        None,
+        "--html",
+        help="Also write the report as one self-contained HTML file (readable by you only; "
+        "never one of the study's files; an existing file needs --force).",
     ),
+    force: bool = typer.Option(False, "--force", help="Replace an existing --html file."),
     outcomes: Path | None = typer.Option(
         None,
         "--outcomes",
@@ -293,28 +298,31 @@ def disparity(
         raise UserError(f"--level {level}: must be at least 0.5 and below 1", "e.g. --level 0.95")
     if n_boot < 100:
         raise UserError(f"--boot {n_boot}: use at least 100 replicates", "e.g. --boot 2000")
+    cfg = load_config(config)
+    protected = study_files(cfg, key_file=key_file, outcomes=outcomes)
+    if key_file is not None:  # before anything is fitted or created
+        check_key_file(key_file, study_files(cfg, outcomes=outcomes))
+    if html is not None:
+        check_output(html, protected, option="--html", force=force, example="disparity.html")
     study = load(config, quiet=as_json)
     report = study_report(
         study, outcomes=outcomes, key_file=key_file, level=level, n_boot=n_boot, seed=seed
     )
     if html is not None:
-        _write_html(html, render_html(report))
+        write_output(
+            html,
+            render_html(report).encode("utf-8"),
+            protected,
+            option="--html",
+            force=force,
+            example="disparity.html",
+        )
     if as_json:
         emit_json(report.to_dict())
         return
     print_report(report)
     if html is not None:
         console.print(f"wrote {_t(html)}")
-
-
-def _write_html(path: Path, text: str) -> None:
-    tmp = path.with_name(f".{path.name}.{os.getpid()}.tmp")
-    try:
-        tmp.write_text(text, encoding="utf-8")
-        os.replace(tmp, path)
-    except OSError as exc:
-        tmp.unlink(missing_ok=True)
-        raise UserError(f"{path}: cannot write the report ({exc.strerror})") from None
 
 
 def demo_reviews(

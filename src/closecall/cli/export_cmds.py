@@ -12,6 +12,7 @@ from closecall.cli.common import ConfigOption, load
 from closecall.cli.output import err_console, safe_text
 from closecall.config import load_config
 from closecall.errors import UserError
+from closecall.output_files import check_key_file, check_output, study_files
 from closecall.reviews import ledger_entries
 
 
@@ -45,8 +46,13 @@ def export(
         "opening the file cannot run them as formulas (the text is then not byte-exact).",
     ),
     out: Path | None = typer.Option(
-        None, "--out", "-o", help="Write to this file (readable by you only); default stdout."
+        None,
+        "--out",
+        "-o",
+        help="Write to this file (readable by you only); default stdout. Never one of the "
+        "study's files; an existing file needs --force.",
     ),
+    force: bool = typer.Option(False, "--force", help="Replace an existing --out file."),
     config: Path = ConfigOption,
 ) -> None:
     """Export the review record for analysis: one row per reviewed case by default.
@@ -71,6 +77,11 @@ def export(
 
     cfg = load_config(config)
     entries = ledger_entries(cfg)  # checks read access before anything else
+    protected = study_files(cfg, key_file=key_file)
+    if key_file is not None:  # before anything is fitted or created
+        check_key_file(key_file, study_files(cfg))
+    if out is not None:
+        check_output(out, protected, option="--out", force=force, example=f"reviews.{fmt.value}")
     if fmt is ExportFormat.parquet and out is None and sys.stdout.isatty():
         raise UserError("Parquet is binary and will not be printed", "add --out FILE.parquet")
     study = load(config, quiet=True)
@@ -96,7 +107,7 @@ def export(
         sys.stdout.buffer.write(table_bytes(table, fmt.value))
         sys.stdout.flush()
         return
-    write_export(table, fmt.value, out)
+    write_export(table, fmt.value, out, protected=protected, force=force)
     err_console.print(
         f"wrote {len(table)} {what} ({result.entries} ledger entries read) "
         f"to {safe_text(str(out))}",

@@ -32,19 +32,35 @@ def init(
     data: Path = typer.Argument(..., help="The labelled history file (CSV or Parquet)."),
     pending: Path | None = typer.Option(None, "--pending", help="Cases awaiting review."),
     out: Path = typer.Option(Path(CONFIG_NAME), "--out", "-o", help="Where to write the config."),
-    force: bool = typer.Option(False, "--force", help="Overwrite an existing config."),
+    force: bool = typer.Option(
+        False, "--force", help="Replace an earlier config (never a data file or a ledger)."
+    ),
     as_json: bool = JsonOption,
 ) -> None:
     """Draft a commented study config from a data file, and say what is left to decide.
 
     Example: closecall init history.csv --pending pending.csv
     """
-    if out.exists() and not force:
-        raise UserError(f"{out}: already exists", "pass --force to overwrite, or --out elsewhere")
+    from closecall.output_files import StudyFile, check_config_output, write_output
+
+    inputs = [StudyFile(data.resolve(), "the history data file named here", "data")]
+    if pending is not None:
+        inputs.append(StudyFile(pending.resolve(), "the pending data file named here", "data"))
+    check_config_output(out, inputs, force=force)
     from closecall.config_init import infer_config
 
     inf = infer_config(data, pending, relative_to=out.resolve().parent)
-    out.write_text(inf.text)
+    # the config is read by every reviewer of the study: usual permissions (umask applies)
+    write_output(
+        out,
+        inf.text.encode("utf-8"),
+        inputs,
+        option="--out",
+        force=force,
+        mode=0o666,
+        example=CONFIG_NAME,
+        may_replace=("config",),
+    )
     if as_json:
         emit_json({"config": str(out), "inferred": inf.inferred, "to_decide": inf.to_decide})
         return
@@ -71,7 +87,7 @@ def demo(
     """
     from closecall.demo import write_demo
 
-    config = write_demo(out, cases=cases, seed=seed)
+    config = write_demo(out, cases=cases, seed=seed)  # refuses a folder holding a study
     sid = None
     if fit:
         with progress_bar(not as_json) as update:

@@ -145,7 +145,9 @@ def study_report(
     """
     table, notes = study_review_table(study)
     if key_file is not None:
-        key, _ = load_or_create_key(key_file)
+        from closecall.output_files import study_files
+
+        key, _ = load_or_create_key(key_file, study_files(study.config, outcomes=outcomes))
         table["reviewer"] = pseudonymise(table["reviewer"], key, "reviewer")
     if outcomes is not None:
         out = load_outcomes(outcomes, study.config)

@@ -9,7 +9,7 @@ import pytest
 import statsmodels.formula.api as smf
 from sklearn.linear_model import LogisticRegression
 
-from closecall.disparity.conditional import conditional_disparity
+from closecall.disparity.conditional import FIRTH, conditional_disparity
 from disparity_sim import review_table
 
 
@@ -82,26 +82,32 @@ def test_no_events_is_a_note_not_a_crash() -> None:
     assert all(r.odds_ratio is None for r in fit.rows)
 
 
-def test_group_without_events_is_separated_and_named() -> None:
+def test_group_without_events_is_estimated_by_firth_not_dropped() -> None:
+    # Separation (Albert & Anderson 1984): group C has no override to unfavourable, so its
+    # maximum-likelihood odds ratio is 0. Firth's penalised likelihood gives a finite estimate
+    # below 1 with a profile interval whose upper end is finite; the note names C.
     reviews = review_table(900, 2, bias=1.0, groups=("A", "B", "C"), shares=(0.45, 0.45, 0.1))
     c_fav = (reviews["group"] == "C") & (reviews["model_decision"] == "favourable")
     reviews.loc[c_fav, "action"] = "uphold"
     reviews.loc[c_fav, "final_decision"] = "favourable"
     fit = conditional_disparity(reviews, "to_unfavourable")
-    assert fit.fitted  # A against B is still estimable
+    assert fit.fitted and fit.estimation == FIRTH
     c = next(r for r in fit.rows if r.group == "C")
-    assert c.odds_ratio is None and c.note == "not estimable"
-    assert any("group C" in n and "separation" in n for n in fit.notes)
+    assert c.events == 0 and c.odds_ratio is not None and 0 < c.odds_ratio < 1
+    assert c.low is not None and c.high is not None and 0 < c.low < c.odds_ratio < c.high < 10
+    assert c.p_value is not None and 0 < c.p_value < 1
+    assert any("group C" in n and "separation" in n and "Firth" in n for n in fit.notes)
 
 
-def test_two_groups_one_without_events_cannot_be_compared() -> None:
+def test_two_groups_one_without_events_are_still_compared() -> None:
     reviews = review_table(400, 3)
     b_fav = (reviews["group"] == "B") & (reviews["model_decision"] == "favourable")
     reviews.loc[b_fav, "action"] = "uphold"
     reviews.loc[b_fav, "final_decision"] = "favourable"
     fit = conditional_disparity(reviews, "to_unfavourable")
-    assert not fit.fitted
-    assert any("fewer than two groups" in n for n in fit.notes)
+    assert fit.fitted and fit.estimation == FIRTH and fit.reference_group == "A"
+    b = next(r for r in fit.rows if r.group == "B")
+    assert b.odds_ratio is not None and b.odds_ratio < 1 and b.high is not None
 
 
 def test_few_events_warn_per_common_practice() -> None:

@@ -6,8 +6,11 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
+from scipy import stats
 
+from closecall.disparity.heldout import RateGap, rate_gap
 from closecall.disparity.intervals import proportion, wilson_interval
+from closecall.disparity.power import Detectable, detectable_split
 from closecall.disparity.table import DECISIONS, FAVOURABLE, check_reviews, group_order
 from closecall.errors import UserError
 
@@ -21,6 +24,39 @@ class ErrorRate:
     rate: float
     low: float
     high: float
+
+
+@dataclass(frozen=True)
+class McNemar:
+    """Model against final decisions on the same cases: which was right more often?
+
+    ``model_only`` cases the model decided correctly and the final decision did not;
+    ``final_only`` the reverse. The exact test is the two-sided binomial test of
+    model_only against model_only + final_only with probability one half.
+    """
+
+    both_right: int
+    model_only: int
+    final_only: int
+    both_wrong: int
+    p_value: float | None
+    detectable: Detectable
+
+
+def mcnemar_exact(model_right: np.ndarray, final_right: np.ndarray) -> McNemar:
+    """McNemar's exact test on paired right/wrong indicators.
+
+    References
+    ----------
+    Q. McNemar, "Note on the sampling error of the difference between correlated proportions
+    or percentages", Psychometrika 12 (1947) 153-157 (the exact version: a binomial test on the
+    discordant pairs).
+    """
+    m = np.asarray(model_right, dtype=bool)
+    f = np.asarray(final_right, dtype=bool)
+    b, c = int((m & ~f).sum()), int((~m & f).sum())
+    p = None if b + c == 0 else float(min(1.0, 2.0 * stats.binom.cdf(min(b, c), b + c, 0.5)))
+    return McNemar(int((m & f).sum()), b, c, int((~m & ~f).sum()), p, detectable_split(b + c))
 
 
 @dataclass(frozen=True)
@@ -40,6 +76,12 @@ class GroupErrors:
     final_false_favourable: ErrorRate
     model_false_unfavourable: ErrorRate
     final_false_unfavourable: ErrorRate
+    mcnemar: McNemar  # model against final, this group's cases
+    # against the reference group (None for the reference itself)
+    model_ff_gap: RateGap | None = None
+    final_ff_gap: RateGap | None = None
+    model_fu_gap: RateGap | None = None
+    final_fu_gap: RateGap | None = None
 
 
 @dataclass(frozen=True)
@@ -50,10 +92,13 @@ class ErrorComparison:
     without_outcome: int
     level: float
     notes: tuple[str, ...]
+    reference_group: str | None = None
+    mcnemar_all: McNemar | None = None
 
 
 def error_rates(reviews: pd.DataFrame, *, level: float = 0.95) -> ErrorComparison:
-    """False-favourable and false-unfavourable rates per group, model versus final.
+    """False-favourable and false-unfavourable rates per group, model versus final, their gaps
+    to the reference group (the largest), and McNemar's exact test of model against final.
 
     ``reviews`` must carry an ``outcome`` column ("favourable", "unfavourable" or missing).
     Deferred reviews and reviews without an outcome are left out; how many is reported.
@@ -62,6 +107,7 @@ def error_rates(reviews: pd.DataFrame, *, level: float = 0.95) -> ErrorCompariso
     ----------
     M. Hardt, E. Price and N. Srebro, "Equality of opportunity in supervised learning",
     NeurIPS 2016 (error rates by group). E. B. Wilson, JASA 22 (1927) 209-212.
+    Q. McNemar, Psychometrika 12 (1947) 153-157 (model against final on the same cases).
     """
     if "outcome" not in reviews.columns:
         raise UserError("review table: no outcome column", "join outcomes first (--outcomes FILE)")
@@ -78,28 +124,49 @@ def error_rates(reviews: pd.DataFrame, *, level: float = 0.95) -> ErrorCompariso
     known = df["decided"] & outcome.notna()
     d = df[known]
     out_fav = (d["outcome"] == FAVOURABLE).to_numpy()
+    model_fav = d["model_fav"].to_numpy()
+    final_fav = d["final_fav"].to_numpy()
     g = d["group"].to_numpy()
     rows: list[GroupErrors] = []
     notes: list[str] = []
-    for name in groups:  # loop over groups, not cases
+    ref = groups[0]
+
+    def rate(k: int, n: int) -> ErrorRate:
+        lo, hi = wilson_interval(k, n, level)
+        return ErrorRate(k, n, float(proportion(k, n)), float(lo), float(hi))
+
+    def counts(name: str) -> tuple[int, int, int, int, int, int]:
         m = g == name
         pos, neg = out_fav & m, ~out_fav & m
-        npos, nneg = int(pos.sum()), int(neg.sum())
+        return (
+            int(pos.sum()),
+            int(neg.sum()),
+            int((model_fav & neg).sum()),
+            int((final_fav & neg).sum()),
+            int((~model_fav & pos).sum()),
+            int((~final_fav & pos).sum()),
+        )
 
-        def rate(k: int, n: int) -> ErrorRate:
-            lo, hi = wilson_interval(k, n, level)
-            return ErrorRate(k, n, float(proportion(k, n)), float(lo), float(hi))
-
+    rp, rn, rmff, rfff, rmfu, rffu = counts(ref)
+    for name in groups:  # loop over groups, not cases
+        m = g == name
+        npos, nneg, mff, fff, mfu, ffu = counts(name)
+        other = name != ref
         rows.append(
             GroupErrors(
                 group=name,
                 with_outcome=int(m.sum()),
                 outcome_favourable=npos,
                 outcome_unfavourable=nneg,
-                model_false_favourable=rate(int((d["model_fav"].to_numpy() & neg).sum()), nneg),
-                final_false_favourable=rate(int((d["final_fav"].to_numpy() & neg).sum()), nneg),
-                model_false_unfavourable=rate(int((~d["model_fav"].to_numpy() & pos).sum()), npos),
-                final_false_unfavourable=rate(int((~d["final_fav"].to_numpy() & pos).sum()), npos),
+                model_false_favourable=rate(mff, nneg),
+                final_false_favourable=rate(fff, nneg),
+                model_false_unfavourable=rate(mfu, npos),
+                final_false_unfavourable=rate(ffu, npos),
+                mcnemar=mcnemar_exact((model_fav == out_fav)[m], (final_fav == out_fav)[m]),
+                model_ff_gap=rate_gap(mff, nneg, rmff, rn, level) if other else None,
+                final_ff_gap=rate_gap(fff, nneg, rfff, rn, level) if other else None,
+                model_fu_gap=rate_gap(mfu, npos, rmfu, rp, level) if other else None,
+                final_fu_gap=rate_gap(ffu, npos, rffu, rp, level) if other else None,
             )
         )
         if m.sum() == 0:
@@ -110,5 +177,10 @@ def error_rates(reviews: pd.DataFrame, *, level: float = 0.95) -> ErrorCompariso
     if not known.any():
         notes.append("no decided review has a known outcome: error rates cannot be computed")
     return ErrorComparison(
-        rows=tuple(rows), without_outcome=missing, level=level, notes=tuple(notes)
+        rows=tuple(rows),
+        without_outcome=missing,
+        level=level,
+        notes=tuple(notes),
+        reference_group=ref,
+        mcnemar_all=mcnemar_exact(model_fav == out_fav, final_fav == out_fav),
     )

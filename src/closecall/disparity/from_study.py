@@ -10,7 +10,13 @@ import numpy as np
 import pandas as pd
 
 from closecall.data import read_table
-from closecall.disparity.report import DisparityReport, build_report
+from closecall.disparity.periods import check_period
+from closecall.disparity.report import (
+    DisparityReport,
+    HistoryInput,
+    PopulationInput,
+    build_report,
+)
 from closecall.disparity.table import FAVOURABLE, REVIEW_COLUMNS, UNFAVOURABLE
 from closecall.errors import UserError
 from closecall.export import load_or_create_key, pseudonymise, review_frame
@@ -118,7 +124,37 @@ def study_review_table(study: Study) -> tuple[pd.DataFrame, list[str]]:
             f"{stale} review(s) were made on an earlier snapshot; their margins and decisions "
             "are as the reviewer saw them"
         )
-    return table[[*REVIEW_COLUMNS, "snapshot_id"]], notes
+    return table[[*REVIEW_COLUMNS, "time", "snapshot_id"]], notes
+
+
+def study_population(study: Study) -> PopulationInput:
+    """Every case under review with its reference-model decision under the operative lens."""
+    snap = study.snapshot
+    return PopulationInput(
+        case_ids=np.asarray(snap.case_ids),
+        group_codes=np.asarray(snap.group_codes),
+        levels=snap.group_levels,
+        model_favourable=np.asarray(snap.margins(snap.reference)) > 0,
+    )
+
+
+def study_history(study: Study) -> HistoryInput:
+    """Every model's out-of-fold log-odds of the history, with outcomes, groups and lenses."""
+    snap = study.snapshot
+    held_out = {m: np.asarray(snap.arrays[f"oof__{m}"], dtype=float) for m in snap.model_names}
+    k = int(snap.meta.get("folds", 0))
+    return HistoryInput(
+        held_out=held_out,
+        y=np.asarray(snap.hist_y),
+        group_codes=np.asarray(snap.hist_group_codes),
+        levels=snap.group_levels,
+        lenses=[(lens.name, lens.threshold) for lens in snap.lenses],
+        source=(
+            f"history cases scored by {k}-fold cross-fitting (each by a model not trained on it)"
+            if k
+            else "out-of-fold scores of the history"
+        ),
+    )
 
 
 def study_report(
@@ -129,8 +165,10 @@ def study_report(
     level: float = 0.95,
     n_boot: int = 2000,
     seed: int = 0,
+    period: str = "month",
 ) -> DisparityReport:
-    """The disparity report over the study's effective reviews.
+    """The disparity report over the study's effective reviews, the whole population of cases
+    under review and the held-out history.
 
     Parameters
     ----------
@@ -140,9 +178,10 @@ def study_report(
         Outcome file to join (see :func:`load_outcomes`); adds error rates by group.
     key_file
         Pseudonymise reviewer names with this key (created owner-only if missing).
-    level, n_boot, seed
+    level, n_boot, seed, period
         Passed to :func:`closecall.disparity.report.build_report`.
     """
+    check_period(period)
     table, notes = study_review_table(study)
     if key_file is not None:
         from closecall.output_files import study_files
@@ -165,6 +204,7 @@ def study_report(
         "ledger": str(study.config.review.ledger),
         "outcomes_file": None if outcomes is None else str(outcomes),
         "reviewers_pseudonymised": key_file is not None,
+        "period": period,
     }
     report = build_report(
         table.drop(columns=["snapshot_id"]),
@@ -172,6 +212,9 @@ def study_report(
         n_boot=n_boot,
         seed=seed,
         context=context,
+        population=study_population(study),
+        history=study_history(study),
+        period=period,
     )
     if notes:
         report = replace(report, warnings=(*notes, *report.warnings))

@@ -13,6 +13,7 @@ from closecall.disparity.intervals import (
     bootstrap_cells,
     percentile_interval,
     proportion,
+    ratio_interval,
     wilson_interval,
 )
 from closecall.disparity.table import check_reviews, group_order
@@ -41,6 +42,25 @@ def four_fifths_flag(ratio: float) -> bool:
     return bool(ratio < FOUR_FIFTHS)
 
 
+def air_intervals(
+    k: np.ndarray, n: np.ndarray, ref: int, level: float
+) -> tuple[list[float], list[float], list[str]]:
+    """Interval of every group's adverse impact ratio k_g/n_g ÷ k_ref/n_ref (not for ``ref``):
+    Katz's log interval, or Koopman's score interval where a count is 0."""
+    lo, hi, how = [], [], []
+    for g in range(len(k)):  # groups, not cases
+        if g == ref:  # np.nan, one object: equal results compare equal
+            lo.append(np.nan)
+            hi.append(np.nan)
+            how.append("reference")
+            continue
+        a, b, m = ratio_interval(int(k[g]), int(n[g]), int(k[ref]), int(n[ref]), level)
+        lo.append(a)
+        hi.append(b)
+        how.append(m)
+    return lo, hi, how
+
+
 @dataclass(frozen=True)
 class GroupRates:
     """Model and final favourable rates of one group, over its decided reviews."""
@@ -61,13 +81,19 @@ class GroupRates:
     change_low: float
     change_high: float
     model_air: float  # 1 for the most favoured group, whose bounds are NaN (no interval)
-    model_air_low: float
+    model_air_low: float  # bootstrap percentile interval
     model_air_high: float
     model_flag: bool
     final_air: float
     final_air_low: float
     final_air_high: float
     final_flag: bool
+    model_air_ratio_low: float  # Katz log interval (Koopman score where a count is 0)
+    model_air_ratio_high: float
+    model_air_ratio_method: str
+    final_air_ratio_low: float
+    final_air_ratio_high: float
+    final_air_ratio_method: str
 
 
 @dataclass(frozen=True)
@@ -94,9 +120,11 @@ def favourable_rates(
     """Per-group favourable rates of the model and of the final decisions.
 
     Only decided reviews count (deferrals have no final decision), so both rates describe the
-    same cases. Rates carry Wilson intervals; the change from model to final and the adverse
-    impact ratios carry percentile intervals from a case bootstrap stratified by group, with
-    the most favoured group fixed at its observed identity.
+    same cases. Rates carry Wilson intervals; each adverse impact ratio carries Katz's log
+    interval for a ratio of two independent proportions (Koopman's score interval where a
+    count is 0) and, beside it, a percentile interval from a case bootstrap stratified by
+    group; the change from model to final carries the bootstrap interval. The most favoured
+    group is held at its observed identity.
 
     Parameters
     ----------
@@ -113,6 +141,7 @@ def favourable_rates(
     ----------
     Uniform Guidelines on Employee Selection Procedures, 29 CFR 1607.4(D) (four-fifths rule).
     E. B. Wilson, JASA 22 (1927) 209-212 (score interval).
+    D. Katz et al., Biometrics 34 (1978) 469-474 (log interval for a ratio).
     B. Efron and R. J. Tibshirani, "An Introduction to the Bootstrap", 1993.
     """
     df = check_reviews(reviews)
@@ -153,6 +182,8 @@ def favourable_rates(
         warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN replicates stay NaN
         low_change = np.nanmin(bf_air, axis=1) - np.nanmin(bm_air, axis=1)
     lc_lo, lc_hi = percentile_interval(low_change[:, None], level)
+    mal, mah, mam = air_intervals(model_k, n, ref_m, level)
+    fal, fah, fam = air_intervals(final_k, n, ref_f, level)
 
     rows = []
     for i, g in enumerate(groups):
@@ -181,6 +212,12 @@ def favourable_rates(
                 final_air_low=float(f_air_lo[i]) if i != ref_f else np.nan,
                 final_air_high=float(f_air_hi[i]) if i != ref_f else np.nan,
                 final_flag=four_fifths_flag(final_air[g]),
+                model_air_ratio_low=mal[i],
+                model_air_ratio_high=mah[i],
+                model_air_ratio_method=mam[i],
+                final_air_ratio_low=fal[i],
+                final_air_ratio_high=fah[i],
+                final_air_ratio_method=fam[i],
             )
         )
     notes = _rate_notes(rows, model_rate, final_rate)
@@ -212,8 +249,8 @@ def _rate_notes(
         notes.append("no reviewed case ended favourable: ratios after review are undefined")
     for r in rows:
         for label, air, lo, hi in (
-            ("model", r.model_air, r.model_air_low, r.model_air_high),
-            ("final", r.final_air, r.final_air_low, r.final_air_high),
+            ("model", r.model_air, r.model_air_ratio_low, r.model_air_ratio_high),
+            ("final", r.final_air, r.final_air_ratio_low, r.final_air_ratio_high),
         ):
             if np.isfinite(lo) and np.isfinite(hi) and lo < FOUR_FIFTHS <= hi:
                 side = "below" if air < FOUR_FIFTHS else "at or above"

@@ -10,12 +10,32 @@ reported.
 from __future__ import annotations
 
 from dataclasses import asdict, dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
 
-from closecall.data import MISSING_LEVEL, Feature
+if TYPE_CHECKING:
+    from closecall.data import Feature
+
+MISSING_LEVEL = "(missing)"
+# The largest distance from the history mean, in history standard deviations, a numeric value
+# may have (data.py refuses others). A history value can never be this far out (Samuelson's
+# inequality bounds it by sqrt(n - 1)); a pending value this far out is an entry or unit error.
+MAX_STANDARD_SCORE = 1e6
+
+
+def numeric_values(col: pd.Series) -> np.ndarray:
+    """A numeric column as float64, anything that is not a number as NaN (missing)."""
+    return pd.to_numeric(col, errors="coerce").to_numpy(dtype=float)
+
+
+def standard_scale(x: np.ndarray) -> tuple[float, float]:
+    """Mean and standard deviation (ddof 0) of the non-missing values of a numeric column, as
+    the encoder standardises with them. Either is inf or NaN when the values overflow double
+    precision; the caller checks (data.py refuses such a column)."""
+    with np.errstate(over="ignore", invalid="ignore"):
+        return float(np.nanmean(x)), float(np.nanstd(x))
 
 
 @dataclass
@@ -78,7 +98,7 @@ class Encoder:
             col = frame[f.name]
             width = len(f.design_names())
             if f.kind == "numeric":
-                x = pd.to_numeric(col, errors="coerce").to_numpy(dtype=float)
+                x = numeric_values(col)
                 miss = np.isnan(x)
                 parts.append((j, 1, (np.where(miss, f.mean, x) - f.mean) / f.sd))
                 if f.missing_indicator:
@@ -134,18 +154,21 @@ def _category_strings(col: pd.Series) -> np.ndarray:
 def fit_encoder(history: pd.DataFrame, features: list[Feature], group: tuple[str, ...]) -> Encoder:
     """Learn means, spreads and levels from the history."""
     out: list[EncodedFeature] = []
-    for f in [*features, *(Feature(g, "categorical", True) for g in group)]:
-        col = history[f.name]
-        if f.kind == "numeric":
-            x = pd.to_numeric(col, errors="coerce").to_numpy(dtype=float)
+    specs = [(f.name, f.kind, f.is_group) for f in features]
+    specs += [(g, "categorical", True) for g in group]
+    for name, kind, is_group in specs:
+        col = history[name]
+        if kind == "numeric":
+            x = numeric_values(col)
             miss = np.isnan(x)
-            mean = float(np.nanmean(x))
-            sd = float(np.nanstd(x))
+            mean, sd = standard_scale(x)
+            if not (np.isfinite(mean) and np.isfinite(sd)):  # load_study_data refuses these
+                raise ValueError(f"numeric feature '{name}' overflows when standardised")
             out.append(
                 EncodedFeature(
-                    f.name,
+                    name,
                     "numeric",
-                    f.is_group,
+                    is_group,
                     mean,
                     sd if sd > 0 else 1.0,
                     missing_indicator=bool(miss.any()),
@@ -158,5 +181,5 @@ def fit_encoder(history: pd.DataFrame, features: list[Feature], group: tuple[str
             counts = np.bincount(inverse, weights=per_label, minlength=len(uniq)).astype(np.int64)
             uniq, counts = uniq[counts > 0], counts[counts > 0]
             order = np.lexsort((uniq, -counts))  # most frequent first, ties by name
-            out.append(EncodedFeature(f.name, "categorical", f.is_group, levels=list(uniq[order])))
+            out.append(EncodedFeature(name, "categorical", is_group, levels=list(uniq[order])))
     return Encoder(out)

@@ -37,7 +37,7 @@ def fit_study(config: StudyConfig, progress: Progress = quiet, *, refit: bool = 
     from closecall.suite import fit_suite
 
     progress("reading data", 0, 1)
-    data = load_study_data(config.data)
+    data = load_study_data(config)
     suite = fit_suite(config, data, progress)
     snap = build_snapshot(sid, config, suite)
     save_snapshot(config, snap)

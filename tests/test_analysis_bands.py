@@ -12,7 +12,7 @@ import statsmodels.api as sm
 from scipy.special import logit
 from scipy.stats import chi2
 
-from analysis_helpers import hmda_study, one_file_demo
+from analysis_helpers import HMDA_FEATURES, hmda_study, one_file_demo
 from closecall.analysis.fitted_rows import fitted_row, penalised_objective, row_cholesky, tilde
 from closecall.analysis.multiplicity import (
     UNCERTAINTY_EPSILON,
@@ -28,8 +28,12 @@ from closecall.study import Study, open_study
 
 @pytest.fixture(scope="module")
 def hmda0(tmp_path_factory: pytest.TempPathFactory) -> Study:
-    """HMDA, unpenalised (penalty = 0), cross-fitted."""
-    return open_study(hmda_study(tmp_path_factory.mktemp("hmda0"), penalty=0))
+    """HMDA, unpenalised (penalty = 0), cross-fitted, without 'insurance': among black
+    applicants 16 of the 17 denied mortgage insurance were denied the loan, so the split
+    model's fold without the one exception is quasi-completely separated and penalty 0 is
+    refused there (issue 10); the other eleven features have finite unpenalised fits."""
+    features = tuple(f for f in HMDA_FEATURES if f != "insurance")
+    return open_study(hmda_study(tmp_path_factory.mktemp("hmda0"), penalty=0, features=features))
 
 
 @pytest.fixture(scope="module")
@@ -226,15 +230,15 @@ def test_discrepancy_search_finds_most_of_the_best_single_model(tmp_path: Path) 
 
 def test_exact_band_under_separation(tmp_path: Path) -> None:
     """Every case with flag = on is favourable (quasi-complete separation). Unpenalised, its
-    weight runs off towards infinity (Albert & Anderson 1984): the loss stays within the slack
-    however far the weight goes up, so the exact band has no upper edge, while its lower edge
-    stays finite. The quadratic closed form, built on a nearly flat curvature, is useless
-    there; explain reports the edge as unbounded, in plain JSON."""
+    weight runs off towards infinity (Albert & Anderson 1984), so penalty 0 is refused,
+    naming the separating column (issue 10). With a penalty the study is fitted and flagged,
+    the equally-good set is bounded, and explain reports the exact band in plain JSON."""
     import json
 
     import pandas as pd
 
     from closecall.analysis.explain import explain_case
+    from closecall.errors import UserError
 
     rng = np.random.default_rng(0)
     n = 400
@@ -250,18 +254,22 @@ def test_exact_band_under_separation(tmp_path: Path) -> None:
             "y": np.where(y, "good", "bad"),
         }
     ).to_csv(tmp_path / "d.csv", index=False)
-    (tmp_path / "closecall.toml").write_text(
+    text = (
         '[data]\nhistory = "d.csv"\nid = "id"\noutcome = "y"\nfavourable = "good"\n'
-        'group = "g"\n[model]\npenalty = 0\n'
+        'group = "g"\n[model]\npenalty = {}\n'
     )
+    (tmp_path / "closecall.toml").write_text(text.format(0))
+    with pytest.raises(UserError, match="quasi-complete separation: a combination of flag=on"):
+        open_study(tmp_path / "closecall.toml")
+    (tmp_path / "closecall.toml").write_text(text.format(1.0))
     study = open_study(tmp_path / "closecall.toml")
     snap = study.snapshot
+    flagged = {(f["model"], f["problem"]) for f in snap.meta["fit_flags"]}
+    assert ("pooled", "quasi_complete_separation") in flagged
     on = np.flatnonzero(np.asarray(snap.X)[:, snap.columns.index("flag=on")] == 1)
     case = str(snap.case_ids[on[0]])
     ex = exact_band(study, case, 0.01)
-    assert ex["high"] == np.inf
-    assert 0 < ex["low"] < ex["margin"]
-    assert ex["closed_low"] < -100 * abs(ex["low"])  # the quadratic model breaks down
+    assert np.isfinite(ex["high"]) and 0 < ex["low"] < ex["margin"] < ex["high"]
     d = explain_case(study, case, exact=True)
-    assert d["bands"]["exact"]["unbounded"] is True and d["bands"]["exact"]["high"] is None
+    assert d["bands"]["exact"]["unbounded"] is False
     json.dumps(d, allow_nan=False)

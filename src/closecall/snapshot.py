@@ -323,6 +323,7 @@ def build_snapshot(sid: str, config: StudyConfig, suite: SuiteResult) -> Snapsho
         "folds": config.model.folds,
         "seed": config.seed,
         "notes": suite.notes,
+        "fit_flags": suite.fit_flags,  # closecall.suite.FitFlags (issue 10, item 4)
     }
     return Snapshot(sid, meta, arrays)
 

@@ -10,6 +10,11 @@ pending cases are scored by the whole-history fits.
 For each model and scored case we keep which fitted coefficient row scored it, the log-odds, and
 x̃ᵀH⁻¹x̃ under that row's Hessian (the basis of the bands, see analysis/multiplicity.py).
 
+Every fit (whole history, each fold, each split group) is checked (logit.check_fit): separation,
+one outcome value, more columns than rows, a coefficient past the bound, no convergence. With
+penalty 0 such a fit has no valid unpenalised estimate and the suite refuses it (UserError
+naming the model, fit and group); with a penalty it is kept and listed in ``fit_flags``.
+
 References
 ----------
 Dwork, Immorlica, Kalai, Leiserson, "Decoupled classifiers for group-fair and efficient machine
@@ -33,8 +38,12 @@ from closecall.analysis.proxies import ProxyReport, detect_proxies
 from closecall.config import StudyConfig
 from closecall.data import StudyData
 from closecall.encode import Encoder, fit_encoder
+from closecall.errors import UserError
 from closecall.logit import (
+    COEF_BOUND,
+    FitCheck,
     LogitFit,
+    check_fit,
     cholesky_lower,
     fit_logit_blocks,
     held_out_state,
@@ -81,6 +90,7 @@ class SuiteResult:
     masks: dict[str, list[bool]]
     metrics: list[dict[str, Any]]
     notes: list[str] = field(default_factory=list)
+    fit_flags: list[dict[str, Any]] = field(default_factory=list)  # see FitFlags.flag
 
 
 def _strata(y: np.ndarray, g: np.ndarray) -> np.ndarray:
@@ -168,19 +178,29 @@ class _Layout:
             Xb, yb, mask, penalty, full, start=start, final_hessian=keep_hessian
         )
 
-    def nonconstant(self, segs: list[slice], mask: np.ndarray) -> np.ndarray:
-        """``mask`` without the columns that are constant over the rows of ``segs``."""
-        lo, hi = self._cell_ranges
-        cells = [
+    def _cells(self, segs: list[slice]) -> list[tuple[int, int]]:
+        """The non-empty (group, fold) cells inside ``segs``."""
+        return [
             (g, k)
             for g in range(self.bounds.shape[0])
             for k in range(self.bounds.shape[1] - 1)
             if self.bounds[g, k + 1] > self.bounds[g, k]
             and any(s.start <= self.bounds[g, k] and self.bounds[g, k + 1] <= s.stop for s in segs)
         ]
+
+    def nonconstant(self, segs: list[slice], mask: np.ndarray) -> np.ndarray:
+        """``mask`` without the columns that are constant over the rows of ``segs``."""
+        lo, hi = self._cell_ranges
+        cells = self._cells(segs)
         top = np.max([hi[c] for c in cells], axis=0)
         bottom = np.min([lo[c] for c in cells], axis=0)
         return mask & (top > bottom)
+
+    def col_maxabs(self, segs: list[slice]) -> np.ndarray:
+        """Largest |value| of each column over the rows of ``segs`` (from the cell ranges)."""
+        lo, hi = self._cell_ranges
+        cells = self._cells(segs)
+        return np.max([np.maximum(np.abs(lo[c]), np.abs(hi[c])) for c in cells], axis=0)
 
     @cached_property
     def _cell_ranges(
@@ -196,6 +216,177 @@ class _Layout:
                     lo[g, k] = self.X[a:b].min(axis=0)
                     hi[g, k] = self.X[a:b].max(axis=0)
         return lo, hi
+
+
+PROBLEM_WORDS = {
+    "one_outcome": "one outcome value",
+    "more_columns_than_rows": "more columns than rows",
+    "complete_separation": "complete separation",
+    "quasi_complete_separation": "quasi-complete separation",
+    "separation_not_ruled_out": "separation not ruled out",
+    "coefficient_past_bound": "a coefficient past the bound",
+    "not_converged": "no convergence",
+}
+
+
+@dataclass
+class FitFlags:
+    """Checks every fit of the suite: refuses at penalty 0, collects flags otherwise.
+
+    A flag is a dict: model, group (split: the level, else None), fit ("whole history" or
+    "fold k of K"), fold (1-based or None), row (the row of the model's fitted weights this fit
+    is, when it scores cases under review, else None), problem (a key of PROBLEM_WORDS),
+    detail (one sentence), rows and columns (intercept included) of the fit.
+    """
+
+    config: StudyConfig
+    layout: _Layout
+    columns: list[str]
+    levels: list[str]
+    flags: list[dict[str, Any]] = field(default_factory=list)
+    cold_refits: int = 0
+
+    def before(
+        self, model: str, segs: list[slice], mask: np.ndarray, group: int | None, fold: int | None
+    ) -> None:
+        """With penalty 0, refuse before fitting a fit with one outcome or too few rows."""
+        if self.config.model.penalty > 0:
+            return
+        n = int(sum(s.stop - s.start for s in segs))
+        favourable = float(sum(float(self.layout.y[s].sum()) for s in segs))
+        fc = FitCheck(
+            rows=n,
+            columns=int(mask.sum()) + 1,
+            one_outcome=favourable in (0.0, float(n)),
+            separation=None,
+            separated_rows=0,
+            separating_columns=(),
+            large_coefs=(),
+            converged=True,
+            cold_refit=False,
+            how="counts",
+        )
+        for problem in fc.problems:
+            raise self._refusal(self._flag(model, group, fold, None, problem, fc, None, segs))
+
+    def after(
+        self,
+        model: str,
+        fit: LogitFit,
+        segs: list[slice],
+        mask: np.ndarray,
+        group: int | None,
+        fold: int | None,
+        row: int | None,
+    ) -> None:
+        """Check a fit; refuse it at penalty 0, flag it otherwise."""
+        Xb, yb = self.layout.blocks(segs)
+        fc = check_fit(Xb, yb, mask, self.config.model.penalty, fit, self.layout.col_maxabs(segs))
+        self.cold_refits += int(fit.cold_refit)
+        for problem in fc.problems:
+            flag = self._flag(model, group, fold, row, problem, fc, fit, segs)
+            if self.config.model.penalty == 0:
+                raise self._refusal(flag)
+            self.flags.append(flag)
+
+    def _flag(
+        self,
+        model: str,
+        group: int | None,
+        fold: int | None,
+        row: int | None,
+        problem: str,
+        fc: FitCheck,
+        fit: LogitFit | None,
+        segs: list[slice],
+    ) -> dict[str, Any]:
+        K = self.config.model.folds
+        return {
+            "model": model,
+            "group": None if group is None else self.levels[group],
+            "fit": "whole history" if fold is None else f"fold {fold + 1} of {K}",
+            "fold": None if fold is None else fold + 1,
+            "row": row,
+            "problem": problem,
+            "detail": self._detail(problem, fc, fit, segs),
+            "rows": fc.rows,
+            "columns": fc.columns,
+        }
+
+    def _names(self, cols: tuple[int, ...], most: int = 4) -> str:
+        names = [self.columns[j] for j in cols[:most]]
+        more = f" and {len(cols) - most} more" if len(cols) > most else ""
+        return ", ".join(names) + more
+
+    def _detail(self, problem: str, fc: FitCheck, fit: LogitFit | None, segs: list[slice]) -> str:
+        n = f"{fc.rows:,}"
+        by = f"a combination of {self._names(fc.separating_columns)}"
+        if not fc.separating_columns:
+            by = "the intercept alone"
+        if problem == "one_outcome":
+            favourable = float(sum(float(self.layout.y[s].sum()) for s in segs)) > 0
+            word = "favourable" if favourable else "unfavourable"
+            return f"all {n} of its history cases have the {word} outcome"
+        if problem == "more_columns_than_rows":
+            return f"{fc.columns} columns (intercept included) for {n} history cases"
+        if problem == "complete_separation":
+            return f"{by} separates the outcomes of all {n} history cases"
+        if problem == "quasi_complete_separation":
+            return f"{by} predicts {fc.separated_rows:,} of its {n} history cases with certainty"
+        if problem == "separation_not_ruled_out":
+            return "the separation check did not settle (a linear program ran out of rounds)"
+        if problem == "coefficient_past_bound":
+            assert fit is not None
+            big = ", ".join(f"{self.columns[j]} {fit.coef[j]:+.1f}" for j in fc.large_coefs[:4])
+            more = f" and {len(fc.large_coefs) - 4} more" if len(fc.large_coefs) > 4 else ""
+            return f"{big}{more} (log-odds per unit; the bound is ±{COEF_BOUND:g})"
+        return "the solver's stopping rule was not met where it stopped"
+
+    def _refusal(self, flag: dict[str, Any]) -> UserError:
+        where = (
+            "the whole history"
+            if flag["fold"] is None
+            else (f"{flag['fit']} (the history without that fold's cases)")
+        )
+        if flag["group"] is not None:
+            where += f", group '{flag['group']}'"
+        return UserError(
+            f"{self.config.path}: [model] penalty = 0, but the {flag['model']} model's fit on "
+            f"{where} has {PROBLEM_WORDS[flag['problem']]}: {flag['detail']}. Without a "
+            "penalty this fit has no unique finite optimum, so its coefficients and scores "
+            "would not be valid",
+            f"set a penalty above 0 under [model] in {self.config.path.name} (penalty = 1.0 "
+            "is the default; see 'penalty' in docs/config.md): the fit is then kept and "
+            "flagged in closecall fit and explain",
+        )
+
+    def notes(self) -> list[str]:
+        """One note per model, group and problem (for the snapshot's notes)."""
+        out: list[str] = []
+        seen: dict[tuple[str, str | None, str], list[str]] = {}
+        for f in self.flags:
+            seen.setdefault((f["model"], f["group"], f["problem"]), []).append(f["fit"])
+        for (model, group, problem), fits in seen.items():
+            who = f"{model} model" + (f", group '{group}'" if group is not None else "")
+            out.append(
+                f"fit flag: {who}: {PROBLEM_WORDS[problem]} in {_fits_text(fits)}; fitted with "
+                f"penalty {self.config.model.penalty:g}, but read these scores with care"
+            )
+        if self.cold_refits:
+            out.append(
+                f"{self.cold_refits} fit(s) did not pass the convergence check from their warm "
+                "start and were fitted again from a cold start"
+            )
+        return out
+
+
+def _fits_text(fits: list[str]) -> str:
+    whole = [f for f in fits if not f.startswith("fold")]
+    folds = [f.split()[1] for f in fits if f.startswith("fold")]
+    parts = ["the whole history"] if whole else []
+    if folds:
+        parts.append(("fold " if len(folds) == 1 else "folds ") + ", ".join(folds))
+    return " and ".join(parts)
 
 
 def proxy_columns(encoder: Encoder, hist_X: np.ndarray) -> dict[str, tuple[str, np.ndarray]]:
@@ -264,15 +455,27 @@ def _fit_suite(config: StudyConfig, data: StudyData, progress: Progress) -> Suit
     def _all(k: int) -> bool:
         return True
 
+    cross_fitted = data.pending is None
+    checks = FitFlags(config, layout, encoder.columns, levels)
+
+    def whole_row(g: int | None) -> int | None:
+        """The row of a model's fitted weights a whole-history fit is (None: it scores no
+        case under review, as in a cross-fitted study)."""
+        return None if cross_fitted else (0 if g is None else g)
+
     full: dict[str, list[LogitFit]] = {}
     masks: dict[str, list[np.ndarray]] = {}
     all_rows = layout.segments(every, _all)
     pooled_mask = np.ones_like(group_mask)
+    checks.before("pooled", all_rows, pooled_mask, None, None)
     full["pooled"] = [layout.fit(all_rows, pooled_mask, penalty)]
+    checks.after("pooled", full["pooled"][0], all_rows, pooled_mask, None, None, whole_row(None))
     masks["pooled"] = [pooled_mask]
+    checks.before("unaware", all_rows, nongroup, None, None)
     full["unaware"] = [
         layout.fit_within(full["pooled"][0], pooled_mask, all_rows, nongroup, penalty)
     ]
+    checks.after("unaware", full["unaware"][0], all_rows, nongroup, None, None, whole_row(None))
     masks["unaware"] = [nongroup]
 
     # Proxy detection reads the history and the unaware fit only, and mostly keeps one core
@@ -299,12 +502,13 @@ def _fit_suite(config: StudyConfig, data: StudyData, progress: Progress) -> Suit
         for g in range(G):
             segs = layout.segments([g], _all)
             m = layout.nonconstant(segs, nongroup)
+            checks.before("split", segs, m, g, None)
             full["split"].append(layout.fit(segs, m, penalty, _warm_from(full["unaware"][0], m)))
+            checks.after("split", full["split"][g], segs, m, g, None, whole_row(g))
             masks["split"].append(m)
 
         # ---- cross-fitting (with one labelled file the fold fits score the cases: they keep
         # their Hessians)
-        cross_fitted = data.pending is None
         oof = {name: np.full(len(y), np.nan) for name in FITTED_MODELS}
         fold_fits: dict[str, list[LogitFit]] = {name: [] for name in FITTED_MODELS}
         fold_masks: dict[str, list[np.ndarray]] = {name: [] for name in FITTED_MODELS}
@@ -328,11 +532,14 @@ def _fit_suite(config: StudyConfig, data: StudyData, progress: Progress) -> Suit
                 else:
                     m = layout.nonconstant(train, nongroup)
                     start = full["split"][g]
+                checks.before(name, train, m, g, k)
                 if np.array_equal(m, masks[name][0 if g is None else g]):
                     fit = layout.refit_without(start, train, test, m, penalty, cross_fitted)
                 else:  # a column is constant outside this fold: a model on fewer columns
                     Xb, yb = layout.blocks(train)
                     fit = fit_logit_blocks(Xb, yb, m, penalty, start, final_hessian=cross_fitted)
+                row = (k * G + (g or 0) if g is not None else k) if cross_fitted else None
+                checks.after(name, fit, train, m, g, k, row)
                 for s in test:
                     oof[name][layout.perm[s]] = fit.logit(layout.X[s])
                 fold_fits[name].append(fit)
@@ -347,9 +554,13 @@ def _fit_suite(config: StudyConfig, data: StudyData, progress: Progress) -> Suit
     proxy_free_mask = nongroup & ~encoder.source_mask(proxies.proxies)
     if not proxy_free_mask.any():
         notes.append("every non-group feature is a proxy: the proxy-free model is intercept-only")
+    checks.before("proxy_free", all_rows, proxy_free_mask, None, None)
     full["proxy_free"] = [
         layout.fit_within(full["unaware"][0], nongroup, all_rows, proxy_free_mask, penalty)
     ]
+    checks.after(
+        "proxy_free", full["proxy_free"][0], all_rows, proxy_free_mask, None, None, whole_row(None)
+    )
     masks["proxy_free"] = [proxy_free_mask]
     for k in range(K):
         cross_fit("proxy_free", k)
@@ -447,7 +658,8 @@ def _fit_suite(config: StudyConfig, data: StudyData, progress: Progress) -> Suit
         proxies=proxies,
         masks={k: [bool(b) for b in v[0]] for k, v in masks.items() if k != "split"},
         metrics=metrics,
-        notes=notes,
+        notes=notes + checks.notes(),
+        fit_flags=checks.flags,
     )
 
 

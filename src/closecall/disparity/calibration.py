@@ -92,6 +92,7 @@ class GroupCalibration:
     slope_detectable: Detectable
     bins: tuple[ReliabilityBin, ...]
     thresholds: tuple[EffectiveThreshold, ...]
+    problems: tuple[str, ...]  # "too extreme" (slope < 1), "too timid", "too high/low on average"
     verdict: str
     note: str | None
 
@@ -161,7 +162,8 @@ def reliability_bins(
     if len(eta) == 0:
         return ()
     edges = np.unique(np.quantile(eta, np.linspace(0.0, 1.0, bins + 1)))
-    idx = np.clip(np.searchsorted(edges, eta, side="right") - 1, 0, max(len(edges) - 2, 0))
+    # right-closed bins (a, b], the lowest including its left edge (as pandas.qcut)
+    idx = np.clip(np.searchsorted(edges, eta, side="left") - 1, 0, max(len(edges) - 2, 0))
     k = max(len(edges) - 1, 1)
     n = np.bincount(idx, minlength=k)
     ev = np.bincount(idx, weights=y, minlength=k)
@@ -212,19 +214,24 @@ def effective_thresholds(
     return tuple(out)
 
 
-def _verdict(lo0: float, hi0: float, lo: float, hi: float) -> str:
+def _problems(lo0: float, hi0: float, lo: float, hi: float) -> tuple[str, ...]:
+    """What the intervals show: slope below or above 1, intercept below or above 0."""
     parts = []
     if np.isfinite(lo) and hi < 1.0:
-        parts.append("too extreme (slope below 1)")
+        parts.append("too extreme")
     elif np.isfinite(lo) and lo > 1.0:
-        parts.append("too timid (slope above 1)")
+        parts.append("too timid")
     if np.isfinite(lo0) and hi0 < 0.0:
         parts.append("too high on average")
     elif np.isfinite(lo0) and lo0 > 0.0:
         parts.append("too low on average")
-    if not parts:
+    return tuple(parts)
+
+
+def _verdict(problems: tuple[str, ...]) -> str:
+    if not problems:
         return "no miscalibration shown (read the intervals: it may be too small to detect)"
-    return "miscalibrated: " + ", ".join(parts)
+    return "miscalibrated: " + ", ".join(problems)
 
 
 def calibration_by_group(
@@ -288,6 +295,7 @@ def calibration_by_group(
                     f"only {min(ev, n - ev)} cases in the rarer outcome: calibration estimates "
                     "are rough (common practice asks for at least 100)"
                 )
+            problems = _problems(a0 - z * se0, a0 + z * se0, b - z * se_b, b + z * se_b)
             rows.append(
                 GroupCalibration(
                     model=model,
@@ -307,7 +315,8 @@ def calibration_by_group(
                     slope_detectable=detectable_shift(se_b, 1.0, "calibration slope"),
                     bins=reliability_bins(eta, yv, bins, level),
                     thresholds=effective_thresholds(a, b, cov, lenses, z),
-                    verdict=_verdict(a0 - z * se0, a0 + z * se0, b - z * se_b, b + z * se_b),
+                    problems=problems,
+                    verdict=_verdict(problems),
                     note=note,
                 )
             )
@@ -334,6 +343,7 @@ def _empty(model: str, group: str, n: int, ev: int, why: str) -> GroupCalibratio
         slope_detectable=detectable_shift(nan, 1.0, "calibration slope"),
         bins=(),
         thresholds=(),
+        problems=(),
         verdict="not estimated",
         note=why,
     )

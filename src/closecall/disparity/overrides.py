@@ -52,34 +52,48 @@ class OverrideComparison:
 
 def override_counts(df: pd.DataFrame, groups: list[str], level: float) -> list[GroupOverrides]:
     """Per-group override rows for an already checked review table (see check_reviews)."""
+    return override_counts_by(df, groups, level, by=None)[None]
+
+
+def override_counts_by(
+    df: pd.DataFrame, groups: list[str], level: float, by: str | None
+) -> dict[object, list[GroupOverrides]]:
+    """Per-group override rows for each value of column ``by`` (or the whole table when
+    ``by`` is None), from one grouped count: no pass over the cases per value."""
+    keys = [by, "group"] if by is not None else ["group"]
     d = df[df["decided"]]
-    by = d.groupby("group")
-    agg = pd.DataFrame(
-        {
-            "decided": by.size(),
-            "overridden": by["overridden"].sum(),
-            "model_fav": by["model_fav"].sum(),
-            "to_unf": by["to_unfavourable"].sum(),
-            "to_fav": by["to_favourable"].sum(),
-        }
-    ).reindex(groups, fill_value=0)
-    agg["deferred"] = df.loc[~df["decided"], "group"].value_counts().reindex(groups, fill_value=0)
-    agg["model_unf"] = agg["decided"] - agg["model_fav"]
+    agg = d.groupby(keys).agg(
+        decided=("decided", "size"),
+        overridden=("overridden", "sum"),
+        model_fav=("model_fav", "sum"),
+        to_unf=("to_unfavourable", "sum"),
+        to_fav=("to_favourable", "sum"),
+    )
+    deferred = df[~df["decided"]].groupby(keys).size()
+    values = [None] if by is None else list(pd.unique(df[by]))
+    index = (
+        pd.Index(groups, name="group")
+        if by is None
+        else pd.MultiIndex.from_product([values, groups], names=keys)
+    )
+    agg = agg.reindex(index, fill_value=0)
+    agg["deferred"] = deferred.reindex(index, fill_value=0).to_numpy()
     n = agg["decided"].to_numpy()
     ov = agg["overridden"].to_numpy()
     mf = agg["model_fav"].to_numpy()
-    mu = agg["model_unf"].to_numpy()
+    mu = n - mf
     tu = agg["to_unf"].to_numpy()
     tf = agg["to_fav"].to_numpy()
+    de = agg["deferred"].to_numpy()
     ov_lo, ov_hi = wilson_interval(ov, n, level)
     tu_lo, tu_hi = wilson_interval(tu, mf, level)
     tf_lo, tf_hi = wilson_interval(tf, mu, level)
     ov_rate, tu_rate, tf_rate = proportion(ov, n), proportion(tu, mf), proportion(tf, mu)
-    return [
+    rows = [
         GroupOverrides(
-            group=g,
+            group=groups[i % len(groups)],
             decided=int(n[i]),
-            deferred=int(agg["deferred"].iloc[i]),
+            deferred=int(de[i]),
             upheld=int(n[i] - ov[i]),
             overridden=int(ov[i]),
             override_rate=float(ov_rate[i]),
@@ -96,8 +110,17 @@ def override_counts(df: pd.DataFrame, groups: list[str], level: float) -> list[G
             to_favourable_low=float(tf_lo[i]),
             to_favourable_high=float(tf_hi[i]),
         )
-        for i, g in enumerate(groups)
+        for i in range(len(n))
     ]
+    G = len(groups)
+    return {v: rows[k * G : (k + 1) * G] for k, v in enumerate(values)}
+
+
+def any_override_test(rows: list[GroupOverrides], seed: int = 0) -> IndependenceTest:
+    """The test of group × any override (the first of :func:`override_tests`)."""
+    names = tuple(r.group for r in rows)
+    any_t = np.array([[r.overridden, r.upheld] for r in rows])
+    return independence_test("override × group", any_t, names, ("overridden", "upheld"), seed=seed)
 
 
 def override_tests(rows: list[GroupOverrides], seed: int = 0) -> tuple[IndependenceTest, ...]:

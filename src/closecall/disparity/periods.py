@@ -84,7 +84,9 @@ def period_labels(times: pd.Series, unit: str) -> pd.Series:
         label = year + "-" + stamp.dt.month.astype("Int64").astype(str).str.zfill(2)
     else:
         label = year + "Q" + stamp.dt.quarter.astype("Int64").astype(str)
-    return label.where(stamp.notna(), None)
+    out = label.astype(object)
+    out[stamp.isna().to_numpy()] = None
+    return out
 
 
 def by_period(

@@ -7,7 +7,7 @@ from dataclasses import dataclass
 import pandas as pd
 
 from closecall.disparity.contingency import IndependenceTest
-from closecall.disparity.overrides import GroupOverrides, override_counts, override_tests
+from closecall.disparity.overrides import GroupOverrides, any_override_test, override_counts_by
 from closecall.disparity.table import check_reviews, group_order
 
 #: Fewer decided reviews than this in a reviewer × group cell earns a warning (common practice:
@@ -41,10 +41,11 @@ def reviewer_tables(
     df = check_reviews(reviews)
     groups = group_order(df)
     order = df["reviewer"].value_counts()
+    decided = df.groupby("reviewer")["decided"].sum()
+    tables = override_counts_by(df, groups, level, by="reviewer")
     out: list[ReviewerTable] = []
-    for name in sorted(order.index, key=lambda r: (-int(order[r]), str(r))):
-        sub = df[df["reviewer"] == name]
-        rows = override_counts(sub, groups, level)
+    for name in sorted(order.index, key=lambda r: (-int(order[r]), str(r))):  # reviewers
+        rows = tables[name]
         warn: list[str] = []
         thin = [r.group for r in rows if 0 < r.decided < small]
         if thin:
@@ -58,10 +59,10 @@ def reviewer_tables(
         out.append(
             ReviewerTable(
                 reviewer=str(name),
-                decided=int(sub["decided"].sum()),
-                deferred=int((~sub["decided"]).sum()),
+                decided=int(decided[name]),
+                deferred=int(order[name] - decided[name]),
                 rows=tuple(rows),
-                test=override_tests(rows, seed)[0],
+                test=any_override_test(rows, seed),
                 warnings=tuple(warn),
             )
         )

@@ -33,6 +33,7 @@ KEYS = {
     "bands",
     "neighbours",
     "proxies",
+    "fit_flags",  # issue 10: flags of the fits that scored the case
 }
 
 

@@ -39,6 +39,7 @@ from closecall.config import StudyConfig
 from closecall.data import StudyData
 from closecall.encode import Encoder, fit_encoder
 from closecall.errors import UserError
+from closecall.fit_flags import PROBLEM_WORDS, fits_text, grouped_flags
 from closecall.logit import (
     COEF_BOUND,
     FitCheck,
@@ -90,7 +91,7 @@ class SuiteResult:
     masks: dict[str, list[bool]]
     metrics: list[dict[str, Any]]
     notes: list[str] = field(default_factory=list)
-    fit_flags: list[dict[str, Any]] = field(default_factory=list)  # see FitFlags.flag
+    fit_flags: list[dict[str, Any]] = field(default_factory=list)  # see closecall.fit_flags
 
 
 def _strata(y: np.ndarray, g: np.ndarray) -> np.ndarray:
@@ -218,26 +219,10 @@ class _Layout:
         return lo, hi
 
 
-PROBLEM_WORDS = {
-    "one_outcome": "one outcome value",
-    "more_columns_than_rows": "more columns than rows",
-    "complete_separation": "complete separation",
-    "quasi_complete_separation": "quasi-complete separation",
-    "separation_not_ruled_out": "separation not ruled out",
-    "coefficient_past_bound": "a coefficient past the bound",
-    "not_converged": "no convergence",
-}
-
-
 @dataclass
 class FitFlags:
-    """Checks every fit of the suite: refuses at penalty 0, collects flags otherwise.
-
-    A flag is a dict: model, group (split: the level, else None), fit ("whole history" or
-    "fold k of K"), fold (1-based or None), row (the row of the model's fitted weights this fit
-    is, when it scores cases under review, else None), problem (a key of PROBLEM_WORDS),
-    detail (one sentence), rows and columns (intercept included) of the fit.
-    """
+    """Checks every fit of the suite: refuses at penalty 0, collects flags otherwise (the
+    flags' keys are described in closecall.fit_flags)."""
 
     config: StudyConfig
     layout: _Layout
@@ -363,14 +348,14 @@ class FitFlags:
     def notes(self) -> list[str]:
         """One note per model, group and problem (for the snapshot's notes)."""
         out: list[str] = []
-        seen: dict[tuple[str, str | None, str], list[str]] = {}
-        for f in self.flags:
-            seen.setdefault((f["model"], f["group"], f["problem"]), []).append(f["fit"])
-        for (model, group, problem), fits in seen.items():
-            who = f"{model} model" + (f", group '{group}'" if group is not None else "")
+        for entry in grouped_flags(self.flags):
+            who = f"{entry['model']} model"
+            if entry["group"] is not None:
+                who += f", group '{entry['group']}'"
             out.append(
-                f"fit flag: {who}: {PROBLEM_WORDS[problem]} in {_fits_text(fits)}; fitted with "
-                f"penalty {self.config.model.penalty:g}, but read these scores with care"
+                f"fit flag: {who}: {PROBLEM_WORDS[entry['problem']]} in "
+                f"{fits_text(entry['fits'])}; fitted with penalty "
+                f"{self.config.model.penalty:g}, but read these scores with care"
             )
         if self.cold_refits:
             out.append(
@@ -378,15 +363,6 @@ class FitFlags:
                 "start and were fitted again from a cold start"
             )
         return out
-
-
-def _fits_text(fits: list[str]) -> str:
-    whole = [f for f in fits if not f.startswith("fold")]
-    folds = [f.split()[1] for f in fits if f.startswith("fold")]
-    parts = ["the whole history"] if whole else []
-    if folds:
-        parts.append(("fold " if len(folds) == 1 else "folds ") + ", ".join(folds))
-    return " and ".join(parts)
 
 
 def proxy_columns(encoder: Encoder, hist_X: np.ndarray) -> dict[str, tuple[str, np.ndarray]]:
@@ -468,6 +444,10 @@ def _fit_suite(config: StudyConfig, data: StudyData, progress: Progress) -> Suit
     all_rows = layout.segments(every, _all)
     pooled_mask = np.ones_like(group_mask)
     checks.before("pooled", all_rows, pooled_mask, None, None)
+    if penalty == 0:  # a group with one outcome value is named before the pooled fit trips on it
+        for g in every:
+            segs = layout.segments([g], _all)
+            checks.before("split", segs, layout.nonconstant(segs, nongroup), g, None)
     full["pooled"] = [layout.fit(all_rows, pooled_mask, penalty)]
     checks.after("pooled", full["pooled"][0], all_rows, pooled_mask, None, None, whole_row(None))
     masks["pooled"] = [pooled_mask]

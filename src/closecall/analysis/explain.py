@@ -38,6 +38,9 @@ neighbours : {"k", "neighbours": [{"case_id", "group", "outcome", "distance", "r
     "favourable_share", "by_group": [{"group", "neighbours", "favourable_share",
     "mean_distance"}]}
 proxies : {"flagged": [feature names], "recoverability_auc": float}
+fit_flags : {"this_case": [flags of the fits that scored this case], "in_snapshot": int}; a flag
+    is a dict described in closecall.fit_flags (separation, one outcome value, …: the fit was
+    kept with a penalty despite the problem)
 
 All margins are in log-odds; > 0 means the favourable decision.
 """
@@ -52,6 +55,7 @@ from closecall.analysis.counterparts import counterparts_for_case
 from closecall.analysis.dependence import dependence
 from closecall.analysis.multiplicity import UNCERTAINTY_EPSILON, bands, exact_band
 from closecall.analysis.neighbours import neighbours_for_case
+from closecall.fit_flags import case_fit_flags, snapshot_flags
 from closecall.snapshot import Snapshot, decision_word
 
 MODEL = "pooled"
@@ -178,6 +182,10 @@ def explain_case(
             "flagged": snap.proxies.proxies,
             "recoverability_auc": snap.proxies.recoverability,
         },
+        "fit_flags": {
+            "this_case": case_fit_flags(snap, i),
+            "in_snapshot": len(snapshot_flags(snap)),
+        },
     }
 
 
@@ -203,4 +211,3 @@ def _with_reviews(config: Any, nb: dict[str, Any]) -> dict[str, Any]:
     except UserError:
         pass
     return nb
-

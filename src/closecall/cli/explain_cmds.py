@@ -129,6 +129,7 @@ def _print_explanation(d: dict[str, Any]) -> None:
     line.append(f"margin {_signed(d['margin'], 3)} → ")
     line.append_text(_decision(d["margin"]))
     console.print(line)
+    _print_fit_flags(d["fit_flags"])
 
     _heading("Decisions across the suite")
     t = _grid("model", "margin", "decision", "", right=(1,))
@@ -248,6 +249,30 @@ def _print_explanation(d: dict[str, Any]) -> None:
     _say(f"favourable among them: {_pct(nb['favourable_share'])}")
     _say(f"favourable among the {nb['k']} nearest of each group: {per_group}")
     _say(_txt(f"proxies flagged: {', '.join(d['proxies']['flagged']) or 'none'}", "dim"))
+
+
+def _print_fit_flags(ff: dict[str, Any]) -> None:
+    """The flags of the fits that scored this case, right under the headline."""
+    from closecall.fit_flags import flag_label
+
+    for flag in ff["this_case"]:
+        _say(_txt(f"{FLAG} fit flag: {flag_label(flag)} — {flag['detail']}", "bold"))
+    if ff["this_case"]:
+        _say(
+            _txt(
+                "kept with a penalty despite the problem: read these models' margins with care "
+                "(closecall fit lists every flagged fit)",
+                "dim",
+            )
+        )
+    elif ff["in_snapshot"]:
+        _say(
+            _txt(
+                f"{ff['in_snapshot']} fit(s) of this snapshot are flagged, none that scored this "
+                "case (closecall fit lists them)",
+                "dim",
+            )
+        )
 
 
 def _value(v: Any) -> str:

@@ -19,9 +19,18 @@ from closecall.cli.common import (
     progress_bar,
     resolve_format,
 )
-from closecall.cli.output import Format, console, emit_json, emit_rows, err_console, format_cell
+from closecall.cli.output import (
+    Format,
+    console,
+    emit_json,
+    emit_rows,
+    err_console,
+    format_cell,
+    safe_text,
+)
 from closecall.config import CONFIG_NAME
 from closecall.errors import UserError
+from closecall.fit_flags import PROBLEM_WORDS, fits_text, grouped_flags, snapshot_flags
 from closecall.margin_distribution import MarginDistribution, margin_distribution
 from closecall.queue import SORT_KEYS, build_queue, queue_rows
 from closecall.review_states import STATE_NAMES, study_review_states
@@ -128,6 +137,7 @@ def fit(
         "group_recoverability_auc": snap.proxies.recoverability,
         "metrics": snap.metrics,
         "notes": snap.meta.get("notes", []),
+        "fit_flags": snapshot_flags(snap),
     }
     if as_json:
         emit_json(payload)
@@ -154,8 +164,33 @@ def fit(
         f"proxies: {', '.join(snap.proxies.proxies) or 'none'}   "
         f"group recoverable from the other features: AUC {snap.proxies.recoverability:.3f}"
     )
+    _print_fit_flags(snap)
     for note in snap.meta.get("notes", []):
-        err_console.print(f"note: {note}")
+        if not str(note).startswith("fit flag:"):  # the fit flags table above shows those
+            err_console.print(f"note: {note}")
+
+
+def _print_fit_flags(snap: Any) -> None:
+    """The fits the checks flagged (separation, one outcome, …), one entry per model, group
+    and problem with the first fit's detail; --json lists every fit."""
+    flags = snapshot_flags(snap)
+    if not flags:
+        return
+    console.print(
+        Text(
+            f"fit flags: {len(flags)} fit(s) kept with penalty {snap.meta['penalty']:g} "
+            "despite a problem; read these models' scores and held-out quality with care "
+            "(docs/methods.md, 'Convergence and separation checks')",
+            style="bold",
+        )
+    )
+    for entry in grouped_flags(flags):
+        who = f"{entry['model']} model"
+        if entry["group"] is not None:
+            who += f", group '{entry['group']}'"
+        problem = PROBLEM_WORDS.get(entry["problem"], entry["problem"])
+        console.print(Text(safe_text(f"  ✱ {who}: {problem} in {fits_text(entry['fits'])}")))
+        console.print(Text(safe_text(f"    {entry['fits'][0]}: {entry['detail']}"), style="dim"))
 
 
 def _metric_cell(value: Any) -> str:

@@ -16,7 +16,9 @@ from textual.screen import Screen
 from textual.widgets import Static
 from textual.worker import get_current_worker
 
+from closecall.cli.output import safe_text
 from closecall.errors import UserError
+from closecall.fit_flags import PROBLEM_WORDS, case_fit_flags
 from closecall.ledger import Draft, Entry
 from closecall.reviews import (
     active_claims,
@@ -295,4 +297,15 @@ def case_summary(session: ReviewSession, row: int, explained: dict[str, Any] | N
             text.append(" · rests on group")
         elif dep["rests_on_proxies"]:
             text.append(" · rests on proxies")
+    flags = case_fit_flags(snap, row)
+    if flags:  # the fits that scored this case were kept despite separation or the like
+        words = sorted(
+            {f"{f['model']} ({PROBLEM_WORDS.get(f['problem'], f['problem'])})" for f in flags}
+        )
+        text.append(
+            f"\n{FIT_FLAG} fit flagged: {safe_text(', '.join(words))} — see closecall fit", "bold"
+        )
     return text
+
+
+FIT_FLAG = "⚑"

@@ -18,6 +18,7 @@ from __future__ import annotations
 import hmac
 import io
 import os
+import re
 import secrets
 import stat
 from collections.abc import Sequence
@@ -315,32 +316,46 @@ def export_reviews(
     )
 
 
-FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
+#: A text cell a spreadsheet may run as a formula: one starting with a tab or a carriage return,
+#: or with = + - @ after any leading whitespace (OWASP, "CSV Injection"; common practice).
+FORMULA_START = re.compile(r"[\t\r]|\s*[=+\-@]")
+
+#: Line ends of an exported CSV file: CRLF, as RFC 4180 (section 2) writes records. The csv
+#: writer quotes every field holding a character of the line end, so CR and LF inside a note
+#: are always quoted (with LF line ends a lone CR would go out unquoted).
+CSV_LINE_END = "\r\n"
 
 
 def spreadsheet_safe(table: pd.DataFrame) -> pd.DataFrame:
     """A copy whose text cells cannot run as spreadsheet formulas.
 
-    A text cell that starts with = + - @ (or a tab or carriage return) gets a leading
-    apostrophe, the usual guard against formula injection when a CSV is opened in a
-    spreadsheet (OWASP, "CSV Injection"; common practice). Numbers are left alone. The export
-    is then no longer byte-exact, which is why this is an option and not the default.
+    A text cell that starts with = + - @ after any leading whitespace, or with a tab or a
+    carriage return, gets a leading apostrophe, the usual guard against formula injection when
+    a CSV is opened in a spreadsheet (OWASP, "CSV Injection"; common practice). Numbers are
+    left alone. The export is then no longer byte-exact, which is why this is an option and
+    not the default.
     """
     out = table.copy()
     for col in out.columns:
         series = out[col]
         if series.dtype == object or pd.api.types.is_string_dtype(series):
             text = series.astype("string")
-            risky = text.str.startswith(FORMULA_STARTS).fillna(False).to_numpy(dtype=bool)
+            risky = text.str.match(FORMULA_START).fillna(False).to_numpy(dtype=bool)
             if risky.any():
                 out[col] = series.astype(object).where(~risky, "'" + text.astype(object))
     return out
 
 
-def table_bytes(table: pd.DataFrame, fmt: str) -> bytes:
-    """The table encoded as CSV, Parquet or JSON Lines (UTF-8; missing values empty/null)."""
+def table_bytes(table: pd.DataFrame, fmt: str, *, line_end: str = CSV_LINE_END) -> bytes:
+    """The table encoded as CSV, Parquet or JSON Lines (UTF-8; missing values empty/null).
+
+    CSV quotes every field that holds a comma, a double quote, a CR or an LF (RFC 4180):
+    read back with Python's csv module or ``pandas.read_csv`` it gives the exact text.
+    ``line_end`` ends each CSV record; a field holding any of its characters is quoted, so
+    pass ``"\n"`` only for text that holds no CR.
+    """
     if fmt == "csv":
-        return table.to_csv(index=False).encode("utf-8")
+        return table.to_csv(index=False, lineterminator=line_end).encode("utf-8")
     if fmt == "jsonl":
         if len(table) == 0:
             return b""

@@ -6,11 +6,10 @@ import importlib
 import sys
 
 import typer
-from rich.markup import escape
 
 from closecall import __version__
 from closecall.cautions import CAUTIONS
-from closecall.cli.output import err_console, safe_text
+from closecall.cli.output import err_console, safe_markup
 from closecall.errors import UserError
 
 _CAUTION_PARAGRAPHS = "\n\n".join(f"- {line}" for line in CAUTIONS)  # one paragraph each
@@ -106,9 +105,9 @@ def main() -> None:
     try:
         app()  # standalone: usage errors print their own message and exit 2
     except UserError as exc:
-        err_console.print(f"[bold red]error:[/] {escape(safe_text(exc.message))}", soft_wrap=True)
+        err_console.print(f"[bold red]error:[/] {safe_markup(exc.message)}", soft_wrap=True)
         if exc.fix:
-            err_console.print(f"  [bold]fix:[/] {escape(safe_text(exc.fix))}", soft_wrap=True)
+            err_console.print(f"  [bold]fix:[/] {safe_markup(exc.fix)}", soft_wrap=True)
         sys.exit(exc.exit_code)
     except KeyboardInterrupt:
         err_console.print("interrupted")

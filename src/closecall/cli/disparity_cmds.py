@@ -6,11 +6,10 @@ import math
 from pathlib import Path
 
 import typer
-from rich.markup import escape
 from rich.table import Table
 
 from closecall.cli.common import ConfigOption, JsonOption, load
-from closecall.cli.output import console, emit_json, err_console, safe_text
+from closecall.cli.output import console, emit_json, err_console, safe_markup
 from closecall.config import load_config
 from closecall.disparity.contingency import IndependenceTest
 from closecall.disparity.from_study import study_report
@@ -24,7 +23,7 @@ BAR_WIDTH = 10
 
 def _t(text: object) -> str:
     """Data text made safe for a rich cell: control characters and markup escaped."""
-    return escape(safe_text(str(text)))
+    return safe_markup(text)
 
 
 def _pct(x: float | None) -> str:
@@ -131,7 +130,7 @@ def _tests_table(tests: tuple[IndependenceTest, ...]) -> Table:
             if x.statistic is not None
             else "—"
         )
-        t.add_row(_t(x.name), x.method, stat, _p(x.p_value), _t(x.note or ""))
+        t.add_row(_t(x.name), _t(x.method), _t(stat), _p(x.p_value), _t(x.note or ""))
     return t
 
 

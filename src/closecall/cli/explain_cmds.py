@@ -25,7 +25,7 @@ from closecall.analysis.multiplicity import (
     epsilon_curve,
 )
 from closecall.cli.common import ConfigOption, JsonOption, load
-from closecall.cli.output import console, emit_json, safe_text
+from closecall.cli.output import console, emit_json, plain, safe_text
 from closecall.errors import UserError
 
 LensOption = typer.Option(None, "--lens", help="Cost lens name (default: the first one).")
@@ -36,7 +36,7 @@ FLAG = "✱"
 
 
 def _txt(text: Any, style: str = "") -> Text:
-    return Text(safe_text(str(text)), style=style)
+    return plain(text, style)
 
 
 def _signed(x: float, digits: int = 2) -> str:
@@ -80,8 +80,8 @@ def _heading(text: str) -> None:
 
 def _grid(*headers: str, right: tuple[int, ...] = ()) -> Table:
     table = Table(box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False, header_style="bold")
-    for i, h in enumerate(headers):
-        table.add_column(h, justify="right" if i in right else "left", no_wrap=i in right)
+    for i, h in enumerate(headers):  # headers may be group levels: plain text, escaped
+        table.add_column(_txt(h), justify="right" if i in right else "left", no_wrap=i in right)
     return table
 
 
@@ -120,7 +120,9 @@ def _print_explanation(d: dict[str, Any]) -> None:
     lens = d["lens"]
     head = Text()
     head.append(safe_text(d["case_id"]), "bold")
-    head.append(f" · group {safe_text(d['group'])} · recorded outcome {d['outcome']}")
+    head.append(
+        f" · group {safe_text(d['group'])} · recorded outcome {safe_text(str(d['outcome']))}"
+    )
     head.append(f" · snapshot {d['snapshot']}")
     console.print(head)
     line = Text(

@@ -5,15 +5,19 @@ from __future__ import annotations
 import sys
 from enum import StrEnum
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import typer
 
 from closecall.cli.common import ConfigOption, load
-from closecall.cli.output import err_console, safe_text
+from closecall.cli.output import err_console, escape_text_cells, json_safe, safe_text
 from closecall.config import load_config
 from closecall.errors import UserError
 from closecall.output_files import check_key_file, check_output, study_files
 from closecall.reviews import ledger_entries
+
+if TYPE_CHECKING:
+    import pandas as pd
 
 
 class ExportFormat(StrEnum):
@@ -42,8 +46,9 @@ def export(
     spreadsheet: bool = typer.Option(
         False,
         "--spreadsheet-safe",
-        help="Prefix an apostrophe to text cells that start with = + - @, so a spreadsheet "
-        "opening the file cannot run them as formulas (the text is then not byte-exact).",
+        help="Prefix an apostrophe to text cells that start with = + - @ (also after leading "
+        "whitespace), a tab or a CR, so a spreadsheet opening the file cannot run them as "
+        "formulas (the text is then not byte-exact).",
     ),
     out: Path | None = typer.Option(
         None,
@@ -60,7 +65,8 @@ def export(
     Each row: case, group, reviewer, the reference model's margin and decision, the action, the
     final decision (empty for a deferral), reason, note, and every model's margin and decision
     as the reviewer saw them. With --pseudonymise the entry hashes are left out (they would
-    let anyone confirm a guessed case id).
+    let anyone confirm a guessed case id). A file (--out) holds the exact text; on standard
+    output control and bidi characters are escaped (CSV shows them as codes such as \x1b).
 
     \b
     Example:
@@ -71,7 +77,6 @@ def export(
     from closecall.export import (  # heavy: on use
         export_reviews,
         spreadsheet_safe,
-        table_bytes,
         write_export,
     )
 
@@ -104,7 +109,7 @@ def export(
     table = spreadsheet_safe(result.table) if spreadsheet else result.table
     what = "entries" if all_entries else "effective reviews"
     if out is None:
-        sys.stdout.buffer.write(table_bytes(table, fmt.value))
+        sys.stdout.buffer.write(_terminal_bytes(table, fmt.value))
         sys.stdout.flush()
         return
     write_export(table, fmt.value, out, protected=protected, force=force)
@@ -113,6 +118,30 @@ def export(
         f"to {safe_text(str(out))}",
         markup=False,
     )
+
+
+def _terminal_bytes(table: pd.DataFrame, fmt: str) -> bytes:
+    """The export for standard output: nothing reaches a terminal raw.
+
+    JSON Lines keeps every value exact (unsafe characters written as \\uXXXX escapes); CSV
+    cannot, so its text cells show them as visible escapes (``\\x1b``, ``\\r``), lines end
+    with LF, and a note on standard error says how many cells and how to get the exact text.
+    Parquet is binary (refused on a terminal) and goes out as it is.
+    """
+    from closecall.export import table_bytes
+
+    if fmt == "jsonl":
+        return json_safe(table_bytes(table, fmt).decode("utf-8")).encode("utf-8")
+    if fmt != "csv":
+        return table_bytes(table, fmt)
+    shown, changed = escape_text_cells(table)
+    if changed:
+        err_console.print(
+            f"note: {changed} cell(s) hold control, bidi or zero-width characters, shown here "
+            "as escapes such as \\x1b; write with --out FILE for the exact text",
+            markup=False,
+        )
+    return table_bytes(shown, fmt, line_end="\n")
 
 
 def register_ledger_export(ledger_app: typer.Typer) -> None:

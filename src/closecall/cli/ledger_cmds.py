@@ -95,7 +95,7 @@ ledger_app = typer.Typer(
 
 
 def _preview(note: str, width: int) -> str:
-    flat = " ".join(safe_text(note).split())
+    flat = safe_text(" ".join(note.split()))
     return flat if len(flat) <= width else flat[: max(width - 1, 0)] + "…"
 
 
@@ -149,15 +149,17 @@ def _table(entries: list[Entry], ledger: Path) -> Table:
         )
     table.add_column("note", no_wrap=True, overflow="ellipsis", ratio=1, min_width=12)
     for e, row in zip(entries, cells, strict=True):
-        table.add_row(*(Text(safe_text(c)) for c in row), Text(_preview(e.note, 400)))
+        table.add_row(
+            *(Text(safe_text(c, multiline=True)) for c in row), Text(_preview(e.note, 400))
+        )
     return table
 
 
 def _csv_row(e: Entry) -> dict[str, Any]:
     row = e.to_dict()
     row["decisions"] = canonical_json(e.decisions).decode("utf-8")
-    # shown on a terminal: escape control characters (exact text: --json or `ledger export`)
-    return {k: safe_text(v) if isinstance(v, str) else v for k, v in row.items()}
+    # emit_rows escapes control characters for the terminal (exact text: --json or an export)
+    return row
 
 
 @ledger_app.command("show")

@@ -26,6 +26,7 @@ from closecall.cli.output import (
     emit_rows,
     err_console,
     format_cell,
+    plain,
     safe_text,
 )
 from closecall.config import CONFIG_NAME
@@ -73,14 +74,14 @@ def init(
     if as_json:
         emit_json({"config": str(out), "inferred": inf.inferred, "to_decide": inf.to_decide})
         return
-    console.print(f"wrote {out}")
+    console.print(plain(f"wrote {out}"))
     for key, value in inf.inferred.items():
         if key != "kinds":
-            console.print(f"  inferred {key}: {value}")
+            console.print(plain(f"  inferred {key}: {value}"))
     console.print(f"  inferred kinds for {len(inf.inferred.get('kinds', {}))} features")  # type: ignore[arg-type]
     console.print("still to decide:")
     for item in inf.to_decide:
-        console.print(f"  - {item}")
+        console.print(plain(f"  - {item}"))
 
 
 def demo(
@@ -104,10 +105,10 @@ def demo(
     if as_json:
         emit_json({"config": str(config), "cases": cases, "seed": seed, "snapshot": sid})
         return
-    console.print(f"wrote the demo study to {out}/ ({cases:,} applications, seed {seed})")
+    console.print(plain(f"wrote the demo study to {out}/ ({cases:,} applications, seed {seed})"))
     if sid:
         console.print(f"snapshot {sid}")
-    console.print(f"next: cd {out} && closecall queue")
+    console.print(plain(f"next: cd {out} && closecall queue"))
 
 
 def fit(
@@ -149,7 +150,7 @@ def fit(
         f"({'fitted now' if study.fitted_now else 'from cache'})"
     )
     lens_txt = ", ".join(f"{lens.name} t={lens.threshold:.3f}" for lens in snap.lenses)
-    console.print(f"lenses: {lens_txt}   reference model: {snap.reference}")
+    console.print(plain(f"lenses: {lens_txt}   reference model: {snap.reference}"))
     table = Table(title="held-out quality per group", header_style="bold")
     cols = ["model", "group", "cases", "log_loss", "auc", "calibration_in_the_large"]
     cols += [k for k in snap.metrics[0] if k.startswith("error_rate")] if snap.metrics else []
@@ -161,13 +162,15 @@ def fit(
         table.add_row(*(Text(_metric_cell(row.get(c))) for c in cols))
     console.print(table)
     console.print(
-        f"proxies: {', '.join(snap.proxies.proxies) or 'none'}   "
-        f"group recoverable from the other features: AUC {snap.proxies.recoverability:.3f}"
+        plain(
+            f"proxies: {', '.join(snap.proxies.proxies) or 'none'}   "
+            f"group recoverable from the other features: AUC {snap.proxies.recoverability:.3f}"
+        )
     )
     _print_fit_flags(snap)
     for note in snap.meta.get("notes", []):
         if not str(note).startswith("fit flag:"):  # the fit flags table above shows those
-            err_console.print(f"note: {note}")
+            err_console.print(plain(f"note: {note}"))
 
 
 def _print_fit_flags(snap: Any) -> None:
@@ -332,9 +335,10 @@ def _print_chart(dist: MarginDistribution) -> None:
     """One line of block characters per group (each scaled to its tallest bin), then an axis."""
     from closecall.tui.marks import sparkline
 
-    width = max(len(g) for g in dist.levels) + 1
+    labels = [_short_label(g) for g in dist.levels]
+    width = max(len(g) for g in labels) + 1
     bins = dist.counts.shape[1]
-    for g, level in enumerate(dist.levels):
+    for g, level in enumerate(labels):
         line = sparkline(dist.counts[g].tolist(), float(dist.counts[g].max()))
         within, total = int(dist.within_band[g]), int(dist.totals[g])
         share = f"{within / total:.0%}" if total else "—"
@@ -349,6 +353,15 @@ def _print_chart(dist: MarginDistribution) -> None:
     axis = left + " " * gap + "0" + " " * (bins - bins // 2 - len(right)) + right
     console.print(Text(" " * width + axis + "  margin, log-odds"))
     console.print(Text("each group's line is scaled to its own tallest bin", style="dim"))
+
+
+CHART_LABEL = 24  # a longer group label is cut (with …) so the chart keeps its shape
+TABLE_LABEL = 10  # and in the queue table at 80 columns (more on a wider one; --json: whole)
+
+
+def _short_label(level: str, width: int = CHART_LABEL) -> str:
+    text = safe_text(level)
+    return text if len(text) <= width else text[: width - 1] + "…"
 
 
 SHORT_MODEL = {
@@ -369,7 +382,7 @@ def _print_queue_table(snap: Any, q: Any, rows: list[dict[str, Any]]) -> None:
         show_edge=False,
         pad_edge=False,
         padding=(0, 0) if q.measures else (0, 1),  # measure columns: one space between
-        caption=(
+        caption=plain(
             f"{q.counts['listed']:,} listed of {q.counts['cases']:,} cases; "
             f"{q.counts['within_band']:,} within ±{q.band:g} of the threshold, "
             f"{q.counts['flips']:,} flips. Margins in log-odds under lens "
@@ -379,6 +392,7 @@ def _print_queue_table(snap: Any, q: Any, rows: list[dict[str, Any]]) -> None:
             + "".join(MEASURE_NOTES[name] for name in q.measures if name in MEASURE_NOTES)
         ),
     )
+    label_width = max(TABLE_LABEL, console.width - 80)
     table.add_column("#", justify="right", no_wrap=True)
     table.add_column("case", no_wrap=True)
     table.add_column("group", no_wrap=True)
@@ -392,7 +406,7 @@ def _print_queue_table(snap: Any, q: Any, rows: list[dict[str, Any]]) -> None:
         table.add_row(
             str(r["rank"]),
             Text(format_cell(r["case_id"])),
-            Text(format_cell(r["group"])),
+            Text(_short_label(str(r["group"]), label_width)),
             *(f"{r['margins'][m]:+.2f}" for m in snap.model_names),
             str(len(r["differs"])) if r["differs"] else "—",
             *(f"{r[name]:.2f}" for name in q.measures),

@@ -15,6 +15,7 @@ from matplotlib.figure import Figure
 
 from closecall import __version__
 from closecall.cautions import CAUTIONS
+from closecall.cli.output import safe_text
 from closecall.disparity.contingency import IndependenceTest
 from closecall.disparity.rates import FOUR_FIFTHS
 from closecall.disparity.report import DisparityReport
@@ -35,6 +36,19 @@ th { background: #f2f2f2; } td.l, th.l { text-align: left; }
 .box { background: #f7f4ec; border-left: 4px solid #c47f2c; padding: .6rem 1rem; }
 img { max-width: 100%; }
 """
+
+
+def _h(text: object) -> str:
+    """Text for the HTML page: control, bidi and zero-width characters shown as visible escapes
+    (the terminal views' one sanitiser), then HTML-escaped (quotes included)."""
+    return escape(safe_text(str(text)))
+
+
+def _label(text: object) -> str:
+    """A data label for a figure: made safe like any text, and ``$`` escaped so that
+    matplotlib never reads it as mathtext (a stray ``$\\`` would stop the report)."""
+    label = safe_text(str(text)).replace("$", r"\$")
+    return " " + label if label.startswith("_") else label  # "_…" would leave the legend
 
 
 def _pct(x: float | None) -> str:
@@ -71,13 +85,13 @@ def _p(p: float | None) -> str:
 def _table(head: Sequence[str], rows: Iterable[Sequence[str]], left: int = 1) -> str:
     """An HTML table; the first ``left`` columns align left. Cells are escaped here."""
     h = "".join(
-        f'<th class="l">{escape(c)}</th>' if i < left else f"<th>{escape(c)}</th>"
+        f'<th class="l">{_h(c)}</th>' if i < left else f"<th>{_h(c)}</th>"
         for i, c in enumerate(head)
     )
     body = []
     for r in rows:
         cells = "".join(
-            f'<td class="l">{escape(c)}</td>' if i < left else f"<td>{escape(c)}</td>"
+            f'<td class="l">{_h(c)}</td>' if i < left else f"<td>{_h(c)}</td>"
             for i, c in enumerate(r)
         )
         body.append(f"<tr>{cells}</tr>")
@@ -119,7 +133,7 @@ def rates_figure(report: DisparityReport) -> Figure:
         hi = np.array([getattr(r, f"{attr}_high") for r in rows])
         ax.bar(x + off, v, width=0.36, color=colour, label=label)
         ax.errorbar(x + off, v, yerr=_err(v, lo, hi), fmt="none", ecolor="#222", capsize=3)
-    ax.set_xticks(x, [r.group for r in rows])
+    ax.set_xticks(x, [_label(r.group) for r in rows])
     ax.set_ylim(0, 1)
     ax.set_ylabel("favourable rate")
     ax.set_title(f"Favourable rate by group ({100 * report.summary.level:.0f}% Wilson intervals)")
@@ -153,7 +167,7 @@ def air_figure(report: DisparityReport) -> Figure:
         transform=ax.get_xaxis_transform(),
     )
     ax.axvline(1.0, color="#888", linewidth=0.8)
-    ax.set_yticks(y, [r.group for r in rows])
+    ax.set_yticks(y, [_label(r.group) for r in rows])
     ax.set_xlim(0, top)
     ax.set_xlabel("adverse impact ratio (rate / most favoured group's rate)")
     ax.set_title(f"Adverse impact ratio ({100 * report.summary.level:.0f}% bootstrap intervals)")
@@ -173,7 +187,7 @@ def margin_figure(report: DisparityReport) -> Figure:
         lo = np.array([b.low for b in bins])
         hi = np.array([b.high for b in bins])
         shift = (k - (len(report.summary.groups) - 1) / 2) * 0.01
-        ax.errorbar(mid + shift, v, yerr=_err(v, lo, hi), marker="o", capsize=2, label=g)
+        ax.errorbar(mid + shift, v, yerr=_err(v, lo, hi), marker="o", capsize=2, label=_label(g))
     ax.axvline(0, color="#888", linewidth=0.8)
     ax.set_xlabel("reference model margin (log-odds; > 0 decided favourably)")
     ax.set_ylabel("override rate")
@@ -203,7 +217,7 @@ def render_html(report: DisparityReport) -> str:
     lvl = f"{100 * s.level:.0f}%"
     parts: list[str] = []
     title = f"Human-versus-model disparity: {ctx.get('study', 'study')}"
-    parts.append(f"<h1>{escape(title)}</h1>")
+    parts.append(f"<h1>{_h(title)}</h1>")
     facts = [
         ("snapshot", str(ctx.get("snapshot_id", "—"))),
         ("reference model", str(ctx.get("reference_model", "—"))),
@@ -219,8 +233,8 @@ def render_html(report: DisparityReport) -> str:
         ("written by", f"closecall {__version__}"),
     ]
     parts.append(_table(["", ""], facts, left=2))
-    parts.append(f'<div class="box">{escape(_headline(report))}</div>')
-    parts.append('<ul class="note">' + "".join(f"<li>{escape(c)}</li>" for c in CAUTIONS) + "</ul>")
+    parts.append(f'<div class="box">{_h(_headline(report))}</div>')
+    parts.append('<ul class="note">' + "".join(f"<li>{_h(c)}</li>" for c in CAUTIONS) + "</ul>")
 
     parts.append("<h2>1. Favourable rates, model and final</h2>")
     parts.append(_png(rates_figure(report)))
@@ -267,11 +281,11 @@ def render_html(report: DisparityReport) -> str:
         )
     )
     parts.append(
-        f'<p class="note">Most favoured group: {escape(r.model_reference)} under the model, '
-        f"{escape(r.final_reference)} after review. Ratios compare each group's favourable rate "
+        f'<p class="note">Most favoured group: {_h(r.model_reference)} under the model, '
+        f"{_h(r.final_reference)} after review. Ratios compare each group's favourable rate "
         "with that group's (29 CFR 1607.4(D)).</p>"
     )
-    parts.extend(f'<p class="note">{escape(n)}</p>' for n in r.notes)
+    parts.extend(f'<p class="note">{_h(n)}</p>' for n in r.notes)
 
     o = report.overrides
     parts.append("<h2>3. Overrides by group</h2>")
@@ -301,9 +315,9 @@ def render_html(report: DisparityReport) -> str:
     for fit in report.conditional:
         what = fit.direction.replace("_", " ")
         parts.append(
-            f"<p><b>Overridden {escape(what)}</b>, among {escape(fit.risk_set)} "
+            f"<p><b>Overridden {_h(what)}</b>, among {_h(fit.risk_set)} "
             f"({fit.events} of {fit.at_risk}); reference group "
-            f"{escape(fit.reference_group or '—')}.</p>"
+            f"{_h(fit.reference_group or '—')}.</p>"
         )
         if fit.fitted:
             parts.append(
@@ -325,7 +339,7 @@ def render_html(report: DisparityReport) -> str:
                 f'<p class="note">Per unit of margin: odds ratio {_num(fit.margin_odds_ratio)}'
                 f"{_ci(fit.margin_low, fit.margin_high, False)}.</p>"
             )
-        parts.extend(f'<p class="note">{escape(n)}</p>' for n in fit.notes)
+        parts.extend(f'<p class="note">{_h(n)}</p>' for n in fit.notes)
 
     parts.append("<h2>5. By reviewer</h2>")
     rows = []
@@ -397,10 +411,10 @@ def render_html(report: DisparityReport) -> str:
             "that were decided favourably. False unfavourable: share of cases whose outcome was "
             "favourable that were decided unfavourably.</p>"
         )
-        parts.extend(f'<p class="note">{escape(n)}</p>' for n in e.notes)
+        parts.extend(f'<p class="note">{_h(n)}</p>' for n in e.notes)
 
     parts.append("<h2>Warnings and limits</h2>")
-    parts.append("<ul>" + "".join(f"<li>{escape(w)}</li>" for w in report.warnings) + "</ul>")
+    parts.append("<ul>" + "".join(f"<li>{_h(w)}</li>" for w in report.warnings) + "</ul>")
     parts.append(
         '<p class="note">How each figure is computed, and what it cannot tell you: '
         "docs/disparity.md in the closecall distribution.</p>"
@@ -408,7 +422,7 @@ def render_html(report: DisparityReport) -> str:
     body = "\n".join(parts)
     return (
         '<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8">'
-        f"<title>{escape(title)}</title><style>{_CSS}</style></head>"
+        f"<title>{_h(title)}</title><style>{_CSS}</style></head>"
         f"<body>\n{body}\n</body></html>\n"
     )
 

@@ -11,8 +11,10 @@ from typing import ClassVar
 
 from textual.app import App, SystemCommand
 from textual.binding import Binding, BindingType
+from textual.markup import escape
 from textual.screen import Screen
 
+from closecall.cli.output import safe_text
 from closecall.errors import UserError
 from closecall.study import Study
 from closecall.tui.decision_dialog import DecisionDialog
@@ -181,8 +183,9 @@ class ReviewApp(App[None]):
                 f"Only {flag}: on/off", f"Show only {words}", lambda f=flag: queue.action_switch(f)
             )
         for level in self.session.snap.group_levels:
+            shown = escape(safe_text(level))  # the palette reads titles as markup
             yield SystemCommand(
-                f"Only group {level}", f"Show only {level}", lambda g=level: queue.only_group(g)
+                f"Only group {shown}", f"Show only {shown}", lambda g=level: queue.only_group(g)
             )
         parts = (("group", "the group attribute"), ("proxies", "the group or its proxies"))
         for part, words in parts:

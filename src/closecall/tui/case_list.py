@@ -22,6 +22,7 @@ from textual.reactive import reactive
 from textual.scroll_view import ScrollView
 from textual.strip import Strip
 
+from closecall.cli.output import safe_text
 from closecall.tui.marks import (
     AGREE,
     AMBIGUOUS,
@@ -61,7 +62,7 @@ class Layout:
         snap = session.snap
         rank = max(3, len(f"{listed:,}"))
         case = min(16, max(4, snap.case_ids.dtype.itemsize // 4 or 10))
-        group = min(8, max(5, *(len(g) for g in snap.group_levels)))
+        group = min(8, max(5, *(len(safe_text(g)) for g in snap.group_levels)))
         n_lenses = len(snap.lenses)
         marks = len(snap.model_names) * n_lenses + n_lenses - 1
         base = 2 + rank + 1 + case + 1 + group + 1 + 6 + 1 + 10 + 1 + marks + 1 + 4 + 1 + 10
@@ -251,13 +252,13 @@ class CaseList(ScrollView, can_focus=True):
         muted = self._style("case-list--muted", row_base)
         margin = float(q.margin[r])
         case_id = str(snap.case_ids[r])
-        group = str(snap.group_labels[r]) if len(snap.group_levels) else ""
+        group = safe_text(str(snap.group_labels[r])) if len(snap.group_levels) else ""
         tone = self._style("case-list--fav" if margin > 0 else "case-list--unfav", row_base)
 
         segs: list[Segment] = [
             Segment(f"{CURSOR if is_cursor else ' '} ", row_base),
             Segment(f"{position + 1:>{lay.rank},} ", muted),
-            Segment(f"{_fit(case_id, lay.case):<{lay.case}} ", row_base),
+            Segment(f"{_fit(safe_text(case_id), lay.case):<{lay.case}} ", row_base),
             Segment(f"{_fit(group, lay.group):<{lay.group}} ", row_base),
             Segment(f"{signed(margin):>6} ", tone),
         ]

@@ -163,9 +163,9 @@ class CaseScreen(Screen[None]):
         session, row = self.session, self.row
         snap = session.snap
         text = Text(no_wrap=True, overflow="ellipsis")
-        text.append(f"Case {self.case_id}", "bold")
+        text.append(f"Case {safe_text(self.case_id)}", "bold")
         if snap.group_levels:
-            text.append(f" · {snap.group_labels[row]}")
+            text.append(f" · {safe_text(str(snap.group_labels[row]))}")
         pos = session.position_of_row(row)
         q = session.queue
         if pos >= 0 and q is not None:
@@ -174,7 +174,7 @@ class CaseScreen(Screen[None]):
         state = STATE_WORD[code]
         others = session.claimed_by_others(self.case_id)
         if code == OPEN and others:
-            state = f"{CLAIM_OTHER} open by {', '.join(others)}"
+            state = f"{CLAIM_OTHER} open by {safe_text(', '.join(others))}"
         elif code == OPEN:
             state = f"{CLAIM_MINE} open by you"
         text.append(f" · {state}")

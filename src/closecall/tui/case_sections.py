@@ -42,11 +42,11 @@ def contributions(d: dict[str, Any], width: int, top: int = TOP_CONTRIBUTIONS) -
     if not rows:
         return text.append("no features")
     scale = max(abs(r["contribution"]) for r in rows) or 1.0
-    name_w = min(22, max(len(r["feature"]) for r in rows) + 8)
+    name_w = min(22, max(len(safe_text(r["feature"])) for r in rows) + 8)
     bar_w = max(6, min(16, width - name_w - 10 - 8 - 2))
     for r in rows:
         role = {"group": " (group)", "proxy": " (proxy)"}.get(r["role"], "")
-        label = f"{r['feature']}{role}"
+        label = f"{safe_text(r['feature'])}{role}"
         text.append(f"{label[:name_w]:<{name_w}} ", "bold" if role else None)
         text.append(f"{_value(r['value'])[:10]:>10} ")
         c = float(r["contribution"])
@@ -64,7 +64,7 @@ def contributions(d: dict[str, Any], width: int, top: int = TOP_CONTRIBUTIONS) -
 def parts(d: dict[str, Any]) -> Text:
     """Group and proxy parts, the margin without them, whether the decision rests on them."""
     dep = d["dependence"]
-    proxies = ", ".join(d["proxies"]["flagged"]) or "none flagged"
+    proxies = safe_text(", ".join(d["proxies"]["flagged"])) or "none flagged"
     margin = float(d["margin"])
     text = Text()
     text.append(f"group part {signed(dep['group_part'])}")

@@ -19,6 +19,7 @@ from textual.screen import ModalScreen
 from textual.timer import Timer
 from textual.widgets import Static, TextArea
 
+from closecall.cli.output import safe_text
 from closecall.errors import UserError
 from closecall.ledger import ACTIONS, Entry
 from closecall.reviews import claim_case, load_draft, record_review, release_claim
@@ -76,8 +77,8 @@ class DecisionDialog(ModalScreen[Entry | None]):
         reasons = self.session.config.review.reasons
         with Vertical(id="dialog"):
             title = Text(no_wrap=True, overflow="ellipsis")
-            title.append(f"Decision on {self.case_id}", "bold")
-            group = str(snap.group_labels[self.row]) if snap.group_levels else ""
+            title.append(f"Decision on {safe_text(self.case_id)}", "bold")
+            group = safe_text(str(snap.group_labels[self.row])) if snap.group_levels else ""
             title.append(f" · {group} · {snap.reference} says ")
             title.append(f"{decision_word(margin > 0)} {signed(margin)}")
             yield Static(title, id="dialog-title")

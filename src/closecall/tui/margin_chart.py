@@ -12,6 +12,7 @@ from typing import ClassVar
 from rich.text import Text
 from textual.widget import Widget
 
+from closecall.cli.output import safe_text
 from closecall.tui.marks import sparkline
 from closecall.tui.session import GroupChart, ReviewSession, fmt_share
 
@@ -39,7 +40,7 @@ class MarginChart(Widget):
 
     def render(self) -> Text:
         width = self.size.width or 80
-        levels = self.session.snap.group_levels[:MAX_GROUPS]
+        levels = [safe_text(g) for g in self.session.snap.group_levels[:MAX_GROUPS]]
         label_w = min(8, max(len(g) for g in levels)) + 1 if levels else 6
         right_w = 22
         bins = max(10, min(MAX_BINS, width - label_w - right_w - 1))

@@ -13,6 +13,7 @@ from textual.screen import Screen
 from textual.widgets import Input, Static
 from textual.worker import get_current_worker
 
+from closecall.cli.output import safe_text
 from closecall.ledger import Entry
 from closecall.tui.case_list import CaseList
 from closecall.tui.key_bar import KeyBar
@@ -90,8 +91,8 @@ class QueueScreen(Screen[None]):
         snap = self.session.snap
         text = Text(no_wrap=True, overflow="ellipsis")
         text.append("closecall review", "bold")
-        text.append(f" ─ {self.session.config.name} ─ snapshot {snap.id[:8]}")
-        text.append(f" ─ you: {self.session.display_login}")
+        text.append(f" ─ {safe_text(self.session.config.name)} ─ snapshot {snap.id[:8]}")
+        text.append(f" ─ you: {safe_text(self.session.display_login)}")
         return text
 
     def _show_counts(self) -> None:
@@ -115,7 +116,7 @@ class QueueScreen(Screen[None]):
             settings.append("  ")
 
         item("s", f"by {q.sort if q else s.sort}")
-        item("g", f"{s.group} only" if s.group else "all groups")
+        item("g", f"{safe_text(s.group)} only" if s.group else "all groups")
         item("f", "flips", s.flips)
         item("a", "ambiguous", s.ambiguous)
         item("u", "unreviewed", s.unreviewed)
@@ -210,7 +211,8 @@ class QueueScreen(Screen[None]):
 
     def recorded(self, entry: Entry) -> None:
         """A decision was recorded (here or on the case screen): show it, read states again."""
-        self.say(f"recorded entry {entry.seq} for {entry.case_id} · hash {entry.hash[:16]}…")
+        case = safe_text(entry.case_id)
+        self.say(f"recorded entry {entry.seq} for {case} · hash {entry.hash[:16]}…")
         self._read_ledger()
 
     # ------------------------------------------------------------------ cases

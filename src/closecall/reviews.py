@@ -127,7 +127,8 @@ def _current_snapshot_id(study: Study) -> str | None:
     """The id of the snapshot the study's config and data give now (None if they can't be read).
 
     Differs from ``study.snapshot.id`` when the data files or the config changed after the
-    study was opened: the review was made against a stale snapshot.
+    study was opened: the review was made against a stale snapshot. The data files are hashed
+    afresh (not taken from the digests cache), so the id recorded is the files' content's.
     """
     from closecall.snapshot import snapshot_id
 
@@ -136,12 +137,25 @@ def _current_snapshot_id(study: Study) -> str | None:
     except UserError:  # config now unreadable: judge by the data files alone
         config = study.config
     try:
-        return snapshot_id(config)
+        return snapshot_id(config, fresh=True)
     except (OSError, UserError):  # data files gone or unreadable: cannot tell
         return None
 
 
 # --------------------------------------------------------------------------- recording
+
+
+def _recheck_snapshot(study: Study) -> None:
+    """Refuse to record from a snapshot whose files changed on disk since the study was opened.
+
+    Its arrays are memory-mapped: bytes written to them later would reach the recorded
+    margins. Costs one ``stat`` per file when nothing changed.
+    """
+    from closecall.snapshot import Snapshot, recheck_snapshot
+    from closecall.study import refit_fix
+
+    if isinstance(study.snapshot, Snapshot):
+        recheck_snapshot(study.snapshot, fix=refit_fix(study.config))
 
 
 def record_review(
@@ -182,7 +196,8 @@ def record_review(
         The login is not in ``[review] reviewers``.
     UserError
         Unknown case, action, reason or superseded entry; missing reason or note for an
-        override; text that is not valid UTF-8. The ledger is not touched.
+        override; text that is not valid UTF-8; a snapshot whose files changed on disk since
+        it was opened (fix: ``closecall fit --refit``). The ledger is not touched.
     """
     config = study.config
     login = require_record(config.review, config.path)
@@ -191,6 +206,7 @@ def record_review(
     reason = check_reason(config, action, reason)
     check_note(action, note)
     snap = study.snapshot
+    _recheck_snapshot(study)
     index = snap.case_index(case_id)
     decisions = _plain_decisions(snap.decisions_for(index))
     reference = decisions.get(snap.reference)

@@ -58,9 +58,12 @@ def progress_bar(enabled: bool) -> Iterator[ProgressFn]:
         yield update
 
 
-def load(config: Path, *, quiet: bool, refit: bool = False) -> Study:
-    """Open the study, fitting (with a progress bar unless quiet) when the cache is stale."""
+def load(config: Path, *, quiet: bool, refit: bool = False, rehash: bool = False) -> Study:
+    """Open the study, fitting (with a progress bar unless quiet) when the cache is stale.
+
+    ``rehash`` hashes the data files afresh instead of trusting the digests cache.
+    """
     from closecall.study import open_study
 
     with progress_bar(not quiet) as update:
-        return open_study(config, update, refit=refit)
+        return open_study(config, update, refit=refit, rehash=rehash)

@@ -113,7 +113,12 @@ def demo(
 
 def fit(
     config: Path = ConfigOption,
-    refit: bool = typer.Option(False, "--refit", help="Fit again even if the cache is current."),
+    refit: bool = typer.Option(
+        False,
+        "--refit",
+        help="Fit again and replace the cached snapshot whatever its state (repairs a damaged "
+        "cache; the old one is not read).",
+    ),
     as_json: bool = JsonOption,
 ) -> None:
     """Fit the model suite and show each model's held-out quality per group.
@@ -123,7 +128,7 @@ def fit(
 
     Example: closecall fit --config closecall.toml
     """
-    study = load(config, quiet=as_json, refit=refit)
+    study = load(config, quiet=as_json, refit=refit, rehash=True)  # the files' content, afresh
     snap = study.snapshot
     payload: dict[str, Any] = {
         "snapshot": snap.id,

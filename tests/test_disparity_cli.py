@@ -47,8 +47,46 @@ def test_json_report_and_html(cli, reviewed: Path, tmp_path: Path) -> None:  # t
     assert data["errors"] is None
     assert len(data["conditional"]) == 2
     text = html.read_text(encoding="utf-8")
-    assert len(re.findall(r"data:image/png;base64,", text)) == 3
+    # rates, ratios, margin profile, every case, calibration, held-out errors, periods
+    assert len(re.findall(r"data:image/png;base64,", text)) == 7
     assert "29 CFR 1607.4(D)" in text
+    for heading in (
+        "Every case under review",
+        "Calibration of each model by group",
+        "Error rates of each model by group",
+        "Over time: by month",
+        "Many tests, corrected together",
+    ):
+        assert heading in text
+    # every section says what it cannot show
+    assert text.count("What this cannot show.") >= 9
+    # the audit sections are in the JSON report too
+    pending = len(open_study(reviewed).snapshot.case_ids)
+    assert data["population"]["cases"] == pending and data["population"]["reviewed"] == 250
+    assert {r["model"] for r in data["calibration"]["rows"]} >= {"pooled", "split"}
+    assert data["heldout_errors"]["reference_group"] in ("Aster", "Briar")
+    assert [f["name"] for f in data["families"]] == ["review", "model"]
+    assert data["periods"]["unit"] == "month" and len(data["periods"]["periods"]) == 1
+    assert set(data["limits"]) >= {"population", "calibration", "periods", "multiplicity"}
+
+
+def test_terminal_audit_sections_and_period_option(cli, reviewed: Path) -> None:  # type: ignore[no-untyped-def]
+    res = cli("disparity", "-c", str(reviewed), "--boot", "200", "--period", "quarter")
+    assert res.code == 0, res
+    for text in (
+        "Every case under review",
+        "Calibration by group on held-out history",
+        "Reliability of the pooled model",
+        "Error rates by group on held-out history",
+        "By quarter of the review's entry time",
+        "Tests corrected together: the 'review' family",
+        "cannot show:",
+        "power:",
+    ):
+        assert text in res.out, text
+    bad = cli("disparity", "-c", str(reviewed), "--period", "week")
+    assert bad.code == 2 and "week" in bad.err and "month, quarter" in bad.err
+    assert "Traceback" not in bad.err
 
 
 def test_same_seed_same_report(cli, reviewed: Path) -> None:  # type: ignore[no-untyped-def]

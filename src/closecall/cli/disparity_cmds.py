@@ -8,12 +8,14 @@ from pathlib import Path
 import typer
 from rich.table import Table
 
+from closecall.cli import disparity_sections as sections
 from closecall.cli.common import ConfigOption, JsonOption, load
 from closecall.cli.output import console, emit_json, err_console, safe_markup
 from closecall.config import load_config
 from closecall.disparity.contingency import IndependenceTest
 from closecall.disparity.from_study import study_report
 from closecall.disparity.html import headline_text, render_html
+from closecall.disparity.periods import check_period
 from closecall.disparity.report import DisparityReport
 from closecall.errors import UserError
 from closecall.output_files import check_key_file, check_output, study_files, write_output
@@ -80,7 +82,10 @@ def _rates_table(report: DisparityReport) -> Table:
 
 def _air_table(report: DisparityReport) -> Table:
     r = report.rates
-    t = Table(title="Adverse impact ratio against the most favoured group (four-fifths rule)")
+    t = Table(
+        title="Adverse impact ratio against the most favoured group (four-fifths rule; "
+        "Katz log interval)"
+    )
     for c in ("group", "model ratio", "", "final ratio", ""):
         t.add_column(c, justify="left" if c == "group" else "right")
     for g in r.rows:
@@ -88,16 +93,16 @@ def _air_table(report: DisparityReport) -> Table:
             _t(g.group),
             _num(g.model_air)
             + ("\n[dim]reference[/]" if g.group == r.model_reference else "")
-            + _ci(g.model_air_low, g.model_air_high, False),
+            + _ci(g.model_air_ratio_low, g.model_air_ratio_high, False),
             "[bold red]< 0.8[/]" if g.model_flag else "",
             _num(g.final_air)
             + ("\n[dim]reference[/]" if g.group == r.final_reference else "")
-            + _ci(g.final_air_low, g.final_air_high, False),
+            + _ci(g.final_air_ratio_low, g.final_air_ratio_high, False),
             "[bold red]< 0.8[/]" if g.final_flag else "",
         )
     t.caption = (
         f"most favoured: model {_t(r.model_reference)}, final {_t(r.final_reference)} "
-        "(29 CFR 1607.4(D))"
+        "(29 CFR 1607.4(D)); bootstrap intervals in --json"
     )
     return t
 
@@ -238,23 +243,35 @@ def print_report(report: DisparityReport) -> None:
             )
         )
     )
+    sections.print_population(console, report)
     console.print(_rates_table(report))
     console.print(_air_table(report))
     for n in r.notes:
         console.print(f"  [dim]note:[/] {_t(n)}")
+    sections.print_limits(console, report, "reviewed")
     console.print(_override_table(report))
     console.print(_tests_table(report.overrides.tests))
+    sections.print_power(console, report.test_power)
+    sections.print_limits(console, report, "overrides")
     for item in _conditional_tables(report):
         console.print(item)
+    sections.print_conditional_extras(console, report)
     console.print(_reviewer_table(report))
+    sections.print_limits(console, report, "reviewers")
     errors = _errors_table(report)
     if errors is not None:
         console.print(errors)
         for n in report.errors.notes if report.errors else ():
             console.print(f"  [dim]note:[/] {_t(n)}")
+        sections.print_outcome_tests(console, report)
+    sections.print_calibration(console, report)
+    sections.print_heldout_errors(console, report)
+    sections.print_periods(console, report)
+    sections.print_families(console, report)
     console.print("[bold]Warnings and limits[/]")
     for w in report.warnings:
         console.print(f"  - {_t(w)}")
+    sections.print_limits(console, report, "power")
     console.print("[dim]Every figure is explained in docs/disparity.md.[/]")
 
 
@@ -276,6 +293,9 @@ def disparity(
     seed: int = typer.Option(0, "--seed", help="Seed of the bootstrap (same seed, same report)."),
     n_boot: int = typer.Option(2000, "--boot", help="Bootstrap replicates."),
     level: float = typer.Option(0.95, "--level", help="Confidence level of every interval."),
+    period: str = typer.Option(
+        "month", "--period", help="Figures over time by 'month' or 'quarter' of the review."
+    ),
     key_file: Path | None = typer.Option(
         None, "--pseudonymise", help="Show reviewers by keyed pseudonym (key file as in export)."
     ),
@@ -283,10 +303,14 @@ def disparity(
 ) -> None:
     """Did reviewers' overrides narrow or widen the gaps between groups?
 
-    Compares the model's decisions with the final ones over each case's effective review:
-    favourable rates and adverse impact ratios by group (four-fifths rule), override rates and
-    directions with exact or chi-square tests, odds ratios at equal margin, the same per
-    reviewer, and with --outcomes the error rates by group. Every figure carries an interval.
+    Compares the model's decisions with the final ones: over every case under review and over
+    the reviewed ones, favourable rates and adverse impact ratios by group (four-fifths rule);
+    override rates and directions with exact or chi-square tests; odds ratios at equal margin
+    (cluster-robust by reviewer, Firth's method for separated groups); the same per reviewer
+    and per month or quarter; each model's calibration and error rates by group on held-out
+    history; with --outcomes the error rates of model and final decisions and McNemar's test.
+    Every figure carries an interval, every test a power line, and the tests are corrected
+    for multiplicity (Holm, Benjamini–Hochberg) in stated families.
 
     \b
     Example:
@@ -297,6 +321,7 @@ def disparity(
         raise UserError(f"--level {level}: must be at least 0.5 and below 1", "e.g. --level 0.95")
     if n_boot < 100:
         raise UserError(f"--boot {n_boot}: use at least 100 replicates", "e.g. --boot 2000")
+    check_period(period)
     cfg = load_config(config)
     protected = study_files(cfg, key_file=key_file, outcomes=outcomes)
     if key_file is not None:  # before anything is fitted or created
@@ -305,7 +330,13 @@ def disparity(
         check_output(html, protected, option="--html", force=force, example="disparity.html")
     study = load(config, quiet=as_json)
     report = study_report(
-        study, outcomes=outcomes, key_file=key_file, level=level, n_boot=n_boot, seed=seed
+        study,
+        outcomes=outcomes,
+        key_file=key_file,
+        level=level,
+        n_boot=n_boot,
+        seed=seed,
+        period=period,
     )
     if html is not None:
         write_output(

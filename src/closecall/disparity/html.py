@@ -16,6 +16,7 @@ from matplotlib.figure import Figure
 from closecall import __version__
 from closecall.cautions import CAUTIONS
 from closecall.cli.output import safe_text
+from closecall.disparity import html_sections as sections
 from closecall.disparity.contingency import IndependenceTest
 from closecall.disparity.rates import FOUR_FIFTHS
 from closecall.disparity.report import DisparityReport
@@ -35,6 +36,9 @@ th { background: #f2f2f2; } td.l, th.l { text-align: left; }
 .note { color: #555; font-size: .9rem; }
 .box { background: #f7f4ec; border-left: 4px solid #c47f2c; padding: .6rem 1rem; }
 img { max-width: 100%; }
+.limits { background: #f3f3f6; border-left: 4px solid #4d6a8a; padding: .4rem 1rem;
+          font-size: .9rem; margin: .8rem 0; }
+details { margin: .6rem 0; }
 """
 
 
@@ -152,10 +156,10 @@ def air_figure(report: DisparityReport) -> Figure:
         (-0.15, "final (after review)", FINAL_COLOUR, "final_air"),
     ):
         v = np.array([getattr(r, attr) for r in rows], dtype=float)
-        lo = np.array([getattr(r, f"{attr}_low") for r in rows], dtype=float)
-        hi = np.array([getattr(r, f"{attr}_high") for r in rows], dtype=float)
+        lo = np.array([getattr(r, f"{attr}_ratio_low") for r in rows], dtype=float)
+        hi = np.array([getattr(r, f"{attr}_ratio_high") for r in rows], dtype=float)
         ax.errorbar(v, y + off, xerr=_err(v, lo, hi), fmt="o", color=colour, capsize=3, label=label)
-        top = max(top, float(np.nanmax(np.append(hi, v))) + 0.05)
+        top = max(top, min(float(np.nanmax(np.append(hi, v))) + 0.05, 3.0))
     ax.axvline(FOUR_FIFTHS, color="#a4161a", linestyle="--", linewidth=1)
     ax.text(
         FOUR_FIFTHS,
@@ -170,7 +174,7 @@ def air_figure(report: DisparityReport) -> Figure:
     ax.set_yticks(y, [_label(r.group) for r in rows])
     ax.set_xlim(0, top)
     ax.set_xlabel("adverse impact ratio (rate / most favoured group's rate)")
-    ax.set_title(f"Adverse impact ratio ({100 * report.summary.level:.0f}% bootstrap intervals)")
+    ax.set_title(f"Adverse impact ratio ({100 * report.summary.level:.0f}% Katz intervals)")
     ax.legend(frameon=False, loc="lower left")
     return fig
 
@@ -235,6 +239,7 @@ def render_html(report: DisparityReport) -> str:
     parts.append(_table(["", ""], facts, left=2))
     parts.append(f'<div class="box">{_h(_headline(report))}</div>')
     parts.append('<ul class="note">' + "".join(f"<li>{_h(c)}</li>" for c in CAUTIONS) + "</ul>")
+    parts.append(sections.population_section(report))
 
     parts.append("<h2>1. Favourable rates, model and final</h2>")
     parts.append(_png(rates_figure(report)))
@@ -263,15 +268,15 @@ def render_html(report: DisparityReport) -> str:
                     g.group,
                     _air(
                         g.model_air,
-                        g.model_air_low,
-                        g.model_air_high,
+                        g.model_air_ratio_low,
+                        g.model_air_ratio_high,
                         g.group == r.model_reference,
                     ),
                     "flagged" if g.model_flag else "no",
                     _air(
                         g.final_air,
-                        g.final_air_low,
-                        g.final_air_high,
+                        g.final_air_ratio_low,
+                        g.final_air_ratio_high,
                         g.group == r.final_reference,
                     ),
                     "flagged" if g.final_flag else "no",
@@ -283,9 +288,12 @@ def render_html(report: DisparityReport) -> str:
     parts.append(
         f'<p class="note">Most favoured group: {_h(r.model_reference)} under the model, '
         f"{_h(r.final_reference)} after review. Ratios compare each group's favourable rate "
-        "with that group's (29 CFR 1607.4(D)).</p>"
+        "with that group's (29 CFR 1607.4(D)). Intervals: Katz's log method for a ratio of "
+        "two independent proportions (Koopman's score method where a count is 0); the "
+        "bootstrap intervals are in the JSON report.</p>"
     )
     parts.extend(f'<p class="note">{_h(n)}</p>' for n in r.notes)
+    parts.append(sections.limits(report, "reviewed"))
 
     o = report.overrides
     parts.append("<h2>3. Overrides by group</h2>")
@@ -310,6 +318,8 @@ def render_html(report: DisparityReport) -> str:
         )
     )
     parts.append(_table(["test", "method", "statistic", "p", "note"], _test_rows(o.tests), 2))
+    parts.append(sections.power(report.test_power))
+    parts.append(sections.limits(report, "overrides"))
 
     parts.append("<h2>4. Overrides at equal margin (logistic regression)</h2>")
     for fit in report.conditional:
@@ -340,6 +350,7 @@ def render_html(report: DisparityReport) -> str:
                 f"{_ci(fit.margin_low, fit.margin_high, False)}.</p>"
             )
         parts.extend(f'<p class="note">{_h(n)}</p>' for n in fit.notes)
+    parts.append(sections.conditional_extras(report))
 
     parts.append("<h2>5. By reviewer</h2>")
     rows = []
@@ -374,6 +385,11 @@ def render_html(report: DisparityReport) -> str:
             3,
         )
     )
+    parts.append(
+        '<p class="note">Each reviewer\'s p-value is corrected with the others in the '
+        "'review' family below (Holm, Benjamini–Hochberg).</p>"
+    )
+    parts.append(sections.limits(report, "reviewers"))
 
     if report.errors is not None:
         e = report.errors
@@ -412,9 +428,15 @@ def render_html(report: DisparityReport) -> str:
             "favourable that were decided unfavourably.</p>"
         )
         parts.extend(f'<p class="note">{_h(n)}</p>' for n in e.notes)
+        parts.append(sections.outcome_tests_section(report))
 
+    parts.append(sections.calibration_section(report))
+    parts.append(sections.heldout_section(report))
+    parts.append(sections.periods_section(report))
+    parts.append(sections.families_section(report))
     parts.append("<h2>Warnings and limits</h2>")
     parts.append("<ul>" + "".join(f"<li>{_h(w)}</li>" for w in report.warnings) + "</ul>")
+    parts.append(sections.limits(report, "power"))
     parts.append(
         '<p class="note">How each figure is computed, and what it cannot tell you: '
         "docs/disparity.md in the closecall distribution.</p>"

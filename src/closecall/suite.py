@@ -477,6 +477,9 @@ def _fit_suite(config: StudyConfig, data: StudyData, progress: Progress) -> Suit
             never=config.proxies.never,
             seed=config.seed,
             nongroup_mask=nongroup,
+            y=y,
+            unaware_intercept=full["unaware"][0].intercept,
+            penalty=penalty,
         )
         full["split"], masks["split"] = [], []
         for g in range(G):

@@ -190,9 +190,11 @@ def rests_on(snap: Snapshot, what: str, model: str = "pooled") -> np.ndarray:
 def dependence_by_group(
     snap: Snapshot, model: str = "pooled", lens: str | None = None
 ) -> list[dict[str, Any]]:
-    """Per group level and overall: mean group part, proxy part and dependence (log-odds), and
-    the shares of cases that rest on the group and on the group or its proxies."""
+    """Per group level and overall: mean group part, proxy part and dependence (log-odds), the
+    shares of cases that rest on the group and on the group or its proxies, and the shares
+    whose verdict is uncertain (see :func:`rests_on_uncertainty`)."""
     dep = dependence(snap, model, lens)
+    unc = rests_on_uncertainty(snap, dep)
     codes = np.asarray(snap.group_codes)
     out: list[dict[str, Any]] = []
     for _, label, sel in group_slices(codes, snap.group_levels):
@@ -207,6 +209,85 @@ def dependence_by_group(
                 "mean_share": float(dep.share[sel].mean()),
                 "rests_on_group": float(dep.rests_on_group[sel].mean()),
                 "rests_on_proxies": float(dep.rests_on_proxies[sel].mean()),
+                "mean_group_part_se": float(unc.group_se[sel].mean()),
+                "rests_on_group_uncertain": float(
+                    (dep.rests_on_group[sel] & unc.group_uncertain[sel]).mean()
+                ),
+                "rests_on_proxies_uncertain": float(
+                    (dep.rests_on_proxies[sel] & unc.proxies_uncertain[sel]).mean()
+                ),
             }
         )
     return out
+
+
+@dataclass(frozen=True)
+class RestsOnUncertainty:
+    """Standard errors of the group part and of the group + proxy part, per case, and whether
+    each rests-on verdict could flip within its interval."""
+
+    group_se: np.ndarray  # se of the group part (log-odds)
+    dependence_se: np.ndarray  # se of group part + proxy part
+    z: float  # normal quantile of the interval level
+    group_uncertain: np.ndarray  # margin − group part ± z·se straddles 0
+    proxies_uncertain: np.ndarray  # margin − dependence ± z·se straddles 0
+
+
+def rests_on_uncertainty(
+    snap: Snapshot, dep: Dependence, level: float = 0.95
+) -> RestsOnUncertainty:
+    """How sure each rests-on verdict is, from the uncertainty of the weights it rests on.
+
+    The group part of case i is dᵢᵀw_G, dᵢ = x_i − E[x] on the group's columns; its standard
+    error is √(dᵢᵀ Σ_G dᵢ) with Σ the inverse penalised Hessian of the fitted row that scored
+    the case (the same matrix as the bands), and likewise for the group and proxy columns
+    together. The case's own margin is what the model decided and is held fixed. A verdict is
+    *uncertain* when the neutralised margin's interval, (margin − part) ± z·se, contains 0:
+    within the weights' uncertainty the decision could go either way once the part is removed.
+
+    References
+    ----------
+    A. Gelman et al., "Bayesian Data Analysis", 3rd ed., 2013, §4.1 (the normal approximation
+    at the mode, whose covariance is the inverse Hessian of the penalised log-likelihood).
+    """
+    from scipy.linalg import solve_triangular
+    from scipy.stats import norm
+
+    from closecall.analysis.fitted_rows import row_cholesky, row_mask
+
+    z = float(norm.ppf(0.5 + level / 2.0))
+    n = len(dep.rows)
+    gse = np.zeros(n)
+    dse = np.zeros(n)
+    _, row_of_case = snap.weights(dep.model)
+    rc = np.asarray(row_of_case)[dep.rows]
+    src = snap.meta["column_source"]
+    role = dict(zip(dep.features, dep.roles, strict=True))
+    is_group = np.array([role[s] == "group" for s in src])
+    is_dep = np.array([role[s] in ("group", "proxy") for s in src])
+    mu = history_means(snap)
+    X = snap.X
+    for r in np.unique(rc):  # fitted rows (a handful), not cases
+        mask = row_mask(snap, dep.model, int(r))
+        if not (mask & is_dep).any():
+            continue  # this row has no group or proxy weight: nothing uncertain to carry
+        chol = row_cholesky(snap, dep.model, int(r))
+        cols = np.flatnonzero(mask)
+        pos = np.flatnonzero(rc == r)
+        for start in range(0, len(pos), BLOCK_ROWS):
+            chunk = pos[start : start + BLOCK_ROWS]
+            d = np.asarray(X[dep.rows[chunk]], dtype=float)[:, cols] - mu[cols]
+            for which, out in ((is_group[cols], gse), (is_dep[cols], dse)):
+                v = np.zeros((len(cols) + 1, len(chunk)))
+                v[1:] = (d * which).T
+                zz = solve_triangular(chol, v, lower=True, check_finite=False)
+                out[chunk] = np.sqrt(np.einsum("ij,ij->j", zz, zz))
+    ng = dep.margin_group_neutral
+    nn = dep.margin_neutral
+    return RestsOnUncertainty(
+        group_se=gse,
+        dependence_se=dse,
+        z=z,
+        group_uncertain=np.asarray((ng - z * gse < 0) & (ng + z * gse > 0)),
+        proxies_uncertain=np.asarray((nn - z * dse < 0) & (nn + z * dse > 0)),
+    )

@@ -22,7 +22,10 @@ dependence : {
         largest |contribution| first; they add up to margin − baseline,
     "group_part", "proxy_part", "rest", "dependence" (= group_part + proxy_part), "share",
     "margin_group_neutral", "margin_neutral" (group and proxies neutralised),
-    "rests_on_group", "rests_on_proxies" : bool }
+    "rests_on_group", "rests_on_proxies" : bool,
+    "group_part_se", "dependence_se" : float (from the weights' inverse penalised Hessian),
+    "rests_on_group_uncertain", "rests_on_proxies_uncertain" : bool (the verdict could flip
+    within its 95 % interval) }
 counterparts : [{"group", "margin_group_swapped", "decision_group_swapped", "flips_group_swapped",
     "margin_carried", "decision_carried", "flips_carried",
     "carried": [{"feature", "from", "to"}]}] one per other group level
@@ -52,7 +55,7 @@ from typing import Any
 import numpy as np
 
 from closecall.analysis.counterparts import counterparts_for_case
-from closecall.analysis.dependence import dependence
+from closecall.analysis.dependence import dependence, rests_on_uncertainty
 from closecall.analysis.multiplicity import UNCERTAINTY_EPSILON, bands, exact_band
 from closecall.analysis.neighbours import neighbours_for_case
 from closecall.fit_flags import case_fit_flags, snapshot_flags
@@ -103,6 +106,7 @@ def explain_case(
     values = case_values(snap, i)
 
     dep = dependence(snap, MODEL, lens, rows)
+    rests_unc = rests_on_uncertainty(snap, dep)
     order = np.argsort(-np.abs(dep.contributions[0]), kind="stable")
     contrib = [
         {
@@ -155,6 +159,10 @@ def explain_case(
             "margin_neutral": float(dep.margin_neutral[0]),
             "rests_on_group": bool(dep.rests_on_group[0]),
             "rests_on_proxies": bool(dep.rests_on_proxies[0]),
+            "group_part_se": float(rests_unc.group_se[0]),
+            "dependence_se": float(rests_unc.dependence_se[0]),
+            "rests_on_group_uncertain": bool(rests_unc.group_uncertain[0]),
+            "rests_on_proxies_uncertain": bool(rests_unc.proxies_uncertain[0]),
         },
         "counterparts": counterparts_for_case(snap, i, MODEL, lens),
         "bands": {

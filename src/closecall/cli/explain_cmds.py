@@ -6,9 +6,11 @@ colour, so nothing is told by colour alone.
 
 from __future__ import annotations
 
+from dataclasses import asdict
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import typer
 from rich import box
 from rich.table import Table
@@ -24,6 +26,7 @@ from closecall.analysis.multiplicity import (
     ambiguity_by_group,
     epsilon_curve,
 )
+from closecall.analysis.proxies import proxy_sets
 from closecall.cli.common import ConfigOption, JsonOption, load
 from closecall.cli.output import console, emit_json, plain, safe_text
 from closecall.errors import UserError
@@ -37,6 +40,11 @@ FLAG = "✱"
 
 def _txt(text: Any, style: str = "") -> Text:
     return plain(text, style)
+
+
+def _span(lo: float | None, hi: float | None) -> str:
+    """A bootstrap interval as text, or a dash when the snapshot has none."""
+    return "—" if lo is None or hi is None else f"{lo:.3f}–{hi:.3f}"
 
 
 def _signed(x: float, digits: int = 2) -> str:
@@ -169,10 +177,21 @@ def _print_explanation(d: dict[str, Any]) -> None:
         f" · rest {_signed(dep['rest'], 3)} · {_pct(dep['share'])} of the pull from these two"
     )
     t = _grid("neutralised", "margin", "decision", "", right=(1,))
-    for label, key, flag, what in (
-        ("the group", "margin_group_neutral", "rests_on_group", "rests on the group"),
-        ("group and proxies", "margin_neutral", "rests_on_proxies", "rests on group/proxies"),
+    sure: list[str] = []
+    for label, key, flag, what, se in (
+        ("the group", "margin_group_neutral", "rests_on_group", "rests on the group", "group"),
+        (
+            "group and proxies",
+            "margin_neutral",
+            "rests_on_proxies",
+            "rests on group/proxies",
+            "proxies",
+        ),
     ):
+        spread = dep.get("group_part_se" if se == "group" else "dependence_se")
+        if spread is not None:
+            unsure = " — uncertain" if dep.get(f"{flag}_uncertain", False) else ""
+            sure.append(f"{label} ±{1.96 * spread:.3f}{unsure}")
         t.add_row(
             _txt(label),
             _signed(dep[key], 3),
@@ -180,6 +199,12 @@ def _print_explanation(d: dict[str, Any]) -> None:
             _txt(f"{FLAG} FLIPS: {what}" if dep[flag] else "same decision", "bold"),
         )
     console.print(t)
+    if sure:
+        _say("95% interval of the neutralised margin: " + "; ".join(sure))
+    _say(
+        "from the standard error of the part taken out (the uncertainty of its weights); "
+        "uncertain = within that interval the neutralised decision could go either way"
+    )
 
     _heading("Counterparts: the case carried into another group")
     t = _grid("as group", "what changes", "margin", "decision", "", right=(2,))
@@ -292,9 +317,12 @@ def proxies(config: Path = ConfigOption, as_json: bool = JsonOption) -> None:
     """Which features stand in for the group attribute, and how much the margins rest on
     the group and its proxies, per group.
 
-    A feature is a proxy when its association with the group and its influence in the
-    group-unaware model both reach the thresholds in [proxies]. Group recoverability is the
-    held-out AUC of predicting the group from all non-group features together.
+    A feature is a proxy when its association with the group is shown (its bootstrap interval
+    lies at or above [proxies] association) and its influence in the group-unaware model
+    cannot be ruled out (its interval reaches [proxies] influence); 'uncertain' flags and
+    'possible' proxies are marked. Group recoverability is the held-out AUC of predicting the
+    group from all non-group features together; the proxy-set search takes out, one by one,
+    the features that lower it most.
 
     Example: closecall proxies --json
     """
@@ -303,40 +331,84 @@ def proxies(config: Path = ConfigOption, as_json: bool = JsonOption) -> None:
     report = snap.proxies
     dep = dependence_by_group(snap)
     flips = counterpart_flip_rates(snap)
+    sets = proxy_sets(
+        np.asarray(snap.hist_X),
+        np.asarray(snap.hist_group_codes),
+        len(snap.group_levels),
+        snap.meta["column_source"],
+        [f.name for f in snap.encoder.features if not f.is_group],
+        int(snap.meta.get("seed", 0)),
+    )
     if as_json:
         emit_json(
             {
                 "snapshot": snap.id,
                 **report.to_json(),
+                "proxy_sets": {
+                    "start_auc": sets.start_auc,
+                    "method": sets.method,
+                    "rows": sets.rows,
+                    "steps": [asdict(x) for x in sets.steps],
+                },
                 "dependence_by_group": dep,
                 "counterparts": flips,
             }
         )
         return
     _heading("Proxies: associated with the group and influential without it")
-    t = _grid("feature", "kind", "assoc.", "measure", "infl.", "peeled", "proxy", right=(2, 4, 5))
-    for pr in sorted(report.rows, key=lambda x: (not x.proxy, -x.association)):
+    t = _grid(
+        "feature", "kind", "assoc.", "interval", "infl.", "interval", "peeled", "proxy",
+        right=(2, 3, 4, 5, 6),
+    )
+    for pr in sorted(report.rows, key=lambda x: (not x.proxy, not x.possible, -x.association)):
         peeled = pr.influence if pr.influence_peeled is None else pr.influence_peeled
         mark = f"{FLAG} PROXY" + (f" (round {pr.round})" if pr.round > 1 else "")
+        mark += " uncertain" if pr.uncertain else ""
         t.add_row(
             _txt(pr.feature),
             _txt("cat." if pr.kind == "categorical" else "num."),
             f"{pr.association:.3f}",
-            _txt(pr.association_measure),
+            _span(pr.association_low, pr.association_high),
             f"{pr.influence:.3f}",
+            _span(pr.influence_low, pr.influence_high),
             f"{peeled:.3f}",
-            _txt(mark if pr.proxy else "no", "bold magenta" if pr.proxy else ""),
+            _txt(
+                mark if pr.proxy else "possible" if pr.possible else "no",
+                "bold magenta" if pr.proxy else "magenta" if pr.possible else "",
+            ),
         )
     console.print(t)
+    level = (
+        f"{100 * report.level:.0f}% bootstrap intervals ({report.n_boot} replicates)"
+        if report.level is not None
+        else "point values: no intervals in this snapshot"
+    )
     _say(
-        f"proxy when association ≥ {report.association_threshold:g} and influence ≥ "
-        f"{report.influence_threshold:g} ([proxies] in the config). infl. = share of the "
-        "unaware model's margin variance; peeled = the largest share once the proxies found "
-        "so far are taken out (round 2 and on)"
+        f"proxy when the association interval lies at or above "
+        f"{report.association_threshold:g} and the influence interval reaches "
+        f"{report.influence_threshold:g} ([proxies] in the config; "
+        + level
+        + "). uncertain = the influence interval also reaches below its threshold; possible "
+        "= the association interval straddles its threshold (add it to [proxies] extra to "
+        "treat it as a proxy). infl. = share of the unaware model's margin variance; peeled "
+        "= the largest share once the proxies found so far are taken out (round 2 and on). "
+        "assoc. = 2|AUC − 0.5| for numeric features, Cramér's V with Bergsma's bias "
+        "correction for categorical ones"
     )
     _say(
         f"group recoverable from all non-group features: held-out AUC "
         f"{report.recoverability:.3f} (0.5 = not at all, 1 = perfectly)"
+    )
+    _heading("Proxy sets: features that carry the group together")
+    t = _grid("step", "taken out", "recoverability left", "drop", right=(0, 2, 3))
+    t.add_row("0", _txt("(none)"), f"{sets.start_auc:.3f}", "")
+    for k, st in enumerate(sets.steps, 1):
+        t.add_row(str(k), _txt(st.removed), f"{st.auc_after:.3f}", f"{st.drop:.3f}")
+    console.print(t)
+    _say(
+        "greedy: each step takes out the feature whose removal lowers the held-out AUC of "
+        f"recovering the group most ({sets.method} scores on {sets.rows:,} rows), until it "
+        "is 0.6 or less or five are out"
     )
     _heading("How much the pooled margins rest on the group and its proxies")
     t = _grid(
@@ -356,13 +428,15 @@ def proxies(config: Path = ConfigOption, as_json: bool = JsonOption) -> None:
             _signed(r["mean_group_part"], 3),
             _signed(r["mean_proxy_part"], 3),
             _pct(r["mean_share"]),
-            _pct(r["rests_on_group"], 1),
-            _pct(r["rests_on_proxies"], 1),
+            f"{_pct(r['rests_on_group'], 1)} ({_pct(r['rests_on_group_uncertain'], 1)})",
+            f"{_pct(r['rests_on_proxies'], 1)} ({_pct(r['rests_on_proxies_uncertain'], 1)})",
         )
     console.print(t)
     _say(
         "parts are means in log-odds (negative = pulled towards unfavourable); 'rests' = "
-        "share of cases whose decision flips when the group (and its proxies) is neutralised"
+        "share of cases whose decision flips when the group (and its proxies) is neutralised; "
+        "in brackets the share that rests on it but whose verdict could flip within the 95% "
+        "interval of the weights taken out (uncertain)"
     )
     _heading("Counterparts: decisions that change in another group")
     t = _grid(

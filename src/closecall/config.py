@@ -560,9 +560,13 @@ def _check_parts(path: Path, data: DataConfig, proxies: ProxyConfig) -> None:
             continue
         if "group" in (first, key) and first != key:
             other = key if first == "group" else first
+            why = (
+                "the group attribute enters the models as the group, not as a feature"
+                if other in ("features", "exclude")
+                else f"the group attribute may not be the {other.replace('_', ' ')} column"
+            )
             raise UserError(
-                f"{path}: [data] group names '{column}', which is also [data] {other}: the "
-                f"group attribute may not be the {other.replace('_', ' ')} column",
+                f"{path}: [data] group names '{column}', which is also under [data] {other}: {why}",
                 "name the protected attribute's column(s) under group and nowhere else",
             )
         where = f"twice under [data] {key}" if first == key else f"under [data] {first} and {key}"

@@ -16,14 +16,12 @@ from closecall.config import StudyConfig, load_config
 from closecall.errors import UserError
 from closecall.ledger import (
     ACTIONS,
-    GENESIS_HASH,
     OVERRIDES,
     Claim,
     Draft,
     Entry,
     EntryContent,
     NoLedger,
-    Problem,
     VerifyResult,
     open_ledger,
 )
@@ -303,37 +301,29 @@ def case_history(study: Study, case_id: str) -> list[Entry]:
     return ledger_entries(study.config, case_id=case_id)
 
 
-def verify_ledger(config: StudyConfig, anchor: str | None = None) -> VerifyResult:
-    """Recompute the study ledger's hash chain; see :func:`closecall.ledger.verify_chain`.
+def verify_ledger(
+    config: StudyConfig, anchor: str | None = None, *, allow_empty: bool = False
+) -> VerifyResult:
+    """Check the study ledger: there, structured as the schema says, chain intact.
 
-    An absent ledger verifies as empty unless an anchor other than the genesis hash is given.
+    See :func:`closecall.ledger.verify.verify_file`: a missing or empty ledger is a problem
+    unless ``allow_empty``. Needs read permission (reviewers or analysts).
     """
+    from closecall.ledger.verify import verify_file
+
     require_read(config.review, config.path)
-    anchor = check_anchor(anchor)
+    return verify_file(config.review.ledger, check_anchor(anchor), allow_empty=allow_empty)
+
+
+def check_ledger(config: StudyConfig) -> None:
+    """Refuse, before a review session starts, a ledger closecall would not record in: not a
+    ledger, damaged, or its structure changed. An absent ledger is fine (the first record
+    creates it). Reads only."""
     try:
         with open_ledger(config.review.ledger, readonly=True) as ledger:
-            return ledger.verify(anchor)
+            ledger.require_intact()
     except NoLedger:
-        pass
-    problem = None
-    if anchor is not None and anchor != GENESIS_HASH:
-        problem = Problem(
-            "anchor-not-found",
-            None,
-            f"the anchor {anchor[:16]}… is not in the chain: the ledger "
-            f"{config.review.ledger} has no entries (deleted or never written)",
-        )
-    return VerifyResult(
-        ok=problem is None,
-        entries=0,
-        verified=0,
-        head_seq=0,
-        head_hash=GENESIS_HASH,
-        problem=problem,
-        anchor=anchor,
-        anchor_seq=0 if anchor == GENESIS_HASH else None,
-        problems=(problem,) if problem else (),
-    )
+        return
 
 
 # --------------------------------------------------------------------------- drafts and claims

@@ -143,9 +143,14 @@ def test_verify_exits_1_and_names_the_broken_entry(study_config: ConfigMaker, cl
 
 def test_verify_of_a_study_without_a_ledger(study_config: ConfigMaker, cli: Any) -> None:
     config = study_config()
-    r = cli("ledger", "verify", "--config", str(config))
+    r = cli("ledger", "verify", "--config", str(config))  # a missing ledger is not "intact"
+    assert r.code == 1 and "NOT VERIFIED" in r.out and "no ledger file at" in r.out
+    assert "--allow-empty" in r.out and "chain intact" not in r.out
+    r = cli("ledger", "verify", "--json", "--config", str(config))
+    assert r.code == 1 and json.loads(r.out)["problem"]["kind"] == "no-ledger"
+    r = cli("ledger", "verify", "--allow-empty", "--config", str(config))
     assert r.code == 0 and "0 entries" in r.out and "head 0 " + "0" * 64 in r.out
-    r = cli("ledger", "verify", "--anchor", "ab" * 32, "--config", str(config))
+    r = cli("ledger", "verify", "--allow-empty", "--anchor", "ab" * 32, "--config", str(config))
     assert r.code == 1 and "not in the chain" in r.out
     r = cli("ledger", "verify", "--anchor", "not-a-hash", "--config", str(config))
     assert r.code == 2 and "not a head hash" in r.err
@@ -225,7 +230,7 @@ def test_readers_outside_the_lists_are_refused(study_config: ConfigMaker, cli: A
     assert cli("ledger", "show", "--config", str(config)).code == 0
     assert cli("record", _case(config), "--action", "uphold", "--config", str(config)).code == 2
     config = study_config(reviewers=[me], analysts=["bob"])  # reviewers may read too
-    assert cli("ledger", "verify", "--config", str(config)).code == 0
+    assert cli("ledger", "verify", "--allow-empty", "--config", str(config)).code == 0
 
 
 HOSTILE_NOTE = "[/x]\x1b[2J\x1b[31mred\x1b]0;pwned\x07 csi\x9b1m [bold]b\u202eevil\r\nend"

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from datetime import timedelta
 from pathlib import Path
 from typing import Any
 
@@ -10,7 +11,7 @@ from ledger_helpers import FakeStudy, entries_digest, make_study
 
 from closecall import reviews
 from closecall.errors import AccessDenied, UserError
-from closecall.ledger import current_login
+from closecall.ledger import current_login, store
 
 
 def _study(tmp_path: Path, **review: Any) -> FakeStudy:
@@ -132,7 +133,7 @@ def test_drafts_survive_until_recorded(tmp_path: Path) -> None:
         reviews.save_draft(study, "Q", "x")
 
 
-def test_claims_are_advice_and_expire(tmp_path: Path) -> None:
+def test_claims_are_advice_and_expire(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
     study = _study(tmp_path)
     assert reviews.active_claims(study, ["A-1"]) == {}
     claim = reviews.claim_case(study, "A-1")
@@ -142,17 +143,22 @@ def test_claims_are_advice_and_expire(tmp_path: Path) -> None:
     reviews.record_review(study, "A-1", "uphold", None, "")  # a claim never blocks recording
     reviews.release_claim(study, "A-1")
     assert reviews.active_claims(study) == {}
-    short = _study(tmp_path, claim_minutes=-1)  # already expired when taken
-    reviews.claim_case(short, "A-2")
-    assert reviews.active_claims(short, ["A-2"]) == {}
+    earlier = store.utc_now() - timedelta(minutes=5)
+    with monkeypatch.context() as m:  # a 1-minute claim taken 5 minutes ago has expired
+        m.setattr(store, "utc_now", lambda: earlier)
+        reviews.claim_case(_study(tmp_path, claim_minutes=1), "A-2")
+    assert reviews.active_claims(study, ["A-2"]) == {}
 
 
 def test_verify_ledger_checks_the_anchor_format(tmp_path: Path) -> None:
     study = _study(tmp_path)
     with pytest.raises(UserError, match="not a head hash"):
         reviews.verify_ledger(study.config, "1234")
-    result = reviews.verify_ledger(study.config)
+    result = reviews.verify_ledger(study.config)  # no ledger file: not "0 entries, intact"
+    assert not result.ok and result.problem is not None and result.problem.kind == "no-ledger"
+    result = reviews.verify_ledger(study.config, allow_empty=True)
     assert result.ok and result.entries == 0
+    assert not study.config.review.ledger.exists()  # reading never creates it
     entry = reviews.record_review(study, "A-1", "uphold", None, "")
     result = reviews.verify_ledger(study.config, entry.hash)
     assert result.ok and result.anchor_seq == 1 and result.head_hash == entry.hash

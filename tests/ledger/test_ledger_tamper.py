@@ -12,6 +12,7 @@ from ledger_helpers import content
 
 from closecall.ledger import GENESIS_HASH, entry_hash, open_ledger
 from closecall.ledger.entry import HASHED_FIELDS as ENTRY_FIELDS
+from closecall.ledger.schema import TRIGGERS, expected_objects
 
 N = 10
 
@@ -196,15 +197,9 @@ def test_a_whole_rewritten_chain_is_caught_by_the_anchor(ledger_path: Path) -> N
             [row[c] for c in cols],
         )
         prev = str(row["hash"])
-    # put the triggers back, as a careful attacker would
-    conn.execute(
-        "CREATE TRIGGER entries_no_update BEFORE UPDATE ON entries "
-        "BEGIN SELECT RAISE(ABORT, 'x'); END"
-    )
-    conn.execute(
-        "CREATE TRIGGER entries_no_delete BEFORE DELETE ON entries "
-        "BEGIN SELECT RAISE(ABORT, 'x'); END"
-    )
+    # put the triggers back word for word, as a careful attacker would
+    for name in TRIGGERS:
+        conn.execute(str(expected_objects()[("trigger", name)].sql))
     conn.close()
     assert verify(ledger_path).ok  # indistinguishable without an anchor (documented threat)
     result = verify(ledger_path, anchor)

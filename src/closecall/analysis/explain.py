@@ -201,9 +201,10 @@ def _with_reviews(config: Any, nb: dict[str, Any]) -> dict[str, Any]:
     """Add each similar case's effective review (latest ledger entry), when there is one.
 
     Treat like cases alike: a reviewer sees how similar cases were decided by people as well
-    as how they turned out. Without a ledger, or without read access, ``review`` is None.
+    as how they turned out. Without a ledger, or without read access, ``review`` is None; a
+    damaged ledger is refused (UserError), never read as "no reviews".
     """
-    from closecall.errors import UserError
+    from closecall.errors import AccessDenied
     from closecall.reviews import ledger_entries
 
     for n in nb["neighbours"]:
@@ -216,6 +217,6 @@ def _with_reviews(config: Any, nb: dict[str, Any]) -> dict[str, Any]:
             if entries:
                 e = entries[-1]
                 n["review"] = {"action": e.action, "reason": e.reason, "seq": e.seq}
-    except UserError:
+    except AccessDenied:
         pass
     return nb

@@ -205,12 +205,19 @@ def verify(
     anchor: str | None = typer.Option(
         None, "--anchor", help="A head hash kept elsewhere earlier; it must still be in the chain."
     ),
+    allow_empty: bool = typer.Option(
+        False,
+        "--allow-empty",
+        help="Accept a missing or empty ledger (a study with no reviews yet) as intact.",
+    ),
     as_json: bool = JsonOption,
     config: Path = ConfigOption,
 ) -> None:
-    """Recompute the hash chain; name the first broken entry; print the head hash.
+    """Check the ledger: there, its structure and triggers as closecall made them, the hash
+    chain intact; name the first broken entry; print the head hash.
 
-    Exit code 0 when the chain is intact (and holds the anchor), 1 when it is not.
+    Exit code 0 when every check passes (and the chain holds the anchor), 1 when one fails —
+    a missing or empty ledger fails too, unless --allow-empty — and 2 for a usage error.
     Keep the printed head hash somewhere the ledger's owners cannot write (a daily e-mail,
     another server); pass it back with --anchor to detect entries cut from the end.
 
@@ -220,19 +227,29 @@ def verify(
       closecall ledger verify --anchor 3f1c…(64 hex characters)
     """
     cfg = load_config(config)
-    result = verify_ledger(cfg, anchor)
+    result = verify_ledger(cfg, anchor, allow_empty=allow_empty)
     if as_json:
         emit_json({"ledger": str(cfg.review.ledger), **result.to_dict()})
     else:
         where = safe_text(str(cfg.review.ledger))
         if result.ok:
-            _print(f"ledger {where}: {result.entries} entries, chain intact")
+            _print(
+                f"ledger {where}: {result.entries} entries, chain intact"
+                + (" (empty allowed by --allow-empty)" if result.entries == 0 else "")
+            )
             if result.anchor is not None:
                 _print(f"anchor found at entry {result.anchor_seq}")
-        else:
+        elif result.first_broken is not None or result.verified < result.entries:
             _print(f"ledger {where}: BROKEN after {result.verified} good entries")
-            for problem in result.problems:  # may quote tampered values: escape them
-                _print(f"  {safe_text(problem.message)}")
+        elif result.entries:
+            _print(
+                f"ledger {where}: BROKEN: the chain of {result.entries} entries holds, but the "
+                "file was changed"
+            )
+        else:
+            _print(f"ledger {where}: NOT VERIFIED")
+        for problem in result.problems:  # may quote tampered values: escape them
+            _print(f"  {safe_text(problem.message)}")
         _print(f"head {result.head_seq} {safe_text(str(result.head_hash))}")
     if not result.ok:
         raise typer.Exit(1)

@@ -39,7 +39,10 @@ def review(
         write = None if target.exists() else DEMO_DIR
         app = ReviewApp(target, write_demo_to=write)
     else:
-        load_config(config)  # a bad config is one message and exit 2, before the screen opens
+        from closecall.reviews import check_ledger
+
+        # a bad config or an unusable ledger is one message and exit 2, before the screen opens
+        check_ledger(load_config(config))
         app = ReviewApp(config)
     app.run()
     if app.return_code:

@@ -14,8 +14,8 @@ from closecall.ledger.entry import (
     entry_hash,
 )
 from closecall.ledger.schema import SCHEMA_VERSION
-from closecall.ledger.store import Claim, Draft, Ledger, NoLedger, open_ledger
-from closecall.ledger.verify import Problem, VerifyResult, verify_chain
+from closecall.ledger.store import Claim, DamagedLedger, Draft, Ledger, NoLedger, open_ledger
+from closecall.ledger.verify import Problem, VerifyResult, verify_chain, verify_file
 
 __all__ = [
     "ACTIONS",
@@ -23,6 +23,7 @@ __all__ = [
     "OVERRIDES",
     "SCHEMA_VERSION",
     "Claim",
+    "DamagedLedger",
     "Draft",
     "Entry",
     "EntryContent",
@@ -37,4 +38,5 @@ __all__ = [
     "may_record",
     "open_ledger",
     "verify_chain",
+    "verify_file",
 ]

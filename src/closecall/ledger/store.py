@@ -16,6 +16,7 @@ SQLite, "PRAGMA synchronous", https://www.sqlite.org/pragma.html#pragma_synchron
 from __future__ import annotations
 
 import contextlib
+import functools
 import json
 import math
 import os
@@ -23,12 +24,12 @@ import sqlite3
 import tempfile
 import time
 import urllib.parse
-from collections.abc import Iterable, Iterator, Sequence
+from collections.abc import Callable, Iterable, Iterator, Sequence
 from dataclasses import dataclass
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
 from types import TracebackType
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, Concatenate, ParamSpec, TypeVar
 
 from closecall.errors import UserError
 from closecall.ledger import schema
@@ -88,9 +89,19 @@ class Claim:
     expires_at: str
 
 
+class _UnreadableEntry(Exception):
+    """A stored entry whose values cannot be read back (turned into DamagedLedger)."""
+
+    def __init__(self, seq: object, reason: str) -> None:
+        super().__init__(f"entry {seq}: {reason}")
+
+
 def _row_to_entry(row: Sequence[Any]) -> Entry:
     values = dict(zip(_COLUMNS, row, strict=True))
-    values["decisions"] = json.loads(values["decisions"])
+    try:
+        values["decisions"] = json.loads(values["decisions"])
+    except (TypeError, ValueError) as exc:
+        raise _UnreadableEntry(values.get("seq"), f"its decisions are not JSON ({exc})") from None
     return Entry(**values)
 
 
@@ -159,6 +170,120 @@ class NoLedger(UserError):
     """Read-only open of a ledger that does not exist yet (or holds nothing)."""
 
 
+#: What to do about a ledger that cannot be used as it is: never let closecall "repair" it.
+DAMAGED_FIX = (
+    "do not edit the file: restore the ledger from your latest backup (docs/ledger.md, "
+    "Backups), run 'closecall ledger verify' to list every problem, and tell the study's "
+    "supervisor; closecall will not write to it as it is"
+)
+NOT_A_LEDGER_FIX = (
+    "check that [review] ledger in closecall.toml names the study's ledger file; if it does, "
+    "the file was replaced: restore it from your latest backup and tell the study's supervisor"
+)
+
+
+class DamagedLedger(UserError):
+    """The file at the ledger path cannot be used as a ledger: not a closecall ledger, or one
+    whose tables (or triggers, for writers) were changed outside closecall, or unreadable.
+
+    ``kind`` names what is wrong for ``ledger verify``: ``not-a-ledger``, ``unreadable``
+    (SQLite cannot read it, or a stored entry cannot be read back), ``empty-ledger`` (a file
+    with no tables, which closecall never leaves), or ``structure`` (see ``findings``).
+    """
+
+    def __init__(
+        self,
+        path: Path,
+        what: str,
+        *,
+        kind: str,
+        findings: Sequence[schema.Finding] = (),
+        fix: str = DAMAGED_FIX,
+    ) -> None:
+        super().__init__(f"{path}: {what}", fix)
+        self.path = path
+        self.kind = kind
+        self.findings = tuple(findings)
+
+
+def _database_error(path: Path, exc: sqlite3.DatabaseError | _UnreadableEntry) -> UserError:
+    """The one place where an SQLite error about the ledger becomes a message for the user.
+
+    A file SQLite cannot read, or whose tables are not there, is a :class:`DamagedLedger`;
+    a lock, missing permission or a full disk is a plain :class:`UserError` (nothing is wrong
+    with the ledger itself).
+    """
+    text = str(exc)
+    low = text.lower()
+    if isinstance(exc, _UnreadableEntry):
+        return DamagedLedger(
+            path, f"a stored entry cannot be read back ({text})", kind="unreadable"
+        )
+    if path.is_dir():
+        return DamagedLedger(
+            path, "a folder, not a ledger file", kind="not-a-ledger", fix=NOT_A_LEDGER_FIX
+        )
+    if "not a database" in low or "encrypted" in low:
+        return DamagedLedger(
+            path,
+            f"not a closecall ledger (SQLite says: {text})",
+            kind="not-a-ledger",
+            fix=NOT_A_LEDGER_FIX,
+        )
+    if "malformed" in low or "corrupt" in low:
+        return DamagedLedger(
+            path, f"the ledger file is damaged (SQLite says: {text})", kind="unreadable"
+        )
+    if "no such table" in low or "no such column" in low:
+        return DamagedLedger(
+            path,
+            f"the ledger's tables were changed outside closecall (SQLite says: {text})",
+            kind="structure",
+        )
+    if "locked" in low or "busy" in low:
+        return UserError(
+            f"{path}: the ledger is locked by another program (SQLite says: {text})",
+            "wait for the other program to finish and run the command again; if it stays "
+            "locked, close whatever holds the file open (an sqlite3 shell, a backup tool)",
+        )
+    if "readonly" in low or "read-only" in low:
+        return UserError(
+            f"{path}: the ledger cannot be written with your login (SQLite says: {text})",
+            "ask the study owner for write permission on the ledger file and its folder "
+            "(owner and group read/write); commands that only read it still work",
+        )
+    if "full" in low:
+        return UserError(
+            f"{path}: the disk holding the ledger is full (SQLite says: {text})",
+            "free some space and run the command again (nothing was recorded)",
+        )
+    return UserError(
+        f"{path}: cannot open the ledger (SQLite says: {text})",
+        "check that the file and its folder are readable and writable by your login "
+        "(new ledgers are owner and group read/write only); if they are, run 'closecall "
+        "ledger verify'",
+    )
+
+
+_P = ParamSpec("_P")
+_R = TypeVar("_R")
+
+
+def _guarded(
+    method: Callable[Concatenate[Ledger, _P], _R],
+) -> Callable[Concatenate[Ledger, _P], _R]:
+    """Turn SQLite errors raised while using an open ledger into one UserError."""
+
+    @functools.wraps(method)
+    def wrapper(self: Ledger, *args: _P.args, **kwargs: _P.kwargs) -> _R:
+        try:
+            return method(self, *args, **kwargs)
+        except (sqlite3.DatabaseError, _UnreadableEntry) as exc:
+            raise _database_error(self.path, exc) from None
+
+    return wrapper
+
+
 class Ledger:
     """An open ledger file. Use :func:`open_ledger`; close it (or use ``with``) when done."""
 
@@ -195,6 +320,7 @@ class Ledger:
 
     # ------------------------------------------------------------------ entries
 
+    @_guarded
     def append(self, content: EntryContent) -> Entry:
         """Number, chain and store one entry; removes the reviewer's draft for the case.
 
@@ -249,6 +375,7 @@ class Ledger:
             )
         return Entry(**fields)
 
+    @_guarded
     def entries(
         self,
         *,
@@ -280,6 +407,7 @@ class Ledger:
         rows = self._conn.execute(sql, params).fetchall()
         return [_row_to_entry(r) for r in reversed(rows)]
 
+    @_guarded
     def latest_actions(self) -> list[tuple[str, str]]:
         """(case_id, action) of each case's latest entry, in one indexed query.
 
@@ -293,18 +421,24 @@ class Ledger:
         ).fetchall()
         return [(str(r[0]), str(r[1])) for r in rows]
 
+    @_guarded
     def entry(self, seq: int) -> Entry | None:
         row = self._conn.execute(_SELECT + " WHERE seq = ?", (seq,)).fetchone()
         return _row_to_entry(row) if row else None
 
     def iter_rows(self) -> Iterator[dict[str, Any]]:
         """Every stored row as raw column values, in sequence order (for verification)."""
-        for row in self._conn.execute(_SELECT + " ORDER BY seq"):
-            yield dict(zip(_COLUMNS, row, strict=True))
+        try:
+            for row in self._conn.execute(_SELECT + " ORDER BY seq"):
+                yield dict(zip(_COLUMNS, row, strict=True))
+        except sqlite3.DatabaseError as exc:
+            raise _database_error(self.path, exc) from None
 
+    @_guarded
     def count(self) -> int:
         return int(self._conn.execute("SELECT COUNT(*) FROM entries").fetchone()[0])
 
+    @_guarded
     def head(self) -> tuple[int, str]:
         """(sequence number, hash) of the last stored entry; (0, GENESIS_HASH) when empty."""
         row = self._conn.execute(
@@ -315,6 +449,16 @@ class Ledger:
     def missing_triggers(self) -> list[str]:
         return schema.missing_triggers(self._conn)
 
+    @_guarded
+    def structure_findings(self) -> list[schema.Finding]:
+        """How the file's tables, indexes and triggers differ from the schema's (see
+        :func:`closecall.ledger.schema.structure_findings`); empty when they are the same."""
+        return _structure(self._conn)
+
+    def require_intact(self) -> None:
+        """DamagedLedger unless the structure is exactly the schema's (what writers need)."""
+        _refuse(self.path, self.structure_findings())
+
     def verify(self, anchor: str | None = None) -> VerifyResult:
         """Recompute the chain; see :func:`closecall.ledger.verify.verify_chain`."""
         from closecall.ledger.verify import verify_chain
@@ -323,6 +467,7 @@ class Ledger:
 
     # ------------------------------------------------------------------ drafts
 
+    @_guarded
     def save_draft(
         self, reviewer: str, case_id: str, note: str, action: str | None, reason: str | None
     ) -> Draft:
@@ -337,6 +482,7 @@ class Ledger:
             )
         return draft
 
+    @_guarded
     def load_draft(self, reviewer: str, case_id: str) -> Draft | None:
         if not _has_table(self._conn, "drafts"):  # an older file opened read-only
             return None
@@ -347,6 +493,7 @@ class Ledger:
         ).fetchone()
         return Draft(*row) if row else None
 
+    @_guarded
     def drafts_of(self, reviewer: str) -> list[Draft]:
         """Every draft ``reviewer`` has saved, most recently updated first."""
         if not _has_table(self._conn, "drafts"):  # an older file opened read-only
@@ -358,6 +505,7 @@ class Ledger:
         ).fetchall()
         return [Draft(*row) for row in rows]
 
+    @_guarded
     def drop_draft(self, reviewer: str, case_id: str) -> None:
         with self._write() as conn:
             conn.execute(
@@ -366,6 +514,7 @@ class Ledger:
 
     # ------------------------------------------------------------------ soft claims
 
+    @_guarded
     def claim(self, case_id: str, reviewer: str, minutes: float) -> Claim:
         """Mark ``case_id`` as open by ``reviewer`` for ``minutes``; renews an existing claim."""
         now = utc_now()
@@ -380,12 +529,14 @@ class Ledger:
             )
         return claim
 
+    @_guarded
     def release(self, case_id: str, reviewer: str) -> None:
         with self._write() as conn:
             conn.execute(
                 "DELETE FROM claims WHERE case_id = ? AND reviewer = ?", (case_id, reviewer)
             )
 
+    @_guarded
     def claims(self, case_ids: Iterable[str] | None = None) -> dict[str, list[Claim]]:
         """Unexpired claims by case (all cases when ``case_ids`` is None), oldest first."""
         if not _has_table(self._conn, "claims"):  # an older file opened read-only
@@ -436,44 +587,54 @@ def _connect(path: Path, readonly: bool) -> sqlite3.Connection:
     return conn
 
 
-def _sqlite_error(path: Path, exc: sqlite3.Error) -> UserError:
-    text = str(exc)
-    if "not a database" in text or "malformed" in text:
-        return UserError(
-            f"{path}: not a closecall ledger (SQLite says: {text})",
-            "check [review] ledger in closecall.toml points at the study's ledger file",
-        )
-    return UserError(
-        f"{path}: cannot open the ledger (SQLite says: {text})",
-        "check that the file and its folder are readable and writable by your login "
-        "(new ledgers are owner and group read/write only)",
-    )
-
-
-def open_ledger(path: str | Path, *, readonly: bool = False) -> Ledger:
+def open_ledger(path: str | Path, *, readonly: bool = False, inspect: bool = False) -> Ledger:
     """Open (and, unless ``readonly``, create or upgrade) the ledger at ``path``.
+
+    A read never creates the file. The file's structure is checked first: a reader refuses a
+    ledger whose tables were dropped or altered, a writer also one whose triggers or other
+    objects differ from the schema's, and neither writes to a ledger it refuses.
+
+    Parameters
+    ----------
+    path
+        The ledger file.
+    readonly
+        Open for reading only (never creates, upgrades or writes anything).
+    inspect
+        Read-only, and open a ledger whose structure differs from the schema's anyway, so that
+        ``ledger verify`` can name every difference (:meth:`Ledger.structure_findings`).
 
     Raises
     ------
+    NoLedger
+        In read-only mode, when the file does not exist or holds no tables.
+    DamagedLedger
+        The path holds a folder, a file that is not a closecall ledger, or a ledger whose
+        structure was changed outside closecall; or (writers) an empty file.
     UserError
-        The file cannot be opened, is not a ledger, or was written by a newer closecall;
-        in read-only mode also when it does not exist.
+        The file cannot be opened (permissions, a lock held too long) or was written by a
+        newer closecall.
     """
     path = Path(path)
+    readonly = readonly or inspect
+    if path.is_dir():
+        raise DamagedLedger(
+            path, "a folder, not a ledger file", kind="not-a-ledger", fix=NOT_A_LEDGER_FIX
+        )
     if readonly and not path.exists():
         raise NoLedger(f"{path}: no ledger yet", "record a review first with 'closecall record'")
     try:
         if not readonly:
             _create_file(path)
         conn = _connect(path, readonly)
-    except (OSError, sqlite3.Error) as exc:
-        if isinstance(exc, sqlite3.Error):
-            raise _sqlite_error(path, exc) from None
+    except sqlite3.DatabaseError as exc:
+        raise _database_error(path, exc) from None
+    except OSError as exc:
         raise UserError(f"{path}: cannot create the ledger ({exc.strerror})") from None
     deadline = time.monotonic() + BUSY_TIMEOUT_SECONDS
     while True:
         try:
-            _prepare(conn, path, readonly)
+            _prepare(conn, path, readonly, inspect)
             break
         except sqlite3.OperationalError as exc:
             # Some lock waits (a journal-mode change, WAL recovery after a crash) return
@@ -482,50 +643,141 @@ def open_ledger(path: str | Path, *, readonly: bool = False) -> Ledger:
                 time.sleep(0.01)
                 continue
             conn.close()
-            raise _sqlite_error(path, exc) from None
-        except sqlite3.Error as exc:
+            raise _database_error(path, exc) from None
+        except sqlite3.DatabaseError as exc:
             conn.close()
-            raise _sqlite_error(path, exc) from None
+            raise _database_error(path, exc) from None
         except BaseException:
             conn.close()
             raise
     return Ledger(path, conn, readonly)
 
 
-def _prepare(conn: sqlite3.Connection, path: Path, readonly: bool) -> None:
-    if not readonly:
-        mode = conn.execute("PRAGMA journal_mode = WAL").fetchone()[0]
-        if str(mode).lower() != "wal":
-            raise UserError(
-                f"{path}: SQLite could not switch the ledger to WAL mode (got {mode!r})",
-                "keep the ledger on a local file system (WAL needs shared memory)",
-            )
+def _prepare(conn: sqlite3.Connection, path: Path, readonly: bool, inspect: bool) -> None:
+    """Check what the file is before anything is written to it; then WAL and migrations."""
     conn.execute("PRAGMA synchronous = FULL")
-    if not schema.is_empty(conn):
-        marker = (
-            conn.execute("SELECT value FROM meta WHERE key = 'application'").fetchone()
-            if _has_table(conn, "meta")
-            else None
-        )
-        if marker is None or marker[0] != schema.APPLICATION:
-            raise UserError(
-                f"{path}: an SQLite file, but not a closecall ledger",
-                "point [review] ledger in closecall.toml at a new or existing ledger file",
+    objects = schema.file_objects(conn)  # the first read: a file that is not SQLite fails here
+    if not objects:
+        size = path.stat().st_size
+        if readonly:
+            raise NoLedger(
+                f"{path}: empty ledger file ({size} bytes, no tables)",
+                "record a review first with 'closecall record'",
             )
-    version = schema.schema_version(conn)
-    if version > schema.SCHEMA_VERSION:
+        raise DamagedLedger(
+            path,
+            f"the ledger file holds no tables ({size} bytes); closecall creates a ledger "
+            "complete in one step, so this file was emptied or made by hand",
+            kind="empty-ledger",
+            fix="restore the ledger from your latest backup; if the study has no reviews yet, "
+            "delete the empty file and record again (closecall then creates the ledger)",
+        )
+    if not _is_ledger(conn, objects):
+        raise DamagedLedger(
+            path,
+            "an SQLite file, but not a closecall ledger",
+            kind="not-a-ledger",
+            fix=NOT_A_LEDGER_FIX,
+        )
+    version = _read_version(conn, objects)
+    if version is not None and version > schema.SCHEMA_VERSION:
         raise UserError(
             f"{path}: ledger schema version {version} is newer than this closecall understands "
             f"({schema.SCHEMA_VERSION})",
             "upgrade closecall",
         )
-    if version < schema.SCHEMA_VERSION:
-        if readonly:
-            if version == 0:
-                raise NoLedger(f"{path}: empty ledger file", "record a review first")
-            return  # entries read the same in every version; upgraded by the next writer
+    findings = _structure(conn, objects, version)
+    if not inspect:
+        _refuse(path, [f for f in findings if f.breaks_reading or not readonly])
+    if readonly:
+        return  # an older version reads the same; upgraded by the next writer
+    mode = conn.execute("PRAGMA journal_mode = WAL").fetchone()[0]
+    if str(mode).lower() != "wal":
+        raise UserError(
+            f"{path}: SQLite could not switch the ledger to WAL mode (got {mode!r})",
+            "keep the ledger on a local file system (WAL needs shared memory)",
+        )
+    if version is not None and version < schema.SCHEMA_VERSION:
         with _WriteTransaction(conn):
             schema.migrate(conn)  # re-reads the version under the write lock
+
+
+def _refuse(path: Path, findings: Sequence[schema.Finding]) -> None:
+    """DamagedLedger naming the first findings, if there are any."""
+    if not findings:
+        return
+    shown = "; ".join(f.message for f in findings[:3])
+    more = f" (and {len(findings) - 3} more)" if len(findings) > 3 else ""
+    raise DamagedLedger(
+        path,
+        f"the ledger's structure was changed outside closecall: {shown}{more}",
+        kind="structure",
+        findings=findings,
+    )
+
+
+def _intact(objects: dict[tuple[str, str], schema.SchemaObject], table: str) -> bool:
+    """The table is there with the definition version 1 gave it."""
+    have = objects.get(("table", table))
+    return have is not None and have.key == schema.expected_objects(1)[("table", table)].key
+
+
+def _marker(conn: sqlite3.Connection, objects: dict[tuple[str, str], schema.SchemaObject]) -> Any:
+    """The meta table's application marker (None when the table or the row is missing)."""
+    if not _intact(objects, "meta"):
+        return None
+    row = conn.execute("SELECT value FROM meta WHERE key = 'application'").fetchone()
+    return None if row is None else row[0]
+
+
+def _is_ledger(
+    conn: sqlite3.Connection, objects: dict[tuple[str, str], schema.SchemaObject]
+) -> bool:
+    """closecall's marker, or (marker gone) the entries table exactly as closecall made it."""
+    marker = _marker(conn, objects)
+    if marker is not None:
+        return bool(marker == schema.APPLICATION)
+    return _intact(objects, "entries")
+
+
+def _read_version(
+    conn: sqlite3.Connection, objects: dict[tuple[str, str], schema.SchemaObject]
+) -> int | None:
+    """The schema version, or None when the schema_version table is missing, altered or holds
+    no valid version (reported by :func:`_structure`)."""
+    if not _intact(objects, "schema_version"):
+        return None
+    value = conn.execute("SELECT MAX(version) FROM schema_version").fetchone()[0]
+    return value if isinstance(value, int) and value >= 1 else None
+
+
+def _structure(
+    conn: sqlite3.Connection,
+    objects: dict[tuple[str, str], schema.SchemaObject] | None = None,
+    version: int | None = None,
+) -> list[schema.Finding]:
+    """Structure findings of the file against the schema of its own version."""
+    if objects is None:
+        objects = schema.file_objects(conn)
+        version = _read_version(conn, objects)
+    valid = version is not None and version <= schema.SCHEMA_VERSION
+    findings = schema.structure_findings(
+        conn, version if valid and version else schema.SCHEMA_VERSION
+    )
+    if version is None and _intact(objects, "schema_version"):
+        findings.insert(
+            0,
+            schema.Finding(
+                "table-altered",
+                "schema_version",
+                "the table schema_version holds no valid version (its rows were changed)",
+            ),
+        )
+    if _intact(objects, "meta") and _marker(conn, objects) is None:
+        findings.append(
+            schema.Finding("table-altered", "meta", "the table meta lost closecall's marker row")
+        )
+    return findings
 
 
 def _has_table(conn: sqlite3.Connection, name: str) -> bool:

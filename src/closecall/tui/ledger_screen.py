@@ -182,7 +182,8 @@ class LedgerScreen(Screen[None]):
     @work(thread=True, exclusive=True, group="ledger-verify")
     def _verify(self) -> None:
         try:
-            result = verify_ledger(self.session.config)
+            # during a session a ledger with no entries yet is normal (`ledger verify` says so)
+            result = verify_ledger(self.session.config, allow_empty=True)
         except UserError as exc:
             self.app.call_from_thread(self._chain_text, f"chain ? cannot check: {exc.message}")
             return

@@ -324,6 +324,9 @@ def proxies_step(p: dict[str, Any]) -> Result:
             never=cfg.proxies.never,
             seed=cfg.seed,
             nongroup_mask=nongroup,
+            y=y,
+            unaware_intercept=unaware.intercept,
+            penalty=cfg.model.penalty,
         )
     return {"time_s": c.wall, "cpu_s": c.cpu, "proxies": float(len(report.proxies))}
 

@@ -155,16 +155,14 @@ def _weighted_auc_association(
     best = np.zeros(w.shape[0])
     levels = range(1) if n_levels == 2 else range(n_levels)
     for g in levels:  # group levels, not cases
-        pos = gs == g
-        w1 = w * pos
-        w0 = w * ~pos
-        c0 = np.cumsum(w0, axis=1)
+        pos = np.flatnonzero(gs == g)
+        c0 = np.cumsum(np.where(gs == g, 0.0, w), axis=1)  # weight of the others up to here
         below = np.where(starts > 0, c0[:, np.maximum(starts - 1, 0)], 0.0)  # (B, ties)
-        tied = c0[:, ends - 1] - below
-        per_case = below[:, tie_of] + 0.5 * tied[:, tie_of]
-        n1, n0 = w1.sum(axis=1), w0.sum(axis=1)
+        half = below + 0.5 * (c0[:, ends - 1] - below)
+        w1 = w[:, pos]
+        n1, n0 = w1.sum(axis=1), c0[:, -1]
         with np.errstate(invalid="ignore", divide="ignore"):
-            auc = (w1 * per_case).sum(axis=1) / (n1 * n0)
+            auc = (w1 * half[:, tie_of[pos]]).sum(axis=1) / (n1 * n0)
         best = np.maximum(best, np.nan_to_num(2 * np.abs(auc - 0.5)))
     return best
 
@@ -186,6 +184,7 @@ def association_draws(
     rng: np.random.Generator,
     rows: np.ndarray,
     weights: np.ndarray,
+    full: float | None = None,
 ) -> np.ndarray:
     """Bootstrap replicates of a feature's association with the group (vectorised).
 
@@ -204,7 +203,8 @@ def association_draws(
         draws = rng.multinomial(total, (table / total).ravel(), size=n_boot)
         return corrected_v_of_tables(draws.reshape(n_boot, *table.shape))
     n, m = len(values), len(rows)
-    full = auc_association(values, group_codes, n_levels)
+    if full is None:  # the point value over every case (the caller usually has it)
+        full = auc_association(values, group_codes, n_levels)
     x, g = np.asarray(values)[rows], np.asarray(group_codes)[rows]
     reps = np.concatenate(
         [
@@ -449,7 +449,9 @@ def detect_proxies(
                 "Cramér's V (bias-corrected)",
             )
         if rows_b is not None and weights_b is not None:
-            draws = association_draws(kind, values, group_codes, n_levels, rng, rows_b, weights_b)
+            draws = association_draws(
+                kind, values, group_codes, n_levels, rng, rows_b, weights_b, association[name][0]
+            )
             a_int[name] = _interval(draws, level)
         else:
             a_int[name] = (association[name][0], association[name][0])

@@ -353,6 +353,29 @@ def test_triggers_are_compared_by_definition_not_by_layout(study_dir: Path, cli:
     assert res.code == 1 and "trigger entries_no_update was replaced" in res.out, res
 
 
+def _unreadable_decisions(ledger: Path) -> None:
+    """Entry 2's decisions made invalid JSON, the triggers put back word for word after."""
+    _sql(
+        "DROP TRIGGER entries_no_update",
+        'UPDATE entries SET decisions = \'{"pooled": {"margin": 0.1\' WHERE seq = 2',
+        _schema_sql("entries_no_update"),
+    )(ledger)
+
+
+@pytest.mark.parametrize("command", ["ledger show", "ledger export", "disparity"])
+def test_an_entry_that_cannot_be_read_back_is_one_message(
+    study_dir: Path, cli: Cli, command: str
+) -> None:
+    before = _damage(study_dir, _unreadable_decisions)
+    res = _run(cli, study_dir, *COMMANDS[command])
+    assert_refused(res, str(study_dir / LEDGER), "entry 2", "cannot be read back", "restore")
+    res = _run(cli, study_dir, "ledger", "verify", "--json")
+    result = json.loads(res.out)
+    assert res.code == 1 and result["problem"]["kind"] == "malformed", res
+    assert result["first_broken"] == 2 and result["verified"] == 1
+    _unchanged(before, study_dir)
+
+
 # --------------------------------------------------------------------------- missing and empty
 
 

@@ -10,9 +10,9 @@ from pathlib import Path
 import pytest
 from ledger_helpers import content
 
-from closecall.ledger import GENESIS_HASH, entry_hash, open_ledger
+from closecall.ledger import GENESIS_HASH, DamagedLedger, NoLedger, entry_hash, open_ledger
 from closecall.ledger.entry import HASHED_FIELDS as ENTRY_FIELDS
-from closecall.ledger.schema import TRIGGERS, expected_objects
+from closecall.ledger.schema import TRIGGERS, expected_objects, normalise_sql
 
 N = 10
 
@@ -220,3 +220,61 @@ def test_dropped_triggers_alone_fail_verification(ledger_path: Path) -> None:
     assert not result.ok and result.first_broken is None
     assert [p.kind for p in result.problems] == ["triggers-missing"]
     assert result.verified == N
+
+
+# --------------------------------------------------------------------------- structure
+
+
+def test_sql_is_compared_up_to_layout_case_and_comments() -> None:
+    sql = str(expected_objects()[("trigger", "entries_no_update")].sql)
+    relaid = 'create  trigger "ENTRIES_NO_UPDATE" /* same */ ' + " ".join(sql.split()[3:])
+    assert normalise_sql(relaid) == normalise_sql(sql)
+    assert normalise_sql(sql.replace("BEFORE UPDATE", "BEFORE UPDATE OF note")) != normalise_sql(
+        sql
+    )
+    assert normalise_sql(sql.replace("append-only", "Append-only")) != normalise_sql(sql)
+
+
+REPLACED = {
+    "no-op": "CREATE TRIGGER entries_no_update BEFORE UPDATE ON entries BEGIN SELECT 1; END",
+    "when 0": str(expected_objects()[("trigger", "entries_no_update")].sql).replace(
+        "ON entries", "ON entries WHEN 0"
+    ),
+    "other table": str(expected_objects()[("trigger", "entries_no_update")].sql).replace(
+        "ON entries", "ON claims"
+    ),
+}
+
+
+@pytest.mark.parametrize("name", list(REPLACED))
+def test_a_replaced_trigger_is_reported_and_refuses_writers(ledger_path: Path, name: str) -> None:
+    tamper(ledger_path, REPLACED[name])  # drops both triggers, then puts back one, altered
+    result = verify(ledger_path)  # readers still open it
+    kinds = [p.kind for p in result.problems]
+    assert kinds == ["triggers-missing", "trigger-altered"] and result.verified == N
+    assert "entries_no_update was replaced" in result.problems[1].message
+    before = ledger_path.read_bytes()
+    with pytest.raises(DamagedLedger, match="entries_no_update was replaced") as caught:
+        open_ledger(ledger_path)  # a writer does not record into it
+    assert caught.value.kind == "structure" and ledger_path.read_bytes() == before
+
+
+def test_an_altered_table_is_refused_to_readers_and_inspected_by_verify(ledger_path: Path) -> None:
+    conn = sqlite3.connect(ledger_path, isolation_level=None)
+    conn.execute("ALTER TABLE claims RENAME COLUMN reviewer TO who")
+    conn.close()
+    with pytest.raises(
+        DamagedLedger, match=r"table claims was altered: column\(s\) reviewer missing"
+    ):
+        open_ledger(ledger_path, readonly=True)
+    with open_ledger(ledger_path, inspect=True) as ledger:
+        result = ledger.verify()
+    assert [p.kind for p in result.problems] == ["table-altered"] and result.verified == N
+
+
+def test_reading_never_creates_the_file(tmp_path: Path) -> None:
+    path = tmp_path / "l.sqlite"
+    for mode in ({"readonly": True}, {"inspect": True}):
+        with pytest.raises(NoLedger):
+            open_ledger(path, **mode)
+    assert not path.exists() and list(tmp_path.iterdir()) == []

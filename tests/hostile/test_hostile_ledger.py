@@ -517,3 +517,40 @@ def test_the_review_screen_shows_the_message_instead_of_crashing(
     text = asyncio.run(body())
     assert "Could not open the study" in text and str(study_dir / LEDGER) in text
     _unchanged(before, study_dir)
+
+
+def test_a_ledger_tampered_with_during_a_session_is_a_message_in_the_decision_dialog(
+    study_dir: Path,
+) -> None:
+    """The screen opened on a sound ledger; its triggers are replaced meanwhile: opening the
+    decision dialog (which claims the case, a write) says why instead of crashing."""
+    from textual.widgets import Static
+
+    from closecall.tui.app import ReviewApp
+    from closecall.tui.decision_dialog import DecisionDialog
+    from closecall.tui.queue_screen import QueueScreen
+
+    async def body() -> tuple[str, bool]:
+        app = ReviewApp(study_dir / "closecall.toml")
+        async with app.run_test(size=(100, 30)) as pilot:
+            for _ in range(600):
+                if isinstance(app.screen, QueueScreen):
+                    break
+                await pilot.pause(0.05)
+            assert app.session is not None, "the review list did not open"
+            before = _damage(study_dir, TRIGGERS["no-op trigger of the same name"][0])
+            app.push_screen(DecisionDialog(app.session, CASE))
+            text = ""
+            for _ in range(400):
+                await pilot.pause(0.05)
+                if isinstance(app.screen, DecisionDialog):
+                    text = str(app.screen.query_one("#dialog-status", Static).render())
+                    if "changed outside closecall" in text:
+                        break
+            running = app.is_running
+            await pilot.press("escape")
+        _unchanged(before, study_dir)
+        return text, running
+
+    text, running = asyncio.run(body())
+    assert "trigger entries_no_update was replaced" in text and running

@@ -719,7 +719,8 @@ def _refuse(path: Path, findings: Sequence[schema.Finding]) -> None:
 def _intact(objects: dict[tuple[str, str], schema.SchemaObject], table: str) -> bool:
     """The table is there with the definition version 1 gave it."""
     have = objects.get(("table", table))
-    return have is not None and have.key == schema.expected_objects(1)[("table", table)].key
+    want = schema.expected_objects(1)[("table", table)]
+    return have is not None and (have.sql == want.sql or have.key == want.key)
 
 
 def _marker(conn: sqlite3.Connection, objects: dict[tuple[str, str], schema.SchemaObject]) -> Any:

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import contextlib
 from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any, ClassVar
@@ -266,7 +267,8 @@ class CaseScreen(Screen[None]):
 
     @work(thread=True, group="claims")
     def _release(self, case_id: str) -> None:
-        release_claim(self.session.study, case_id)
+        with contextlib.suppress(UserError):  # a claim is advice and expires by itself
+            release_claim(self.session.study, case_id)
 
     def action_scroll(self, step: int) -> None:
         body = self.query_one("#case-body", VerticalScroll)

@@ -8,6 +8,7 @@ closed dialog, a quit or a dropped connection loses nothing. Recording calls
 
 from __future__ import annotations
 
+import contextlib
 from typing import ClassVar
 
 from rich.text import Text
@@ -102,9 +103,13 @@ class DecisionDialog(ModalScreen[Entry | None]):
 
     @work(thread=True, group="dialog-load")
     def _load(self) -> None:
-        draft = load_draft(self.session.study, self.case_id)
-        if self._claim:
-            claim_case(self.session.study, self.case_id)
+        draft = None
+        try:
+            draft = load_draft(self.session.study, self.case_id)
+            if self._claim:
+                claim_case(self.session.study, self.case_id)
+        except UserError as exc:  # e.g. a ledger damaged meanwhile: say so, never crash
+            self.app.call_from_thread(self.say, exc.message)
         self.app.call_from_thread(self._loaded, draft)
 
     def _loaded(self, draft: object) -> None:
@@ -230,14 +235,19 @@ class DecisionDialog(ModalScreen[Entry | None]):
             return
         if self.keeper.unsaved or self.value() != self.keeper.saved:
             self.keeper.update(self.value())
-            self.keeper.flush()
+            try:
+                self.keeper.flush()
+            except UserError as exc:  # the note stays on screen: nothing typed is lost
+                self.say(f"✗ draft not saved: {exc.message}")
+                return
         if self._claim and not self.value().note.strip():
             self._release()
         self.dismiss(None)
 
     @work(thread=True, group="claims")
     def _release(self) -> None:
-        release_claim(self.session.study, self.case_id)
+        with contextlib.suppress(UserError):  # a claim is advice and expires by itself
+            release_claim(self.session.study, self.case_id)
 
     def say(self, message: str) -> None:
         self.query_one("#dialog-status", Static).update(message)

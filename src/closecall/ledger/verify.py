@@ -230,7 +230,7 @@ def verify_file(
     """
     path = Path(path)
     anchor = anchor.strip().lower() if anchor else None
-    if not path.exists() and not path.is_symlink():
+    if not path.exists():  # (a dangling link too)
         return _nothing(_missing_file(path), anchor, allow_empty, path)
     try:
         ledger = open_ledger(path, inspect=True)

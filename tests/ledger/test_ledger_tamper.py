@@ -229,6 +229,8 @@ def test_sql_is_compared_up_to_layout_case_and_comments() -> None:
     sql = str(expected_objects()[("trigger", "entries_no_update")].sql)
     relaid = 'create  trigger "ENTRIES_NO_UPDATE" /* same */ ' + " ".join(sql.split()[3:])
     assert normalise_sql(relaid) == normalise_sql(sql)
+    table = str(expected_objects()[("table", "meta")].sql)
+    assert normalise_sql(table.replace("TABLE", "TABLE IF NOT EXISTS")) == normalise_sql(table)
     assert normalise_sql(sql.replace("BEFORE UPDATE", "BEFORE UPDATE OF note")) != normalise_sql(
         sql
     )

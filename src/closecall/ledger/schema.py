@@ -169,6 +169,8 @@ def normalise_sql(sql: str | None) -> tuple[str, ...]:
             out.append(token[1:-1].replace(first * 2, first).casefold())
         else:
             out.append(token.casefold())
+    if out[2:5] == ["if", "not", "exists"]:  # CREATE TABLE IF NOT EXISTS …: the same object
+        del out[2:5]
     return tuple(out)
 
 

@@ -119,7 +119,7 @@ def _run(step: str, params: dict[str, Any], repeats: int, inline: bool) -> Resul
 
 
 def bench_size(cases: int, args: argparse.Namespace, work: Path) -> dict[str, Result]:
-    from closecall.demo import write_demo
+    from closecall.setup.demo import write_demo
 
     folder = work / f"demo-{cases}"
     shutil.rmtree(folder, ignore_errors=True)

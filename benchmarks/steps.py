@@ -50,9 +50,9 @@ def _skipped(why: str) -> Result:
 @step("load_closecall")
 def load_closecall(p: dict[str, Any]) -> Result:
     """closecall's load + validate + encode of history and pending files."""
-    from closecall.config import load_config
-    from closecall.data import load_study_data
-    from closecall.encode import fit_encoder
+    from closecall.setup.config import load_config
+    from closecall.setup.encode import fit_encoder
+    from closecall.setup.load import load_study_data
 
     cfg = load_config(p["config"])
     with Clock() as c:
@@ -76,7 +76,7 @@ def load_pandas(p: dict[str, Any]) -> Result:
     """Baseline: pandas read_csv of the same files, nothing else."""
     import pandas as pd
 
-    from closecall.config import load_config
+    from closecall.setup.config import load_config
 
     cfg = load_config(p["config"])
     with Clock() as c:
@@ -92,9 +92,9 @@ def suite(p: dict[str, Any]) -> Result:
     proxies and held-out metrics; with the time of each of its stages."""
     import time
 
-    from closecall.config import load_config
-    from closecall.data import load_study_data
-    from closecall.suite import fit_suite
+    from closecall.setup.config import load_config
+    from closecall.setup.load import load_study_data
+    from closecall.suite.fit import fit_suite
 
     cfg = load_config(p["config"])
     data = load_study_data(cfg.data)
@@ -114,9 +114,9 @@ def suite(p: dict[str, Any]) -> Result:
 
 
 def _encoded(config: str) -> tuple[Any, Any, np.ndarray, np.ndarray]:
-    from closecall.config import load_config
-    from closecall.data import load_study_data
-    from closecall.encode import fit_encoder
+    from closecall.setup.config import load_config
+    from closecall.setup.encode import fit_encoder
+    from closecall.setup.load import load_study_data
 
     cfg = load_config(config)
     data = load_study_data(cfg.data)
@@ -140,9 +140,9 @@ def plain_fit(p: dict[str, Any]) -> Result:
 @step("fit_study")
 def fit_study_step(p: dict[str, Any]) -> Result:
     """What `closecall fit` does: hash the files, load, fit the suite, write the snapshot."""
-    from closecall.config import load_config
-    from closecall.snapshot import snapshot_dir, snapshot_id
-    from closecall.study import fit_study
+    from closecall.setup.config import load_config
+    from closecall.suite.opening import fit_study
+    from closecall.suite.snapshot import snapshot_dir, snapshot_id
 
     cfg = load_config(p["config"])
     folder = snapshot_dir(cfg, snapshot_id(cfg))
@@ -161,7 +161,7 @@ def fit_study_step(p: dict[str, Any]) -> Result:
 @step("open_snapshot")
 def open_snapshot(p: dict[str, Any]) -> Result:
     """Open the study with its cached (memory-mapped) snapshot."""
-    from closecall.study import open_study
+    from closecall.suite.opening import open_study
 
     with Clock() as c:
         study = open_study(p["config"])
@@ -180,8 +180,8 @@ def bands_step(p: dict[str, Any]) -> Result:
     multiplicity = _optional("closecall.analysis.multiplicity")
     if multiplicity is None:
         return _skipped("closecall.analysis.multiplicity not there yet")
-    from closecall.logit import LogitFit, cholesky_lower, hessian, quadratic_form
-    from closecall.study import open_study
+    from closecall.suite.opening import open_study
+    from closecall.suite.solver import LogitFit, cholesky_lower, hessian, quadratic_form
 
     study = open_study(p["config"])
     snap = study.snapshot
@@ -227,8 +227,8 @@ def bootstrap(p: dict[str, Any]) -> Result:
     from scipy.special import logit as logit_fn
     from sklearn.linear_model import LogisticRegression
 
-    from closecall.logit import cholesky_lower, fit_logit, quadratic_form
-    from closecall.study import open_study
+    from closecall.suite.opening import open_study
+    from closecall.suite.solver import cholesky_lower, fit_logit, quadratic_form
 
     snap = open_study(p["config"]).snapshot
     penalty = float(snap.meta["penalty"])
@@ -299,10 +299,10 @@ def bootstrap(p: dict[str, Any]) -> Result:
 @step("proxies")
 def proxies_step(p: dict[str, Any]) -> Result:
     """Proxy detection as the suite runs it, on the whole history."""
-    from closecall.analysis.proxies import detect_proxies
-    from closecall.encode import fit_encoder
-    from closecall.logit import fit_logit
-    from closecall.suite import proxy_columns
+    from closecall.setup.encode import fit_encoder
+    from closecall.suite.fit import proxy_columns
+    from closecall.suite.proxies import detect_proxies
+    from closecall.suite.solver import fit_logit
 
     cfg, data, X, y = _encoded(p["config"])
     enc = fit_encoder(data.history, data.features, data.group_columns)
@@ -337,7 +337,7 @@ def contributions_step(p: dict[str, Any]) -> Result:
     dep = _optional("closecall.analysis.dependence")
     if dep is None:
         return _skipped("closecall.analysis.dependence not there yet")
-    from closecall.study import open_study
+    from closecall.suite.opening import open_study
 
     snap = open_study(p["config"]).snapshot
     with Clock() as c:
@@ -351,7 +351,7 @@ def counterparts_step(p: dict[str, Any]) -> Result:
     cp = _optional("closecall.analysis.counterparts")
     if cp is None:
         return _skipped("closecall.analysis.counterparts not there yet")
-    from closecall.study import open_study
+    from closecall.suite.opening import open_study
 
     snap = open_study(p["config"]).snapshot
     with Clock() as c:
@@ -360,7 +360,7 @@ def counterparts_step(p: dict[str, Any]) -> Result:
 
 
 def _queue_rows(study: Any, limit: int) -> np.ndarray:
-    from closecall.queue import build_queue
+    from closecall.review.queue import build_queue
 
     q = build_queue(study.snapshot, band=study.config.review.band)
     return np.asarray(q.order[:limit])
@@ -372,7 +372,7 @@ def similar_step(p: dict[str, Any]) -> Result:
     nb = _optional("closecall.analysis.neighbours")
     if nb is None:
         return _skipped("closecall.analysis.neighbours not there yet")
-    from closecall.study import open_study
+    from closecall.suite.opening import open_study
 
     study = open_study(p["config"])
     rows = _queue_rows(study, 1000)
@@ -389,7 +389,7 @@ def explain_step(p: dict[str, Any]) -> Result:
     ex = _optional("closecall.analysis.explain")
     if ex is None:
         return _skipped("closecall.analysis.explain not there yet")
-    from closecall.study import open_study
+    from closecall.suite.opening import open_study
 
     study = open_study(p["config"])
     rows = _queue_rows(study, 2)
@@ -404,8 +404,8 @@ def explain_step(p: dict[str, Any]) -> Result:
 @step("queue")
 def queue_step(p: dict[str, Any]) -> Result:
     """Ranking and filtering the close-call queue over every case."""
-    from closecall.queue import build_queue, queue_rows
-    from closecall.study import open_study
+    from closecall.review.queue import build_queue, queue_rows
+    from closecall.suite.opening import open_study
 
     study = open_study(p["config"])
     snap = study.snapshot
@@ -439,7 +439,7 @@ def queue_step(p: dict[str, Any]) -> Result:
 
 
 def _content(i: int) -> Any:
-    from closecall.ledger import EntryContent
+    from closecall.review.ledger import EntryContent
 
     margin = ((i * 7919) % 2000 - 1000) / 1000.0
     return EntryContent(
@@ -461,10 +461,15 @@ def _content(i: int) -> Any:
 def ledger_step(p: dict[str, Any]) -> Result:
     """Durable appends (WAL, synchronous=FULL, one transaction per entry, hash chained) and
     verify of a long ledger, against plain SQLite inserts of the same rows."""
-    ledger_mod = _optional("closecall.ledger")
+    ledger_mod = _optional("closecall.review.ledger")
     if ledger_mod is None:
-        return _skipped("closecall.ledger not there yet")
-    from closecall.ledger.entry import ENTRY_FORMAT, HASHED_FIELDS, canonical_json, entry_hash
+        return _skipped("closecall.review.ledger not there yet")
+    from closecall.review.ledger.entry import (
+        ENTRY_FORMAT,
+        HASHED_FIELDS,
+        canonical_json,
+        entry_hash,
+    )
 
     appends, long = int(p["appends"]), int(p["verify_entries"])
     columns = (*HASHED_FIELDS, "hash")

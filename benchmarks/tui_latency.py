@@ -37,10 +37,10 @@ from typing import Any
 
 import numpy as np
 
-from closecall.config import load_config
-from closecall.demo import write_demo
-from closecall.snapshot import Snapshot, save_snapshot, snapshot_dir
-from closecall.study import Study, open_study
+from closecall.setup.config import load_config
+from closecall.setup.demo import write_demo
+from closecall.suite.opening import Study, open_study
+from closecall.suite.snapshot import Snapshot, save_snapshot, snapshot_dir
 
 SIZE = (80, 24)
 

@@ -7,7 +7,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from closecall.demo import write_demo
+from closecall.setup.demo import write_demo
 
 HMDA_FEATURES = (
     "pirat",

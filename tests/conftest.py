@@ -6,8 +6,8 @@ from pathlib import Path
 
 import pytest
 
-from closecall.demo import write_demo
-from closecall.study import Study, open_study
+from closecall.setup.demo import write_demo
+from closecall.suite.opening import Study, open_study
 
 
 @pytest.fixture(scope="session")

@@ -5,8 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from closecall.disparity.simulate import simulate_actions
-from closecall.disparity.table import final_decision
+from closecall.reports.disparity.simulate import simulate_actions
+from closecall.reports.disparity.table import final_decision
 
 
 def review_table(

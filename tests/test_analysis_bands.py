@@ -22,8 +22,8 @@ from closecall.analysis.multiplicity import (
     epsilon_curve,
     exact_band,
 )
-from closecall.logit import fit_logit
-from closecall.study import Study, open_study
+from closecall.suite.opening import Study, open_study
+from closecall.suite.solver import fit_logit
 
 
 @pytest.fixture(scope="module")
@@ -238,7 +238,7 @@ def test_exact_band_under_separation(tmp_path: Path) -> None:
     import pandas as pd
 
     from closecall.analysis.explain import explain_case
-    from closecall.errors import UserError
+    from closecall.core.errors import UserError
 
     rng = np.random.default_rng(0)
     n = 400

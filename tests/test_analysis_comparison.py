@@ -9,7 +9,7 @@ from scipy import stats
 
 import closecall.analysis.comparison as cmp
 from closecall.analysis.comparison import block_bootstrap_means, case_losses, compare_models
-from closecall.study import Study
+from closecall.suite.opening import Study
 
 
 def test_bootstrap_of_a_mean_matches_the_standard_error() -> None:

@@ -13,7 +13,7 @@ from closecall.analysis.counterparts import (
     frequency_rank_map,
     quantile_map,
 )
-from closecall.study import Study
+from closecall.suite.opening import Study
 
 
 def test_quantile_map_between_normals_is_the_linear_map() -> None:

@@ -11,9 +11,9 @@ from scipy.special import logit
 from analysis_helpers import group_copy_study
 from closecall.analysis.dependence import dependence, dependence_by_group, rests_on
 from closecall.analysis.multiplicity import bands
-from closecall.analysis.proxies import cramers_v
-from closecall.queue import build_queue, queue_rows
-from closecall.study import Study, open_study
+from closecall.review.queue import build_queue, queue_rows
+from closecall.suite.opening import Study, open_study
+from closecall.suite.proxies import cramers_v
 
 
 @pytest.fixture(scope="module")
@@ -77,7 +77,7 @@ def test_a_copy_of_the_group_is_a_proxy_and_neutralising_both_leaves_no_dependen
 
 def test_demo_proxies_and_the_sign_of_briars_dependence(demo_study: Study) -> None:
     """The demo plants zone and depot_distance_km as proxies and a label bias against Briar
-    (src/closecall/demo.py, TRUE): both proxies are flagged and Briar's pooled margins are
+    (src/closecall/setup/demo.py, TRUE): both proxies are flagged and Briar's pooled margins are
     pulled down by the group and its proxies, Aster's up."""
     snap = demo_study.snapshot
     assert {"zone", "depot_distance_km"} <= set(snap.proxies.proxies)

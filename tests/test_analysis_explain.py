@@ -12,7 +12,7 @@ import pytest
 
 from analysis_helpers import hmda_study
 from closecall.analysis.explain import explain_case
-from closecall.study import Study, open_study
+from closecall.suite.opening import Study, open_study
 
 KEYS = {
     "case_id",

@@ -5,9 +5,9 @@ from __future__ import annotations
 from pathlib import Path
 
 from closecall.analysis.explain import explain_case
-from closecall.demo import write_demo
-from closecall.reviews import record_review
-from closecall.study import open_study
+from closecall.review.decisions import record_review
+from closecall.setup.demo import write_demo
+from closecall.suite.opening import open_study
 
 
 def test_similar_cases_show_their_reviews(tmp_path: Path) -> None:

@@ -11,7 +11,7 @@ from scipy.spatial import cKDTree
 import closecall.analysis.neighbours as nbmod
 from analysis_helpers import one_file_demo
 from closecall.analysis.neighbours import nearest_history, neighbours_for_case, similarity_weights
-from closecall.study import Study, open_study
+from closecall.suite.opening import Study, open_study
 
 
 def _scaled(snap, X):  # type: ignore[no-untyped-def]

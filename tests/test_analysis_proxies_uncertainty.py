@@ -18,7 +18,8 @@ from sklearn.metrics import roc_auc_score
 
 from closecall.analysis.dependence import dependence, rests_on_uncertainty
 from closecall.analysis.fitted_rows import fitted_row
-from closecall.analysis.proxies import (
+from closecall.suite.opening import Study
+from closecall.suite.proxies import (
     _weighted_auc_association,
     association_draws,
     bootstrap_weights,
@@ -27,7 +28,6 @@ from closecall.analysis.proxies import (
     influence_draws,
     proxy_sets,
 )
-from closecall.study import Study
 
 
 def bergsma_by_hand(table: np.ndarray) -> float:

@@ -10,8 +10,8 @@ from scipy import optimize, stats
 from scipy.special import expit, logit
 from statsmodels.stats.proportion import confint_proportions_2indep, proportion_confint
 
-from closecall.disparity.calibration import calibration_by_group
-from closecall.disparity.heldout import held_out_error_rates
+from closecall.reports.disparity.calibration import calibration_by_group
+from closecall.reports.disparity.heldout import held_out_error_rates
 
 LENSES = [("equal", 0.5), ("cautious", 0.6)]
 

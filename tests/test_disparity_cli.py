@@ -9,9 +9,9 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from closecall.demo_reviews import simulate_reviews
-from closecall.reviews import record_review
-from closecall.study import open_study
+from closecall.review.decisions import record_review
+from closecall.review.demo_reviews import simulate_reviews
+from closecall.suite.opening import open_study
 from disparity_study import config_with_ledger
 
 

@@ -9,7 +9,7 @@ import pytest
 import statsmodels.formula.api as smf
 from sklearn.linear_model import LogisticRegression
 
-from closecall.disparity.conditional import FIRTH, conditional_disparity
+from closecall.reports.disparity.conditional import FIRTH, conditional_disparity
 from disparity_sim import review_table
 
 

@@ -20,7 +20,7 @@ import pytest
 import statsmodels.api as sm
 from scipy import optimize, stats
 
-from closecall.disparity.firth import firth_logit
+from closecall.reports.disparity.firth import firth_logit
 
 
 def penalised(beta: np.ndarray, X: np.ndarray, y: np.ndarray) -> float:
@@ -115,7 +115,7 @@ def test_profile_bounds_and_test_are_penalised_likelihood_ratios() -> None:
 def test_modified_score_is_the_gradient_of_the_penalised_likelihood() -> None:
     # Firth (1993): U*(β) = ∂/∂β [ℓ(β) + ½ log det I(β)]. Central differences of the
     # independently written penalised likelihood at an arbitrary β.
-    from closecall.disparity.firth import modified_score
+    from closecall.reports.disparity.firth import modified_score
 
     rng = np.random.default_rng(2)
     X = np.c_[np.ones(50), rng.normal(size=(50, 2))]

@@ -12,14 +12,14 @@ from statsmodels.stats.multitest import multipletests
 from statsmodels.stats.power import GofChisquarePower, NormalIndPower
 from statsmodels.stats.proportion import confint_proportions_2indep
 
-from closecall.disparity.intervals import (
+from closecall.reports.disparity.intervals import (
     katz_ratio_interval,
     newcombe_difference_interval,
     ratio_interval,
     score_ratio_interval,
 )
-from closecall.disparity.multiplicity import benjamini_hochberg, correct_family, holm
-from closecall.disparity.power import (
+from closecall.reports.disparity.multiplicity import benjamini_hochberg, correct_family, holm
+from closecall.reports.disparity.power import (
     cohen_h_detectable,
     cohen_w_detectable,
     detectable_odds_ratio,

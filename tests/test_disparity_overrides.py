@@ -10,8 +10,8 @@ import pytest
 import statsmodels.api as sm
 from scipy import stats
 
-from closecall.disparity.contingency import independence_test
-from closecall.disparity.overrides import override_rates
+from closecall.reports.disparity.contingency import independence_test
+from closecall.reports.disparity.overrides import override_rates
 from disparity_sim import review_table, table_from_counts
 
 

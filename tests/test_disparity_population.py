@@ -9,11 +9,11 @@ import pytest
 from statsmodels.stats.contingency_tables import mcnemar
 from statsmodels.stats.proportion import confint_proportions_2indep, proportion_confint
 
-from closecall.disparity.errors_by_group import error_rates
-from closecall.disparity.periods import by_period, period_labels
-from closecall.disparity.population import population_effect
-from closecall.disparity.report import PopulationInput, build_report
-from closecall.errors import UserError
+from closecall.core.errors import UserError
+from closecall.reports.disparity.errors_by_group import error_rates
+from closecall.reports.disparity.periods import by_period, period_labels
+from closecall.reports.disparity.population import population_effect
+from closecall.reports.disparity.report import PopulationInput, build_report
 from disparity_sim import review_table
 
 

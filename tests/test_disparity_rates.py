@@ -6,8 +6,16 @@ import numpy as np
 import pytest
 from statsmodels.stats.proportion import proportion_confint
 
-from closecall.disparity.intervals import bootstrap_cells, percentile_interval, wilson_interval
-from closecall.disparity.rates import adverse_impact_ratios, favourable_rates, four_fifths_flag
+from closecall.reports.disparity.intervals import (
+    bootstrap_cells,
+    percentile_interval,
+    wilson_interval,
+)
+from closecall.reports.disparity.rates import (
+    adverse_impact_ratios,
+    favourable_rates,
+    four_fifths_flag,
+)
 from disparity_sim import table_from_counts
 
 

@@ -10,10 +10,10 @@ import pytest
 from statsmodels.stats.proportion import proportion_confint
 
 from closecall.cli.output import to_jsonable
-from closecall.disparity import build_report
-from closecall.disparity.errors_by_group import error_rates
-from closecall.disparity.html import render_html
-from closecall.errors import UserError
+from closecall.core.errors import UserError
+from closecall.reports.disparity import build_report
+from closecall.reports.disparity.errors_by_group import error_rates
+from closecall.reports.disparity.html import render_html
 from disparity_sim import review_table, table_from_counts
 
 

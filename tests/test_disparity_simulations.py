@@ -13,11 +13,11 @@ import statsmodels.api as sm
 from scipy import stats
 from scipy.special import expit
 
-from closecall.disparity.conditional import conditional_disparity
-from closecall.disparity.overrides import override_rates
-from closecall.disparity.report import _families
-from closecall.disparity.reviewers import reviewer_tables
-from closecall.disparity.table import check_reviews
+from closecall.reports.disparity.conditional import conditional_disparity
+from closecall.reports.disparity.overrides import override_rates
+from closecall.reports.disparity.report import _families
+from closecall.reports.disparity.reviewers import reviewer_tables
+from closecall.reports.disparity.table import check_reviews
 from disparity_sim import review_table
 
 PHI = 0.8  # bridge parameter: reviewer intercepts shrink the marginal coefficients by PHI

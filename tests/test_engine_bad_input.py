@@ -172,7 +172,7 @@ def test_unknown_key_suggests_the_nearest(tmp_path: Path, cli) -> None:  # type:
 def test_missing_values_follow_the_policy(tmp_path: Path, cli) -> None:  # type: ignore[no-untyped-def]
     """Numeric gaps are imputed with the history mean plus an indicator; categorical gaps are
     their own level; no row is dropped."""
-    from closecall.study import open_study
+    from closecall.suite.opening import open_study
 
     frame = _frame()
     frame.loc[[1, 2, 3], "income"] = np.nan

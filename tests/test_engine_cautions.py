@@ -7,7 +7,7 @@ from pathlib import Path
 
 import pytest
 
-from closecall.cautions import CAUTIONS
+from closecall.core.cautions import CAUTIONS
 
 README = Path(__file__).resolve().parent.parent / "README.md"
 

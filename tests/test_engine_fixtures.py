@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from closecall.demo import write_demo
+from closecall.setup.demo import write_demo
 
 FIXTURE = Path(__file__).resolve().parent.parent / "fixtures" / "demo"
 

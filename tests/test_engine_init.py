@@ -6,7 +6,7 @@ import json
 import shutil
 from pathlib import Path
 
-from closecall.config import load_config
+from closecall.setup.config import load_config
 
 FIXTURE = Path(__file__).resolve().parent.parent / "fixtures" / "demo"
 

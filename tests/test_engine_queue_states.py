@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import json
 
-from closecall.ledger import ACTIONS
-from closecall.reviews import record_review
+from closecall.review.decisions import record_review
+from closecall.review.ledger import ACTIONS
 from closecall.tui.marks import STATE_OF_ACTION
 
 
@@ -14,8 +14,8 @@ def test_state_codes_match_the_review_screen() -> None:
 
 
 def test_queue_states_and_unreviewed_filter(tmp_path, cli) -> None:  # type: ignore[no-untyped-def]
-    from closecall.demo import write_demo
-    from closecall.study import open_study
+    from closecall.setup.demo import write_demo
+    from closecall.suite.opening import open_study
 
     config = write_demo(tmp_path, cases=800, seed=6)
     study = open_study(config)
@@ -41,7 +41,7 @@ def test_queue_chart_counts_match_numpy_histogram(demo_config, cli) -> None:  # 
     """The margin distribution (review screen chart, `queue --chart`) against numpy.histogram."""
     import numpy as np
 
-    from closecall.study import open_study
+    from closecall.suite.opening import open_study
 
     snap = open_study(demo_config).snapshot
     res = cli("queue", "--config", str(demo_config), "--json", "--chart", "--limit", "1")

@@ -10,11 +10,11 @@ import pytest
 import statsmodels.api as sm
 from scipy.special import expit, logit
 
-from closecall.coefficients import raw_coefficients
-from closecall.config import CostLens
-from closecall.demo import write_demo
-from closecall.logit import fit_logit
-from closecall.study import open_study
+from closecall.setup.config import CostLens
+from closecall.setup.demo import write_demo
+from closecall.suite.coefficients import raw_coefficients
+from closecall.suite.opening import open_study
+from closecall.suite.solver import fit_logit
 
 
 def _hmda_study(tmp_path: Path, extra: str = "") -> Path:

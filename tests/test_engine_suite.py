@@ -8,12 +8,12 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from closecall.coefficients import raw_coefficients
-from closecall.demo import TRUE, write_demo
-from closecall.logit import fit_logit
-from closecall.queue import build_queue, queue_rows
-from closecall.snapshot import load_snapshot, snapshot_dir
-from closecall.study import open_study
+from closecall.review.queue import build_queue, queue_rows
+from closecall.setup.demo import TRUE, write_demo
+from closecall.suite.coefficients import raw_coefficients
+from closecall.suite.opening import open_study
+from closecall.suite.snapshot import load_snapshot, snapshot_dir
+from closecall.suite.solver import fit_logit
 
 
 @pytest.fixture(scope="module")

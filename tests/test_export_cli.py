@@ -13,10 +13,10 @@ from pathlib import Path
 import pandas as pd
 import pytest
 
-from closecall.demo_reviews import simulate_reviews
-from closecall.disparity.table import REVIEW_COLUMNS
-from closecall.reviews import record_review
-from closecall.study import open_study
+from closecall.reports.disparity.table import REVIEW_COLUMNS
+from closecall.review.decisions import record_review
+from closecall.review.demo_reviews import simulate_reviews
+from closecall.suite.opening import open_study
 from disparity_study import config_with_ledger
 
 
@@ -149,7 +149,7 @@ def test_empty_ledger_is_a_clear_error(cli, demo_config: Path) -> None:  # type:
 def test_spreadsheet_safe_export_defuses_formulas(tmp_path: Path, cli) -> None:  # type: ignore[no-untyped-def]
     """Formula injection guard (OWASP "CSV Injection"; common practice): off by default so
     the export is exact, on request text cells starting with = + - @ get an apostrophe."""
-    from closecall.demo import write_demo
+    from closecall.setup.demo import write_demo
 
     config = write_demo(tmp_path, cases=600, seed=12)
     study = open_study(config)

@@ -1,4 +1,4 @@
-"""The fit checks of closecall.logit (issue 10, items 3 and 4): the convergence check of warm
+"""The fit checks of closecall.suite.solver (issue 10, items 3 and 4): the convergence check of warm
 starts, and separation found by an overlap certificate or a linear program.
 
 References named beside each check: scikit-learn's LogisticRegression for the optimum a warm
@@ -15,7 +15,7 @@ from scipy.optimize import linprog
 from scipy.special import expit
 from sklearn.linear_model import LogisticRegression
 
-from closecall import logit as lg
+from closecall.suite import solver as lg
 
 
 def _data(n: int, p: int, seed: int) -> tuple[np.ndarray, np.ndarray]:

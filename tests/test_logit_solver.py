@@ -1,4 +1,4 @@
-"""The streamed Newton solver in closecall.logit against scikit-learn and statsmodels.
+"""The streamed Newton solver in closecall.suite.solver against scikit-learn and statsmodels.
 
 The suite's fits read row blocks in place, start folds from the whole-history state minus the
 held-out rows, and start large cold fits from a subsample; each path must land on the same
@@ -13,7 +13,7 @@ import statsmodels.api as sm
 from scipy.special import expit
 from sklearn.linear_model import LogisticRegression
 
-from closecall import logit as lg
+from closecall.suite import solver as lg
 
 
 def _data(n: int, p: int, seed: int) -> tuple[np.ndarray, np.ndarray]:

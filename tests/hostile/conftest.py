@@ -12,14 +12,14 @@ sys.path.insert(0, str(Path(__file__).parent))
 
 from hostile_helpers import copy_study
 
-from closecall.demo import write_demo
-from closecall.study import open_study
+from closecall.setup.demo import write_demo
+from closecall.suite.opening import open_study
 
 
 @pytest.fixture(scope="session")
 def hostile_base(tmp_path_factory: pytest.TempPathFactory) -> Path:
     """A 600-case demo study, fitted, with two reviews in its ledger (built once)."""
-    from closecall.reviews import record_review
+    from closecall.review.decisions import record_review
 
     folder = tmp_path_factory.mktemp("hostile-base") / "study"
     config = write_demo(folder, cases=600, seed=5)

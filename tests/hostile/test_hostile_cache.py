@@ -198,7 +198,7 @@ def meta_of_another_snapshot(folder: Path, study: Path) -> None:
     text = config.read_text()
     assert "penalty = 1.0" in text
     config.write_text(text.replace("penalty = 1.0", "penalty = 3.0"))
-    from closecall.study import open_study
+    from closecall.suite.opening import open_study
 
     foreign = open_study(config).snapshot.id
     assert foreign != folder.name
@@ -338,8 +338,8 @@ def test_a_damaged_snapshot_is_refused_then_rebuilt(kind: str, study_dir: Path, 
 
 
 def test_a_damaged_snapshot_is_refused_by_the_engine_too(study_dir: Path) -> None:
-    from closecall.errors import UserError
-    from closecall.study import open_study
+    from closecall.core.errors import UserError
+    from closecall.suite.opening import open_study
 
     folder = _snapshot(study_dir)
     flip_a_byte(folder, study_dir)
@@ -495,8 +495,8 @@ def _make_the_cache_lie(study_dir: Path) -> None:
 
 def test_record_hashes_the_data_afresh(study_dir: Path) -> None:
     """A review recorded after an edit that the digests cache cannot see names the new id."""
-    from closecall.reviews import record_review
-    from closecall.study import open_study
+    from closecall.review.decisions import record_review
+    from closecall.suite.opening import open_study
 
     config = study_dir / "closecall.toml"
     study = open_study(config)
@@ -526,10 +526,10 @@ def test_fit_hashes_the_data_afresh(study_dir: Path, cli: Any) -> None:
 
 def test_a_snapshot_edited_after_opening_is_not_recorded_from(study_dir: Path) -> None:
     """The arrays are memory-mapped: bytes written after opening would reach the entry."""
-    from closecall.errors import UserError
-    from closecall.ledger import open_ledger
-    from closecall.reviews import record_review
-    from closecall.study import open_study
+    from closecall.core.errors import UserError
+    from closecall.review.decisions import record_review
+    from closecall.review.ledger import open_ledger
+    from closecall.suite.opening import open_study
 
     config = study_dir / "closecall.toml"
     study = open_study(config)
@@ -548,8 +548,8 @@ def test_a_snapshot_edited_after_opening_is_not_recorded_from(study_dir: Path) -
 
 
 def test_a_snapshot_touched_but_unchanged_still_records(study_dir: Path) -> None:
-    from closecall.reviews import record_review
-    from closecall.study import open_study
+    from closecall.review.decisions import record_review
+    from closecall.suite.opening import open_study
 
     study = open_study(study_dir / "closecall.toml")
     folder = _snapshot(study_dir)

@@ -254,8 +254,8 @@ def test_more_folds_than_the_largest_stratum_is_refused(study_dir: Path, cli: Cl
 def test_folds_at_the_bound_pass_the_data_check(study_dir: Path) -> None:
     """The bound is inclusive: K = min(rarer outcome, largest cell) passes (the fit itself is
     not run here)."""
-    from closecall.config import load_config
-    from closecall.data import load_study_data
+    from closecall.setup.config import load_config
+    from closecall.setup.load import load_study_data
 
     k = min(_smaller_class(study_dir), _largest_cell(study_dir))
     _edit(study_dir, ("folds = 5", f"folds = {k}"))

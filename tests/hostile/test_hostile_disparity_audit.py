@@ -12,8 +12,8 @@ import numpy as np
 import pytest
 from hostile_helpers import assert_refused, assert_unchanged, study_digests
 
-from closecall.reviews import record_review
-from closecall.study import open_study
+from closecall.review.decisions import record_review
+from closecall.suite.opening import open_study
 
 
 @pytest.mark.parametrize("unit", ["week", "", "MONTH", "quarter; rm -rf /", "月"])

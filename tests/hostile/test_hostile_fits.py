@@ -24,7 +24,7 @@ from scipy.special import expit
 from sklearn.linear_model import LogisticRegression
 from sklearn.metrics import roc_auc_score
 
-from closecall.study import open_study
+from closecall.suite.opening import open_study
 
 CONFIG = "closecall.toml"
 DIGEST_CACHE = ".closecall/digests.json"

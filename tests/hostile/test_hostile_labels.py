@@ -31,8 +31,8 @@ import pandas as pd
 import pytest
 from hostile_helpers import Cli, assert_unchanged, copy_study, study_digests
 
-from closecall.demo import write_demo
-from closecall.study import open_study
+from closecall.setup.demo import write_demo
+from closecall.suite.opening import open_study
 
 # What must never reach a terminal raw. Written out here from the characters' names, not taken
 # from closecall: C0 controls but LF (ESC, BEL, BS, CR, TAB…), DEL, C1 controls (CSI 0x9b…), the
@@ -91,9 +91,9 @@ def _rewrite(root: Path) -> None:
 @pytest.fixture(scope="module")
 def hostile(tmp_path_factory: pytest.TempPathFactory) -> Hostile:
     """The hostile study, fitted, with simulated reviews and three hostile ones."""
-    import closecall.ledger.access as access
-    from closecall.demo_reviews import simulate_reviews
-    from closecall.reviews import ledger_entries, record_review
+    import closecall.review.ledger.access as access
+    from closecall.review.decisions import ledger_entries, record_review
+    from closecall.review.demo_reviews import simulate_reviews
 
     root = tmp_path_factory.mktemp("hostile-labels") / "study"
     config = write_demo(root, cases=600, seed=5)
@@ -349,7 +349,7 @@ class TestCsvQuoting:
     def test_note_with_cr_reads_back_exactly(
         self, cli: Cli, study_dir: Path, tmp_path: Path, note: str
     ) -> None:
-        from closecall.reviews import record_review
+        from closecall.review.decisions import record_review
 
         study = open_study(study_dir / "closecall.toml")
         case = str(study.snapshot.case_ids[5])
@@ -382,7 +382,7 @@ class TestSpreadsheetSafe:
     def test_formula_after_whitespace_gets_an_apostrophe(
         self, cli: Cli, study_dir: Path, tmp_path: Path, note: str
     ) -> None:
-        from closecall.reviews import record_review
+        from closecall.review.decisions import record_review
 
         config = study_dir / "closecall.toml"
         study = open_study(config)
@@ -448,7 +448,7 @@ class TestReviewScreens:
         import numpy as np
         from textual.content import Content
 
-        from closecall.reviews import ledger_entries
+        from closecall.review.decisions import ledger_entries
         from closecall.tui.app import ReviewApp
         from closecall.tui.case_screen import CaseScreen
         from closecall.tui.decision_dialog import DecisionDialog

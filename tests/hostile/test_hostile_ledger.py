@@ -33,7 +33,7 @@ from pathlib import Path
 import pytest
 from hostile_helpers import Cli, assert_refused, assert_unchanged, study_digests
 
-from closecall.ledger import open_ledger, store
+from closecall.review.ledger import open_ledger, store
 
 LEDGER = "ledger.sqlite"
 CASE = "HR-0000010"  # reviewed once in the base study; recording it again is valid

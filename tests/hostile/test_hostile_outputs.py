@@ -62,8 +62,8 @@ def _review_both_groups(study_dir: Path, per_group: int = 15) -> None:
     """Uphold some cases of every group, so that a disparity report can be computed."""
     import numpy as np
 
-    from closecall.reviews import record_review
-    from closecall.study import open_study
+    from closecall.review.decisions import record_review
+    from closecall.suite.opening import open_study
 
     study = open_study(study_dir / "closecall.toml")
     labels = np.asarray(study.snapshot.group_labels).astype(str)
@@ -302,10 +302,10 @@ class TestKeyFileOnStudyFiles:
 
     def test_engine_refuses_too(self, study_dir: Path) -> None:
         """The engine call checks on its own (a script that skips the CLI)."""
-        from closecall.errors import UserError
-        from closecall.export import export_reviews
-        from closecall.reviews import ledger_entries
-        from closecall.study import open_study
+        from closecall.core.errors import UserError
+        from closecall.reports.export import export_reviews
+        from closecall.review.decisions import ledger_entries
+        from closecall.suite.opening import open_study
 
         study = open_study(study_dir / "closecall.toml")
         entries = ledger_entries(study.config)

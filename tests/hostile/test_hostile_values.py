@@ -226,9 +226,9 @@ def test_an_outcome_cell_says_what_it_held(study_dir: Path, cli: Cli) -> None:
 def test_markers_in_a_numeric_feature_are_missing_values(study_dir: Path) -> None:
     """The same rule in a feature: 'NA' and 'None' are missing, so they are imputed and get the
     missing indicator (not refused as text)."""
-    from closecall.config import load_config
-    from closecall.data import load_study_data
-    from closecall.encode import fit_encoder
+    from closecall.setup.config import load_config
+    from closecall.setup.encode import fit_encoder
+    from closecall.setup.load import load_study_data
 
     for line, text in ((5, "NA"), (6, "None"), (7, "")):
         _set_cell(study_dir / "history.csv", line, INCOME, text)
@@ -310,8 +310,8 @@ def test_nested_parquet_group_column_is_refused(study_dir: Path, cli: Cli) -> No
 
 def test_an_excluded_nested_parquet_column_is_left_alone(study_dir: Path) -> None:
     """Only the columns the study uses must be flat."""
-    from closecall.config import load_config
-    from closecall.data import load_study_data
+    from closecall.setup.config import load_config
+    from closecall.setup.load import load_study_data
 
     _history_to_parquet(study_dir, _with_nested(study_dir, "tags", NESTED[0][1]))
     _edit_config(study_dir, 'group = ["heritage"]', 'group = ["heritage"]\nexclude = ["tags"]')

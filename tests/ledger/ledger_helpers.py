@@ -8,9 +8,9 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from closecall.config import StudyConfig, parse_config
-from closecall.errors import UserError
-from closecall.ledger import EntryContent
+from closecall.core.errors import UserError
+from closecall.review.ledger import EntryContent
+from closecall.setup.config import StudyConfig, parse_config
 
 CASES = ("A-1", "A-2", "A-3", "B-1", "B-2")
 

@@ -16,9 +16,9 @@ import numpy as np
 import pytest
 from ledger_helpers import entries_digest
 
-from closecall.ledger import current_login
-from closecall.reviews import ledger_entries
-from closecall.study import open_study
+from closecall.review.decisions import ledger_entries
+from closecall.review.ledger import current_login
+from closecall.suite.opening import open_study
 
 _counter = itertools.count()
 
@@ -337,7 +337,7 @@ def test_invalid_utf8_on_the_command_line_is_refused(
 def test_a_review_against_a_stale_snapshot_records_both_ids(
     study_config: ConfigMaker, cli: Any
 ) -> None:
-    from closecall.reviews import record_review
+    from closecall.review.decisions import record_review
 
     config = study_config()
     study = open_study(config)
@@ -347,8 +347,8 @@ def test_a_review_against_a_stale_snapshot_records_both_ids(
     entry = record_review(study, _case(config, 3), "uphold", None, "seen before the refit")
     assert entry.snapshot_id == study.snapshot.id
     assert entry.current_snapshot_id not in (None, entry.snapshot_id)
-    from closecall.config import load_config
-    from closecall.snapshot import snapshot_id
+    from closecall.setup.config import load_config
+    from closecall.suite.snapshot import snapshot_id
 
     assert entry.current_snapshot_id == snapshot_id(load_config(config))
     config.write_text(text)
@@ -365,7 +365,7 @@ def test_every_command_help_has_an_example(cli: Any, args: list[str]) -> None:
 
 def test_reference_margins_match_the_snapshot_arrays(study_config: ConfigMaker) -> None:
     """The recorded decisions are the snapshot's, vectorised margins compared entry-wise."""
-    from closecall.reviews import record_review
+    from closecall.review.decisions import record_review
 
     config = study_config()
     study = open_study(config)

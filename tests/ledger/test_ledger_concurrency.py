@@ -13,7 +13,7 @@ from pathlib import Path
 
 import pytest
 
-from closecall.ledger import NoLedger, open_ledger
+from closecall.review.ledger import NoLedger, open_ledger
 
 # A writer process: waits for the start signal, then appends `count` entries whose notes say
 # who wrote them and carry a body whose length and contents follow from the number, so a torn
@@ -21,7 +21,7 @@ from closecall.ledger import NoLedger, open_ledger
 WRITER = textwrap.dedent(
     """
     import contextlib, os, sys, time
-    from closecall.ledger import EntryContent, open_ledger
+    from closecall.review.ledger import EntryContent, open_ledger
 
     path, writer, count, go = sys.argv[1], sys.argv[2], int(sys.argv[3]), sys.argv[4]
     spread, reopen = int(sys.argv[5]), sys.argv[6] == "reopen"

@@ -10,7 +10,7 @@ from pathlib import Path
 
 from ledger_helpers import content
 
-from closecall.ledger import open_ledger
+from closecall.review.ledger import open_ledger
 
 DOC = Path(__file__).resolve().parents[2] / "docs" / "ledger.md"
 

@@ -9,9 +9,9 @@ from typing import Any
 import pytest
 from ledger_helpers import FakeStudy, entries_digest, make_study
 
-from closecall import reviews
-from closecall.errors import AccessDenied, UserError
-from closecall.ledger import current_login, store
+from closecall.core.errors import AccessDenied, UserError
+from closecall.review import decisions as reviews
+from closecall.review.ledger import current_login, store
 
 
 def _study(tmp_path: Path, **review: Any) -> FakeStudy:

@@ -12,9 +12,9 @@ from pathlib import Path
 import pytest
 from ledger_helpers import content
 
-from closecall.errors import UserError
-from closecall.ledger import GENESIS_HASH, SCHEMA_VERSION, canonical_json, open_ledger
-from closecall.ledger import schema as ledger_schema
+from closecall.core.errors import UserError
+from closecall.review.ledger import GENESIS_HASH, SCHEMA_VERSION, canonical_json, open_ledger
+from closecall.review.ledger import schema as ledger_schema
 
 
 def test_entries_chain_from_genesis_with_sha256_over_canonical_json(tmp_path: Path) -> None:

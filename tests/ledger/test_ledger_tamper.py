@@ -10,9 +10,9 @@ from pathlib import Path
 import pytest
 from ledger_helpers import content
 
-from closecall.ledger import GENESIS_HASH, DamagedLedger, NoLedger, entry_hash, open_ledger
-from closecall.ledger.entry import HASHED_FIELDS as ENTRY_FIELDS
-from closecall.ledger.schema import TRIGGERS, expected_objects, normalise_sql
+from closecall.review.ledger import GENESIS_HASH, DamagedLedger, NoLedger, entry_hash, open_ledger
+from closecall.review.ledger.entry import HASHED_FIELDS as ENTRY_FIELDS
+from closecall.review.ledger.schema import TRIGGERS, expected_objects, normalise_sql
 
 N = 10
 

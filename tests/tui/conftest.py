@@ -13,7 +13,7 @@ from pathlib import Path
 
 import pytest
 
-from closecall.study import Study, open_study
+from closecall.suite.opening import Study, open_study
 
 FIXTURE = Path(__file__).resolve().parents[2] / "fixtures" / "demo"
 FIXED_SNAPSHOT_ID = "5eed0000c0ffee00"  # shown in snapshot frames instead of the path-dependent id

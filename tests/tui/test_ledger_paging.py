@@ -6,9 +6,9 @@ import functools
 
 from tui_helpers import open_queue, screen_text, synchronous, wait_until
 
-from closecall.ledger import EntryContent, open_ledger
-from closecall.reviews import save_draft
-from closecall.study import Study
+from closecall.review.decisions import save_draft
+from closecall.review.ledger import EntryContent, open_ledger
+from closecall.suite.opening import Study
 from closecall.tui.app import ReviewApp
 from closecall.tui.case_list import CaseList
 from closecall.tui.confirm_quit import ConfirmQuit

@@ -9,9 +9,9 @@ import numpy as np
 import pytest
 from tui_helpers import open_queue, screen_text, synchronous, wait_until
 
-from closecall.queue import decision_grid
-from closecall.reviews import ledger_entries, load_draft
-from closecall.study import Study
+from closecall.review.decisions import ledger_entries, load_draft
+from closecall.review.queue import decision_grid
+from closecall.suite.opening import Study
 from closecall.tui.app import ReviewApp
 from closecall.tui.case_list import CaseList
 from closecall.tui.case_screen import CaseScreen
@@ -211,7 +211,7 @@ async def test_search_by_id_moves_the_cursor(study: Study) -> None:
 
 @synchronous
 async def test_sort_and_unreviewed_filter(study: Study) -> None:
-    from closecall.reviews import record_review
+    from closecall.review.decisions import record_review
 
     app = ReviewApp(study=study, login="reviewer")
     async with app.run_test(size=SIZE) as pilot:
@@ -242,7 +242,7 @@ async def test_sort_and_unreviewed_filter(study: Study) -> None:
 @pytest.mark.parametrize("size", [(80, 24), (120, 40)])
 @synchronous
 async def test_help_lists_keys_meanings_and_cautions(study: Study, size: tuple[int, int]) -> None:
-    from closecall.cautions import CAUTIONS
+    from closecall.core.cautions import CAUTIONS
     from closecall.tui.help_screen import HelpScreen, help_text
 
     app = ReviewApp(study=study, login="reviewer")
@@ -280,7 +280,7 @@ async def test_meaning_survives_without_colour(
 
 @synchronous
 async def test_leaving_withdraws_the_claim(study: Study) -> None:
-    from closecall.reviews import active_claims
+    from closecall.review.decisions import active_claims
 
     app = ReviewApp(study=study, login="reviewer")
     async with app.run_test(size=SIZE) as pilot:
@@ -315,7 +315,7 @@ async def test_command_palette_runs_the_apps_actions(study: Study) -> None:
 
 @synchronous
 async def test_a_stale_study_is_fitted_with_progress(tmp_path: Path) -> None:
-    from closecall.demo import write_demo
+    from closecall.setup.demo import write_demo
     from closecall.tui.fit_progress import FitProgress
     from closecall.tui.queue_screen import QueueScreen
 
@@ -333,7 +333,7 @@ async def test_a_stale_study_is_fitted_with_progress(tmp_path: Path) -> None:
 
 
 def test_chain_state_names_the_broken_entry() -> None:
-    from closecall.ledger import Problem, VerifyResult
+    from closecall.review.ledger import Problem, VerifyResult
     from closecall.tui.ledger_screen import chain_state
 
     problem = Problem("edited", 7, "entry 7: its fields do not match its hash")

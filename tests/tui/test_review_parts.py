@@ -8,8 +8,8 @@ import numpy as np
 import pytest
 
 from closecall.analysis.explain import explain_case
-from closecall.reviews import record_review
-from closecall.study import Study
+from closecall.review.decisions import record_review
+from closecall.suite.opening import Study
 from closecall.tui import case_sections
 from closecall.tui.marks import (
     TO_FAV,
@@ -133,7 +133,7 @@ def test_case_list_rows_fit_the_width(study: Study, width: int) -> None:
 @pytest.mark.parametrize("sort", ["ambiguity", "dependence"])
 def test_session_order_matches_the_queue_command(study: Study, sort: str) -> None:
     """The session reuses cached measures; its order must be build_queue's own."""
-    from closecall.queue import build_queue
+    from closecall.review.queue import build_queue
 
     session = ReviewSession(study)
     mine = session.rebuild(ListSettings(sort=sort, flips=True))
@@ -149,7 +149,7 @@ def test_session_order_matches_the_queue_command(study: Study, sort: str) -> Non
 
 @pytest.mark.parametrize("part", ["group", "proxies"])
 def test_rests_on_filter_matches_the_queue_command(study: Study, part: str) -> None:
-    from closecall.queue import build_queue
+    from closecall.review.queue import build_queue
 
     session = ReviewSession(study)
     mine = session.rebuild(ListSettings(rests_on=part, ambiguous=True))

@@ -131,8 +131,8 @@ def test_review_demo_in_tmux(tmp_path: Path) -> None:
     )
     assert verified.returncode == 0 and "chain intact" in verified.stdout, verified
 
-    from closecall.reviews import load_draft
-    from closecall.study import open_study
+    from closecall.review.decisions import load_draft
+    from closecall.suite.opening import open_study
 
     deadline = time.monotonic() + 10
     draft = None

@@ -11,7 +11,7 @@ import pytest
 from textual.pilot import Pilot
 from tui_helpers import open_queue, wait_until
 
-from closecall.study import Study
+from closecall.suite.opening import Study
 from closecall.tui.app import ReviewApp
 from closecall.tui.case_screen import CaseScreen
 from closecall.tui.decision_dialog import DecisionDialog

@@ -35,7 +35,7 @@ from typing import Any
 import numpy as np
 from scipy.special import logit
 
-from closecall.snapshot import Snapshot
+from closecall.suite.snapshot import Snapshot
 
 MAX_BLOCKS = 20_000
 BOOT_CHUNK = 100

@@ -36,8 +36,8 @@ from typing import Any
 
 import numpy as np
 
-from closecall.encode import EncodedFeature
-from closecall.snapshot import Snapshot, decision_word
+from closecall.setup.encode import EncodedFeature
+from closecall.suite.snapshot import Snapshot, decision_word
 
 BLOCK_ROWS = 100_000
 

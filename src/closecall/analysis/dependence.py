@@ -38,8 +38,8 @@ from typing import Any
 import numpy as np
 from scipy.special import logit
 
-from closecall.groups import group_slices
-from closecall.snapshot import Snapshot
+from closecall.analysis.groups import group_slices
+from closecall.suite.snapshot import Snapshot
 
 BLOCK_ROWS = 100_000
 ROLES = ("group", "proxy", "other")

@@ -42,7 +42,7 @@ neighbours : {"k", "neighbours": [{"case_id", "group", "outcome", "distance", "r
     "mean_distance"}]}
 proxies : {"flagged": [feature names], "recoverability_auc": float}
 fit_flags : {"this_case": [flags of the fits that scored this case], "in_snapshot": int}; a flag
-    is a dict described in closecall.fit_flags (separation, one outcome value, …: the fit was
+    is a dict described in closecall.suite.fit_flags (separation, one outcome value, …: the fit was
     kept with a penalty despite the problem)
 
 All margins are in log-odds; > 0 means the favourable decision.
@@ -58,8 +58,8 @@ from closecall.analysis.counterparts import counterparts_for_case
 from closecall.analysis.dependence import dependence, rests_on_uncertainty
 from closecall.analysis.multiplicity import UNCERTAINTY_EPSILON, bands, exact_band
 from closecall.analysis.neighbours import neighbours_for_case
-from closecall.fit_flags import case_fit_flags, snapshot_flags
-from closecall.snapshot import Snapshot, decision_word
+from closecall.suite.fit_flags import case_fit_flags, snapshot_flags
+from closecall.suite.snapshot import Snapshot, decision_word
 
 MODEL = "pooled"
 
@@ -204,8 +204,8 @@ def _with_reviews(config: Any, nb: dict[str, Any]) -> dict[str, Any]:
     as how they turned out. Without a ledger, or without read access, ``review`` is None; a
     damaged ledger is refused (UserError), never read as "no reviews".
     """
-    from closecall.errors import AccessDenied
-    from closecall.reviews import ledger_entries
+    from closecall.core.errors import AccessDenied
+    from closecall.review.decisions import ledger_entries
 
     for n in nb["neighbours"]:
         n["review"] = None

@@ -20,8 +20,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.special import log_expit
 
-from closecall.logit import LogitFit, cholesky_lower, hessian
-from closecall.snapshot import Snapshot
+from closecall.suite.snapshot import Snapshot
+from closecall.suite.solver import LogitFit, cholesky_lower, hessian
 
 _CACHE_SIZE = 32
 _CHOL_CACHE: OrderedDict[tuple[str, str, int], np.ndarray] = OrderedDict()

@@ -57,10 +57,10 @@ from closecall.analysis.fitted_rows import (
     row_cholesky,
     tilde,
 )
-from closecall.config import MultiplicityConfig
-from closecall.errors import UserError
-from closecall.groups import group_slices
-from closecall.snapshot import Snapshot
+from closecall.analysis.groups import group_slices
+from closecall.core.errors import UserError
+from closecall.setup.config import MultiplicityConfig
+from closecall.suite.snapshot import Snapshot
 
 UNCERTAINTY_EPSILON = float(chi2.ppf(0.95, df=1) / 2.0)  # 1.9207: the 95 % Wald band
 DEFAULT_EPSILON = MultiplicityConfig().epsilon

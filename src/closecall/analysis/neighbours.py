@@ -24,7 +24,7 @@ from typing import Any
 
 import numpy as np
 
-from closecall.snapshot import Snapshot
+from closecall.suite.snapshot import Snapshot
 
 QUERY_BLOCK = 256
 HISTORY_BLOCK = 32_768

@@ -8,9 +8,9 @@ import sys
 import typer
 
 from closecall import __version__
-from closecall.cautions import CAUTIONS
 from closecall.cli.output import err_console, safe_markup
-from closecall.errors import UserError
+from closecall.core.cautions import CAUTIONS
+from closecall.core.errors import UserError
 
 _CAUTION_PARAGRAPHS = "\n\n".join(f"- {line}" for line in CAUTIONS)  # one paragraph each
 

@@ -15,8 +15,8 @@ from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 from closecall.cli.output import Format, err_console
 
 if TYPE_CHECKING:
-    from closecall.progress import Progress as ProgressFn
-    from closecall.study import Study
+    from closecall.core.progress import Progress as ProgressFn
+    from closecall.suite.opening import Study
 
 ConfigOption = typer.Option(
     Path("closecall.toml"), "--config", "-c", help="The study config file (or its folder)."
@@ -63,7 +63,7 @@ def load(config: Path, *, quiet: bool, refit: bool = False, rehash: bool = False
 
     ``rehash`` hashes the data files afresh instead of trusting the digests cache.
     """
-    from closecall.study import open_study
+    from closecall.suite.opening import open_study
 
     with progress_bar(not quiet) as update:
         return open_study(config, update, refit=refit, rehash=rehash)

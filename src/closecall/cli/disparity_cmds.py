@@ -1,4 +1,4 @@
-"""`closecall disparity` and `closecall demo-reviews`: thin layers over closecall.disparity."""
+"""`closecall disparity` and `closecall demo-reviews`: thin layers over the disparity report."""
 
 from __future__ import annotations
 
@@ -11,14 +11,14 @@ from rich.table import Table
 from closecall.cli import disparity_sections as sections
 from closecall.cli.common import ConfigOption, JsonOption, load
 from closecall.cli.output import console, emit_json, err_console, safe_markup
-from closecall.config import load_config
-from closecall.disparity.contingency import IndependenceTest
-from closecall.disparity.from_study import study_report
-from closecall.disparity.html import headline_text, render_html
-from closecall.disparity.periods import check_period
-from closecall.disparity.report import DisparityReport
-from closecall.errors import UserError
-from closecall.output_files import check_key_file, check_output, study_files, write_output
+from closecall.core.errors import UserError
+from closecall.reports.disparity.contingency import IndependenceTest
+from closecall.reports.disparity.from_study import study_report
+from closecall.reports.disparity.html import headline_text, render_html
+from closecall.reports.disparity.periods import check_period
+from closecall.reports.disparity.report import DisparityReport
+from closecall.setup.config import load_config
+from closecall.setup.output_files import check_key_file, check_output, study_files, write_output
 
 BAR_WIDTH = 10
 
@@ -379,7 +379,7 @@ def demo_reviews(
       closecall demo --out demo-study && cd demo-study
       closecall demo-reviews 300 --bias 2 && closecall disparity --html disparity.html
     """
-    from closecall.demo_reviews import simulate_reviews
+    from closecall.review.demo_reviews import simulate_reviews
 
     study = load(config, quiet=as_json)
     count = simulate_reviews(

@@ -12,9 +12,9 @@ from rich.markup import escape
 from rich.table import Table
 
 from closecall.cli.output import safe_text
-from closecall.disparity.heldout import RateGap
-from closecall.disparity.power import Detectable
-from closecall.disparity.report import DisparityReport
+from closecall.reports.disparity.heldout import RateGap
+from closecall.reports.disparity.power import Detectable
+from closecall.reports.disparity.report import DisparityReport
 
 
 def _t(text: object) -> str:

@@ -26,10 +26,10 @@ from closecall.analysis.multiplicity import (
     ambiguity_by_group,
     epsilon_curve,
 )
-from closecall.analysis.proxies import proxy_sets
 from closecall.cli.common import ConfigOption, JsonOption, load
 from closecall.cli.output import console, emit_json, plain, safe_text
-from closecall.errors import UserError
+from closecall.core.errors import UserError
+from closecall.suite.proxies import proxy_sets
 
 LensOption = typer.Option(None, "--lens", help="Cost lens name (default: the first one).")
 FLAG = "✱"
@@ -280,7 +280,7 @@ def _print_explanation(d: dict[str, Any]) -> None:
 
 def _print_fit_flags(ff: dict[str, Any]) -> None:
     """The flags of the fits that scored this case, right under the headline."""
-    from closecall.fit_flags import flag_label
+    from closecall.suite.fit_flags import flag_label
 
     for flag in ff["this_case"]:
         _say(_txt(f"{FLAG} fit flag: {flag_label(flag)} — {flag['detail']}", "bold"))

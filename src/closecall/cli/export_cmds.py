@@ -1,4 +1,4 @@
-"""`closecall ledger export`: the analyst export, a thin layer over closecall.export."""
+"""`closecall ledger export`: the analyst export, a thin layer over closecall.reports.export."""
 
 from __future__ import annotations
 
@@ -11,10 +11,10 @@ import typer
 
 from closecall.cli.common import ConfigOption, load
 from closecall.cli.output import err_console, escape_text_cells, json_safe, safe_text
-from closecall.config import load_config
-from closecall.errors import UserError
-from closecall.output_files import check_key_file, check_output, study_files
-from closecall.reviews import ledger_entries
+from closecall.core.errors import UserError
+from closecall.review.decisions import ledger_entries
+from closecall.setup.config import load_config
+from closecall.setup.output_files import check_key_file, check_output, study_files
 
 if TYPE_CHECKING:
     import pandas as pd
@@ -74,7 +74,7 @@ def export(
       closecall ledger export --pseudonymise ~/.closecall-key --no-notes --out reviews.csv
       closecall ledger export --spreadsheet-safe --out reviews-for-excel.csv
     """
-    from closecall.export import (  # heavy: on use
+    from closecall.reports.export import (  # heavy: on use
         export_reviews,
         spreadsheet_safe,
         write_export,
@@ -128,7 +128,7 @@ def _terminal_bytes(table: pd.DataFrame, fmt: str) -> bytes:
     with LF, and a note on standard error says how many cells and how to get the exact text.
     Parquet is binary (refused on a terminal) and goes out as it is.
     """
-    from closecall.export import table_bytes
+    from closecall.reports.export import table_bytes
 
     if fmt == "jsonl":
         return json_safe(table_bytes(table, fmt).decode("utf-8")).encode("utf-8")

@@ -1,4 +1,4 @@
-"""`closecall record` and `closecall ledger show|verify`: a thin layer over closecall.reviews."""
+"""`closecall record` and `closecall ledger show|verify`: thin layers over review decisions."""
 
 from __future__ import annotations
 
@@ -13,10 +13,10 @@ from rich.text import Text
 
 from closecall.cli.common import ConfigOption, FormatOption, JsonOption, load, resolve_format
 from closecall.cli.output import Format, console, emit_json, emit_rows, safe_text
-from closecall.config import load_config
-from closecall.errors import UserError
-from closecall.ledger import ACTIONS, Entry, canonical_json
-from closecall.reviews import check_text, ledger_entries, record_review, verify_ledger
+from closecall.core.errors import UserError
+from closecall.review.decisions import check_text, ledger_entries, record_review, verify_ledger
+from closecall.review.ledger import ACTIONS, Entry, canonical_json
+from closecall.setup.config import load_config
 
 
 def _read_note_file(path: Path) -> str:
@@ -195,7 +195,7 @@ def show(
 
 
 def _csv_columns() -> list[str]:
-    from closecall.ledger.entry import HASHED_FIELDS
+    from closecall.review.ledger.entry import HASHED_FIELDS
 
     return [*HASHED_FIELDS, "hash"]
 

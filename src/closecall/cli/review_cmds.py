@@ -6,7 +6,7 @@ from pathlib import Path
 
 import typer
 
-from closecall.config import CONFIG_NAME, load_config
+from closecall.setup.config import CONFIG_NAME, load_config
 
 DEMO_DIR = Path("demo-study")
 
@@ -39,7 +39,7 @@ def review(
         write = None if target.exists() else DEMO_DIR
         app = ReviewApp(target, write_demo_to=write)
     else:
-        from closecall.reviews import check_ledger
+        from closecall.review.decisions import check_ledger
 
         # a bad config or an unusable ledger is one message and exit 2, before the screen opens
         check_ledger(load_config(config))

@@ -11,6 +11,7 @@ from rich import box
 from rich.table import Table
 from rich.text import Text
 
+from closecall.analysis.margin_distribution import MarginDistribution, margin_distribution
 from closecall.cli.common import (
     ConfigOption,
     FormatOption,
@@ -29,13 +30,12 @@ from closecall.cli.output import (
     plain,
     safe_text,
 )
-from closecall.config import CONFIG_NAME
-from closecall.errors import UserError
-from closecall.fit_flags import PROBLEM_WORDS, fits_text, grouped_flags, snapshot_flags
-from closecall.margin_distribution import MarginDistribution, margin_distribution
-from closecall.queue import SORT_KEYS, build_queue, queue_rows
-from closecall.review_states import STATE_NAMES, study_review_states
-from closecall.study import open_study
+from closecall.core.errors import UserError
+from closecall.review.queue import SORT_KEYS, build_queue, queue_rows
+from closecall.review.states import STATE_NAMES, study_review_states
+from closecall.setup.config import CONFIG_NAME
+from closecall.suite.fit_flags import PROBLEM_WORDS, fits_text, grouped_flags, snapshot_flags
+from closecall.suite.opening import open_study
 
 
 def init(
@@ -51,13 +51,13 @@ def init(
 
     Example: closecall init history.csv --pending pending.csv
     """
-    from closecall.output_files import StudyFile, check_config_output, write_output
+    from closecall.setup.output_files import StudyFile, check_config_output, write_output
 
     inputs = [StudyFile(data.resolve(), "the history data file named here", "data")]
     if pending is not None:
         inputs.append(StudyFile(pending.resolve(), "the pending data file named here", "data"))
     check_config_output(out, inputs, force=force)
-    from closecall.config_init import infer_config
+    from closecall.setup.init import infer_config
 
     inf = infer_config(data, pending, relative_to=out.resolve().parent)
     # the config is read by every reviewer of the study: usual permissions (umask applies)
@@ -95,7 +95,7 @@ def demo(
 
     Example: closecall demo --out demo-study --cases 5000 && cd demo-study && closecall queue
     """
-    from closecall.demo import write_demo
+    from closecall.setup.demo import write_demo
 
     config = write_demo(out, cases=cases, seed=seed)  # refuses a folder holding a study
     sid = None

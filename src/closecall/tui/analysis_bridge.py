@@ -14,11 +14,11 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from closecall.errors import UserError
-from closecall.queue import MEASURES
+from closecall.core.errors import UserError
+from closecall.review.queue import MEASURES
 
 if TYPE_CHECKING:
-    from closecall.study import Study
+    from closecall.suite.opening import Study
 
 #: Queue measure name -> (module, function) that computes it for every case.
 MEASURE_SOURCES = {

@@ -15,8 +15,8 @@ from textual.markup import escape
 from textual.screen import Screen
 
 from closecall.cli.output import safe_text
-from closecall.errors import UserError
-from closecall.study import Study
+from closecall.core.errors import UserError
+from closecall.suite.opening import Study
 from closecall.tui.decision_dialog import DecisionDialog
 from closecall.tui.queue_screen import QueueScreen
 from closecall.tui.session import Clock, ReviewSession, utc_clock
@@ -96,7 +96,7 @@ class ReviewApp(App[None]):
 
     def _other_drafts(self, case_id: str) -> list[str]:
         """Case ids of this login's saved drafts other than ``case_id`` (newest first)."""
-        from closecall.reviews import my_drafts
+        from closecall.review.decisions import my_drafts
 
         if self.session is None:
             return []
@@ -113,7 +113,7 @@ class ReviewApp(App[None]):
 
     def _save_drafts(self) -> None:
         """Before leaving: keep the open note as a draft, withdraw this session's claims."""
-        from closecall.reviews import release_claim
+        from closecall.review.decisions import release_claim
         from closecall.tui.case_screen import CaseScreen
 
         dialog = self.open_dialog()

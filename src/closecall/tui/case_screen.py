@@ -18,17 +18,17 @@ from textual.widgets import Static
 from textual.worker import get_current_worker
 
 from closecall.cli.output import safe_text
-from closecall.errors import UserError
-from closecall.fit_flags import PROBLEM_WORDS, case_fit_flags
-from closecall.ledger import Draft, Entry
-from closecall.reviews import (
+from closecall.core.errors import UserError
+from closecall.review.decisions import (
     active_claims,
     case_history,
     claim_case,
     load_draft,
     release_claim,
 )
-from closecall.snapshot import decision_word
+from closecall.review.ledger import Draft, Entry
+from closecall.suite.fit_flags import PROBLEM_WORDS, case_fit_flags
+from closecall.suite.snapshot import decision_word
 from closecall.tui import analysis_bridge, case_sections
 from closecall.tui.key_bar import KeyBar
 from closecall.tui.margin_axis import AxisData, AxisLine, MarginAxis

@@ -14,7 +14,7 @@ from typing import Any
 from rich.text import Text
 
 from closecall.cli.output import safe_text
-from closecall.ledger import Draft, Entry
+from closecall.review.ledger import Draft, Entry
 from closecall.tui.marks import ACTION_WORD, block_bar, share, signed
 
 FLIPS = "⇄ flips"

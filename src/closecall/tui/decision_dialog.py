@@ -1,9 +1,9 @@
-"""The decision dialog: action, reason code, note; records through ``closecall.reviews``.
+"""The decision dialog: action, reason code, note; records through ``closecall.review.decisions``.
 
 The note is kept as a draft while it is typed (saved after a short pause, in a worker), so a
 closed dialog, a quit or a dropped connection loses nothing. Recording calls
-:func:`closecall.reviews.record_review`, the same function as ``closecall record``; its refusals
-(an override without a reason or a note, …) are shown here word for word.
+:func:`closecall.review.decisions.record_review`, the same function as ``closecall record``;
+its refusals (an override without a reason or a note, …) are shown here word for word.
 """
 
 from __future__ import annotations
@@ -21,10 +21,10 @@ from textual.timer import Timer
 from textual.widgets import Static, TextArea
 
 from closecall.cli.output import safe_text
-from closecall.errors import UserError
-from closecall.ledger import ACTIONS, Entry
-from closecall.reviews import claim_case, load_draft, record_review, release_claim
-from closecall.snapshot import decision_word
+from closecall.core.errors import UserError
+from closecall.review.decisions import claim_case, load_draft, record_review, release_claim
+from closecall.review.ledger import ACTIONS, Entry
+from closecall.suite.snapshot import decision_word
 from closecall.tui.choice_list import ChoiceList
 from closecall.tui.draft_keeper import DraftKeeper, DraftValue
 from closecall.tui.key_bar import KeyBar
@@ -113,7 +113,7 @@ class DecisionDialog(ModalScreen[Entry | None]):
         self.app.call_from_thread(self._loaded, draft)
 
     def _loaded(self, draft: object) -> None:
-        from closecall.ledger import Draft
+        from closecall.review.ledger import Draft
 
         if isinstance(draft, Draft):
             value = DraftValue(draft.note, draft.action, draft.reason)

@@ -10,8 +10,8 @@ from __future__ import annotations
 import threading
 from dataclasses import dataclass
 
-from closecall.reviews import drop_draft, save_draft
-from closecall.study import Study
+from closecall.review.decisions import drop_draft, save_draft
+from closecall.suite.opening import Study
 
 
 @dataclass(frozen=True)

@@ -11,7 +11,7 @@ from textual.containers import VerticalScroll
 from textual.screen import Screen
 from textual.widgets import Static
 
-from closecall.cautions import CAUTIONS
+from closecall.core.cautions import CAUTIONS
 from closecall.tui.key_bar import KeyBar, key_label, one_key
 from closecall.tui.marks import (
     ACTION_SHORT,

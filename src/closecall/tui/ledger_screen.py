@@ -18,9 +18,9 @@ from textual.timer import Timer
 from textual.widgets import DataTable, Input, Static
 
 from closecall.cli.output import safe_text
-from closecall.errors import UserError
-from closecall.ledger import Entry, VerifyResult
-from closecall.reviews import ledger_entries, verify_ledger
+from closecall.core.errors import UserError
+from closecall.review.decisions import ledger_entries, verify_ledger
+from closecall.review.ledger import Entry, VerifyResult
 from closecall.tui.key_bar import KeyBar
 from closecall.tui.marks import ACTION_SHORT, ACTION_WORD, signed
 from closecall.tui.session import ReviewSession

@@ -13,9 +13,9 @@ from textual.screen import Screen
 from textual.widgets import Static
 from textual.worker import get_current_worker
 
-from closecall.cautions import CAUTIONS
-from closecall.errors import UserError
-from closecall.study import Study, open_study
+from closecall.core.cautions import CAUTIONS
+from closecall.core.errors import UserError
+from closecall.suite.opening import Study, open_study
 from closecall.tui.fit_progress import FitProgress
 from closecall.tui.key_bar import KeyBar
 from closecall.tui.session import ReviewSession
@@ -84,7 +84,7 @@ class LoadingScreen(Screen[None]):
             if study is None:
                 assert self.config_path is not None
                 if self.write_demo_to is not None:
-                    from closecall.demo import write_demo
+                    from closecall.setup.demo import write_demo
 
                     progress("writing the demo study", 0, 1)
                     self.config_path = write_demo(self.write_demo_to)

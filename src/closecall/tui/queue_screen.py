@@ -14,7 +14,7 @@ from textual.widgets import Input, Static
 from textual.worker import get_current_worker
 
 from closecall.cli.output import safe_text
-from closecall.ledger import Entry
+from closecall.review.ledger import Entry
 from closecall.tui.case_list import CaseList
 from closecall.tui.key_bar import KeyBar
 from closecall.tui.margin_chart import MarginChart

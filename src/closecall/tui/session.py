@@ -13,12 +13,12 @@ from datetime import UTC, datetime
 
 import numpy as np
 
-from closecall.ledger import Claim, current_login
-from closecall.margin_distribution import MarginDistribution, margin_distribution
-from closecall.queue import Queue, build_queue
-from closecall.review_states import review_states
-from closecall.reviews import active_claims, latest_actions
-from closecall.study import Study
+from closecall.analysis.margin_distribution import MarginDistribution, margin_distribution
+from closecall.review.decisions import active_claims, latest_actions
+from closecall.review.ledger import Claim, current_login
+from closecall.review.queue import Queue, build_queue
+from closecall.review.states import review_states
+from closecall.suite.opening import Study
 from closecall.tui import analysis_bridge
 from closecall.tui.marks import OPEN, STATE_OF_ACTION
 
@@ -146,7 +146,7 @@ class ReviewSession:
     def rebuild(self, settings: ListSettings | None = None) -> Queue:
         """Build the list for ``settings`` (slow at national scale: call from a worker).
 
-        Filters and the closeness order come from :func:`closecall.queue.build_queue`; the
+        Filters and the closeness order come from :func:`closecall.review.queue.build_queue`; the
         analysis measures and filters are computed once per session and reused, and a sort by
         a measure follows build_queue's rule (largest first, then nearest the threshold).
         """

@@ -1,0 +1,1 @@
+"""Shared by every layer: errors, cautions, progress callbacks."""

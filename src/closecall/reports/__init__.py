@@ -1,0 +1,1 @@
+"""Reports over the ledger: export and the disparity report."""

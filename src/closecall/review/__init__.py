@@ -1,0 +1,1 @@
+"""Review: the close-call queue, review states, decisions and the ledger."""

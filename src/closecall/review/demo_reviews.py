@@ -1,0 +1,169 @@
+"""Simulated reviews for the demo study: real ledger entries from a seeded reviewer model.
+
+The entries go through the ledger's own checks and chain like any other, but carry simulated
+reviewer names (``sim-reviewer-N``) and say in their note that they are simulated, so they can
+never pass for real decisions. A ledger that already holds real reviews is refused.
+"""
+
+from __future__ import annotations
+
+from typing import TYPE_CHECKING
+
+import numpy as np
+
+from closecall.core.errors import UserError
+from closecall.reports.disparity.simulate import simulate_actions
+from closecall.reports.disparity.table import DEFER, UPHOLD
+from closecall.review.decisions import check_action, check_note, check_reason
+from closecall.review.ledger import EntryContent, NoLedger, open_ledger
+from closecall.review.ledger.access import require_record
+
+if TYPE_CHECKING:
+    from closecall.suite.opening import Study
+
+SIM_PREFIX = "sim-reviewer-"
+
+
+def _reviewed_cases(study: Study) -> tuple[set[str], bool]:
+    """Case ids already in the ledger, and whether any entry is a real (non-simulated) one."""
+    try:
+        with open_ledger(study.config.review.ledger, readonly=True) as ledger:
+            entries = ledger.entries()
+    except NoLedger:
+        return set(), False
+    real = any(not e.reviewer.startswith(SIM_PREFIX) for e in entries)
+    return {e.case_id for e in entries}, real
+
+
+def simulate_reviews(
+    study: Study,
+    n: int,
+    seed: int = 7,
+    *,
+    bias: float = 2.0,
+    biased_group: str | None = None,
+    reviewers: int = 4,
+    biased_reviewers: int | None = None,
+    base_rate: float = 0.3,
+) -> int:
+    """Record ``n`` simulated reviews of close calls in the study's ledger.
+
+    Cases are drawn (seeded) from the unreviewed close calls, ``|margin| <= [review] band``
+    under the reference model and first cost lens, widening to the nearest cases when there are
+    too few. Actions follow :func:`closecall.reports.disparity.simulate.simulate_actions`.
+
+    Parameters
+    ----------
+    study
+        The open study.
+    n
+        Number of reviews to record.
+    seed
+        Seed of every random choice.
+    bias
+        Odds ratio of "override to unfavourable" for ``biased_group`` against the others at
+        equal margin, for the biased reviewers (1.0: no bias).
+    biased_group
+        Default: the group with the lowest favourable share under the reference model.
+    reviewers
+        Number of simulated reviewers the cases are shared among.
+    biased_reviewers
+        How many of them carry the bias (default: all).
+    base_rate
+        Override probability at margin 0.
+
+    Returns
+    -------
+    The number of entries recorded.
+
+    Raises
+    ------
+    UserError
+        Bad counts, an unknown group, no unreviewed cases, or a ledger with real reviews.
+    """
+    config = study.config
+    require_record(config.review, config.path)
+    if n < 1:
+        raise UserError(f"N = {n}: record at least one review")
+    if reviewers < 1:
+        raise UserError(f"--reviewers {reviewers}: need at least one simulated reviewer")
+    if bias <= 0:
+        raise UserError(f"--bias {bias}: the bias is an odds ratio and must be positive")
+    nb = reviewers if biased_reviewers is None else biased_reviewers
+    if not 0 <= nb <= reviewers:
+        raise UserError(f"--biased-reviewers {nb}: must be between 0 and {reviewers}")
+    done, real = _reviewed_cases(study)
+    if real:
+        raise UserError(
+            f"{config.review.ledger}: this ledger holds real reviews; simulated ones would mix "
+            "with them",
+            "simulate only on a fresh demo study (closecall demo --out DIR)",
+        )
+    snap = study.snapshot
+    margin = snap.margins(snap.reference)
+    groups = np.asarray(snap.group_labels).astype(str)
+    levels = sorted(set(groups.tolist()))
+    if biased_group is None:
+        shares = {g: float((margin[groups == g] > 0).mean()) for g in levels}
+        biased_group = min(levels, key=lambda g: (shares[g], g))
+    elif biased_group not in levels:
+        raise UserError(
+            f"--biased-group '{biased_group}' is not a group of this study",
+            f"choose one of: {', '.join(levels)}",
+        )
+
+    ids = np.asarray(snap.case_ids).astype(str)
+    open_case = ~np.isin(ids, np.array(sorted(done), dtype=str))
+    pending = np.asarray(snap.outcome) < 0
+    if pending.any():
+        open_case &= pending
+    candidates = np.flatnonzero(open_case)
+    if len(candidates) == 0:
+        raise UserError("every case already has a review", "start from a fresh demo study")
+    dist = np.abs(margin[candidates])
+    pool = candidates[dist <= config.review.band]
+    if len(pool) < n:
+        pool = candidates[np.argsort(dist, kind="stable")[: min(n, len(candidates))]]
+    rng = np.random.default_rng(seed)
+    chosen = rng.choice(pool, size=min(n, len(pool)), replace=False)
+    reviewer_of = rng.integers(0, reviewers, size=len(chosen))
+    is_biased = reviewer_of < nb
+    actions = simulate_actions(
+        margin[chosen],
+        np.where(is_biased, groups[chosen], ""),  # only biased reviewers see the group
+        rng,
+        biased_group=biased_group,
+        bias=bias,
+        base_rate=base_rate,
+    )
+    reasons = [r for r in config.review.reasons if r != "other"] or list(config.review.reasons)
+    reason_pick = rng.integers(0, len(reasons), size=len(chosen))
+    note = f"Simulated review for the demo (closecall demo-reviews, seed {seed}); not a decision."
+    contents = []
+    for k, i in enumerate(chosen):  # one entry per simulated review, not per case of the study
+        action = check_action(str(actions[k]))
+        reason = None if action in (UPHOLD, DEFER) else reasons[int(reason_pick[k])]
+        decisions = snap.decisions_for(int(i))
+        ref = decisions[snap.reference]
+        contents.append(
+            EntryContent(
+                reviewer=f"{SIM_PREFIX}{int(reviewer_of[k]) + 1}",
+                case_id=str(ids[i]),
+                snapshot_id=str(snap.id),
+                current_snapshot_id=None,
+                reference_model=snap.reference,
+                reference_decision=str(ref["decision"]),
+                reference_margin=float(ref["margin"]),
+                decisions={
+                    m: {"decision": str(d["decision"]), "margin": float(d["margin"])}
+                    for m, d in decisions.items()
+                },
+                action=action,
+                reason=check_reason(config, action, reason),
+                note=check_note(action, note),
+            )
+        )
+    with open_ledger(config.review.ledger) as ledger:
+        for content in contents:
+            ledger.append(content)
+    return len(contents)

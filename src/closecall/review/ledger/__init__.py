@@ -1,0 +1,42 @@
+"""The review ledger: append-only, hash-chained, shared by several reviewers at once.
+
+See docs/ledger.md for the format and guarantees.
+"""
+
+from closecall.review.ledger.access import current_login, may_read, may_record
+from closecall.review.ledger.entry import (
+    ACTIONS,
+    GENESIS_HASH,
+    OVERRIDES,
+    Entry,
+    EntryContent,
+    canonical_json,
+    entry_hash,
+)
+from closecall.review.ledger.schema import SCHEMA_VERSION
+from closecall.review.ledger.store import Claim, DamagedLedger, Draft, Ledger, NoLedger, open_ledger
+from closecall.review.ledger.verify import Problem, VerifyResult, verify_chain, verify_file
+
+__all__ = [
+    "ACTIONS",
+    "GENESIS_HASH",
+    "OVERRIDES",
+    "SCHEMA_VERSION",
+    "Claim",
+    "DamagedLedger",
+    "Draft",
+    "Entry",
+    "EntryContent",
+    "Ledger",
+    "NoLedger",
+    "Problem",
+    "VerifyResult",
+    "canonical_json",
+    "current_login",
+    "entry_hash",
+    "may_read",
+    "may_record",
+    "open_ledger",
+    "verify_chain",
+    "verify_file",
+]

@@ -1,0 +1,273 @@
+"""Recompute the hash chain and name the first entry that breaks it.
+
+What is checked, entry by entry in sequence order:
+
+1. the sequence continues without a gap (a deleted entry shows as a gap);
+2. the stored fields hash to the stored hash (an edited or moved entry fails here);
+3. the entry's ``prev_hash`` is the hash of the entry before it (a forged entry whose own hash
+   was recomputed, or entries put in another order with recomputed hashes, fail here).
+
+An anchor — a head hash copied somewhere else earlier — must be the hash of an entry still in
+the verified chain; if it is not, entries up to the anchor were removed (a truncated tail) or
+the chain was rewritten since.
+
+The file's structure must be the schema's: the append-only triggers in place *with the
+definitions the schema gives them* (a same-named trigger that does nothing is tampering), every
+table with its columns, no trigger the schema does not create. And the ledger must be there:
+:func:`verify_file` reports a missing, empty or unreadable file unless empty is allowed.
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import asdict, dataclass
+from pathlib import Path
+from typing import Any
+
+from closecall.review.ledger.entry import GENESIS_HASH, entry_hash
+from closecall.review.ledger.store import DamagedLedger, Ledger, NoLedger, open_ledger
+
+
+@dataclass(frozen=True)
+class Problem:
+    """The first thing found wrong.
+
+    ``kind`` is one of: ``missing`` (sequence gap: entry ``seq`` was deleted), ``edited``
+    (fields do not match the hash), ``wrong-predecessor`` (does not link to the entry before),
+    ``malformed`` (a stored value cannot be read), ``anchor-not-found``; for the file's
+    structure ``triggers-missing``, ``trigger-altered``, ``table-missing``, ``table-altered``,
+    ``index-missing``, ``index-altered``, ``unexpected-object``; for the file itself
+    ``no-ledger``, ``empty-ledger``, ``no-entries``, ``not-a-ledger``, ``unreadable``.
+    """
+
+    kind: str
+    seq: int | None
+    message: str
+
+
+@dataclass(frozen=True)
+class VerifyResult:
+    """Outcome of :func:`verify_chain`."""
+
+    ok: bool
+    entries: int  # entries read
+    verified: int  # entries verified before the first break (all of them when ok)
+    head_seq: int  # last stored entry (0 when empty)
+    head_hash: str  # its stored hash; trust it only when ok
+    problem: Problem | None
+    anchor: str | None
+    anchor_seq: int | None  # where the anchor was found in the chain
+    problems: tuple[Problem, ...] = ()  # the first break plus any structural findings
+
+    @property
+    def first_broken(self) -> int | None:
+        return self.problem.seq if self.problem else None
+
+    def to_dict(self) -> dict[str, Any]:
+        d = asdict(self)
+        d["first_broken"] = self.first_broken
+        return d
+
+
+def verify_chain(ledger: Ledger, anchor: str | None = None) -> VerifyResult:
+    """Recompute every hash of ``ledger`` and check every link; see the module docstring."""
+    anchor = anchor.strip().lower() if anchor else None
+    expected_seq, expected_prev = 1, GENESIS_HASH
+    verified = 0
+    read = 0
+    anchor_seq: int | None = 0 if anchor == GENESIS_HASH else None
+    problem: Problem | None = None
+    findings = ledger.structure_findings()
+    entries_changed = any(f.name == "entries" and f.breaks_reading for f in findings)
+    rows = ledger.iter_rows()
+    while True:
+        try:
+            row = next(rows)
+        except StopIteration:
+            break
+        except DamagedLedger as exc:  # the entries cannot be read (on)
+            if not entries_changed:  # else the finding below says why
+                problem = problem or Problem(
+                    "unreadable", None, f"the entries cannot be read: {exc.message}"
+                )
+            break
+        read += 1
+        if problem is not None:
+            continue  # keep counting rows; only the first break is named
+        seq = row["seq"]
+        if seq != expected_seq:
+            problem = Problem(
+                "missing",
+                expected_seq,
+                f"entry {expected_seq} is missing: the sequence goes from {expected_seq - 1} "
+                f"to {seq} (deleted entries)"
+                if seq > expected_seq
+                else f"entry {seq} is out of sequence (expected {expected_seq})",
+            )
+            continue
+        try:
+            fields = {**row, "decisions": json.loads(row["decisions"])}
+            recomputed = entry_hash(fields)
+        except (ValueError, TypeError) as exc:
+            problem = Problem("malformed", seq, f"entry {seq} cannot be read: {exc}")
+            continue
+        if recomputed != row["hash"]:
+            problem = Problem(
+                "edited",
+                seq,
+                f"entry {seq} was altered after it was recorded: its fields hash to "
+                f"{recomputed[:16]}…, but it carries {str(row['hash'])[:16]}…",
+            )
+            continue
+        if row["prev_hash"] != expected_prev:
+            problem = Problem(
+                "wrong-predecessor",
+                seq,
+                f"entry {seq} does not follow entry {seq - 1}: it names predecessor "
+                f"{str(row['prev_hash'])[:16]}…, but entry {seq - 1} has hash "
+                f"{expected_prev[:16]}… (forged, reordered or replaced entries)",
+            )
+            continue
+        if anchor is not None and row["hash"] == anchor:
+            anchor_seq = seq
+        verified += 1
+        expected_seq, expected_prev = seq + 1, row["hash"]
+
+    problems: list[Problem] = [problem] if problem else []
+    if anchor is not None and anchor_seq is None and problem is None:
+        problems.append(
+            Problem(
+                "anchor-not-found",
+                None,
+                f"the anchor {anchor[:16]}… is not in the chain of {verified} entries: entries "
+                "were removed from the end (truncated) or the chain was rewritten since the "
+                "anchor was taken",
+            )
+        )
+    for finding in findings:
+        problems.append(
+            Problem(finding.kind, None, f"{finding.message}: someone changed its structure by hand")
+        )
+    try:
+        head_seq, head_hash = ledger.head()
+    except DamagedLedger:
+        head_seq, head_hash = 0, GENESIS_HASH
+    return VerifyResult(
+        ok=not problems,
+        entries=read,
+        verified=verified,
+        head_seq=head_seq,
+        head_hash=head_hash,
+        problem=problems[0] if problems else None,
+        anchor=anchor,
+        anchor_seq=anchor_seq,
+        problems=tuple(problems),
+    )
+
+
+_ALLOW = "pass --allow-empty if the study has no reviews yet"
+
+
+def _missing_file(path: Path) -> Problem:
+    return Problem(
+        "no-ledger",
+        None,
+        f"there is no ledger file at {path}: it was deleted or moved, [review] ledger names "
+        f"the wrong file, or no review was ever recorded. Restore it from a backup, correct "
+        f"[review] ledger, or {_ALLOW}",
+    )
+
+
+def _empty_file(path: Path) -> Problem:
+    return Problem(
+        "empty-ledger",
+        None,
+        f"the ledger file {path} is empty ({path.stat().st_size} bytes, no tables): closecall "
+        f"never leaves a ledger like this, so it was emptied or made by hand. Restore it from "
+        f"a backup, or {_ALLOW}",
+    )
+
+
+def _no_entries(path: Path) -> Problem:
+    return Problem(
+        "no-entries",
+        None,
+        f"the ledger {path} holds no entries (none recorded yet, or all removed). Restore it "
+        f"from a backup if reviews were recorded, or {_ALLOW}",
+    )
+
+
+def _unverifiable(problem: Problem, anchor: str | None) -> VerifyResult:
+    return VerifyResult(
+        ok=False,
+        entries=0,
+        verified=0,
+        head_seq=0,
+        head_hash=GENESIS_HASH,
+        problem=problem,
+        anchor=anchor,
+        anchor_seq=None,
+        problems=(problem,),
+    )
+
+
+def verify_file(
+    path: str | Path, anchor: str | None = None, *, allow_empty: bool = False
+) -> VerifyResult:
+    """Verify the ledger file at ``path``: its presence, structure and chain.
+
+    A missing file, a file with no tables and a ledger with no entries are each a problem
+    (``no-ledger``, ``empty-ledger``, ``no-entries``) unless ``allow_empty``; a folder or a
+    file that is not a closecall ledger is ``not-a-ledger``, one SQLite cannot read is
+    ``unreadable``; a ledger whose structure differs from the schema is read as far as it can
+    be and every difference is named (see :func:`verify_chain`). Never writes to the file.
+
+    Raises
+    ------
+    UserError
+        The file could not be read for a reason outside it (permissions, a lock held by
+        another program) or was written by a newer closecall.
+    """
+    path = Path(path)
+    anchor = anchor.strip().lower() if anchor else None
+    if not path.exists():  # (a dangling link too)
+        return _nothing(_missing_file(path), anchor, allow_empty, path)
+    try:
+        ledger = open_ledger(path, inspect=True)
+    except NoLedger:
+        return _nothing(_empty_file(path), anchor, allow_empty, path)
+    except DamagedLedger as exc:
+        return _unverifiable(Problem(exc.kind, None, exc.message), anchor)
+    with ledger:
+        try:
+            result = verify_chain(ledger, anchor)
+        except DamagedLedger as exc:
+            return _unverifiable(Problem(exc.kind, None, exc.message), anchor)
+    if result.entries == 0 and result.ok:
+        return _nothing(_no_entries(path), anchor, allow_empty, path)
+    return result
+
+
+def _nothing(problem: Problem, anchor: str | None, allow_empty: bool, path: Path) -> VerifyResult:
+    """The result for a ledger with nothing in it: ``problem`` unless empty is allowed."""
+    problems = [] if allow_empty else [problem]
+    if anchor is not None and anchor != GENESIS_HASH:
+        problems.append(
+            Problem(
+                "anchor-not-found",
+                None,
+                f"the anchor {anchor[:16]}… is not in the chain: the ledger {path} has no "
+                "entries (deleted or never written)",
+            )
+        )
+    return VerifyResult(
+        ok=not problems,
+        entries=0,
+        verified=0,
+        head_seq=0,
+        head_hash=GENESIS_HASH,
+        problem=problems[0] if problems else None,
+        anchor=anchor,
+        anchor_seq=0 if anchor == GENESIS_HASH else None,
+        problems=tuple(problems),
+    )

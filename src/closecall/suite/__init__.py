@@ -1,0 +1,1 @@
+"""The model suite: the solver, the fits, proxy detection and the snapshot."""

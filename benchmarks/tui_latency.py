@@ -39,7 +39,7 @@ import numpy as np
 
 from closecall.setup.config import load_config
 from closecall.setup.demo import write_demo
-from closecall.suite.opening import Study, open_study
+from closecall.suite.opening import OpenedStudy, open_study
 from closecall.suite.snapshot import Snapshot, save_snapshot, snapshot_dir
 
 SIZE = (80, 24)
@@ -72,7 +72,7 @@ def tiled_study(base: Path, work: Path, n: int, seed: int = 3) -> Path:
     return folder / "closecall.toml"
 
 
-async def _measure(study: Study, keys: int) -> dict[str, float]:
+async def _measure(study: OpenedStudy, keys: int) -> dict[str, float]:
     from closecall.tui.app import ReviewApp
     from closecall.tui.case_list import CaseList
     from closecall.tui.case_screen import CaseScreen

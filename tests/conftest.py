@@ -7,7 +7,7 @@ from pathlib import Path
 import pytest
 
 from closecall.setup.demo import write_demo
-from closecall.suite.opening import Study, open_study
+from closecall.suite.opening import OpenedStudy, open_study
 
 
 @pytest.fixture(scope="session")
@@ -19,7 +19,7 @@ def demo_config(tmp_path_factory: pytest.TempPathFactory) -> Path:
 
 
 @pytest.fixture(scope="session")
-def demo_study(demo_config: Path) -> Study:
+def demo_study(demo_config: Path) -> OpenedStudy:
     return open_study(demo_config)
 
 

@@ -22,12 +22,12 @@ from closecall.analysis.multiplicity import (
     epsilon_curve,
     exact_band,
 )
-from closecall.suite.opening import Study, open_study
+from closecall.suite.opening import OpenedStudy, open_study
 from closecall.suite.solver import fit_logit
 
 
 @pytest.fixture(scope="module")
-def hmda0(tmp_path_factory: pytest.TempPathFactory) -> Study:
+def hmda0(tmp_path_factory: pytest.TempPathFactory) -> OpenedStudy:
     """HMDA, unpenalised (penalty = 0), cross-fitted, without 'insurance': among black
     applicants 16 of the 17 denied mortgage insurance were denied the loan, so the split
     model's fold without the one exception is quasi-completely separated and penalty 0 is
@@ -37,14 +37,14 @@ def hmda0(tmp_path_factory: pytest.TempPathFactory) -> Study:
 
 
 @pytest.fixture(scope="module")
-def demo0(tmp_path_factory: pytest.TempPathFactory) -> Study:
+def demo0(tmp_path_factory: pytest.TempPathFactory) -> OpenedStudy:
     """A 2,000-case one-file demo, unpenalised."""
     return open_study(
         one_file_demo(tmp_path_factory.mktemp("demo0"), cases=2000, seed=3, penalty=0)
     )
 
 
-def _row_design(study: Study, row: int) -> tuple[Any, np.ndarray, np.ndarray, np.ndarray]:
+def _row_design(study: OpenedStudy, row: int) -> tuple[Any, np.ndarray, np.ndarray, np.ndarray]:
     snap = study.snapshot
     fr = fitted_row(snap, "pooled", row)
     X = np.asarray(snap.hist_X)
@@ -58,7 +58,7 @@ def test_uncertainty_epsilon_is_half_the_chi2_quantile() -> None:
     assert np.sqrt(2 * UNCERTAINTY_EPSILON) == pytest.approx(1.959964, abs=1e-6)
 
 
-def test_inverse_hessian_is_statsmodels_covariance(hmda0: Study) -> None:
+def test_inverse_hessian_is_statsmodels_covariance(hmda0: OpenedStudy) -> None:
     """statsmodels Logit(...).fit().cov_params() is H⁻¹ of the unpenalised fit (reference:
     statsmodels 0.15, discrete_model.LogitResults.cov_params)."""
     for row in (0, 3):
@@ -70,7 +70,7 @@ def test_inverse_hessian_is_statsmodels_covariance(hmda0: Study) -> None:
         np.testing.assert_allclose(H_inv, res.cov_params(), rtol=1e-4, atol=1e-8)
 
 
-def test_uncertainty_band_is_statsmodels_confidence_interval(hmda0: Study) -> None:
+def test_uncertainty_band_is_statsmodels_confidence_interval(hmda0: OpenedStudy) -> None:
     """The 95 % uncertainty band equals statsmodels' 95 % confidence interval of the linear
     predictor (get_prediction(which="linear").summary_frame()) minus logit(t), for every case
     the row scored, under both lenses."""
@@ -94,7 +94,7 @@ def test_uncertainty_band_is_statsmodels_confidence_interval(hmda0: Study) -> No
             )
 
 
-def test_bootstrap_refits_fall_inside_the_uncertainty_band(demo0: Study) -> None:
+def test_bootstrap_refits_fall_inside_the_uncertainty_band(demo0: OpenedStudy) -> None:
     """Refit the row on 200 bootstrap resamples of its training cases (Efron & Tibshirani
     1993): about 95 % of the held-out cases' refitted margins lie inside their band.
     Observed on this study: 94.0 % (docs/methods.md; HMDA with 12 features: 92.2 %, the
@@ -114,7 +114,7 @@ def test_bootstrap_refits_fall_inside_the_uncertainty_band(demo0: Study) -> None
     assert 0.92 <= inside.mean() <= 0.97
 
 
-def test_models_on_the_ellipsoid_surface(hmda0: Study) -> None:
+def test_models_on_the_ellipsoid_surface(hmda0: OpenedStudy) -> None:
     """Models on the surface (w − ŵ)ᵀH(w − ŵ) = 2ε have loss f(ŵ) + ε to second order: the
     relative error is O(sqrt(ε)) (third-order Taylor term), so it shrinks tenfold when ε
     shrinks a hundredfold. Their margins stay inside margin ± sqrt(2ε x̃ᵀH⁻¹x̃) and reach both
@@ -158,7 +158,7 @@ def test_models_on_the_ellipsoid_surface(hmda0: Study) -> None:
         assert np.median(rel) < 0.06 and rel.max() < (0.3 if scale == 1.0 else 0.05)
 
 
-def test_exact_band_agrees_with_the_closed_form_for_small_epsilon(hmda0: Study) -> None:
+def test_exact_band_agrees_with_the_closed_form_for_small_epsilon(hmda0: OpenedStudy) -> None:
     """The convex problem max/min x̃ᵀw s.t. f(w) ≤ f(ŵ) + ε converges to the quadratic
     approximation as ε → 0 (the error is third order in the half-width)."""
     snap = hmda0.snapshot
@@ -179,7 +179,7 @@ def test_exact_band_agrees_with_the_closed_form_for_small_epsilon(hmda0: Study) 
     assert gap_wide > gap_small  # the approximation is worse for a larger set
 
 
-def test_ambiguity_curve_and_discrepancy(hmda0: Study) -> None:
+def test_ambiguity_curve_and_discrepancy(hmda0: OpenedStudy) -> None:
     """Ambiguity = share of cases whose band straddles zero; it grows with ε; discrepancy
     (one model's flips) never exceeds ambiguity (Marx, Calmon & Ustun 2020, Prop. 1)."""
     snap = hmda0.snapshot

@@ -9,7 +9,7 @@ from scipy import stats
 
 import closecall.analysis.comparison as cmp
 from closecall.analysis.comparison import block_bootstrap_means, case_losses, compare_models
-from closecall.suite.opening import Study
+from closecall.suite.opening import OpenedStudy
 
 
 def test_bootstrap_of_a_mean_matches_the_standard_error() -> None:
@@ -53,7 +53,7 @@ def test_case_losses() -> None:
     np.testing.assert_array_equal(out["error"], [1.0, 1.0, 0.0])  # p = 0.5 is not > 0.5
 
 
-def test_comparison_agrees_with_the_suites_held_out_metrics(demo_study: Study) -> None:
+def test_comparison_agrees_with_the_suites_held_out_metrics(demo_study: OpenedStudy) -> None:
     snap = demo_study.snapshot
     res = compare_models(snap, n_boot=300, seed=5)
     metrics = {(m["model"], m["group"]): m for m in snap.metrics}

@@ -13,7 +13,7 @@ from closecall.analysis.counterparts import (
     frequency_rank_map,
     quantile_map,
 )
-from closecall.suite.opening import Study
+from closecall.suite.opening import OpenedStudy
 
 
 def test_quantile_map_between_normals_is_the_linear_map() -> None:
@@ -50,7 +50,7 @@ def test_frequency_rank_map_by_hand() -> None:
     assert 2 not in frequency_rank_map(np.array([0, 1, 2]), source, target2, 3)
 
 
-def test_swapped_margins_are_the_model_at_the_changed_design(demo_study: Study) -> None:
+def test_swapped_margins_are_the_model_at_the_changed_design(demo_study: OpenedStudy) -> None:
     """(a) recomputed directly: put the other group's one-hot into the case's design and score
     it with the row that scored the case."""
     snap = demo_study.snapshot
@@ -73,7 +73,7 @@ def test_swapped_margins_are_the_model_at_the_changed_design(demo_study: Study) 
         assert cp.transported[k, own] == pytest.approx(cp.margin[k])
 
 
-def test_carried_proxies_land_in_the_other_groups_distribution(demo_study: Study) -> None:
+def test_carried_proxies_land_in_the_other_groups_distribution(demo_study: OpenedStudy) -> None:
     snap = demo_study.snapshot
     levels = snap.group_levels
     a, b = levels.index("Aster"), levels.index("Briar")
@@ -94,7 +94,7 @@ def test_carried_proxies_land_in_the_other_groups_distribution(demo_study: Study
     assert np.mean([z in ("Q", "R") for z in carried]) > 0.8  # Briar's common zones
 
 
-def test_demo_counterparts_favour_briar_when_carried_to_aster(demo_study: Study) -> None:
+def test_demo_counterparts_favour_briar_when_carried_to_aster(demo_study: OpenedStudy) -> None:
     """The history is biased against Briar (demo.py): Briar cases carried into Aster turn
     favourable, Aster cases carried into Briar turn unfavourable, never the reverse."""
     snap = demo_study.snapshot

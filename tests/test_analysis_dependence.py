@@ -12,16 +12,16 @@ from analysis_helpers import group_copy_study
 from closecall.analysis.dependence import dependence, dependence_by_group, rests_on
 from closecall.analysis.multiplicity import bands
 from closecall.review.queue import build_queue, queue_rows
-from closecall.suite.opening import Study, open_study
+from closecall.suite.opening import OpenedStudy, open_study
 from closecall.suite.proxies import cramers_v
 
 
 @pytest.fixture(scope="module")
-def copy_study(tmp_path_factory: pytest.TempPathFactory) -> Study:
+def copy_study(tmp_path_factory: pytest.TempPathFactory) -> OpenedStudy:
     return open_study(group_copy_study(tmp_path_factory.mktemp("copy")))
 
 
-def test_contributions_add_up_to_margin_minus_baseline(demo_study: Study) -> None:
+def test_contributions_add_up_to_margin_minus_baseline(demo_study: OpenedStudy) -> None:
     """Linear SHAP (Lundberg & Lee 2017): Σ_j w_j (x_j − E[x_j]) = margin − baseline, exactly
     (to rounding), for every case, model with weights and lens."""
     snap = demo_study.snapshot
@@ -36,7 +36,7 @@ def test_contributions_add_up_to_margin_minus_baseline(demo_study: Study) -> Non
             )
 
 
-def test_baseline_is_the_margin_of_the_average_case(demo_study: Study) -> None:
+def test_baseline_is_the_margin_of_the_average_case(demo_study: OpenedStudy) -> None:
     snap = demo_study.snapshot
     W, row_of_case = snap.weights("pooled")
     mu = np.asarray(snap.hist_X).mean(axis=0)
@@ -48,7 +48,7 @@ def test_baseline_is_the_margin_of_the_average_case(demo_study: Study) -> None:
 
 
 def test_a_copy_of_the_group_is_a_proxy_and_neutralising_both_leaves_no_dependence(
-    copy_study: Study,
+    copy_study: OpenedStudy,
 ) -> None:
     """'marker' copies the group exactly: Cramér's V = 1 (a 2×2 table with empty
     off-diagonal; Cramér 1946) and it carries the group effect in the unaware model."""
@@ -75,7 +75,7 @@ def test_a_copy_of_the_group_is_a_proxy_and_neutralising_both_leaves_no_dependen
     assert np.all(pf.group_part == 0) and np.all(pf.proxy_part == 0)
 
 
-def test_demo_proxies_and_the_sign_of_briars_dependence(demo_study: Study) -> None:
+def test_demo_proxies_and_the_sign_of_briars_dependence(demo_study: OpenedStudy) -> None:
     """The demo plants zone and depot_distance_km as proxies and a label bias against Briar
     (src/closecall/setup/demo.py, TRUE): both proxies are flagged and Briar's pooled margins are
     pulled down by the group and its proxies, Aster's up."""
@@ -97,7 +97,7 @@ def test_cramers_v_matches_a_textbook_table() -> None:
     assert cramers_v(a, b) == pytest.approx(np.sqrt(0.79365 / 100), abs=1e-5)
 
 
-def test_queue_filters_and_sorts_by_the_analysis(demo_study: Study) -> None:
+def test_queue_filters_and_sorts_by_the_analysis(demo_study: OpenedStudy) -> None:
     snap = demo_study.snapshot
     options = {"config": demo_study.config}
     for part in ("group", "proxies"):

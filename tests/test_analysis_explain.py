@@ -12,7 +12,7 @@ import pytest
 
 from analysis_helpers import hmda_study
 from closecall.analysis.explain import explain_case
-from closecall.suite.opening import Study, open_study
+from closecall.suite.opening import OpenedStudy, open_study
 
 KEYS = {
     "case_id",
@@ -37,12 +37,12 @@ KEYS = {
 }
 
 
-def _closest(study: Study) -> str:
+def _closest(study: OpenedStudy) -> str:
     snap = study.snapshot
     return str(snap.case_ids[int(np.argmin(np.abs(np.asarray(snap.margins("pooled")))))])
 
 
-def test_explain_case_keys_values_and_json(demo_study: Study, demo_config: Path) -> None:
+def test_explain_case_keys_values_and_json(demo_study: OpenedStudy, demo_config: Path) -> None:
     case = _closest(demo_study)
     d = explain_case(demo_study, case, exact=True)
     assert set(d) == KEYS
@@ -87,7 +87,7 @@ def test_unknown_case_is_a_user_error(demo_config: Path, cli) -> None:  # type: 
     ],
 )
 def test_commands_read_at_80_columns(
-    demo_study: Study,
+    demo_study: OpenedStudy,
     demo_config: Path,
     cli,
     args: list[str],  # type: ignore[no-untyped-def]
@@ -103,7 +103,7 @@ def test_commands_read_at_80_columns(
     json.loads(j.out)
 
 
-def test_text_marks_carry_the_meaning(demo_study: Study, demo_config: Path, cli) -> None:  # type: ignore[no-untyped-def]
+def test_text_marks_carry_the_meaning(demo_study: OpenedStudy, demo_config: Path, cli) -> None:  # type: ignore[no-untyped-def]
     snap = demo_study.snapshot
     from closecall.analysis.dependence import dependence
 

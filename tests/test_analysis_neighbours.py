@@ -11,7 +11,7 @@ from scipy.spatial import cKDTree
 import closecall.analysis.neighbours as nbmod
 from analysis_helpers import one_file_demo
 from closecall.analysis.neighbours import nearest_history, neighbours_for_case, similarity_weights
-from closecall.suite.opening import Study, open_study
+from closecall.suite.opening import OpenedStudy, open_study
 
 
 def _scaled(snap, X):  # type: ignore[no-untyped-def]
@@ -21,7 +21,7 @@ def _scaled(snap, X):  # type: ignore[no-untyped-def]
 
 @pytest.mark.parametrize("blocks", [(256, 32768), (7, 101)])
 def test_blockwise_search_equals_kdtree(
-    demo_study: Study, monkeypatch: pytest.MonkeyPatch, blocks: tuple[int, int]
+    demo_study: OpenedStudy, monkeypatch: pytest.MonkeyPatch, blocks: tuple[int, int]
 ) -> None:
     """Exact k-nearest neighbours equal scipy.spatial.cKDTree's (reference), also with tiny
     blocks that force many merges of the running k-best."""
@@ -38,7 +38,7 @@ def test_blockwise_search_equals_kdtree(
     assert same.all()
 
 
-def test_a_category_mismatch_counts_one_standard_deviation(demo_study: Study) -> None:
+def test_a_category_mismatch_counts_one_standard_deviation(demo_study: OpenedStudy) -> None:
     snap = demo_study.snapshot
     w = similarity_weights(snap)
     for f, start in zip(
@@ -55,11 +55,11 @@ def test_a_category_mismatch_counts_one_standard_deviation(demo_study: Study) ->
 
 
 @pytest.fixture(scope="module")
-def crossfit(tmp_path_factory: pytest.TempPathFactory) -> Study:
+def crossfit(tmp_path_factory: pytest.TempPathFactory) -> OpenedStudy:
     return open_study(one_file_demo(tmp_path_factory.mktemp("nbcf"), cases=800, seed=4))
 
 
-def test_a_case_is_never_its_own_neighbour(crossfit: Study) -> None:
+def test_a_case_is_never_its_own_neighbour(crossfit: OpenedStudy) -> None:
     snap = crossfit.snapshot
     rows = np.arange(50)
     nb = nearest_history(snap, rows, k=3)
@@ -72,7 +72,7 @@ def test_a_case_is_never_its_own_neighbour(crossfit: Study) -> None:
     assert all(0 <= s <= 1 for s in shares)
 
 
-def test_neighbours_within_one_group(demo_study: Study, tmp_path: Path) -> None:
+def test_neighbours_within_one_group(demo_study: OpenedStudy, tmp_path: Path) -> None:
     snap = demo_study.snapshot
     hg = np.asarray(snap.hist_group_codes)
     nb = nearest_history(snap, np.arange(20), k=5, among=hg == 1)

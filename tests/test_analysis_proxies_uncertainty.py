@@ -18,7 +18,7 @@ from sklearn.metrics import roc_auc_score
 
 from closecall.analysis.dependence import dependence, rests_on_uncertainty
 from closecall.analysis.fitted_rows import fitted_row
-from closecall.suite.opening import Study
+from closecall.suite.opening import OpenedStudy
 from closecall.suite.proxies import (
     _weighted_auc_association,
     association_draws,
@@ -124,7 +124,7 @@ def test_one_step_bootstrap_of_weights_matches_the_sandwich_covariance() -> None
 
 
 def test_flags_follow_the_intervals_and_the_command_agrees(
-    demo_study: Study,
+    demo_study: OpenedStudy,
     demo_config: Path,
     cli,  # type: ignore[no-untyped-def]
 ) -> None:
@@ -173,7 +173,7 @@ def test_lda_recoverability_matches_scikit_learn() -> None:
     assert res.steps[-1].auc_after <= 0.6
 
 
-def test_rests_on_standard_errors_from_the_penalised_hessian(demo_study: Study) -> None:
+def test_rests_on_standard_errors_from_the_penalised_hessian(demo_study: OpenedStudy) -> None:
     # The group part's standard error √(dᵀ Σ_G d), Σ the inverse of the penalised Hessian
     # X̃ᵀWX̃ + λI (intercept unpenalised) written out here with numpy on the fitted row's
     # training rows; the verdict is uncertain exactly when (margin − part) ± 1.96·se straddles 0.

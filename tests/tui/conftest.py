@@ -13,7 +13,7 @@ from pathlib import Path
 
 import pytest
 
-from closecall.suite.opening import Study, open_study
+from closecall.suite.opening import OpenedStudy, open_study
 
 FIXTURE = Path(__file__).resolve().parents[2] / "fixtures" / "demo"
 FIXED_SNAPSHOT_ID = "5eed0000c0ffee00"  # shown in snapshot frames instead of the path-dependent id
@@ -54,13 +54,13 @@ def study_config(tui_template: Path, tmp_path: Path) -> Path:
 
 
 @pytest.fixture
-def study(study_config: Path) -> Study:
+def study(study_config: Path) -> OpenedStudy:
     opened = open_study(study_config)
     assert not opened.fitted_now, "the shared fit should have been reused"
     return opened
 
 
 @pytest.fixture
-def frozen_study(study: Study) -> Study:
+def frozen_study(study: OpenedStudy) -> OpenedStudy:
     """The study with a fixed snapshot id, for frames that must not depend on the tmp path."""
-    return Study(study.config, dataclasses.replace(study.snapshot, id=FIXED_SNAPSHOT_ID))
+    return OpenedStudy(study.config, dataclasses.replace(study.snapshot, id=FIXED_SNAPSHOT_ID))

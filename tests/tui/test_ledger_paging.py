@@ -8,7 +8,7 @@ from tui_helpers import open_queue, screen_text, synchronous, wait_until
 
 from closecall.review.decisions import save_draft
 from closecall.review.ledger import EntryContent, open_ledger
-from closecall.suite.opening import Study
+from closecall.suite.opening import OpenedStudy
 from closecall.tui.app import ReviewApp
 from closecall.tui.case_list import CaseList
 from closecall.tui.confirm_quit import ConfirmQuit
@@ -19,7 +19,7 @@ SIZE = (80, 24)
 ENTRIES = 2_300  # five pages: four of 500 and one of 300
 
 
-def _fill_ledger(study: Study, n: int) -> None:
+def _fill_ledger(study: OpenedStudy, n: int) -> None:
     """``n`` real entries, appended through the store, by two reviewers over real case ids."""
     ids = study.snapshot.case_ids
     with open_ledger(study.config.review.ledger) as ledger:
@@ -64,7 +64,7 @@ def _seqs(screen: LedgerScreen) -> list[int]:
 
 
 @synchronous
-async def test_ledger_pages_back_to_the_first_entry_and_forward_again(study: Study) -> None:
+async def test_ledger_pages_back_to_the_first_entry_and_forward_again(study: OpenedStudy) -> None:
     _fill_ledger(study, ENTRIES)
     app = ReviewApp(study=study, login="reviewer")
     async with app.run_test(size=SIZE) as pilot:
@@ -105,7 +105,7 @@ async def test_ledger_pages_back_to_the_first_entry_and_forward_again(study: Stu
 
 
 @synchronous
-async def test_paging_keeps_the_reviewer_filter(study: Study) -> None:
+async def test_paging_keeps_the_reviewer_filter(study: OpenedStudy) -> None:
     _fill_ledger(study, ENTRIES)
     bo = [i + 1 for i in range(ENTRIES) if i % 3 == 0]  # 767 entries by "bo"
     app = ReviewApp(study=study, login="reviewer")
@@ -129,7 +129,7 @@ async def test_paging_keeps_the_reviewer_filter(study: Study) -> None:
 
 
 @synchronous
-async def test_quit_question_names_the_drafts_on_other_cases(study: Study) -> None:
+async def test_quit_question_names_the_drafts_on_other_cases(study: OpenedStudy) -> None:
     app = ReviewApp(study=study, login="reviewer")
     async with app.run_test(size=SIZE) as pilot:
         await open_queue(pilot)

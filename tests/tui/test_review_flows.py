@@ -11,7 +11,7 @@ from tui_helpers import open_queue, screen_text, synchronous, wait_until
 
 from closecall.review.decisions import ledger_entries, load_draft
 from closecall.review.queue import decision_grid
-from closecall.suite.opening import Study
+from closecall.suite.opening import OpenedStudy
 from closecall.tui.app import ReviewApp
 from closecall.tui.case_list import CaseList
 from closecall.tui.case_screen import CaseScreen
@@ -30,7 +30,7 @@ def _dialog(app: ReviewApp) -> DecisionDialog:
 
 
 @synchronous
-async def test_flips_case_override_then_ledger(study: Study, study_config: Path, cli) -> None:  # type: ignore[no-untyped-def]
+async def test_flips_case_override_then_ledger(study: OpenedStudy, study_config: Path, cli) -> None:  # type: ignore[no-untyped-def]
     app = ReviewApp(study=study, login="reviewer")
     async with app.run_test(size=SIZE) as pilot:
         await open_queue(pilot)
@@ -94,7 +94,7 @@ async def test_flips_case_override_then_ledger(study: Study, study_config: Path,
 
 
 @synchronous
-async def test_override_without_note_is_refused(study: Study) -> None:
+async def test_override_without_note_is_refused(study: OpenedStudy) -> None:
     app = ReviewApp(study=study, login="reviewer")
     async with app.run_test(size=SIZE) as pilot:
         await open_queue(pilot)
@@ -112,7 +112,7 @@ async def test_override_without_note_is_refused(study: Study) -> None:
 
 
 @synchronous
-async def test_override_without_reason_is_refused(study: Study) -> None:
+async def test_override_without_reason_is_refused(study: OpenedStudy) -> None:
     app = ReviewApp(study=study, login="reviewer")
     async with app.run_test(size=SIZE) as pilot:
         await open_queue(pilot)
@@ -127,7 +127,7 @@ async def test_override_without_reason_is_refused(study: Study) -> None:
 
 
 @synchronous
-async def test_draft_survives_quit_and_comes_back(study: Study) -> None:
+async def test_draft_survives_quit_and_comes_back(study: OpenedStudy) -> None:
     typed = "Half-written: await letter"
     app = ReviewApp(study=study, login="reviewer")
     async with app.run_test(size=SIZE) as pilot:
@@ -164,7 +164,7 @@ async def test_draft_survives_quit_and_comes_back(study: Study) -> None:
 
 
 @synchronous
-async def test_draft_is_saved_while_typing(study: Study) -> None:
+async def test_draft_is_saved_while_typing(study: OpenedStudy) -> None:
     """No quit, no close: a pause in typing is enough (a dropped connection loses nothing)."""
     app = ReviewApp(study=study, login="reviewer")
     async with app.run_test(size=SIZE) as pilot:
@@ -181,7 +181,7 @@ async def test_draft_is_saved_while_typing(study: Study) -> None:
 
 
 @synchronous
-async def test_quit_without_a_note_does_not_ask(study: Study) -> None:
+async def test_quit_without_a_note_does_not_ask(study: OpenedStudy) -> None:
     app = ReviewApp(study=study, login="reviewer")
     async with app.run_test(size=SIZE) as pilot:
         await open_queue(pilot)
@@ -190,7 +190,7 @@ async def test_quit_without_a_note_does_not_ask(study: Study) -> None:
 
 
 @synchronous
-async def test_search_by_id_moves_the_cursor(study: Study) -> None:
+async def test_search_by_id_moves_the_cursor(study: OpenedStudy) -> None:
     app = ReviewApp(study=study, login="reviewer")
     async with app.run_test(size=SIZE) as pilot:
         await open_queue(pilot)
@@ -210,7 +210,7 @@ async def test_search_by_id_moves_the_cursor(study: Study) -> None:
 
 
 @synchronous
-async def test_sort_and_unreviewed_filter(study: Study) -> None:
+async def test_sort_and_unreviewed_filter(study: OpenedStudy) -> None:
     from closecall.review.decisions import record_review
 
     app = ReviewApp(study=study, login="reviewer")
@@ -241,7 +241,9 @@ async def test_sort_and_unreviewed_filter(study: Study) -> None:
 
 @pytest.mark.parametrize("size", [(80, 24), (120, 40)])
 @synchronous
-async def test_help_lists_keys_meanings_and_cautions(study: Study, size: tuple[int, int]) -> None:
+async def test_help_lists_keys_meanings_and_cautions(
+    study: OpenedStudy, size: tuple[int, int]
+) -> None:
     from closecall.core.cautions import CAUTIONS
     from closecall.tui.help_screen import HelpScreen, help_text
 
@@ -261,7 +263,7 @@ async def test_help_lists_keys_meanings_and_cautions(study: Study, size: tuple[i
 
 @synchronous
 async def test_meaning_survives_without_colour(
-    study: Study, monkeypatch: pytest.MonkeyPatch
+    study: OpenedStudy, monkeypatch: pytest.MonkeyPatch
 ) -> None:
     """Under NO_COLOR the cursor, switches, decisions and states still read as signs and words."""
     monkeypatch.setenv("NO_COLOR", "1")
@@ -279,7 +281,7 @@ async def test_meaning_survives_without_colour(
 
 
 @synchronous
-async def test_leaving_withdraws_the_claim(study: Study) -> None:
+async def test_leaving_withdraws_the_claim(study: OpenedStudy) -> None:
     from closecall.review.decisions import active_claims
 
     app = ReviewApp(study=study, login="reviewer")
@@ -295,7 +297,7 @@ async def test_leaving_withdraws_the_claim(study: Study) -> None:
 
 
 @synchronous
-async def test_command_palette_runs_the_apps_actions(study: Study) -> None:
+async def test_command_palette_runs_the_apps_actions(study: OpenedStudy) -> None:
     app = ReviewApp(study=study, login="reviewer")
     async with app.run_test(size=SIZE) as pilot:
         await open_queue(pilot)

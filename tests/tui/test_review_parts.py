@@ -9,7 +9,7 @@ import pytest
 
 from closecall.analysis.explain import explain_case
 from closecall.review.decisions import record_review
-from closecall.suite.opening import Study
+from closecall.suite.opening import OpenedStudy
 from closecall.tui import case_sections
 from closecall.tui.marks import (
     TO_FAV,
@@ -52,7 +52,7 @@ def test_model_letters_are_distinct() -> None:
     }
 
 
-def test_group_chart_matches_numpy_histogram(study: Study) -> None:
+def test_group_chart_matches_numpy_histogram(study: OpenedStudy) -> None:
     session = ReviewSession(study)
     chart = session.group_chart(24)
     margin = np.asarray(study.snapshot.margins(study.snapshot.reference))
@@ -64,7 +64,7 @@ def test_group_chart_matches_numpy_histogram(study: Study) -> None:
         assert chart.within_band[g] == int((np.abs(margin[codes == g]) <= session.band).sum())
 
 
-def test_id_search_agrees_with_a_plain_scan(study: Study) -> None:
+def test_id_search_agrees_with_a_plain_scan(study: OpenedStudy) -> None:
     session = ReviewSession(study)
     session.rebuild()
     ids = np.asarray(study.snapshot.case_ids)
@@ -77,7 +77,7 @@ def test_id_search_agrees_with_a_plain_scan(study: Study) -> None:
         assert pos == (listed[0] if listed else None)
 
 
-def test_review_states_follow_the_latest_entry(study: Study) -> None:
+def test_review_states_follow_the_latest_entry(study: OpenedStudy) -> None:
     session = ReviewSession(study)
     session.rebuild()
     order = session.queue.order  # type: ignore[union-attr]
@@ -93,7 +93,7 @@ def test_review_states_follow_the_latest_entry(study: Study) -> None:
     assert len(q) == len(order) - 2
 
 
-def test_ambiguous_filter_keeps_straddling_bands(study: Study) -> None:
+def test_ambiguous_filter_keeps_straddling_bands(study: OpenedStudy) -> None:
     session = ReviewSession(study)
     q = session.rebuild(ListSettings(ambiguous=True))
     limits = session.band_limits()
@@ -102,7 +102,7 @@ def test_ambiguous_filter_keeps_straddling_bands(study: Study) -> None:
     assert np.all((lo[q.order] <= 0) & (hi[q.order] >= 0))
 
 
-def test_sections_say_directions_in_words(study: Study) -> None:
+def test_sections_say_directions_in_words(study: OpenedStudy) -> None:
     session = ReviewSession(study)
     session.rebuild()
     case_id = str(study.snapshot.case_ids[session.queue.order[0]])  # type: ignore[union-attr]
@@ -120,7 +120,7 @@ def test_sections_say_directions_in_words(study: Study) -> None:
 
 
 @pytest.mark.parametrize("width", [80, 120])
-def test_case_list_rows_fit_the_width(study: Study, width: int) -> None:
+def test_case_list_rows_fit_the_width(study: OpenedStudy, width: int) -> None:
     from closecall.tui.case_list import Layout
 
     session = ReviewSession(study)
@@ -131,7 +131,7 @@ def test_case_list_rows_fit_the_width(study: Study, width: int) -> None:
 
 
 @pytest.mark.parametrize("sort", ["ambiguity", "dependence"])
-def test_session_order_matches_the_queue_command(study: Study, sort: str) -> None:
+def test_session_order_matches_the_queue_command(study: OpenedStudy, sort: str) -> None:
     """The session reuses cached measures; its order must be build_queue's own."""
     from closecall.review.queue import build_queue
 
@@ -148,7 +148,7 @@ def test_session_order_matches_the_queue_command(study: Study, sort: str) -> Non
 
 
 @pytest.mark.parametrize("part", ["group", "proxies"])
-def test_rests_on_filter_matches_the_queue_command(study: Study, part: str) -> None:
+def test_rests_on_filter_matches_the_queue_command(study: OpenedStudy, part: str) -> None:
     from closecall.review.queue import build_queue
 
     session = ReviewSession(study)

@@ -11,7 +11,7 @@ import pytest
 from textual.pilot import Pilot
 from tui_helpers import open_queue, wait_until
 
-from closecall.suite.opening import Study
+from closecall.suite.opening import OpenedStudy
 from closecall.tui.app import ReviewApp
 from closecall.tui.case_screen import CaseScreen
 from closecall.tui.decision_dialog import DecisionDialog
@@ -19,7 +19,7 @@ from closecall.tui.decision_dialog import DecisionDialog
 SIZES = [(80, 24), (120, 40)]
 
 
-def _app(study: Study) -> ReviewApp:
+def _app(study: OpenedStudy) -> ReviewApp:
     return ReviewApp(study=study, login="reviewer")
 
 
@@ -39,15 +39,15 @@ async def _dialog(pilot: Pilot[None]) -> None:
 
 
 @pytest.mark.parametrize("size", SIZES, ids=lambda s: f"{s[0]}x{s[1]}")
-def test_queue_frame(snap_compare, frozen_study: Study, size: tuple[int, int]) -> None:  # type: ignore[no-untyped-def]
+def test_queue_frame(snap_compare, frozen_study: OpenedStudy, size: tuple[int, int]) -> None:  # type: ignore[no-untyped-def]
     assert snap_compare(_app(frozen_study), terminal_size=size, run_before=open_queue)
 
 
 @pytest.mark.parametrize("size", SIZES, ids=lambda s: f"{s[0]}x{s[1]}")
-def test_case_frame(snap_compare, frozen_study: Study, size: tuple[int, int]) -> None:  # type: ignore[no-untyped-def]
+def test_case_frame(snap_compare, frozen_study: OpenedStudy, size: tuple[int, int]) -> None:  # type: ignore[no-untyped-def]
     assert snap_compare(_app(frozen_study), terminal_size=size, run_before=_case)
 
 
 @pytest.mark.parametrize("size", SIZES, ids=lambda s: f"{s[0]}x{s[1]}")
-def test_dialog_frame(snap_compare, frozen_study: Study, size: tuple[int, int]) -> None:  # type: ignore[no-untyped-def]
+def test_dialog_frame(snap_compare, frozen_study: OpenedStudy, size: tuple[int, int]) -> None:  # type: ignore[no-untyped-def]
     assert snap_compare(_app(frozen_study), terminal_size=size, run_before=_dialog)

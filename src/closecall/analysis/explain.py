@@ -93,7 +93,7 @@ def explain_case(
 
     Parameters
     ----------
-    study : an open Study
+    study : an open OpenedStudy
     case_id : the case to explain
     exact : also solve the equally-good band exactly (slower: a convex problem per edge)
     lens : cost lens name; None = the operative (first) lens

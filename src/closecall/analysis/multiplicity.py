@@ -372,7 +372,7 @@ def exact_band(
 
     Parameters
     ----------
-    study : an open Study (config + snapshot)
+    study : an open OpenedStudy (config + snapshot)
     case_id : the case
     epsilon : relative ε (a share of the best total loss); None = the study's configured one.
         With ``absolute=True``, ε is the loss slack itself (1.92 = the 95 % Wald band).

@@ -16,7 +16,7 @@ from closecall.cli.output import Format, err_console
 
 if TYPE_CHECKING:
     from closecall.core.progress import Progress as ProgressFn
-    from closecall.suite.opening import Study
+    from closecall.suite.opening import OpenedStudy
 
 ConfigOption = typer.Option(
     Path("closecall.toml"), "--config", "-c", help="The study config file (or its folder)."
@@ -58,7 +58,7 @@ def progress_bar(enabled: bool) -> Iterator[ProgressFn]:
         yield update
 
 
-def load(config: Path, *, quiet: bool, refit: bool = False, rehash: bool = False) -> Study:
+def load(config: Path, *, quiet: bool, refit: bool = False, rehash: bool = False) -> OpenedStudy:
     """Open the study, fitting (with a progress bar unless quiet) when the cache is stale.
 
     ``rehash`` hashes the data files afresh instead of trusting the digests cache.

@@ -43,7 +43,7 @@ from closecall.review.ledger import Entry
 from closecall.setup.output_files import StudyFile, check_key_file, study_files, write_output
 
 if TYPE_CHECKING:
-    from closecall.suite.opening import Study
+    from closecall.suite.opening import OpenedStudy
 
 EXPORT_FORMATS = ("csv", "parquet", "jsonl")
 
@@ -205,7 +205,7 @@ class ExportResult:
 
 
 def review_frame(
-    study: Study, entries: Sequence[Entry], *, all_entries: bool = False
+    study: OpenedStudy, entries: Sequence[Entry], *, all_entries: bool = False
 ) -> pd.DataFrame:
     """Entries joined with group and final decision; the effective ones only by default.
 
@@ -243,7 +243,7 @@ def review_frame(
 
 
 def export_reviews(
-    study: Study,
+    study: OpenedStudy,
     entries: Sequence[Entry],
     *,
     all_entries: bool = False,

@@ -29,7 +29,7 @@ from closecall.review.ledger.store import MAX_NOTE_BYTES
 from closecall.setup.config import StudyConfig, load_config
 
 if TYPE_CHECKING:
-    from closecall.suite.opening import Study
+    from closecall.suite.opening import OpenedStudy
 
 _HASH = re.compile(r"^[0-9a-f]{64}$")
 
@@ -121,7 +121,7 @@ def _plain_decisions(decisions: Mapping[str, Mapping[str, Any]]) -> dict[str, di
     return out
 
 
-def _current_snapshot_id(study: Study) -> str | None:
+def _current_snapshot_id(study: OpenedStudy) -> str | None:
     """The id of the snapshot the study's config and data give now (None if they can't be read).
 
     Differs from ``study.snapshot.id`` when the data files or the config changed after the
@@ -143,7 +143,7 @@ def _current_snapshot_id(study: Study) -> str | None:
 # --------------------------------------------------------------------------- recording
 
 
-def _recheck_snapshot(study: Study) -> None:
+def _recheck_snapshot(study: OpenedStudy) -> None:
     """Refuse to record from a snapshot whose files changed on disk since the study was opened.
 
     Its arrays are memory-mapped: bytes written to them later would reach the recorded
@@ -157,7 +157,7 @@ def _recheck_snapshot(study: Study) -> None:
 
 
 def record_review(
-    study: Study,
+    study: OpenedStudy,
     case_id: str,
     action: str,
     reason: str | None,
@@ -295,7 +295,7 @@ def latest_actions(config: StudyConfig) -> list[tuple[str, str]]:
         return []
 
 
-def case_history(study: Study, case_id: str) -> list[Entry]:
+def case_history(study: OpenedStudy, case_id: str) -> list[Entry]:
     """Every entry recorded for ``case_id``, oldest first (UserError if the case is unknown)."""
     study.snapshot.case_index(case_id)
     return ledger_entries(study.config, case_id=case_id)
@@ -330,7 +330,7 @@ def check_ledger(config: StudyConfig) -> None:
 
 
 def save_draft(
-    study: Study,
+    study: OpenedStudy,
     case_id: str,
     note: str,
     action: str | None = None,
@@ -349,7 +349,7 @@ def save_draft(
         return ledger.save_draft(login, case_id, note, action, reason)
 
 
-def load_draft(study: Study, case_id: str) -> Draft | None:
+def load_draft(study: OpenedStudy, case_id: str) -> Draft | None:
     """This login's saved draft for ``case_id``, if any."""
     config = study.config
     login = require_record(config.review, config.path)
@@ -360,7 +360,7 @@ def load_draft(study: Study, case_id: str) -> Draft | None:
         return None
 
 
-def my_drafts(study: Study) -> list[Draft]:
+def my_drafts(study: OpenedStudy) -> list[Draft]:
     """This login's saved drafts on every case, most recently updated first."""
     config = study.config
     login = require_record(config.review, config.path)
@@ -371,7 +371,7 @@ def my_drafts(study: Study) -> list[Draft]:
         return []
 
 
-def drop_draft(study: Study, case_id: str) -> None:
+def drop_draft(study: OpenedStudy, case_id: str) -> None:
     """Discard this login's draft for ``case_id`` (recording removes it by itself)."""
     config = study.config
     login = require_record(config.review, config.path)
@@ -380,7 +380,7 @@ def drop_draft(study: Study, case_id: str) -> None:
             ledger.drop_draft(login, case_id)
 
 
-def claim_case(study: Study, case_id: str) -> Claim:
+def claim_case(study: OpenedStudy, case_id: str) -> Claim:
     """Show others that this login has ``case_id`` open, for ``[review] claim_minutes``.
 
     A claim is advice only: it never stops anyone from recording.
@@ -392,7 +392,7 @@ def claim_case(study: Study, case_id: str) -> Claim:
         return ledger.claim(case_id, login, config.review.claim_minutes)
 
 
-def release_claim(study: Study, case_id: str) -> None:
+def release_claim(study: OpenedStudy, case_id: str) -> None:
     """Withdraw this login's claim on ``case_id`` (no-op if there is none)."""
     config = study.config
     login = require_record(config.review, config.path)
@@ -401,7 +401,9 @@ def release_claim(study: Study, case_id: str) -> None:
             ledger.release(case_id, login)
 
 
-def active_claims(study: Study, case_ids: Iterable[str] | None = None) -> dict[str, list[Claim]]:
+def active_claims(
+    study: OpenedStudy, case_ids: Iterable[str] | None = None
+) -> dict[str, list[Claim]]:
     """Unexpired claims by case id (every claimed case when ``case_ids`` is None)."""
     config = study.config
     require_read(config.review, config.path)

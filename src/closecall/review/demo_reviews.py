@@ -19,12 +19,12 @@ from closecall.review.ledger import EntryContent, NoLedger, open_ledger
 from closecall.review.ledger.access import require_record
 
 if TYPE_CHECKING:
-    from closecall.suite.opening import Study
+    from closecall.suite.opening import OpenedStudy
 
 SIM_PREFIX = "sim-reviewer-"
 
 
-def _reviewed_cases(study: Study) -> tuple[set[str], bool]:
+def _reviewed_cases(study: OpenedStudy) -> tuple[set[str], bool]:
     """Case ids already in the ledger, and whether any entry is a real (non-simulated) one."""
     try:
         with open_ledger(study.config.review.ledger, readonly=True) as ledger:
@@ -36,7 +36,7 @@ def _reviewed_cases(study: Study) -> tuple[set[str], bool]:
 
 
 def simulate_reviews(
-    study: Study,
+    study: OpenedStudy,
     n: int,
     seed: int = 7,
     *,

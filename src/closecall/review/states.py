@@ -11,7 +11,7 @@ from closecall.review.ledger import ACTIONS, Entry
 from closecall.suite.snapshot import Snapshot
 
 if TYPE_CHECKING:
-    from closecall.suite.opening import Study
+    from closecall.suite.opening import OpenedStudy
 
 #: State codes: 0 = not reviewed, then 1 + the index of the latest action in ACTIONS.
 NOT_REVIEWED = 0
@@ -37,7 +37,7 @@ def review_states(
     return states
 
 
-def study_review_states(study: Study) -> tuple[np.ndarray, dict[str, list[str]]] | None:
+def study_review_states(study: OpenedStudy) -> tuple[np.ndarray, dict[str, list[str]]] | None:
     """Every case's state and who has it claimed; None when this login may not read the ledger.
 
     An absent ledger reads as nothing reviewed and nothing claimed.

@@ -21,7 +21,7 @@ from closecall.suite.snapshot import (
 
 
 @dataclass
-class Study:
+class OpenedStudy:
     """One configured data set, its fitted suite and (through config) its ledger."""
 
     config: StudyConfig
@@ -42,7 +42,7 @@ def fit_study(
     *,
     refit: bool = False,
     rehash: bool = False,
-) -> Study:
+) -> OpenedStudy:
     """Load the cached snapshot for this data + config, or fit the suite and cache it.
 
     Parameters
@@ -69,12 +69,12 @@ def fit_study(
     sid = id_from_digests(digests, config.digest())
     fix = refit_fix(config)
     if not refit and os.path.lexists(snapshot_dir(config, sid)):
-        return Study(config, load_snapshot(snapshot_dir(config, sid), fix=fix))
+        return OpenedStudy(config, load_snapshot(snapshot_dir(config, sid), fix=fix))
     if not fresh:  # about to fit: name the snapshot by the files' content, not the cache
         digests = data_digests(config, fresh=True)
         sid = id_from_digests(digests, config.digest())
         if os.path.lexists(snapshot_dir(config, sid)):
-            return Study(config, load_snapshot(snapshot_dir(config, sid), fix=fix))
+            return OpenedStudy(config, load_snapshot(snapshot_dir(config, sid), fix=fix))
     from closecall.setup.load import load_study_data  # fitting needs pandas and the solvers
     from closecall.suite.fit import fit_suite
 
@@ -84,7 +84,7 @@ def fit_study(
     snap = build_snapshot(sid, config, suite, digests)
     folder = save_snapshot(config, snap, replace=refit)
     progress("saving snapshot", 1, 1)
-    return Study(config, load_snapshot(folder, fix=fix), fitted_now=True)
+    return OpenedStudy(config, load_snapshot(folder, fix=fix), fitted_now=True)
 
 
 def open_study(
@@ -93,6 +93,6 @@ def open_study(
     *,
     refit: bool = False,
     rehash: bool = False,
-) -> Study:
+) -> OpenedStudy:
     """Read the config and return the study with its current snapshot (see fit_study)."""
     return fit_study(load_config(config_path), progress, refit=refit, rehash=rehash)

@@ -18,7 +18,7 @@ from closecall.core.errors import UserError
 from closecall.review.queue import MEASURES
 
 if TYPE_CHECKING:
-    from closecall.suite.opening import Study
+    from closecall.suite.opening import OpenedStudy
 
 #: Queue measure name -> (module, function) that computes it for every case.
 MEASURE_SOURCES = {
@@ -55,12 +55,12 @@ MASK_SOURCES: dict[str, tuple[str, str, tuple[str, ...]]] = {
 }
 
 
-def options(study: Study) -> dict[str, Any]:
+def options(study: OpenedStudy) -> dict[str, Any]:
     """The options ``closecall queue`` passes to the measures (the analysis's own model)."""
     return {"config": study.config}
 
 
-def measure(study: Study, name: str) -> np.ndarray | None:
+def measure(study: OpenedStudy, name: str) -> np.ndarray | None:
     """A per-case queue measure for every case, or None when it is not available."""
     func = _measure_function(name)
     if func is None:
@@ -71,7 +71,7 @@ def measure(study: Study, name: str) -> np.ndarray | None:
         return None
 
 
-def mask(study: Study, name: str) -> np.ndarray | None:
+def mask(study: OpenedStudy, name: str) -> np.ndarray | None:
     """A per-case filter of the analysis (same function as ``closecall queue``), or None."""
     module_name, func_name, extra = MASK_SOURCES[name]
     module = _module(module_name)
@@ -86,7 +86,7 @@ def mask(study: Study, name: str) -> np.ndarray | None:
         return None
 
 
-def band_limits(study: Study) -> tuple[np.ndarray, np.ndarray] | None:
+def band_limits(study: OpenedStudy) -> tuple[np.ndarray, np.ndarray] | None:
     """(low, high) reference margin over the equally good models, for every case."""
     module = _module("closecall.analysis.multiplicity")
     if module is None:
@@ -101,7 +101,7 @@ def band_limits(study: Study) -> tuple[np.ndarray, np.ndarray] | None:
     return margin - half, margin + half
 
 
-def half_widths(study: Study, model: str) -> np.ndarray | None:
+def half_widths(study: OpenedStudy, model: str) -> np.ndarray | None:
     """Every case's equally-good half-width under ``model`` (None: imported scores, no band)."""
     module = _module("closecall.analysis.multiplicity")
     if module is None:
@@ -113,7 +113,7 @@ def half_widths(study: Study, model: str) -> np.ndarray | None:
     return np.asarray(b.equally_good, dtype=float)
 
 
-def explain(study: Study, case_id: str) -> dict[str, Any] | None:
+def explain(study: OpenedStudy, case_id: str) -> dict[str, Any] | None:
     """``closecall.analysis.explain.explain_case`` for one case, or None if not installed."""
     module = _module("closecall.analysis.explain")
     if module is None or not hasattr(module, "explain_case"):

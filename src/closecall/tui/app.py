@@ -16,7 +16,7 @@ from textual.screen import Screen
 
 from closecall.cli.output import safe_text
 from closecall.core.errors import UserError
-from closecall.suite.opening import Study
+from closecall.suite.opening import OpenedStudy
 from closecall.tui.decision_dialog import DecisionDialog
 from closecall.tui.queue_screen import QueueScreen
 from closecall.tui.session import Clock, ReviewSession, utc_clock
@@ -47,7 +47,7 @@ class ReviewApp(App[None]):
         self,
         config_path: Path | None = None,
         *,
-        study: Study | None = None,
+        study: OpenedStudy | None = None,
         write_demo_to: Path | None = None,
         login: str | None = None,
         clock: Clock = utc_clock,
@@ -60,7 +60,7 @@ class ReviewApp(App[None]):
         self.clock = clock
         self.session: ReviewSession | None = None
 
-    def make_session(self, study: Study) -> ReviewSession:
+    def make_session(self, study: OpenedStudy) -> ReviewSession:
         self.session = ReviewSession(study, login=self.login, clock=self.clock)
         return self.session
 

@@ -11,7 +11,7 @@ import threading
 from dataclasses import dataclass
 
 from closecall.review.decisions import drop_draft, save_draft
-from closecall.suite.opening import Study
+from closecall.suite.opening import OpenedStudy
 
 
 @dataclass(frozen=True)
@@ -28,7 +28,7 @@ class DraftValue:
 class DraftKeeper:
     """The unsaved state of one case's draft."""
 
-    def __init__(self, study: Study, case_id: str, saved: DraftValue | None = None) -> None:
+    def __init__(self, study: OpenedStudy, case_id: str, saved: DraftValue | None = None) -> None:
         self.study = study
         self.case_id = case_id
         self._lock = threading.Lock()

@@ -15,12 +15,12 @@ from textual.worker import get_current_worker
 
 from closecall.core.cautions import CAUTIONS
 from closecall.core.errors import UserError
-from closecall.suite.opening import Study, open_study
+from closecall.suite.opening import OpenedStudy, open_study
 from closecall.tui.fit_progress import FitProgress
 from closecall.tui.key_bar import KeyBar
 from closecall.tui.session import ReviewSession
 
-SessionFactory = Callable[[Study], ReviewSession]
+SessionFactory = Callable[[OpenedStudy], ReviewSession]
 
 
 def prepare(session: ReviewSession, progress: Callable[[str, int, int], None]) -> None:
@@ -42,7 +42,7 @@ class LoadingScreen(Screen[None]):
     def __init__(
         self,
         config_path: Path | None,
-        study: Study | None,
+        study: OpenedStudy | None,
         make_session: SessionFactory,
         write_demo_to: Path | None = None,
     ) -> None:

@@ -18,7 +18,7 @@ from closecall.review.decisions import active_claims, latest_actions
 from closecall.review.ledger import Claim, current_login
 from closecall.review.queue import Queue, build_queue
 from closecall.review.states import review_states
-from closecall.suite.opening import Study
+from closecall.suite.opening import OpenedStudy
 from closecall.tui import analysis_bridge
 from closecall.tui.marks import OPEN, STATE_OF_ACTION
 
@@ -72,7 +72,7 @@ class ReviewSession:
         Source of the current time for anything the screens show about "now".
     """
 
-    def __init__(self, study: Study, *, login: str | None = None, clock: Clock = utc_clock):
+    def __init__(self, study: OpenedStudy, *, login: str | None = None, clock: Clock = utc_clock):
         self.study = study
         self.snap = study.snapshot
         self.config = study.config

@@ -24,7 +24,7 @@ from closecall.setup.load import read_table
 
 if TYPE_CHECKING:
     from closecall.setup.config import StudyConfig
-    from closecall.suite.opening import Study
+    from closecall.suite.opening import OpenedStudy
 
 
 def load_outcomes(path: str | Path, config: StudyConfig) -> pd.DataFrame:
@@ -94,7 +94,7 @@ def load_outcomes(path: str | Path, config: StudyConfig) -> pd.DataFrame:
     return pd.DataFrame({"case_id": case, "outcome": outcome})
 
 
-def study_review_table(study: Study) -> tuple[pd.DataFrame, list[str]]:
+def study_review_table(study: OpenedStudy) -> tuple[pd.DataFrame, list[str]]:
     """Effective reviews of the study's ledger in the disparity table's layout, with notes.
 
     Reviews of cases missing from the current snapshot (no group) or with no finite margin are
@@ -127,7 +127,7 @@ def study_review_table(study: Study) -> tuple[pd.DataFrame, list[str]]:
     return table[[*REVIEW_COLUMNS, "time", "snapshot_id"]], notes
 
 
-def study_population(study: Study) -> PopulationInput:
+def study_population(study: OpenedStudy) -> PopulationInput:
     """Every case under review with its reference-model decision under the operative lens."""
     snap = study.snapshot
     return PopulationInput(
@@ -138,7 +138,7 @@ def study_population(study: Study) -> PopulationInput:
     )
 
 
-def study_history(study: Study) -> HistoryInput:
+def study_history(study: OpenedStudy) -> HistoryInput:
     """Every model's out-of-fold log-odds of the history, with outcomes, groups and lenses."""
     snap = study.snapshot
     held_out = {m: np.asarray(snap.arrays[f"oof__{m}"], dtype=float) for m in snap.model_names}
@@ -158,7 +158,7 @@ def study_history(study: Study) -> HistoryInput:
 
 
 def study_report(
-    study: Study,
+    study: OpenedStudy,
     *,
     outcomes: str | Path | None = None,
     key_file: str | Path | None = None,

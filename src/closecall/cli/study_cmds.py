@@ -5,7 +5,6 @@ from __future__ import annotations
 from pathlib import Path
 from typing import Any
 
-import numpy as np
 import typer
 from rich import box
 from rich.table import Table
@@ -30,9 +29,8 @@ from closecall.cli.output import (
     plain,
     safe_text,
 )
-from closecall.core.errors import UserError
-from closecall.review.queue import SORT_KEYS, build_queue, queue_rows
-from closecall.review.states import STATE_NAMES, study_review_states
+from closecall.review.query import QueueAnswer, QueueQuery, answer_queue
+from closecall.review.queue import SORT_KEYS
 from closecall.setup.config import CONFIG_NAME
 from closecall.suite.fit_flags import PROBLEM_WORDS, fits_text, grouped_flags, snapshot_flags
 from closecall.suite.opening import open_study
@@ -231,7 +229,9 @@ def queue(
         "'proxies') is set to its history average.",
     ),
     unreviewed: bool = typer.Option(
-        False, "--unreviewed", help="Only cases with no review in the ledger yet."
+        False,
+        "--unreviewed",
+        help="Only cases with no decision in the ledger yet (a deferred case is still listed).",
     ),
     chart: bool = typer.Option(
         False,
@@ -261,36 +261,37 @@ def queue(
       closecall queue --ambiguous --rests-on proxies --sort dependence
     """
     fmt = resolve_format(fmt, as_json)
-    study = load(config, quiet=fmt is not Format.table)
-    snap = study.snapshot
-    known = study_review_states(study)
-    if unreviewed and known is None:
-        raise UserError(
-            "--unreviewed needs to read the ledger, and this login may not",
-            "ask for your login to be listed under [review] reviewers or analysts",
-        )
-    states, claimed = known if known is not None else (None, {})
-    q = build_queue(
-        snap,
-        band=study.config.review.band if band is None else band,
-        group=group,
-        flips_only=flips,
-        close_only=not all_cases,
+    query = QueueQuery(
         sort=sort,
+        group=group,
+        flips=flips,
+        ambiguous=ambiguous,
+        rests_on=rests_on_part,
+        unreviewed=unreviewed,
+        band=band,
+        epsilon=epsilon,
+        limit=None if limit == 0 else limit,
         id_prefix=id_prefix,
-        options={"config": study.config, "epsilon": epsilon},
-        ambiguous_only=ambiguous,
-        rests_on_part=rests_on_part,
-        exclude_rows=(states > 0) if unreviewed and states is not None else None,
+        all_cases=all_cases,
     )
-    rows = queue_rows(snap, q, 0, None if limit == 0 else limit)
-    if states is not None:
-        shown = states[q.order[: len(rows)]]  # rows are the queue's first len(rows) cases
-        for r, code in zip(rows, shown, strict=True):
-            r["state"] = STATE_NAMES[int(code)]
-            r["claimed_by"] = claimed.get(r["case_id"], [])
-        q.counts["reviewed"] = int(np.count_nonzero(states))
-    meta = {
+    study = load(config, quiet=fmt is not Format.table)
+    answer = answer_queue(study, query)
+    rows = answer.rows(study.snapshot)
+    dist = margin_distribution(study.snapshot, answer.queue.band, CHART_BINS) if chart else None
+    if fmt is Format.table:
+        if dist is not None:
+            _print_chart(dist)
+        _print_queue_table(study.snapshot, answer.queue, rows)
+    elif fmt is Format.csv:
+        emit_rows(_flat_queue_rows(study.snapshot, answer.queue, rows), fmt)
+    else:
+        emit_rows(rows, fmt, meta=_queue_meta(study.snapshot, answer, dist))
+
+
+def _queue_meta(snap: Any, answer: QueueAnswer, dist: MarginDistribution | None) -> dict[str, Any]:
+    """The --json header of a queue: snapshot, reference, band, sort, counts, filters."""
+    q, query = answer.queue, answer.query
+    meta: dict[str, Any] = {
         "snapshot": snap.id,
         "reference": snap.reference,
         "lens": snap.lenses[0].name,
@@ -298,39 +299,34 @@ def queue(
         "sort": q.sort,
         "counts": q.counts,
         "filters": {
-            "ambiguous": ambiguous,
-            "rests_on": rests_on_part,
-            "epsilon": epsilon,
-            "unreviewed": unreviewed,
+            "ambiguous": query.ambiguous,
+            "rests_on": query.rests_on,
+            "epsilon": query.epsilon,
+            "unreviewed": query.unreviewed,
         },
     }
-    dist = margin_distribution(snap, q.band, CHART_BINS) if chart else None
     if dist is not None:
         meta["distribution"] = dist.to_json()
-    if fmt is Format.table:
-        if dist is not None:
-            _print_chart(dist)
-        _print_queue_table(snap, q, rows)
-        return
-    if fmt is Format.csv:
-        flat = [
-            {
-                "rank": r["rank"],
-                "case_id": r["case_id"],
-                "group": r["group"],
-                "margin": r["margin"],
-                "decision": r["decision"],
-                "flip": r["flip"],
-                "differs": ";".join(r["differs"]),
-                "state": r.get("state"),
-                **{f"margin_{m}": r["margins"][m] for m in snap.model_names},
-                **{name: r[name] for name in q.measures},
-            }
-            for r in rows
-        ]
-        emit_rows(flat, fmt)
-        return
-    emit_rows(rows, fmt, meta=meta)
+    return meta
+
+
+def _flat_queue_rows(snap: Any, q: Any, rows: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    """Queue rows with one column per value (CSV)."""
+    return [
+        {
+            "rank": r["rank"],
+            "case_id": r["case_id"],
+            "group": r["group"],
+            "margin": r["margin"],
+            "decision": r["decision"],
+            "flip": r["flip"],
+            "differs": ";".join(r["differs"]),
+            "state": r.get("state"),
+            **{f"margin_{m}": r["margins"][m] for m in snap.model_names},
+            **{name: r[name] for name in q.measures},
+        }
+        for r in rows
+    ]
 
 
 CHART_BINS = 48

@@ -16,11 +16,11 @@ import numpy as np
 from closecall.analysis.margin_distribution import MarginDistribution, margin_distribution
 from closecall.review.decisions import active_claims, latest_actions
 from closecall.review.ledger import Claim, current_login
-from closecall.review.queue import Queue, build_queue
+from closecall.review.query import QueueQuery, answer_queue
+from closecall.review.queue import Queue
 from closecall.review.states import review_states
 from closecall.suite.opening import OpenedStudy
 from closecall.tui import analysis_bridge
-from closecall.tui.marks import OPEN, STATE_OF_ACTION
 
 SORTS = ("closeness", "ambiguity", "dependence")
 Clock = Callable[[], datetime]
@@ -153,34 +153,39 @@ class ReviewSession:
         settings = settings or self.settings
         if settings.sort != "closeness" and self.measure(settings.sort) is None:
             settings = replace(settings, sort="closeness")
-        exclude = np.zeros(self.snap.n_cases, dtype=bool)
-        if settings.unreviewed:
-            exclude |= (self.states != OPEN) & (self.states != STATE_OF_ACTION["defer"])
-        wanted = [("ambiguous", settings.ambiguous)]
-        wanted.append((f"rests_on_{settings.rests_on}", settings.rests_on is not None))
-        for name, on in wanted:
-            mask = self.mask(name) if on else None
-            if mask is not None:
-                exclude |= ~mask
-        q = build_queue(
-            self.snap,
-            band=self.band,
-            group=settings.group,
-            flips_only=settings.flips,
-            sort="closeness",
-            options=analysis_bridge.options(self.study),
-            exclude_rows=exclude if exclude.any() else None,
+        answer = answer_queue(
+            self.study,
+            self.query(settings),
+            reviews=(self.states, {c: [x.reviewer for x in cs] for c, cs in self.claims.items()}),
+            cache=self._analysis_cache(),
         )
-        key = self.measure(settings.sort) if settings.sort != "closeness" else None
-        if key is not None:
-            rows = q.order
-            q.order = rows[np.lexsort((np.abs(q.margin[rows]), -key[rows]))]
-            q.sort = settings.sort
-            q.measures[settings.sort] = key
+        q = answer.queue
         position = np.full(self.snap.n_cases, -1, dtype=np.int64)
         position[q.order] = np.arange(len(q.order))
         self.settings, self.queue, self._position = settings, q, position
         return q
+
+    def query(self, settings: ListSettings | None = None) -> QueueQuery:
+        """The engine's request for ``settings`` (a filter the analysis cannot give is off)."""
+        s = settings or self.settings
+        ambiguous = s.ambiguous and self.mask("ambiguous") is not None
+        rests_on = s.rests_on
+        if rests_on is not None and self.mask(f"rests_on_{rests_on}") is None:
+            rests_on = None
+        return QueueQuery(
+            sort=s.sort,
+            group=s.group,
+            flips=s.flips,
+            ambiguous=ambiguous,
+            rests_on=rests_on,
+            unreviewed=s.unreviewed,
+            band=self.band,
+        )
+
+    def _analysis_cache(self) -> dict[str, np.ndarray]:
+        """The measures and filters this session has computed, for the engine to reuse."""
+        known = {**self._measures, **self._masks}
+        return {name: value for name, value in known.items() if value is not None}
 
     def position_of_row(self, row: int) -> int:
         """Where snapshot row ``row`` sits in the current list (−1 if not listed)."""

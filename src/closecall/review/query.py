@@ -1,0 +1,248 @@
+"""One queue request, answered once for every view.
+
+A :class:`QueueQuery` says which cases to list and in which order; :func:`answer_queue` answers
+it from an opened study, its ledger's review states and the claims. ``closecall queue``, the
+review screen and :meth:`closecall.Study.queue` all build a query and call this function, so
+they list the same cases for the same request.
+
+Review policy: a case is *unreviewed* until a decision is recorded for it. A deferral records
+no decision, so a deferred case stays unreviewed (and keeps its ``defer`` state).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+
+from closecall.core.errors import UserError
+from closecall.review.ledger import ACTIONS
+from closecall.review.queue import RESTS_ON, SORT_KEYS, Queue, build_queue, queue_rows
+
+if TYPE_CHECKING:
+    from closecall.suite.opening import OpenedStudy
+
+#: Sorts by a per-case analysis measure (largest first, then nearest the threshold).
+MEASURE_SORTS = ("ambiguity", "dependence")
+#: The review-state code of a deferral (codes: 0 open, 1 + ACTIONS.index(action)).
+DEFERRED_STATE = 1 + ACTIONS.index("defer")
+
+
+def awaiting_decision(states: np.ndarray) -> np.ndarray:
+    """Cases with no recorded decision: never reviewed, or deferred (the one deferral policy)."""
+    return np.asarray((states == 0) | (states == DEFERRED_STATE))
+
+
+@dataclass(frozen=True)
+class QueueQuery:
+    """Which cases to list, and in which order.
+
+    Parameters
+    ----------
+    sort
+        One of ``closeness`` (flips first, then nearest the threshold), ``margin``,
+        ``ambiguity``, ``dependence``, ``id``.
+    group
+        Keep one level of the group attribute.
+    flips
+        Keep cases that some model or cost lens decides differently.
+    ambiguous
+        Keep cases whose equally-good band straddles the threshold.
+    rests_on
+        ``"group"`` or ``"proxies"``: keep cases whose decision flips when that part is set to
+        its history average.
+    unreviewed
+        Keep cases with no recorded decision (a deferred case is still listed).
+    band
+        Review band in log-odds (None: the study's ``[review] band``).
+    epsilon
+        Relative loss slack of the equally-good set (None: ``[multiplicity] epsilon``).
+    model
+        The model whose bands and dependence the analysis filters read (None: ``pooled``).
+    limit
+        At most this many cases (None: all).
+    id_prefix
+        Keep case ids starting with this text.
+    all_cases
+        List every case, not only the close calls.
+
+    Examples
+    --------
+    >>> from closecall import QueueQuery
+    >>> QueueQuery(flips=True, limit=10).limit
+    10
+    """
+
+    sort: str = "closeness"
+    group: str | None = None
+    flips: bool = False
+    ambiguous: bool = False
+    rests_on: str | None = None
+    unreviewed: bool = False
+    band: float | None = None
+    epsilon: float | None = None
+    model: str | None = None
+    limit: int | None = None
+    id_prefix: str | None = None
+    all_cases: bool = False
+
+    def __post_init__(self) -> None:
+        if self.sort not in SORT_KEYS:
+            raise UserError(
+                f"unknown sort key '{self.sort}'", f"use one of: {', '.join(SORT_KEYS)}"
+            )
+        if self.band is not None and not (math.isfinite(self.band) and self.band >= 0):
+            raise UserError(
+                f"the review band must be a number >= 0, not {self.band!r}",
+                "pass a band such as 0.5 (log-odds)",
+            )
+        if self.epsilon is not None and not (math.isfinite(self.epsilon) and self.epsilon > 0):
+            raise UserError(
+                f"epsilon must be a number > 0, not {self.epsilon!r}",
+                "pass a relative loss slack such as 0.01",
+            )
+        if self.rests_on is not None and self.rests_on not in RESTS_ON:
+            raise UserError(
+                f"unknown part '{self.rests_on}' for rests-on",
+                f"use one of: {', '.join(RESTS_ON)}",
+            )
+        if self.limit is not None and (isinstance(self.limit, bool) or self.limit < 0):
+            raise UserError(
+                f"the limit must be a whole number >= 0, not {self.limit!r}",
+                "pass a limit such as 20 (or none for every case)",
+            )
+
+    def to_dict(self) -> dict[str, Any]:
+        """The query as JSON-ready values."""
+        return {name: getattr(self, name) for name in self.__dataclass_fields__}
+
+
+@dataclass
+class QueueAnswer:
+    """The listed cases (``queue.order``), every case's review state, and who claims what."""
+
+    query: QueueQuery
+    queue: Queue
+    states: np.ndarray | None  # (n,) int8 state codes; None: this login may not read the ledger
+    claimed: dict[str, list[str]] = field(default_factory=dict)
+
+    @property
+    def listed(self) -> np.ndarray:
+        """Snapshot rows listed, in order, after the limit."""
+        limit = self.query.limit
+        return self.queue.order if limit is None else self.queue.order[:limit]
+
+    def rows(self, snapshot: Any) -> list[dict[str, Any]]:
+        """Plain rows of the listed cases, with ``state`` and ``claimed_by`` when readable."""
+        from closecall.review.states import STATE_NAMES
+
+        rows = queue_rows(snapshot, self.queue, 0, self.query.limit)
+        if self.states is not None:
+            shown = self.states[self.listed]
+            for r, code in zip(rows, shown, strict=True):
+                r["state"] = STATE_NAMES[int(code)]
+                r["claimed_by"] = self.claimed.get(r["case_id"], [])
+        return rows
+
+
+def _analysis(
+    study: OpenedStudy, name: str, query: QueueQuery, cache: Mapping[str, np.ndarray] | None
+) -> np.ndarray:
+    """A per-case measure or filter of the analysis, from the caller's cache when it applies."""
+    if cache is not None and query.model is None and query.epsilon is None and name in cache:
+        return cache[name]
+    snap = study.snapshot
+    model = query.model or "pooled"
+    options = {"config": study.config, "epsilon": query.epsilon, "model": model}
+    if name in ("ambiguity", "ambiguous"):
+        from closecall.analysis.multiplicity import ambiguity_measure, ambiguous_cases
+
+        func = ambiguity_measure if name == "ambiguity" else ambiguous_cases
+        return np.asarray(func(snap, options))
+    from closecall.analysis.dependence import dependence_share, rests_on
+
+    if name == "dependence":
+        return np.asarray(dependence_share(snap, options), dtype=float)
+    return np.asarray(rests_on(snap, name.removeprefix("rests_on_"), model), dtype=bool)
+
+
+def answer_queue(
+    study: OpenedStudy,
+    query: QueueQuery | None = None,
+    *,
+    reviews: tuple[np.ndarray, dict[str, list[str]]] | None = None,
+    cache: Mapping[str, np.ndarray] | None = None,
+) -> QueueAnswer:
+    """List the cases a query asks for, with review states and claims.
+
+    Parameters
+    ----------
+    study
+        The opened study.
+    query
+        The request (None: the default close-call queue).
+    reviews
+        Every case's state code and the claims, when the caller has read them already (the
+        review screen keeps them); otherwise they are read from the ledger.
+    cache
+        Measures and filters the caller computed before (``ambiguity``, ``dependence``,
+        ``ambiguous``, ``rests_on_group``, ``rests_on_proxies``, for the study's own ε and the
+        pooled model); used only when the query names neither ``epsilon`` nor ``model``.
+
+    Raises
+    ------
+    UserError
+        An unknown group level or model; the unreviewed filter when this login may not read
+        the ledger; an analysis that does not apply (imported scores have no band).
+    """
+    query = query or QueueQuery()
+    snap = study.snapshot
+    if query.model is not None and query.model not in snap.model_names:
+        raise UserError(
+            f"no model '{query.model}' in this study's suite",
+            f"choose one of: {', '.join(snap.model_names)}",
+        )
+    if reviews is None:
+        from closecall.review.states import study_review_states
+
+        reviews = study_review_states(study)
+    if query.unreviewed and reviews is None:
+        raise UserError(
+            "listing unreviewed cases needs to read the ledger, and this login may not",
+            "ask for your login to be listed under [review] reviewers or analysts",
+        )
+    states, claimed = reviews if reviews is not None else (None, {})
+    keep = np.ones(snap.n_cases, dtype=bool)
+    if query.unreviewed and states is not None:
+        keep &= awaiting_decision(states)
+    measures: dict[str, np.ndarray] = {}
+    if query.ambiguous:
+        keep &= _analysis(study, "ambiguous", query, cache)
+        measures["ambiguity"] = _analysis(study, "ambiguity", query, cache)
+    if query.rests_on is not None:
+        keep &= _analysis(study, f"rests_on_{query.rests_on}", query, cache)
+        measures["dependence"] = _analysis(study, "dependence", query, cache)
+    if query.sort in MEASURE_SORTS and query.sort not in measures:
+        measures[query.sort] = _analysis(study, query.sort, query, cache)
+    q = build_queue(
+        snap,
+        band=float(study.config.review.band if query.band is None else query.band),
+        group=query.group,
+        flips_only=query.flips,
+        close_only=not query.all_cases,
+        sort="closeness" if query.sort in MEASURE_SORTS else query.sort,
+        id_prefix=query.id_prefix,
+        exclude_rows=None if keep.all() else ~keep,
+    )
+    if query.sort in MEASURE_SORTS:  # build_queue's rule: largest first, then nearest zero
+        key, rows = measures[query.sort], q.order
+        q.order = rows[np.lexsort((np.abs(q.margin[rows]), -key[rows]))]
+        q.sort = query.sort
+    q.measures.update(measures)
+    if states is not None:
+        q.counts["reviewed"] = int(np.count_nonzero(~awaiting_decision(states)))
+        q.counts["deferred"] = int(np.count_nonzero(states == DEFERRED_STATE))
+    return QueueAnswer(query, q, states, claimed)

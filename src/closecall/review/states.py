@@ -13,9 +13,11 @@ from closecall.suite.snapshot import Snapshot
 if TYPE_CHECKING:
     from closecall.suite.opening import OpenedStudy
 
-#: State codes: 0 = not reviewed, then 1 + the index of the latest action in ACTIONS.
+#: State codes: 0 = not reviewed, then 1 + the index of the latest action in ACTIONS, and
+#: CONFLICT when reviewers' decisions in force disagree (closecall.review.conflicts).
 NOT_REVIEWED = 0
-STATE_NAMES = ("open", *ACTIONS)
+STATE_NAMES = ("open", *ACTIONS, "conflict")
+CONFLICT = len(STATE_NAMES) - 1
 
 
 def review_states(
@@ -37,18 +39,35 @@ def review_states(
     return states
 
 
+def mark_conflicts(snap: Snapshot, states: np.ndarray, case_ids: Sequence[str]) -> np.ndarray:
+    """``states`` with the cases ``case_ids`` (ids outside the snapshot ignored) set to CONFLICT."""
+    if case_ids:
+        rows = snap.rows_of(list(case_ids))
+        states[rows[rows >= 0]] = CONFLICT
+    return states
+
+
+def ledger_states(study: OpenedStudy) -> np.ndarray:
+    """Every case's state from the ledger: latest action, or CONFLICT. Needs read permission."""
+    from closecall.review.conflicts import study_conflicts
+    from closecall.review.decisions import latest_actions
+
+    states = review_states(study.snapshot, latest_actions(study.config))
+    return mark_conflicts(study.snapshot, states, study_conflicts(study.config))
+
+
 def study_review_states(study: OpenedStudy) -> tuple[np.ndarray, dict[str, list[str]]] | None:
     """Every case's state and who has it claimed; None when this login may not read the ledger.
 
     An absent ledger reads as nothing reviewed and nothing claimed.
     """
     from closecall.core.errors import AccessDenied
-    from closecall.review.decisions import active_claims, latest_actions
+    from closecall.review.decisions import active_claims
 
     try:
-        latest = latest_actions(study.config)
+        states = ledger_states(study)
         claims = active_claims(study)
     except AccessDenied:
         return None
     claimed = {case: [c.reviewer for c in cs] for case, cs in claims.items() if cs}
-    return review_states(study.snapshot, latest), claimed
+    return states, claimed

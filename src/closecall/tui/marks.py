@@ -11,7 +11,7 @@ from collections.abc import Sequence
 
 # --------------------------------------------------------------------------- review states
 
-OPEN, UPHELD, TO_FAV, TO_UNFAV, DEFERRED = 0, 1, 2, 3, 4
+OPEN, UPHELD, TO_FAV, TO_UNFAV, DEFERRED, CONFLICT = 0, 1, 2, 3, 4, 5
 STATE_OF_ACTION = {
     "uphold": UPHELD,
     "override-favourable": TO_FAV,
@@ -25,6 +25,7 @@ STATE_WORD = {
     TO_FAV: "✓ →fav",
     TO_UNFAV: "✓ →unfav",
     DEFERRED: "… later",
+    CONFLICT: "!conflict",  # reviewers' decisions in force disagree
 }
 #: Longer words for the case and ledger screens.
 ACTION_WORD = {

@@ -11,7 +11,7 @@ from ledger_helpers import FakeStudy, entries_digest, make_study
 
 from closecall.core.errors import AccessDenied, UserError
 from closecall.review import decisions as reviews
-from closecall.review.ledger import current_login, store
+from closecall.review.ledger import current_login, drafts
 
 
 def _study(tmp_path: Path, **review: Any) -> FakeStudy:
@@ -143,9 +143,9 @@ def test_claims_are_advice_and_expire(tmp_path: Path, monkeypatch: pytest.Monkey
     reviews.record_review(study, "A-1", "uphold", None, "")  # a claim never blocks recording
     reviews.release_claim(study, "A-1")
     assert reviews.active_claims(study) == {}
-    earlier = store.utc_now() - timedelta(minutes=5)
+    earlier = drafts.utc_now() - timedelta(minutes=5)
     with monkeypatch.context() as m:  # a 1-minute claim taken 5 minutes ago has expired
-        m.setattr(store, "utc_now", lambda: earlier)
+        m.setattr(drafts, "utc_now", lambda: earlier)
         reviews.claim_case(_study(tmp_path, claim_minutes=1), "A-2")
     assert reviews.active_claims(study, ["A-2"]) == {}
 

@@ -128,14 +128,14 @@ def test_an_old_schema_is_migrated_and_keeps_its_entries(tmp_path: Path) -> None
     with open_ledger(path, readonly=True) as ledger:  # readers cope with version 1
         assert ledger_schema.schema_version(ledger.connection) == 1
         assert ledger.entries() == old_entries
-        assert ledger.load_draft("x", "A-1") is None and ledger.claims() == {}
+        assert ledger.drafts.load("x", "A-1") is None and ledger.claims.active() == {}
         assert ledger.verify().ok
     with open_ledger(path) as ledger:  # a writer upgrades it
         assert ledger_schema.schema_version(ledger.connection) == SCHEMA_VERSION == 2
         assert ledger.entries() == old_entries
         new = ledger.append(content("after"))
         assert new.seq == 4 and new.prev_hash == old_entries[-1].hash
-        ledger.save_draft("tester", "A-2", "typing", None, None)
+        ledger.drafts.save("tester", "A-2", "typing", None, None)
         assert ledger.verify().ok
 
 
@@ -172,29 +172,29 @@ def test_supersedes_must_name_an_earlier_entry_of_the_same_case(tmp_path: Path) 
 
 def test_drafts_are_outside_the_chain_and_removed_on_record(tmp_path: Path) -> None:
     with open_ledger(tmp_path / "l.sqlite") as ledger:
-        ledger.save_draft("tester", "A-1", "half a thought", "override-favourable", None)
-        ledger.save_draft("tester", "A-1", "half a thought, finished", "override-favourable", "x")
-        ledger.save_draft("other", "A-1", "someone else's", None, None)
-        draft = ledger.load_draft("tester", "A-1")
+        ledger.drafts.save("tester", "A-1", "half a thought", "override-favourable", None)
+        ledger.drafts.save("tester", "A-1", "half a thought, finished", "override-favourable", "x")
+        ledger.drafts.save("other", "A-1", "someone else's", None, None)
+        draft = ledger.drafts.load("tester", "A-1")
         assert draft is not None and draft.note == "half a thought, finished"
         assert draft.reason == "x"
         assert ledger.count() == 0 and ledger.verify().ok
         ledger.append(content("final", case_id="A-1"))  # reviewer "tester"
-        assert ledger.load_draft("tester", "A-1") is None
-        other = ledger.load_draft("other", "A-1")
+        assert ledger.drafts.load("tester", "A-1") is None
+        other = ledger.drafts.load("other", "A-1")
         assert other is not None and other.note == "someone else's"
 
 
 def test_claims_expire_and_are_listed_per_case(tmp_path: Path) -> None:
     with open_ledger(tmp_path / "l.sqlite") as ledger:
-        ledger.claim("A-1", "alice", minutes=30)
-        ledger.claim("A-1", "bob", minutes=30)
-        ledger.claim("A-2", "carol", minutes=-1)  # already expired
-        claims = ledger.claims(["A-1", "A-2", "A-3"])
+        ledger.claims.take("A-1", "alice", minutes=30)
+        ledger.claims.take("A-1", "bob", minutes=30)
+        ledger.claims.take("A-2", "carol", minutes=-1)  # already expired
+        claims = ledger.claims.active(["A-1", "A-2", "A-3"])
         assert sorted(c.reviewer for c in claims["A-1"]) == ["alice", "bob"]
         assert "A-2" not in claims
-        ledger.release("A-1", "alice")
-        assert [c.reviewer for c in ledger.claims()["A-1"]] == ["bob"]
+        ledger.claims.release("A-1", "alice")
+        assert [c.reviewer for c in ledger.claims.active()["A-1"]] == ["bob"]
         ledger.append(content("recorded while bob holds a claim", case_id="A-1"))
         assert ledger.count() == 1
 
@@ -247,14 +247,14 @@ def test_pages_before_a_seq_walk_back_through_the_whole_ledger(tmp_path: Path) -
 
 def test_drafts_of_lists_one_reviewers_drafts_newest_first(tmp_path: Path) -> None:
     with open_ledger(tmp_path / "l.sqlite") as ledger:
-        assert ledger.drafts_of("tester") == []
-        ledger.save_draft("tester", "A-1", "first", None, None)
-        ledger.save_draft("other", "A-2", "not mine", None, None)
-        ledger.save_draft("tester", "A-3", "second", "defer", None)
-        ledger.save_draft("tester", "A-1", "first, changed", None, None)  # now the newest
-        mine = ledger.drafts_of("tester")
+        assert ledger.drafts.of("tester") == []
+        ledger.drafts.save("tester", "A-1", "first", None, None)
+        ledger.drafts.save("other", "A-2", "not mine", None, None)
+        ledger.drafts.save("tester", "A-3", "second", "defer", None)
+        ledger.drafts.save("tester", "A-1", "first, changed", None, None)  # now the newest
+        mine = ledger.drafts.of("tester")
         assert [(d.case_id, d.note) for d in mine] == [("A-1", "first, changed"), ("A-3", "second")]
         assert all(d.reviewer == "tester" for d in mine)
         ledger.append(content("recorded", case_id="A-3"))  # recording drops that draft
-        assert [d.case_id for d in ledger.drafts_of("tester")] == ["A-1"]
-        assert [d.case_id for d in ledger.drafts_of("other")] == ["A-2"]
+        assert [d.case_id for d in ledger.drafts.of("tester")] == ["A-1"]
+        assert [d.case_id for d in ledger.drafts.of("other")] == ["A-2"]

@@ -346,7 +346,7 @@ def save_draft(
     if reason is not None:
         check_text("the reason", reason)
     with open_ledger(config.review.ledger) as ledger:
-        return ledger.save_draft(login, case_id, note, action, reason)
+        return ledger.drafts.save(login, case_id, note, action, reason)
 
 
 def load_draft(study: OpenedStudy, case_id: str) -> Draft | None:
@@ -355,7 +355,7 @@ def load_draft(study: OpenedStudy, case_id: str) -> Draft | None:
     login = require_record(config.review, config.path)
     try:
         with open_ledger(config.review.ledger, readonly=True) as ledger:
-            return ledger.load_draft(login, case_id)
+            return ledger.drafts.load(login, case_id)
     except NoLedger:
         return None
 
@@ -366,7 +366,7 @@ def my_drafts(study: OpenedStudy) -> list[Draft]:
     login = require_record(config.review, config.path)
     try:
         with open_ledger(config.review.ledger, readonly=True) as ledger:
-            return ledger.drafts_of(login)
+            return ledger.drafts.of(login)
     except NoLedger:
         return []
 
@@ -377,7 +377,7 @@ def drop_draft(study: OpenedStudy, case_id: str) -> None:
     login = require_record(config.review, config.path)
     if config.review.ledger.exists():
         with open_ledger(config.review.ledger) as ledger:
-            ledger.drop_draft(login, case_id)
+            ledger.drafts.drop(login, case_id)
 
 
 def claim_case(study: OpenedStudy, case_id: str) -> Claim:
@@ -389,7 +389,7 @@ def claim_case(study: OpenedStudy, case_id: str) -> Claim:
     login = require_record(config.review, config.path)
     study.snapshot.case_index(case_id)
     with open_ledger(config.review.ledger) as ledger:
-        return ledger.claim(case_id, login, config.review.claim_minutes)
+        return ledger.claims.take(case_id, login, config.review.claim_minutes)
 
 
 def release_claim(study: OpenedStudy, case_id: str) -> None:
@@ -398,7 +398,7 @@ def release_claim(study: OpenedStudy, case_id: str) -> None:
     login = require_record(config.review, config.path)
     if config.review.ledger.exists():
         with open_ledger(config.review.ledger) as ledger:
-            ledger.release(case_id, login)
+            ledger.claims.release(case_id, login)
 
 
 def active_claims(
@@ -409,6 +409,6 @@ def active_claims(
     require_read(config.review, config.path)
     try:
         with open_ledger(config.review.ledger, readonly=True) as ledger:
-            return ledger.claims(case_ids)
+            return ledger.claims.active(case_ids)
     except NoLedger:
         return {}

@@ -4,6 +4,7 @@ See docs/ledger.md for the format and guarantees.
 """
 
 from closecall.review.ledger.access import current_login, may_read, may_record
+from closecall.review.ledger.drafts import Claim, Claims, Draft, Drafts
 from closecall.review.ledger.entry import (
     ACTIONS,
     GENESIS_HASH,
@@ -14,7 +15,7 @@ from closecall.review.ledger.entry import (
     entry_hash,
 )
 from closecall.review.ledger.schema import SCHEMA_VERSION
-from closecall.review.ledger.store import Claim, DamagedLedger, Draft, Ledger, NoLedger, open_ledger
+from closecall.review.ledger.store import DamagedLedger, Ledger, NoLedger, open_ledger
 from closecall.review.ledger.verify import Problem, VerifyResult, verify_chain, verify_file
 
 __all__ = [
@@ -23,8 +24,10 @@ __all__ = [
     "OVERRIDES",
     "SCHEMA_VERSION",
     "Claim",
+    "Claims",
     "DamagedLedger",
     "Draft",
+    "Drafts",
     "Entry",
     "EntryContent",
     "Ledger",

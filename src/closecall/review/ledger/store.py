@@ -24,15 +24,14 @@ import sqlite3
 import tempfile
 import time
 import urllib.parse
-from collections.abc import Callable, Iterable, Iterator, Sequence
-from dataclasses import dataclass
-from datetime import UTC, datetime, timedelta
+from collections.abc import Callable, Iterator, Sequence
 from pathlib import Path
 from types import TracebackType
 from typing import TYPE_CHECKING, Any, Concatenate, ParamSpec, TypeVar
 
 from closecall.core.errors import UserError
 from closecall.review.ledger import schema
+from closecall.review.ledger.drafts import Claims, Drafts, delete_draft, utc_iso, utc_now
 from closecall.review.ledger.entry import (
     ACTIONS,
     ENTRY_FORMAT,
@@ -56,37 +55,6 @@ MAX_NOTE_BYTES = 1_000_000
 
 _COLUMNS = (*HASHED_FIELDS, "hash")
 _SELECT = f"SELECT {', '.join(_COLUMNS)} FROM entries"
-
-
-def utc_now() -> datetime:
-    return datetime.now(UTC)
-
-
-def utc_iso(moment: datetime) -> str:
-    """ISO 8601 in UTC with microseconds and a Z; sorts as text in time order."""
-    return moment.astimezone(UTC).strftime("%Y-%m-%dT%H:%M:%S.%fZ")
-
-
-@dataclass(frozen=True)
-class Draft:
-    """A note being written for a case, kept outside the chain until it is recorded."""
-
-    reviewer: str
-    case_id: str
-    note: str
-    action: str | None
-    reason: str | None
-    updated: str
-
-
-@dataclass(frozen=True)
-class Claim:
-    """A soft claim: ``reviewer`` has ``case_id`` open until ``expires_at`` (never blocks)."""
-
-    case_id: str
-    reviewer: str
-    claimed_at: str
-    expires_at: str
 
 
 class _UnreadableEntry(Exception):
@@ -291,6 +259,9 @@ class Ledger:
         self.path = path
         self.readonly = readonly
         self._conn = conn
+        #: Drafts and soft claims: mutable, outside the chain (:mod:`.drafts`).
+        self.drafts = Drafts(path, conn, self._write, _database_error)
+        self.claims = Claims(path, conn, self._write, _database_error)
 
     # ------------------------------------------------------------------ lifecycle
 
@@ -369,10 +340,7 @@ class Ledger:
                 f"VALUES ({', '.join('?' for _ in _COLUMNS)})",
                 [row[c] for c in _COLUMNS],
             )
-            conn.execute(
-                "DELETE FROM drafts WHERE reviewer = ? AND case_id = ?",
-                (content.reviewer, content.case_id),
-            )
+            delete_draft(conn, content.reviewer, content.case_id)
         return Entry(**fields)
 
     @_guarded
@@ -464,95 +432,6 @@ class Ledger:
         from closecall.review.ledger.verify import verify_chain
 
         return verify_chain(self, anchor)
-
-    # ------------------------------------------------------------------ drafts
-
-    @_guarded
-    def save_draft(
-        self, reviewer: str, case_id: str, note: str, action: str | None, reason: str | None
-    ) -> Draft:
-        draft = Draft(reviewer, case_id, note, action, reason, utc_iso(utc_now()))
-        with self._write() as conn:
-            conn.execute(
-                "INSERT INTO drafts (reviewer, case_id, action, reason, note, updated) "
-                "VALUES (?, ?, ?, ?, ?, ?) ON CONFLICT (reviewer, case_id) DO UPDATE SET "
-                "action = excluded.action, reason = excluded.reason, note = excluded.note, "
-                "updated = excluded.updated",
-                (reviewer, case_id, action, reason, note, draft.updated),
-            )
-        return draft
-
-    @_guarded
-    def load_draft(self, reviewer: str, case_id: str) -> Draft | None:
-        if not _has_table(self._conn, "drafts"):  # an older file opened read-only
-            return None
-        row = self._conn.execute(
-            "SELECT reviewer, case_id, note, action, reason, updated FROM drafts "
-            "WHERE reviewer = ? AND case_id = ?",
-            (reviewer, case_id),
-        ).fetchone()
-        return Draft(*row) if row else None
-
-    @_guarded
-    def drafts_of(self, reviewer: str) -> list[Draft]:
-        """Every draft ``reviewer`` has saved, most recently updated first."""
-        if not _has_table(self._conn, "drafts"):  # an older file opened read-only
-            return []
-        rows = self._conn.execute(
-            "SELECT reviewer, case_id, note, action, reason, updated FROM drafts "
-            "WHERE reviewer = ? ORDER BY updated DESC, case_id",
-            (reviewer,),
-        ).fetchall()
-        return [Draft(*row) for row in rows]
-
-    @_guarded
-    def drop_draft(self, reviewer: str, case_id: str) -> None:
-        with self._write() as conn:
-            conn.execute(
-                "DELETE FROM drafts WHERE reviewer = ? AND case_id = ?", (reviewer, case_id)
-            )
-
-    # ------------------------------------------------------------------ soft claims
-
-    @_guarded
-    def claim(self, case_id: str, reviewer: str, minutes: float) -> Claim:
-        """Mark ``case_id`` as open by ``reviewer`` for ``minutes``; renews an existing claim."""
-        now = utc_now()
-        claim = Claim(case_id, reviewer, utc_iso(now), utc_iso(now + timedelta(minutes=minutes)))
-        with self._write() as conn:
-            conn.execute("DELETE FROM claims WHERE expires_at <= ?", (claim.claimed_at,))
-            conn.execute(
-                "INSERT INTO claims (case_id, reviewer, claimed_at, expires_at) VALUES (?, ?, ?, ?)"
-                " ON CONFLICT (case_id, reviewer) DO UPDATE SET "
-                "claimed_at = excluded.claimed_at, expires_at = excluded.expires_at",
-                (claim.case_id, claim.reviewer, claim.claimed_at, claim.expires_at),
-            )
-        return claim
-
-    @_guarded
-    def release(self, case_id: str, reviewer: str) -> None:
-        with self._write() as conn:
-            conn.execute(
-                "DELETE FROM claims WHERE case_id = ? AND reviewer = ?", (case_id, reviewer)
-            )
-
-    @_guarded
-    def claims(self, case_ids: Iterable[str] | None = None) -> dict[str, list[Claim]]:
-        """Unexpired claims by case (all cases when ``case_ids`` is None), oldest first."""
-        if not _has_table(self._conn, "claims"):  # an older file opened read-only
-            return {}
-        now = utc_iso(utc_now())
-        rows = self._conn.execute(
-            "SELECT case_id, reviewer, claimed_at, expires_at FROM claims "
-            "WHERE expires_at > ? ORDER BY claimed_at",
-            (now,),
-        ).fetchall()
-        wanted = None if case_ids is None else set(case_ids)
-        out: dict[str, list[Claim]] = {}
-        for row in rows:
-            if wanted is None or row[0] in wanted:
-                out.setdefault(row[0], []).append(Claim(*row))
-        return out
 
 
 class _WriteTransaction:
@@ -779,12 +658,3 @@ def _structure(
             schema.Finding("table-altered", "meta", "the table meta lost closecall's marker row")
         )
     return findings
-
-
-def _has_table(conn: sqlite3.Connection, name: str) -> bool:
-    return (
-        conn.execute(
-            "SELECT 1 FROM sqlite_master WHERE type = 'table' AND name = ?", (name,)
-        ).fetchone()
-        is not None
-    )

@@ -1,0 +1,684 @@
+"""The ledger in PostgreSQL: the same chain, canonical JSON and hashes as the SQLite file.
+
+A team's ledger lives in one PostgreSQL database (schema ``closecall``), prepared once by its
+owner with :func:`setup` (``closecall ledger setup URL``). The database, not closecall, enforces
+who may do what:
+
+* ``entries`` is append-only: UPDATE, DELETE and TRUNCATE are revoked from every role **and**
+  refused by triggers; only the owner can drop or alter the table.
+* Identity is the database ``session_user``: a trigger refuses an entry whose ``reviewer`` is
+  not the session user, so nothing the client sends can record in someone else's name.
+* Ordering: each append locks the one-row ``head`` table (``SELECT … FOR UPDATE`` in a
+  SECURITY DEFINER function), reads the last sequence number and hash, and the insert trigger
+  checks the new entry links to that head and moves it in the same transaction. Concurrent
+  writers on any number of hosts queue on that row lock and can never fork the chain; a
+  writer killed mid-transaction leaves nothing (PostgreSQL rolls it back).
+* Durability: every append commits with ``synchronous_commit = on``.
+* The stored row keeps the entry's canonical JSON (``body``, the exact bytes that are hashed)
+  beside its hash, so a field added to the entry format needs no change of table.
+
+References
+----------
+PostgreSQL documentation, "Explicit Locking" (row-level locks, SELECT FOR UPDATE);
+"Row Security Policies"; "CREATE FUNCTION" (SECURITY DEFINER, writing such functions safely);
+"WAL Configuration" (synchronous_commit).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+import re
+import urllib.parse
+from collections.abc import Callable, Iterable, Iterator
+from datetime import datetime
+from types import TracebackType
+from typing import TYPE_CHECKING, Any
+
+from closecall.core.errors import AccessDenied, UserError
+from closecall.review.ledger import entry as _entry
+from closecall.review.ledger.drafts import Claim, Draft, utc_iso
+from closecall.review.ledger.entry import (
+    ENTRY_FORMAT,
+    GENESIS_HASH,
+    HASHED_FIELDS,
+    Entry,
+    EntryContent,
+    canonical_json,
+    entry_hash,
+)
+
+if TYPE_CHECKING:
+    import psycopg
+
+    from closecall.review.ledger.verify import VerifyResult
+
+REVIEWER_ROLE = "closecall_reviewer"
+ANALYST_ROLE = "closecall_analyst"
+#: Seconds to wait for the server when connecting.
+CONNECT_TIMEOUT = 10
+
+_ROLE_RE = re.compile(r"^[a-z_][a-z0-9_]{0,62}$")
+
+
+def is_url(value: object) -> bool:
+    """True if a config's ledger value names a PostgreSQL database (URL or conninfo)."""
+    text = str(value).strip()
+    return text.startswith(("postgresql://", "postgres://")) or (
+        "=" in text and ("dbname=" in text or "host=" in text)
+    )
+
+
+def _password_in(url: str) -> bool:
+    if url.startswith(("postgresql://", "postgres://")):
+        return urllib.parse.urlsplit(url).password is not None or "password=" in url
+    return re.search(r"(^|\s)password\s*=", url) is not None
+
+
+def redact(url: str) -> str:
+    """The URL with any password replaced by ``***`` (for messages)."""
+    if url.startswith(("postgresql://", "postgres://")):
+        parts = urllib.parse.urlsplit(url)
+        if parts.password is not None:
+            host = parts.netloc.rsplit("@", 1)[1]
+            netloc = f"{parts.username or ''}:***@{host}"
+            url = urllib.parse.urlunsplit(parts._replace(netloc=netloc))
+        return re.sub(r"password=[^&]*", "password=***", url)
+    return re.sub(r"password\s*=\s*('[^']*'|\S+)", "password=***", url)
+
+
+def check_url(url: str, where: str = "[review] ledger") -> None:
+    """UserError if ``url`` carries a password (passwords never belong in a config)."""
+    if _password_in(url):
+        raise UserError(
+            f"{where} = {redact(url)}: the ledger URL holds a password",
+            "remove the password from the URL and give it to libpq another way: a line in "
+            "~/.pgpass (mode 0600), the PGPASSWORD environment variable, or peer/GSS "
+            "authentication",
+        )
+
+
+def _connect(url: str, *, autocommit: bool = False) -> psycopg.Connection[Any]:
+    import psycopg
+
+    try:
+        conn = psycopg.connect(url, autocommit=autocommit, connect_timeout=CONNECT_TIMEOUT)
+    except psycopg.OperationalError as exc:
+        detail = str(exc).strip().splitlines()[-1] if str(exc).strip() else "no answer"
+        raise UserError(
+            f"{redact(url)}: cannot reach the ledger database ({detail})",
+            "check that the PostgreSQL server is running and reachable from this host, that "
+            "the URL in [review] ledger is right, and that your password is in ~/.pgpass or "
+            "PGPASSWORD; nothing was recorded",
+        ) from None
+    if not autocommit:
+        conn.execute("SET synchronous_commit = on")
+        conn.commit()
+    return conn
+
+
+# ---------------------------------------------------------------------------- setup
+
+
+def _schema_sql(reviewer: str, analyst: str) -> list[str]:
+    return [
+        "CREATE SCHEMA IF NOT EXISTS closecall",
+        "REVOKE ALL ON SCHEMA closecall FROM PUBLIC",
+        "GRANT USAGE ON SCHEMA closecall TO PUBLIC",
+        "CREATE TABLE IF NOT EXISTS closecall.meta (key text PRIMARY KEY, value text NOT NULL)",
+        """CREATE TABLE IF NOT EXISTS closecall.entries (
+            seq bigint PRIMARY KEY CHECK (seq >= 1),
+            reviewer text NOT NULL DEFAULT session_user,
+            case_id text NOT NULL,
+            action text NOT NULL,
+            recorded_at timestamptz NOT NULL DEFAULT clock_timestamp(),
+            body text NOT NULL,
+            hash text NOT NULL UNIQUE,
+            prev_hash text NOT NULL)""",
+        "CREATE INDEX IF NOT EXISTS entries_case ON closecall.entries (case_id, seq)",
+        "CREATE INDEX IF NOT EXISTS entries_reviewer ON closecall.entries (reviewer, seq)",
+        """CREATE TABLE IF NOT EXISTS closecall.head (
+            one boolean PRIMARY KEY DEFAULT true CHECK (one),
+            seq bigint NOT NULL, hash text NOT NULL)""",
+        f"INSERT INTO closecall.head VALUES (true, 0, '{GENESIS_HASH}') ON CONFLICT DO NOTHING",
+        """CREATE TABLE IF NOT EXISTS closecall.drafts (
+            reviewer text NOT NULL DEFAULT session_user,
+            case_id text NOT NULL, note text NOT NULL, action text, reason text,
+            updated timestamptz NOT NULL DEFAULT clock_timestamp(),
+            PRIMARY KEY (reviewer, case_id))""",
+        """CREATE TABLE IF NOT EXISTS closecall.claims (
+            case_id text NOT NULL,
+            reviewer text NOT NULL DEFAULT session_user,
+            claimed_at timestamptz NOT NULL DEFAULT clock_timestamp(),
+            expires_at timestamptz NOT NULL,
+            PRIMARY KEY (case_id, reviewer))""",
+        # -- the chain: the head row is locked and moved by the insert trigger
+        """CREATE OR REPLACE FUNCTION closecall.lock_head(OUT seq bigint, OUT hash text,
+                OUT reviewer text, OUT now timestamptz)
+            LANGUAGE sql SECURITY DEFINER SET search_path = pg_catalog, pg_temp AS $$
+            SELECT h.seq, h.hash, session_user::text, clock_timestamp()
+            FROM closecall.head h WHERE h.one FOR UPDATE $$""",
+        """CREATE OR REPLACE FUNCTION closecall.chain_entry() RETURNS trigger
+            LANGUAGE plpgsql SECURITY DEFINER SET search_path = pg_catalog, pg_temp AS $$
+            DECLARE h record; b jsonb;
+            BEGIN
+              SELECT * INTO h FROM closecall.head WHERE one FOR UPDATE;
+              b := NEW.body::jsonb;
+              IF NEW.reviewer IS DISTINCT FROM session_user::text
+                 OR b->>'reviewer' IS DISTINCT FROM session_user::text THEN
+                RAISE EXCEPTION 'closecall: an entry records the session user %, not %',
+                  session_user, coalesce(b->>'reviewer', NEW.reviewer)
+                  USING ERRCODE = 'insufficient_privilege';
+              END IF;
+              IF NEW.seq <> h.seq + 1 OR NEW.prev_hash <> h.hash
+                 OR (b->>'seq')::bigint <> NEW.seq OR b->>'prev_hash' <> NEW.prev_hash
+                 OR b->>'case_id' <> NEW.case_id OR b->>'action' <> NEW.action THEN
+                RAISE EXCEPTION 'closecall: entry % does not follow the head %', NEW.seq, h.seq
+                  USING ERRCODE = 'serialization_failure';
+              END IF;
+              IF encode(sha256(convert_to(NEW.body, 'UTF8')), 'hex') <> NEW.hash THEN
+                RAISE EXCEPTION 'closecall: entry % does not carry the hash of its body', NEW.seq
+                  USING ERRCODE = 'data_exception';
+              END IF;
+              NEW.recorded_at := clock_timestamp();
+              UPDATE closecall.head SET seq = NEW.seq, hash = NEW.hash WHERE one;
+              RETURN NEW;
+            END $$""",
+        """CREATE OR REPLACE FUNCTION closecall.refuse_change() RETURNS trigger
+            LANGUAGE plpgsql AS $$
+            BEGIN
+              RAISE EXCEPTION 'closecall: the ledger is append-only (% refused)', TG_OP
+                USING ERRCODE = 'insufficient_privilege';
+            END $$""",
+        "DROP TRIGGER IF EXISTS entries_chain ON closecall.entries",
+        "CREATE TRIGGER entries_chain BEFORE INSERT ON closecall.entries "
+        "FOR EACH ROW EXECUTE FUNCTION closecall.chain_entry()",
+        "DROP TRIGGER IF EXISTS entries_no_change ON closecall.entries",
+        "CREATE TRIGGER entries_no_change BEFORE UPDATE OR DELETE ON closecall.entries "
+        "FOR EACH ROW EXECUTE FUNCTION closecall.refuse_change()",
+        "DROP TRIGGER IF EXISTS entries_no_truncate ON closecall.entries",
+        "CREATE TRIGGER entries_no_truncate BEFORE TRUNCATE ON closecall.entries "
+        "FOR EACH STATEMENT EXECUTE FUNCTION closecall.refuse_change()",
+        "DROP TRIGGER IF EXISTS head_no_change ON closecall.head",
+        "CREATE TRIGGER head_no_change BEFORE DELETE ON closecall.head "
+        "FOR EACH ROW EXECUTE FUNCTION closecall.refuse_change()",
+        # -- drafts: each reviewer sees and writes only their own; claims: all see, own write
+        "ALTER TABLE closecall.drafts ENABLE ROW LEVEL SECURITY",
+        "DROP POLICY IF EXISTS own_drafts ON closecall.drafts",
+        "CREATE POLICY own_drafts ON closecall.drafts USING (reviewer = session_user) "
+        "WITH CHECK (reviewer = session_user)",
+        "ALTER TABLE closecall.claims ENABLE ROW LEVEL SECURITY",
+        "DROP POLICY IF EXISTS see_claims ON closecall.claims",
+        "CREATE POLICY see_claims ON closecall.claims FOR SELECT USING (true)",
+        "DROP POLICY IF EXISTS own_claims ON closecall.claims",
+        "CREATE POLICY own_claims ON closecall.claims FOR ALL "
+        "USING (reviewer = session_user OR expires_at <= clock_timestamp()) "
+        "WITH CHECK (reviewer = session_user)",
+        # -- roles and privileges
+        f"""DO $$ BEGIN
+              IF NOT EXISTS (SELECT 1 FROM pg_roles WHERE rolname = '{reviewer}') THEN
+                CREATE ROLE {reviewer} NOLOGIN; END IF;
+              IF NOT EXISTS (SELECT 1 FROM pg_roles WHERE rolname = '{analyst}') THEN
+                CREATE ROLE {analyst} NOLOGIN; END IF;
+            END $$""",
+        "REVOKE ALL ON ALL TABLES IN SCHEMA closecall FROM PUBLIC",
+        f"REVOKE ALL ON ALL TABLES IN SCHEMA closecall FROM {reviewer}, {analyst}",
+        "REVOKE ALL ON FUNCTION closecall.lock_head() FROM PUBLIC",
+        "GRANT SELECT ON closecall.meta TO PUBLIC",
+        f"GRANT SELECT ON closecall.entries, closecall.head TO {reviewer}, {analyst}",
+        f"GRANT INSERT ON closecall.entries TO {reviewer}",
+        f"GRANT SELECT, INSERT, UPDATE, DELETE ON closecall.drafts, closecall.claims TO {reviewer}",
+        f"GRANT EXECUTE ON FUNCTION closecall.lock_head() TO {reviewer}",
+        "INSERT INTO closecall.meta VALUES ('application', 'closecall-ledger') "
+        "ON CONFLICT (key) DO NOTHING",
+        f"INSERT INTO closecall.meta VALUES ('entry_format', '{ENTRY_FORMAT}') "
+        "ON CONFLICT (key) DO NOTHING",
+        f"INSERT INTO closecall.meta VALUES ('reviewer_role', '{reviewer}') "
+        "ON CONFLICT (key) DO UPDATE SET value = excluded.value",
+        f"INSERT INTO closecall.meta VALUES ('analyst_role', '{analyst}') "
+        "ON CONFLICT (key) DO UPDATE SET value = excluded.value",
+    ]
+
+
+def setup(url: str, reviewer_role: str = REVIEWER_ROLE, analyst_role: str = ANALYST_ROLE) -> None:
+    """Create (or bring up to date) the ledger schema, guards and roles in ``url``'s database.
+
+    Idempotent; run by the database owner (or a role allowed to create roles). Members are
+    added afterwards with ``GRANT closecall_reviewer TO alice``.
+    """
+    import psycopg
+
+    check_url(url, "URL")
+    for name in (reviewer_role, analyst_role):
+        if not _ROLE_RE.match(name):
+            raise UserError(
+                f"role name '{name}' is not a plain lower-case SQL name",
+                "use lower-case letters, digits and _ (for example closecall_reviewer)",
+            )
+    with _connect(url) as conn:
+        try:
+            conn.execute("SELECT pg_advisory_xact_lock(hashtext('closecall.setup'))")
+            for statement in _schema_sql(reviewer_role, analyst_role):
+                conn.execute(statement.encode())
+            conn.commit()
+        except psycopg.errors.InsufficientPrivilege as exc:
+            raise UserError(
+                f"{redact(url)}: ledger setup refused by the server ({exc.diag.message_primary})",
+                "run 'closecall ledger setup' as the database's owner, with permission to "
+                "create roles (CREATEROLE)",
+            ) from None
+
+
+# ---------------------------------------------------------------------------- the ledger
+
+
+_ENTRY_FIELDS = {f.name for f in dataclasses.fields(Entry)}
+
+
+def _hashed_names(entry_format: int) -> tuple[str, ...]:
+    """The field names the hash covers for this entry format (as the entry module says)."""
+    names = getattr(_entry, "hashed_names", None)
+    return tuple(names(entry_format)) if names is not None else HASHED_FIELDS
+
+
+def _row_values(body: str, hash_: str) -> dict[str, Any]:
+    """An entry's fields from its stored canonical body; fields of a later format that an
+    older entry lacks take the entry's defaults."""
+    values = json.loads(body)
+    values["hash"] = hash_
+    return {k: v for k, v in values.items() if k in _ENTRY_FIELDS}
+
+
+class PgLedger:
+    """An open PostgreSQL ledger; the same reading and appending surface as the SQLite one."""
+
+    def __init__(self, url: str, conn: psycopg.Connection[Any], readonly: bool) -> None:
+        self.url = url
+        self.path = redact(url)
+        self.readonly = readonly
+        self._conn = conn
+        self.drafts = PgDrafts(self)
+        self.claims = PgClaims(self)
+
+    def close(self) -> None:
+        self._conn.close()
+
+    def __enter__(self) -> PgLedger:
+        return self
+
+    def __exit__(
+        self,
+        exc_type: type[BaseException] | None,
+        exc: BaseException | None,
+        tb: TracebackType | None,
+    ) -> None:
+        self.close()
+
+    @property
+    def connection(self) -> psycopg.Connection[Any]:
+        return self._conn
+
+    def _read(self, sql: str, params: Iterable[Any] = ()) -> list[tuple[Any, ...]]:
+        try:
+            rows = self._conn.execute(sql.encode(), list(params)).fetchall()
+        finally:
+            self._conn.rollback()  # end the read transaction (no lock held between calls)
+        return rows
+
+    # ------------------------------------------------------------------ entries
+
+    def append(self, content: EntryContent, sign: Callable[[bytes], str] | None = None) -> Entry:
+        """Number, chain and store one entry as the session user; removes the draft.
+
+        The head row is locked first, so concurrent writers queue; the server checks the link,
+        the hash and the identity before the insert stands, and the whole entry commits or
+        nothing does.
+        """
+        import psycopg
+
+        from closecall.review.ledger.store import _check_content
+
+        if self.readonly:
+            raise RuntimeError("ledger opened read-only")
+        _check_content(content)
+        decisions = json.loads(canonical_json(content.decisions))
+        conn = self._conn
+        try:
+            head_seq, head_hash, user, now = conn.execute(
+                "SELECT * FROM closecall.lock_head()"
+            ).fetchone()  # type: ignore[misc]
+            if content.supersedes is not None:
+                earlier = conn.execute(
+                    "SELECT case_id FROM closecall.entries WHERE seq = %s", (content.supersedes,)
+                ).fetchone()
+                if earlier is None or earlier[0] != content.case_id:
+                    raise ValueError(
+                        f"entry {content.supersedes} is not an earlier entry for {content.case_id}"
+                    )
+            fields: dict[str, Any] = {
+                "seq": int(head_seq) + 1,
+                "format": ENTRY_FORMAT,
+                "time": utc_iso(now),
+                "reviewer": str(user),
+                "case_id": content.case_id,
+                "snapshot_id": content.snapshot_id,
+                "current_snapshot_id": content.current_snapshot_id,
+                "reference_model": content.reference_model,
+                "reference_decision": content.reference_decision,
+                "reference_margin": (
+                    None if content.reference_margin is None else float(content.reference_margin)
+                ),
+                "decisions": decisions,
+                "action": content.action,
+                "reason": content.reason,
+                "note": content.note,
+                "supersedes": content.supersedes,
+                "prev_hash": str(head_hash),
+            }
+            if "signature" in HASHED_FIELDS:  # the author signs inside the lock
+                signed = _entry.signed_message  # type: ignore[attr-defined,unused-ignore]
+                fields["signature"] = sign(signed(fields)) if sign is not None else None
+            names = _hashed_names(ENTRY_FORMAT)
+            body = canonical_json({k: fields[k] for k in names}).decode("utf-8")
+            fields["hash"] = entry_hash(fields)
+            conn.execute(
+                "INSERT INTO closecall.entries (seq, case_id, action, body, hash, prev_hash) "
+                "VALUES (%s, %s, %s, %s, %s, %s)",
+                (
+                    fields["seq"],
+                    content.case_id,
+                    content.action,
+                    body,
+                    fields["hash"],
+                    fields["prev_hash"],
+                ),
+            )
+            conn.execute(
+                "DELETE FROM closecall.drafts WHERE reviewer = session_user AND case_id = %s",
+                (content.case_id,),
+            )
+            conn.commit()
+        except psycopg.errors.InsufficientPrivilege as exc:
+            conn.rollback()
+            raise self._denied("record reviews", exc) from None
+        except psycopg.OperationalError as exc:
+            raise UserError(
+                f"{self.path}: the connection to the ledger database was lost while recording "
+                f"({str(exc).strip()})",
+                "run 'closecall ledger show' to see whether the entry was recorded (an entry "
+                "is stored whole or not at all; your draft is kept until it is), then record "
+                "again if it is not there",
+            ) from None
+        except BaseException:
+            if not conn.closed:
+                conn.rollback()
+            raise
+        return Entry(**fields)
+
+    def _role(self, which: str) -> str:
+        rows = self._read("SELECT value FROM closecall.meta WHERE key = %s", (which,))
+        return str(rows[0][0]) if rows else (REVIEWER_ROLE if "review" in which else ANALYST_ROLE)
+
+    def _denied(self, what: str, exc: Exception | None = None) -> AccessDenied:
+        role = self._role("reviewer_role" if what == "record reviews" else "analyst_role")
+        user = self._read("SELECT session_user")[0][0]
+        return AccessDenied(
+            f"{self.path}: database user '{user}' may not {what} in this ledger "
+            f"(not a member of the role {role})",
+            f'ask the ledger database\'s owner to run: GRANT {role} TO "{user}";',
+        )
+
+    def check_access(self, record: bool) -> None:
+        """AccessDenied naming the role to ask for, unless the session user holds it."""
+        reviewer = self._role("reviewer_role")
+        analyst = self._role("analyst_role")
+        ok_record, ok_read = self._read(
+            "SELECT pg_has_role(session_user, %s, 'MEMBER'), "
+            "pg_has_role(session_user, %s, 'MEMBER') OR pg_has_role(session_user, %s, 'MEMBER')",
+            (reviewer, reviewer, analyst),
+        )[0]
+        if record and not ok_record:
+            raise self._denied("record reviews")
+        if not ok_read:
+            user = self._read("SELECT session_user")[0][0]
+            raise AccessDenied(
+                f"{self.path}: database user '{user}' may not read this ledger "
+                f"(not a member of the role {analyst} or {reviewer})",
+                f'ask the ledger database\'s owner to run: GRANT {analyst} TO "{user}";',
+            )
+
+    def entries(
+        self,
+        *,
+        case_id: str | None = None,
+        reviewer: str | None = None,
+        limit: int | None = None,
+        before: int | None = None,
+    ) -> list[Entry]:
+        """Entries in sequence order; ``limit``/``before`` page backwards as in SQLite."""
+        where: list[str] = []
+        params: list[Any] = []
+        if before is not None:
+            where.append("seq < %s")
+            params.append(int(before))
+        if case_id is not None:
+            where.append("case_id = %s")
+            params.append(case_id)
+        if reviewer is not None:
+            where.append("reviewer = %s")
+            params.append(reviewer)
+        sql = "SELECT body, hash FROM closecall.entries"
+        sql += (f" WHERE {' AND '.join(where)}" if where else "") + " ORDER BY seq DESC"
+        if limit is not None:
+            sql += " LIMIT %s"
+            params.append(int(limit))
+        rows = self._read(sql, params)
+        return [Entry(**_row_values(b, h)) for b, h in reversed(rows)]
+
+    def latest_actions(self) -> list[tuple[str, str]]:
+        rows = self._read(
+            "SELECT DISTINCT ON (case_id) case_id, action, seq FROM closecall.entries "
+            "ORDER BY case_id, seq DESC"
+        )
+        return [(str(c), str(a)) for c, a, _ in sorted(rows, key=lambda r: r[2])]
+
+    def entry(self, seq: int) -> Entry | None:
+        rows = self._read("SELECT body, hash FROM closecall.entries WHERE seq = %s", (seq,))
+        return Entry(**_row_values(*rows[0])) if rows else None
+
+    def iter_rows(self) -> Iterator[dict[str, Any]]:
+        """Every stored entry as the verifier reads it (``decisions`` as JSON text)."""
+        with self._conn.cursor(name="closecall_rows") as cur:
+            cur.itersize = 2000
+            cur.execute("SELECT seq, body, hash, prev_hash FROM closecall.entries ORDER BY seq")
+            for seq, body, hash_, prev in cur:
+                try:
+                    values = _row_values(body, hash_)
+                except ValueError:
+                    values = {"seq": seq, "decisions": "", "hash": hash_, "prev_hash": prev}
+                if "signature" in _ENTRY_FIELDS:
+                    values.setdefault("signature", None)
+                if values.get("seq") != seq or values.get("prev_hash") != prev:
+                    values["hash"] = f"(row {seq} columns disagree with its body)"
+                values["decisions"] = (
+                    canonical_json(values["decisions"]).decode("utf-8")
+                    if not isinstance(values.get("decisions"), str)
+                    else values["decisions"]
+                )
+                values["seq"] = seq
+                yield values
+        self._conn.rollback()
+
+    def count(self) -> int:
+        return int(self._read("SELECT count(*) FROM closecall.entries")[0][0])
+
+    def head(self) -> tuple[int, str]:
+        rows = self._read("SELECT seq, hash FROM closecall.entries ORDER BY seq DESC LIMIT 1")
+        return (int(rows[0][0]), str(rows[0][1])) if rows else (0, GENESIS_HASH)
+
+    def missing_triggers(self) -> list[str]:
+        rows = self._read(
+            "SELECT tgname FROM pg_trigger WHERE tgrelid = 'closecall.entries'::regclass "
+            "AND tgenabled <> 'D'"
+        )
+        have = {r[0] for r in rows}
+        return [
+            t
+            for t in ("entries_chain", "entries_no_change", "entries_no_truncate")
+            if t not in have
+        ]
+
+    def structure_findings(self) -> list[Any]:
+        from closecall.review.ledger.schema import Finding
+
+        return [
+            Finding("triggers-missing", name, f"the guard trigger {name} is missing or disabled")
+            for name in self.missing_triggers()
+        ]
+
+    def require_intact(self) -> None:
+        from closecall.review.ledger.store import _refuse
+
+        _refuse(self.path, self.structure_findings())  # type: ignore[arg-type]
+
+    def verify(self, anchor: str | None = None) -> VerifyResult:
+        from closecall.review.ledger.verify import verify_chain
+
+        return verify_chain(self, anchor)  # type: ignore[arg-type]
+
+
+class PgDrafts:
+    """Drafts in the database: each reviewer's own (row-level security), on any host."""
+
+    def __init__(self, ledger: PgLedger) -> None:
+        self._ledger = ledger
+
+    def _write(self, sql: str, params: Iterable[Any]) -> None:
+        conn = self._ledger.connection
+        try:
+            conn.execute(sql.encode(), list(params))
+            conn.commit()
+        except BaseException:
+            if not conn.closed:
+                conn.rollback()
+            raise
+
+    def save(
+        self, reviewer: str, case_id: str, note: str, action: str | None, reason: str | None
+    ) -> Draft:
+        rows = self._ledger._read("SELECT session_user, clock_timestamp()")
+        user, now = str(rows[0][0]), rows[0][1]
+        self._write(
+            "INSERT INTO closecall.drafts (case_id, note, action, reason, updated) "
+            "VALUES (%s, %s, %s, %s, %s) ON CONFLICT (reviewer, case_id) DO UPDATE SET "
+            "note = excluded.note, action = excluded.action, reason = excluded.reason, "
+            "updated = excluded.updated",
+            (case_id, note, action, reason, now),
+        )
+        return Draft(user, case_id, note, action, reason, utc_iso(now))
+
+    def load(self, reviewer: str, case_id: str) -> Draft | None:
+        rows = self._ledger._read(
+            "SELECT reviewer, case_id, note, action, reason, updated FROM closecall.drafts "
+            "WHERE reviewer = session_user AND case_id = %s",
+            (case_id,),
+        )
+        return _draft(rows[0]) if rows else None
+
+    def of(self, reviewer: str) -> list[Draft]:
+        rows = self._ledger._read(
+            "SELECT reviewer, case_id, note, action, reason, updated FROM closecall.drafts "
+            "WHERE reviewer = session_user ORDER BY updated DESC, case_id"
+        )
+        return [_draft(r) for r in rows]
+
+    def drop(self, reviewer: str, case_id: str) -> None:
+        self._write(
+            "DELETE FROM closecall.drafts WHERE reviewer = session_user AND case_id = %s",
+            (case_id,),
+        )
+
+
+def _draft(row: tuple[Any, ...]) -> Draft:
+    return Draft(str(row[0]), str(row[1]), str(row[2]), row[3], row[4], _iso(row[5]))
+
+
+def _iso(value: datetime | str) -> str:
+    return value if isinstance(value, str) else utc_iso(value)
+
+
+class PgClaims:
+    """Soft claims in the database; they expire by the server's clock."""
+
+    def __init__(self, ledger: PgLedger) -> None:
+        self._ledger = ledger
+
+    def take(self, case_id: str, reviewer: str, minutes: float) -> Claim:
+        conn = self._ledger.connection
+        try:
+            conn.execute("DELETE FROM closecall.claims WHERE expires_at <= clock_timestamp()")
+            row = conn.execute(
+                "INSERT INTO closecall.claims (case_id, expires_at) VALUES "
+                "(%s, clock_timestamp() + make_interval(secs => %s)) "
+                "ON CONFLICT (case_id, reviewer) DO UPDATE SET "
+                "claimed_at = excluded.claimed_at, expires_at = excluded.expires_at "
+                "RETURNING case_id, reviewer, claimed_at, expires_at",
+                (case_id, float(minutes) * 60.0),
+            ).fetchone()
+            conn.commit()
+        except BaseException:
+            if not conn.closed:
+                conn.rollback()
+            raise
+        assert row is not None
+        return Claim(str(row[0]), str(row[1]), _iso(row[2]), _iso(row[3]))
+
+    def release(self, case_id: str, reviewer: str) -> None:
+        conn = self._ledger.connection
+        conn.execute(
+            "DELETE FROM closecall.claims WHERE case_id = %s AND reviewer = session_user",
+            (case_id,),
+        )
+        conn.commit()
+
+    def active(self, case_ids: Iterable[str] | None = None) -> dict[str, list[Claim]]:
+        rows = self._ledger._read(
+            "SELECT case_id, reviewer, claimed_at, expires_at FROM closecall.claims "
+            "WHERE expires_at > clock_timestamp() ORDER BY claimed_at"
+        )
+        wanted = None if case_ids is None else set(case_ids)
+        out: dict[str, list[Claim]] = {}
+        for row in rows:
+            if wanted is None or row[0] in wanted:
+                out.setdefault(str(row[0]), []).append(
+                    Claim(str(row[0]), str(row[1]), _iso(row[2]), _iso(row[3]))
+                )
+        return out
+
+
+def open_pg_ledger(url: str, *, readonly: bool = False, inspect: bool = False) -> PgLedger:
+    """Connect to the ledger database at ``url``; refuses a URL with a password, a database
+    without the ledger schema (``closecall ledger setup``), and a user without the role."""
+    import psycopg
+
+    check_url(url)
+    conn = _connect(url)
+    ledger = PgLedger(url, conn, readonly or inspect)
+    try:
+        try:
+            marker = ledger._read("SELECT value FROM closecall.meta WHERE key = 'application'")
+        except psycopg.errors.UndefinedTable:
+            marker = []
+        except psycopg.errors.InsufficientPrivilege:
+            marker = [("closecall-ledger",)]
+        if not marker:
+            raise UserError(
+                f"{ledger.path}: this database holds no closecall ledger",
+                f"ask its owner to run: closecall ledger setup '{ledger.path}'",
+            )
+        if not inspect:
+            ledger.check_access(record=not (readonly or inspect))
+    except BaseException:
+        conn.close()
+        raise
+    return ledger

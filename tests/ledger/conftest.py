@@ -1,0 +1,33 @@
+"""Fixtures for the ledger tests: a throw-away PostgreSQL server for the whole session."""
+
+from __future__ import annotations
+
+import itertools
+import os
+from collections.abc import Iterator
+
+import pytest
+from pg_server import NoServer, PgServer, start_server
+
+_names = itertools.count(1)
+
+
+@pytest.fixture(scope="session")
+def pg_server() -> Iterator[PgServer]:
+    """A running PostgreSQL server; in CI (CI=true) a missing server fails, never skips."""
+    try:
+        server = start_server()
+    except NoServer as exc:
+        if os.environ.get("CI", "").lower() == "true":
+            pytest.fail(str(exc))
+        pytest.skip(str(exc))
+    try:
+        yield server
+    finally:
+        server.stop()
+
+
+@pytest.fixture
+def pg_db(pg_server: PgServer) -> str:
+    """The superuser's URL of a new, empty database."""
+    return pg_server.create_database(f"ledger_{os.getpid()}_{next(_names)}")

@@ -50,7 +50,16 @@ def record(
         None, "--note-file", help="Read the note from this UTF-8 file ('-' for standard input)."
     ),
     supersedes: int | None = typer.Option(
-        None, "--supersedes", help="Sequence number of an earlier entry for this case to correct."
+        None,
+        "--supersedes",
+        help="Sequence number of an earlier entry for this case to correct or replace "
+        "(also another reviewer's: the new entry takes its place).",
+    ),
+    second_opinion: bool = typer.Option(
+        False,
+        "--second-opinion",
+        help="Record beside another reviewer's decision on this case instead of replacing it "
+        "(if the two disagree, the case shows as a conflict).",
     ),
     config: Path = ConfigOption,
     as_json: bool = typer.Option(False, "--json", help="Print the new entry as JSON."),
@@ -58,7 +67,9 @@ def record(
     """Record your decision on a case in the ledger (as your login; never edited later).
 
     Prints the new entry's sequence number and hash. A correction is a new entry that names
-    the one it supersedes.
+    the one it supersedes. If another reviewer already has a decision on the case, recording
+    is refused (naming their entry) unless you replace it with --supersedes N or add yours
+    with --second-opinion.
 
     \b
     Example:
@@ -70,7 +81,9 @@ def record(
     text = _read_note_file(note_file) if note_file is not None else (note or "")
     check_text("--note", text)  # before the study is opened: fail fast on undecodable bytes
     study = load(config, quiet=as_json)
-    entry = record_review(study, case_id, action, reason, text, supersedes)
+    entry = record_review(
+        study, case_id, action, reason, text, supersedes, second_opinion=second_opinion
+    )
     if as_json:
         emit_json(entry.to_dict())
         return

@@ -163,6 +163,9 @@ def record_review(
     reason: str | None,
     note: str,
     supersedes: int | None = None,
+    *,
+    second_opinion: bool = False,
+    seen_seq: int | None = None,
 ) -> Entry:
     """Record a reviewer's decision on a case as a new ledger entry.
 
@@ -180,6 +183,12 @@ def record_review(
         Free text, stored exactly; required (non-blank) for overrides.
     supersedes
         Sequence number of an earlier entry for this case that this one corrects.
+    second_opinion
+        Record beside another reviewer's decision on the case instead of refusing.
+    seen_seq
+        The ledger's last sequence number when the reviewer opened the case (the review
+        screen): only other reviewers' decisions recorded after it refuse. None (the command
+        line): any other reviewer's decision in force refuses.
 
     Returns
     -------
@@ -195,7 +204,9 @@ def record_review(
     UserError
         Unknown case, action, reason or superseded entry; missing reason or note for an
         override; text that is not valid UTF-8; a snapshot whose files changed on disk since
-        it was opened (fix: ``closecall fit --refit``). The ledger is not touched.
+        it was opened (fix: ``closecall fit --refit``); another reviewer's decision in force
+        on the case (:class:`~closecall.review.conflicts.ConflictingDecision`, unless
+        ``supersedes`` names it or ``second_opinion``). The ledger is not touched.
     """
     config = study.config
     login = require_record(config.review, config.path)
@@ -227,6 +238,16 @@ def record_review(
     )
     if supersedes is not None:
         _check_supersedes(config, case_id, supersedes)
+    from closecall.review.conflicts import check_no_collision
+
+    check_no_collision(
+        config,
+        case_id,
+        login,
+        seen_seq=seen_seq,
+        supersedes=supersedes,
+        second_opinion=second_opinion,
+    )
     with open_ledger(config.review.ledger) as ledger:
         return ledger.append(content)
 

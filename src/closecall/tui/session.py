@@ -14,11 +14,12 @@ from datetime import UTC, datetime
 import numpy as np
 
 from closecall.analysis.margin_distribution import MarginDistribution, margin_distribution
+from closecall.review.conflicts import study_conflicts
 from closecall.review.decisions import active_claims, latest_actions
 from closecall.review.ledger import Claim, current_login
 from closecall.review.query import QueueQuery, answer_queue
 from closecall.review.queue import Queue
-from closecall.review.states import review_states
+from closecall.review.states import mark_conflicts, review_states
 from closecall.suite.opening import OpenedStudy
 from closecall.tui import analysis_bridge
 
@@ -218,6 +219,7 @@ class ReviewSession:
         """Read each case's latest action and the claims (call from a worker)."""
         latest = latest_actions(self.config)  # one query, however long the ledger
         self.states = review_states(self.snap, latest)  # codes match marks.STATE_OF_ACTION
+        self.states = mark_conflicts(self.snap, self.states, study_conflicts(self.config))
         self.claims = active_claims(self.study)
 
     def claimed_by_others(self, case_id: str) -> list[str]:

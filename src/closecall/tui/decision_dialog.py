@@ -20,15 +20,16 @@ from textual.screen import ModalScreen
 from textual.timer import Timer
 from textual.widgets import Static, TextArea
 
-from closecall.cli.output import safe_text
 from closecall.core.errors import UserError
+from closecall.core.text import safe_text, signed
+from closecall.review.conflicts import ConflictingDecision, last_seq
 from closecall.review.decisions import claim_case, load_draft, record_review, release_claim
 from closecall.review.ledger import ACTIONS, Entry
 from closecall.suite.snapshot import decision_word
 from closecall.tui.choice_list import ChoiceList
+from closecall.tui.conflict_prompt import SECOND_OPINION, SUPERSEDE, ConflictPrompt
 from closecall.tui.draft_keeper import DraftKeeper, DraftValue
 from closecall.tui.key_bar import KeyBar
-from closecall.tui.marks import signed
 from closecall.tui.session import ReviewSession
 
 DRAFT_PAUSE_SECONDS = 0.6  # save the draft this long after the last keystroke
@@ -69,6 +70,7 @@ class DecisionDialog(ModalScreen[Entry | None]):
         self._claim = claim
         self._timer: Timer | None = None
         self._loading = True
+        self.seen_seq: int | None = None  # the ledger's last entry when the dialog opened
 
     # ------------------------------------------------------------------ layout
 
@@ -105,6 +107,7 @@ class DecisionDialog(ModalScreen[Entry | None]):
     def _load(self) -> None:
         draft = None
         try:
+            self.seen_seq = last_seq(self.session.config)
             draft = load_draft(self.session.study, self.case_id)
             if self._claim:
                 claim_case(self.session.study, self.case_id)
@@ -191,11 +194,23 @@ class DecisionDialog(ModalScreen[Entry | None]):
         self._record(value)
 
     @work(thread=True, exclusive=True, group="record")
-    def _record(self, value: DraftValue) -> None:
+    def _record(
+        self, value: DraftValue, supersedes: int | None = None, second_opinion: bool = False
+    ) -> None:
         try:
             entry = record_review(
-                self.session.study, self.case_id, str(value.action), value.reason, value.note
+                self.session.study,
+                self.case_id,
+                str(value.action),
+                value.reason,
+                value.note,
+                supersedes,
+                second_opinion=second_opinion,
+                seen_seq=self.seen_seq,
             )
+        except ConflictingDecision as exc:
+            self.app.call_from_thread(self._conflict, exc, value)
+            return
         except UserError as exc:
             self.app.call_from_thread(self._refused, exc)
             return
@@ -208,6 +223,25 @@ class DecisionDialog(ModalScreen[Entry | None]):
         if exc.fix:
             text.append(f"\n  {_dialog_fix(exc.fix)}")
         self.query_one("#dialog-status", Static).update(text)
+
+    def _conflict(self, exc: ConflictingDecision, value: DraftValue) -> None:
+        """Another reviewer decided meanwhile: show it and ask (replace, beside, cancel)."""
+        first = exc.others[0].seq
+
+        def answered(answer: str | None) -> None:
+            if answer == SUPERSEDE:
+                self.say(f"recording (supersedes entry {first})…")
+                self._record(value, supersedes=first)
+            elif answer == SECOND_OPINION:
+                self.say("recording as a second opinion…")
+                self._record(value, second_opinion=True)
+            else:
+                self.say(
+                    f"✗ not recorded: entry {first} by {safe_text(exc.others[0].reviewer)} "
+                    "decided this case meanwhile; your draft is kept"
+                )
+
+        self.app.push_screen(ConflictPrompt(self.case_id, exc.others), answered)
 
     def _recorded(self, entry: Entry) -> None:
         self.entry = entry

@@ -35,6 +35,7 @@ from typing import Any
 import numpy as np
 from scipy.special import logit
 
+from closecall.core.numbers import REPLICATES_MAX, check_count, check_seed
 from closecall.suite.snapshot import Snapshot
 
 MAX_BLOCKS = 20_000
@@ -122,6 +123,8 @@ def compare_models(
     seed : seed of the bootstrap (same seed, same intervals)
     level : interval coverage
     """
+    check_count("--boot", n_boot, 100, REPLICATES_MAX, example="1000")
+    check_seed("--seed", seed)
     lens_obj = snap.lens(lens)
     y = np.asarray(snap.hist_y)
     hg = np.asarray(snap.hist_group_codes)

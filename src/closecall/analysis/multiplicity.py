@@ -59,7 +59,8 @@ from closecall.analysis.fitted_rows import (
 )
 from closecall.analysis.groups import group_slices
 from closecall.core.errors import UserError
-from closecall.setup.config import MultiplicityConfig
+from closecall.core.numbers import check_number
+from closecall.setup.config import EPSILON_MAX, MultiplicityConfig
 from closecall.suite.snapshot import Snapshot
 
 UNCERTAINTY_EPSILON = float(chi2.ppf(0.95, df=1) / 2.0)  # 1.9207: the 95 % Wald band
@@ -136,8 +137,7 @@ def bands(
 ) -> Bands:
     """Uncertainty and equally-good bands for every case (vectorised, from stored x̃ᵀH⁻¹x̃)."""
     _weighted(snap, model)
-    if epsilon <= 0:
-        raise UserError(f"epsilon must be positive, got {epsilon}", "pass e.g. --epsilon 0.01")
+    check_number("epsilon (--epsilon)", epsilon, 0, EPSILON_MAX, low_open=True, example="0.002")
     _, row_of_case = snap.weights(model)
     best = np.asarray(snap.objective(model), dtype=float)[np.asarray(row_of_case)]
     quad = np.asarray(snap.quad(model), dtype=float)
@@ -383,13 +383,17 @@ def exact_band(
     -------
     dict with ``low``/``high`` (exact; ±inf when the set is unbounded that way, which only an
     unpenalised fit of separated data allows), ``closed_low``/``closed_high`` (closed form),
-    ``slack`` (absolute ε used), ``epsilon``, ``absolute``, ``margin``, ``best_objective``.
+    ``slack`` (absolute ε used), ``epsilon``, ``absolute``, ``margin``, ``best_objective``,
+    ``one_outcome`` (the fit's training rows hold one outcome value: its loss has no minimum,
+    ``best_objective`` is the infimum 0 and the set is unbounded towards that outcome).
     """
     snap: Snapshot = study.snapshot
     _weighted(snap, model)
     eps = float(study.config.multiplicity.epsilon if epsilon is None else epsilon)
-    if eps <= 0:
-        raise UserError(f"epsilon must be positive, got {eps}")
+    if absolute:
+        check_number("the loss slack", eps, 0, low_open=True, example="1.92")
+    else:
+        check_number("epsilon", eps, 0, EPSILON_MAX, low_open=True, example="0.002")
     i = snap.case_index(case_id)
     _, row_of_case = snap.weights(model)
     r = int(np.asarray(row_of_case)[i])
@@ -401,6 +405,15 @@ def exact_band(
     t = float(logit_fn(snap.lens(lens).threshold))
     w_hat = _tilted_minimum(Xt, y, fr.penalty, c, 0.0, fr.active)
     f_hat, _, H = penalised_objective(w_hat, Xt, y, fr.penalty)
+    # One outcome value in the fit's training rows (a flagged fit, docs/methods.md §5a): the
+    # unpenalised intercept has no finite optimum; the loss falls towards its infimum 0 as the
+    # intercept runs to +inf (all favourable) or -inf, and w_hat is only where the solver
+    # stopped. The set is then taken about the infimum: unbounded towards the outcome, and a
+    # relative slack of 0 leaves only that limit.
+    toward = 0.0
+    if len(y) and float(y.min()) == float(y.max()):
+        toward = 1.0 if float(y[0]) > 0 else -1.0
+        f_hat = 0.0
     slack = eps if absolute else eps * f_hat
     chol = np.linalg.cholesky(H)
     quad = float(c @ cho_solve((chol, True), c))
@@ -415,6 +428,8 @@ def exact_band(
         excess increasing in the tilt and the search a bisection.
         """
 
+        if toward and (sign == toward or slack <= 0.0):
+            return toward * np.inf
         last = {"w": w_hat}  # warm start from the previous tilt's solution
 
         def excess(log_tau: float) -> float:
@@ -476,4 +491,5 @@ def exact_band(
         "high": high,
         "closed_low": m_hat - hw,
         "closed_high": m_hat + hw,
+        "one_outcome": bool(toward),
     }

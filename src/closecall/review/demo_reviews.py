@@ -12,6 +12,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from closecall.core.errors import UserError
+from closecall.core.numbers import check_count, check_number, check_seed
 from closecall.reports.disparity.simulate import simulate_actions
 from closecall.reports.disparity.table import DEFER, UPHOLD
 from closecall.review.decisions import check_action, check_note, check_reason
@@ -83,12 +84,10 @@ def simulate_reviews(
     """
     config = study.config
     require_record(config.review, config.path)
-    if n < 1:
-        raise UserError(f"N = {n}: record at least one review")
-    if reviewers < 1:
-        raise UserError(f"--reviewers {reviewers}: need at least one simulated reviewer")
-    if bias <= 0:
-        raise UserError(f"--bias {bias}: the bias is an odds ratio and must be positive")
+    check_count("N (reviews to record)", n, 1, example="300")
+    check_count("--reviewers", reviewers, 1, example="4")
+    check_number("--bias (an odds ratio)", bias, 0, low_open=True, example="2.0")
+    check_seed("--seed", seed)
     nb = reviewers if biased_reviewers is None else biased_reviewers
     if not 0 <= nb <= reviewers:
         raise UserError(f"--biased-reviewers {nb}: must be between 0 and {reviewers}")

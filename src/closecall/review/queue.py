@@ -25,6 +25,8 @@ import numpy as np
 from scipy.special import logit
 
 from closecall.core.errors import UserError
+from closecall.core.numbers import check_count, check_number
+from closecall.setup.config import EPSILON_MAX
 from closecall.suite.snapshot import Snapshot, decision_word
 
 SORT_KEYS = ("closeness", "margin", "ambiguity", "dependence", "id")
@@ -139,8 +141,7 @@ def build_queue(
     """
     if sort not in SORT_KEYS:
         raise UserError(f"unknown sort key '{sort}'", f"use one of: {', '.join(SORT_KEYS)}")
-    if band < 0:
-        raise UserError("the review band must be >= 0", "pass a band such as 0.5")
+    check_queue_numbers(band, (options or {}).get("epsilon"))
     if rests_on_part is not None and rests_on_part not in RESTS_ON:
         raise UserError(
             f"unknown part '{rests_on_part}' for --rests-on", f"use one of: {', '.join(RESTS_ON)}"
@@ -198,10 +199,24 @@ def build_queue(
     return Queue(snap.id, order, margin, grid, band, sort, counts, measures)
 
 
+def check_queue_numbers(band: object, epsilon: object = None) -> None:
+    """Refuse a review band or relative ε that is NaN, infinite or out of range.
+
+    The band is |margin| in log-odds (≥ 0; 0 lists the flips only); ε is the equally-good set's
+    slack, the range of ``[multiplicity] epsilon`` (docs/config.md).
+    """
+    check_number("--band", band, 0, example="0.5")
+    if epsilon is not None:
+        check_number("--epsilon", epsilon, 0, EPSILON_MAX, low_open=True, example="0.002")
+
+
 def queue_rows(
     snap: Snapshot, q: Queue, start: int = 0, stop: int | None = None
 ) -> list[dict[str, Any]]:
     """Plain rows for display or JSON, for queue positions [start, stop)."""
+    check_count("the first position", start, 0)
+    if stop is not None:
+        check_count("--limit (rows to show; 0 = all)", stop, start, example="20")
     rows = q.order[start:stop]
     first = snap.lenses[0].name
     labels = snap.group_labels

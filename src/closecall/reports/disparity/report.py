@@ -10,6 +10,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
+from closecall.core.numbers import REPLICATES_MAX, check_count, check_seed
 from closecall.reports.disparity.calibration import CalibrationReport, calibration_by_group
 from closecall.reports.disparity.conditional import ConditionalFit, conditional_disparity
 from closecall.reports.disparity.errors_by_group import ErrorComparison, error_rates
@@ -141,6 +142,8 @@ def build_report(
     """
     if n_boot < 100:
         raise ValueError("n_boot should be at least 100 for percentile intervals")
+    check_count("--boot", n_boot, 100, REPLICATES_MAX, example="2000")
+    check_seed("--seed", seed)
     df = check_reviews(reviews)
     groups = group_order(df)
     with_outcome = "outcome" in df.columns

@@ -3,6 +3,13 @@
 from __future__ import annotations
 
 import json
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+from typing import Any
 
 import psycopg
 import pytest
@@ -12,10 +19,12 @@ from pg_server import PgServer
 from closecall.core.errors import AccessDenied, UserError
 from closecall.review.ledger.pg_store import (
     check_url,
+    is_url,
     open_pg_ledger,
     redact,
     setup,
 )
+from closecall.review.ledger.store import open_ledger
 
 
 def _as(url: str, user: str) -> str:
@@ -173,3 +182,249 @@ def test_a_server_that_is_down_is_one_message_with_the_url(pg_server: PgServer) 
 def test_a_database_without_setup_is_refused(pg_db: str) -> None:
     with pytest.raises(UserError, match="ledger setup"):
         open_pg_ledger(pg_db)
+
+
+# ---------------------------------------------------------------------- concurrency
+
+WRITER = Path(__file__).with_name("pg_writer.py")
+
+
+def _writers(where: str, n: int, count: int) -> list[subprocess.Popen[str]]:
+    """``n`` writer processes, half on one connection each, half reconnecting per entry."""
+    return [
+        subprocess.Popen(
+            [sys.executable, str(WRITER), where, str(count), "one" if k % 2 else "each", f"w{k}"],
+            stdout=subprocess.PIPE,
+            text=True,
+        )
+        for k in range(n)
+    ]
+
+
+@pytest.fixture(params=["sqlite", "postgresql"])
+def backend(request: pytest.FixtureRequest, tmp_path: Path) -> str:
+    """Where a ledger lives: an SQLite file, or a set-up PostgreSQL database (as its owner)."""
+    if request.param == "sqlite":
+        return str(tmp_path / "ledger.sqlite")
+    url: str = request.getfixturevalue("pg_db")
+    setup(url)
+    return url
+
+
+def _open_any(where: str, readonly: bool = True) -> Any:
+    return (
+        open_pg_ledger(where, readonly=readonly)
+        if is_url(where)
+        else open_ledger(where, readonly=readonly)
+    )
+
+
+def test_eight_writers_append_4000_entries_without_a_gap(backend: str) -> None:
+    procs = _writers(backend, 8, 500)
+    for p in procs:
+        assert p.wait(timeout=300) == 0
+    with _open_any(backend) as ledger:
+        result = ledger.verify()
+        seqs = [r["seq"] for r in ledger.iter_rows()]
+        per_writer = {e.case_id.split("-")[0] for e in ledger.entries(limit=4000)}
+    assert result.ok, result.problem
+    assert seqs == list(range(1, 4001))  # exactly 4,000, gap-free, in order
+    assert per_writer == {f"w{k}" for k in range(8)}
+
+
+def test_writers_killed_mid_transaction_leave_a_valid_chain(backend: str) -> None:
+    import random
+
+    rng = random.Random(7)
+    before = 0
+    for _ in range(4):
+        procs = _writers(backend, 4, 10_000)
+        for p in procs:
+            assert p.stdout is not None and p.stdout.readline().strip() == "ready"
+        deadline = time.monotonic() + 60
+        while time.monotonic() < deadline:  # until the writers are well under way
+            if os.path.exists(backend) or is_url(backend):
+                with _open_any(backend) as ledger:
+                    if ledger.count() >= before + 20:
+                        break
+            time.sleep(0.05)
+        time.sleep(rng.uniform(0.0, 0.2))
+        for p in procs:
+            os.kill(p.pid, signal.SIGKILL)
+            p.wait()
+        with _open_any(backend) as ledger:
+            result = ledger.verify()
+            assert result.ok, result.problem
+            assert result.verified == ledger.count() > before
+            before = result.verified
+
+
+# ---------------------------------------------------------------------- tampering
+
+
+def _tamper(admin: str, *sql: str) -> None:
+    """A superuser who bypasses the guards: triggers disabled for the change, then restored."""
+    with psycopg.connect(admin, autocommit=True) as conn:
+        conn.execute("ALTER TABLE closecall.entries DISABLE TRIGGER USER")
+        for statement in sql:
+            conn.execute(statement)  # type: ignore[arg-type]
+        conn.execute("ALTER TABLE closecall.entries ENABLE TRIGGER USER")
+
+
+@pytest.mark.parametrize(
+    ("sql", "kind"),
+    [
+        (
+            ["UPDATE closecall.entries SET body = replace(body, 'uphold', 'defer') WHERE seq = 2"],
+            "edited",
+        ),
+        (
+            [
+                'UPDATE closecall.entries SET body = replace(body, \'"note":"two"\', '
+                '\'"note":"2"\'), hash = encode(sha256(convert_to(replace(body, \'"note":"two"\','
+                " '\"note\":\"2\"'), 'UTF8')), 'hex') WHERE seq = 2"
+            ],
+            "wrong-predecessor",
+        ),
+        (["DELETE FROM closecall.entries WHERE seq = 2"], "missing"),
+        (["DELETE FROM closecall.entries WHERE seq = 3"], "anchor-not-found"),
+        (
+            [
+                "UPDATE closecall.entries SET body = replace(body, '\"seq\":1', '\"seq\":9') "
+                "WHERE seq = 1"
+            ],
+            "edited",
+        ),
+    ],
+)
+def test_tampering_by_a_superuser_is_detected_by_verify(
+    team: dict[str, str], sql: list[str], kind: str
+) -> None:
+    with open_pg_ledger(team["alice"]) as ledger:
+        for note in ("one", "two", "three"):
+            ledger.append(content(note))
+        anchor = ledger.head()[1]
+        assert ledger.verify(anchor).ok
+    _tamper(team["admin"], *sql)
+    with open_pg_ledger(team["ann"], readonly=True) as ledger:
+        result = ledger.verify(anchor)
+    assert not result.ok
+    assert result.problem is not None and result.problem.kind == kind
+
+
+def test_the_owner_too_is_stopped_by_the_triggers(team: dict[str, str]) -> None:
+    """The owner keeps its privileges; the triggers alone refuse the change."""
+    with open_pg_ledger(team["alice"]) as ledger:
+        ledger.append(content("one"))
+    statements = (
+        "UPDATE closecall.entries SET case_id = 'x'",
+        "DELETE FROM closecall.entries",
+        "TRUNCATE closecall.entries",
+    )
+    with psycopg.connect(team["admin"], autocommit=True) as conn:
+        for sql in statements:
+            with pytest.raises(psycopg.errors.InsufficientPrivilege, match="append-only"):
+                conn.execute(sql)  # type: ignore[arg-type]
+
+
+def test_a_disabled_guard_is_named_by_verify(team: dict[str, str]) -> None:
+    with open_pg_ledger(team["alice"]) as ledger:
+        ledger.append(content("one"))
+    with psycopg.connect(team["admin"], autocommit=True) as conn:
+        conn.execute("ALTER TABLE closecall.entries DISABLE TRIGGER entries_no_change")
+    with open_pg_ledger(team["ann"], readonly=True) as ledger:
+        result = ledger.verify()
+    assert not result.ok and "entries_no_change" in str(result.problem)
+
+
+# ---------------------------------------------------------------------- migrate
+
+
+def test_migrate_a_10000_entry_sqlite_ledger_keeps_the_head_hash(
+    pg_db: str, tmp_path: Path
+) -> None:
+    from closecall.review.ledger.pg_store import migrate
+
+    source = tmp_path / "ledger.sqlite"
+    with open_ledger(source) as ledger:
+        ledger.connection.execute("PRAGMA synchronous = OFF")  # test speed only
+        for i in range(10_000):
+            ledger.append(content(f"n{i}", case_id=f"C-{i % 97}"))
+        want = ledger.head()
+        assert ledger.verify().ok
+    setup(pg_db)
+    count, head = migrate(open_ledger(source, readonly=True), pg_db)
+    assert (count, head) == want
+    with open_pg_ledger(pg_db, readonly=True) as target:
+        result = target.verify()
+        assert result.ok and result.verified == 10_000
+        # every entry as stored: the same reviewer (not the owner who copied) and time
+        assert target.entry(1234) == open_ledger(source, readonly=True).entry(1234)
+    with pytest.raises(UserError, match="already holds 10000 entries"):
+        migrate(open_ledger(source, readonly=True), pg_db)
+
+
+def test_migrate_by_a_reviewer_is_refused(team: dict[str, str], tmp_path: Path) -> None:
+    from closecall.review.ledger.pg_store import migrate
+
+    source = tmp_path / "ledger.sqlite"
+    with open_ledger(source) as ledger:
+        ledger.append(content("one"))
+    with pytest.raises(UserError, match="owner"):
+        migrate(open_ledger(source, readonly=True), team["alice"])
+    with open_pg_ledger(team["ann"], readonly=True) as target:
+        assert target.count() == 0
+
+
+# ---------------------------------------------------------------------- drafts, claims
+
+_DRAFT_SCRIPT = """
+import sys, json
+from closecall.review.ledger.pg_store import open_pg_ledger
+url, op = sys.argv[1], sys.argv[2]
+with open_pg_ledger(url) as ledger:
+    if op == "save":
+        ledger.drafts.save("ignored", "A-1", "typed on " + __import__("os").environ["HOSTNAME"],
+                           "uphold", None)
+    else:
+        d = ledger.drafts.load("ignored", "A-1")
+        print(json.dumps(None if d is None else [d.reviewer, d.note]))
+"""
+
+
+def test_a_draft_follows_the_reviewer_to_another_host(team: dict[str, str]) -> None:
+    def run(url: str, op: str, host: str) -> str:
+        env = {**os.environ, "HOSTNAME": host}
+        out = subprocess.run(
+            [sys.executable, "-c", _DRAFT_SCRIPT, url, op],
+            env=env,
+            capture_output=True,
+            text=True,
+            check=True,
+        )
+        return out.stdout.strip()
+
+    run(team["alice"], "save", "office-a")
+    alice = team["alice"].split("://")[1].split("@")[0]
+    assert json.loads(run(team["alice"], "load", "office-b")) == [alice, "typed on office-a"]
+    assert json.loads(run(team["bob"], "load", "office-b")) is None  # not bob's draft
+    with psycopg.connect(team["bob"]) as conn:  # row-level security: bob sees none of it
+        assert conn.execute("SELECT count(*) FROM closecall.drafts").fetchone() == (0,)
+        conn.execute("DELETE FROM closecall.drafts")
+    assert json.loads(run(team["alice"], "load", "office-b")) == [alice, "typed on office-a"]
+
+
+def test_recording_removes_the_draft_and_claims_expire_by_server_time(
+    team: dict[str, str],
+) -> None:
+    with open_pg_ledger(team["alice"]) as ledger:
+        ledger.drafts.save("x", "A-1", "half", None, None)
+        ledger.claims.take("A-1", "x", minutes=0.0)  # expires at once, by the server clock
+        ledger.claims.take("A-2", "x", minutes=30)
+        assert set(ledger.claims.active()) == {"A-2"}
+        ledger.append(content("done"))
+        assert ledger.drafts.load("x", "A-1") is None
+    with open_pg_ledger(team["bob"]) as ledger:
+        assert list(ledger.claims.active()) == ["A-2"]  # bob sees alice's claim
+        ledger.claims.release("A-2", "x")  # but cannot withdraw it
+        assert list(ledger.claims.active()) == ["A-2"]

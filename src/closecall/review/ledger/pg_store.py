@@ -164,7 +164,11 @@ def _schema_sql(reviewer: str, analyst: str) -> list[str]:
             BEGIN
               SELECT * INTO h FROM closecall.head WHERE one FOR UPDATE;
               b := NEW.body::jsonb;
-              IF NEW.reviewer IS DISTINCT FROM session_user::text
+              IF current_setting('closecall.copying', true) = 'on'
+                 AND pg_has_role(session_user, (SELECT relowner FROM pg_class
+                     WHERE oid = 'closecall.entries'::regclass), 'MEMBER') THEN
+                NEW.reviewer := b->>'reviewer';  -- ledger migrate, by the owner only
+              ELSIF NEW.reviewer IS DISTINCT FROM session_user::text
                  OR b->>'reviewer' IS DISTINCT FROM session_user::text THEN
                 RAISE EXCEPTION 'closecall: an entry records the session user %, not %',
                   session_user, coalesce(b->>'reviewer', NEW.reviewer)
@@ -654,6 +658,84 @@ class PgClaims:
                     Claim(str(row[0]), str(row[1]), _iso(row[2]), _iso(row[3]))
                 )
         return out
+
+
+def migrate(source: PgLedger | Any, url: str) -> tuple[int, str]:
+    """Copy every entry of ``source`` (an open ledger of either kind) into the empty,
+    set-up PostgreSQL ledger at ``url`` in one transaction, exactly as stored (same reviewer,
+    time, canonical body and hash); returns the target's (count, head hash).
+
+    Run by the database owner (only the owner may store entries in other users' names). The
+    server checks every link and hash as it copies; a non-empty target is refused.
+    """
+    import psycopg
+
+    target = open_pg_ledger(url, inspect=True)
+    try:
+        if target.count() > 0:
+            raise UserError(
+                f"{target.path}: the target ledger already holds {target.count()} entries",
+                "migrate into a freshly set-up, empty database (closecall ledger setup URL)",
+            )
+        conn = target.connection
+        try:
+            conn.execute("SET LOCAL closecall.copying = 'on'")
+            owner = conn.execute(
+                "SELECT pg_has_role(session_user, relowner, 'MEMBER') FROM pg_class "
+                "WHERE oid = 'closecall.entries'::regclass"
+            ).fetchone()
+            if not owner or not owner[0]:
+                user = conn.execute("SELECT session_user").fetchone()
+                raise UserError(
+                    f"{target.path}: database user '{user[0] if user else '?'}' does not own "
+                    "the ledger tables, and only their owner may copy entries recorded by "
+                    "other people",
+                    "run 'closecall ledger migrate' as the database owner who ran "
+                    "'closecall ledger setup'",
+                )
+            conn.execute("SELECT * FROM closecall.lock_head()")
+            copied = 0
+            with conn.cursor() as cur:
+                batch: list[tuple[Any, ...]] = []
+                for row in source.iter_rows():
+                    fields = {**row, "decisions": json.loads(row["decisions"])}
+                    names = _hashed_names(int(fields["format"]))
+                    body = canonical_json({k: fields[k] for k in names}).decode("utf-8")
+                    batch.append(
+                        (
+                            fields["seq"],
+                            fields["case_id"],
+                            fields["action"],
+                            body,
+                            fields["hash"],
+                            fields["prev_hash"],
+                        )
+                    )
+                    if len(batch) >= 1000:
+                        cur.executemany(_COPY_SQL, batch)
+                        copied += len(batch)
+                        batch = []
+                if batch:
+                    cur.executemany(_COPY_SQL, batch)
+                    copied += len(batch)
+            conn.commit()
+        except psycopg.Error as exc:
+            conn.rollback()
+            raise UserError(
+                f"{target.path}: the copy was refused by the server and nothing was copied "
+                f"({exc.diag.message_primary or str(exc).strip()})",
+                "run 'closecall ledger verify' on the source ledger: an entry that does not "
+                "hash or link as recorded cannot be copied",
+            ) from None
+        return target.head()[0], target.head()[1]
+    finally:
+        target.close()
+
+
+_COPY_SQL = (
+    "INSERT INTO closecall.entries (seq, case_id, action, body, hash, prev_hash) "
+    "VALUES (%s, %s, %s, %s, %s, %s)"
+)
 
 
 def open_pg_ledger(url: str, *, readonly: bool = False, inspect: bool = False) -> PgLedger:

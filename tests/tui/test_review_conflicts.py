@@ -83,3 +83,21 @@ async def test_supersede_replaces_the_other_decision(
         assert dialog.entry.supersedes == 1  # type: ignore[attr-defined]
     row = study.snapshot.case_index(case_id)
     assert int(ledger_states(study)[row]) != CONFLICT
+
+
+@synchronous
+async def test_a_draft_without_note_text_is_not_kept(study: OpenedStudy) -> None:
+    from closecall.review.decisions import load_draft, my_drafts
+
+    app = ReviewApp(study=study, login="reviewer")
+    async with app.run_test(size=SIZE) as pilot:
+        await open_queue(pilot)
+        case_id = str(study.snapshot.case_ids[app.session.queue.order[0]])  # type: ignore[union-attr]
+        await pilot.press("d")
+        await wait_until(pilot, lambda: isinstance(app.screen, DecisionDialog))
+        await pilot.press("2", "2")  # an action and a reason, then a note typed and erased
+        await pilot.press(*"abc", "backspace", "backspace", "backspace")
+        await pilot.pause(1.0)  # past the pause that saves drafts
+        await pilot.press("escape")
+        await wait_until(pilot, lambda: not isinstance(app.screen, DecisionDialog))
+    assert load_draft(study, case_id) is None and my_drafts(study) == []

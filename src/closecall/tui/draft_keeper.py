@@ -22,7 +22,8 @@ class DraftValue:
 
     @property
     def empty(self) -> bool:
-        return not self.note.strip() and self.action is None and self.reason is None
+        """No note text: nothing worth keeping (a chosen action or reason alone is not kept)."""
+        return not self.note.strip()
 
 
 class DraftKeeper:

@@ -1,0 +1,232 @@
+"""Frozen results of :class:`closecall.Study`: typed fields, ``to_dict()`` for JSON and, for
+per-case tables, ``to_frame()`` (one row per case, flat columns)."""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+
+if TYPE_CHECKING:
+    import pandas as pd
+
+    from closecall.review.ledger import Entry
+    from closecall.review.query import QueueAnswer, QueueQuery
+    from closecall.suite.snapshot import Snapshot
+
+
+def _plain(value: Any) -> Any:
+    """Tuples and mappings turned into JSON-ready lists and dicts."""
+    if isinstance(value, Mapping):
+        return {str(k): _plain(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_plain(v) for v in value]
+    if isinstance(value, np.generic):
+        return value.item()
+    return value
+
+
+@dataclass(frozen=True)
+class QueueResult:
+    """The cases a :class:`~closecall.QueueQuery` lists, in order.
+
+    Attributes
+    ----------
+    snapshot_id, reference, lens
+        The snapshot, its reference model and the operative cost lens the margins are under.
+    band, sort
+        The review band (log-odds) and the order used.
+    query
+        The request answered.
+    counts
+        ``cases``, ``close_calls``, ``within_band``, ``flips``, ``listed`` and, when the
+        ledger is readable, ``reviewed`` (decided) and ``deferred``.
+    case_ids
+        The listed case ids, in order (after the limit).
+    """
+
+    snapshot_id: str
+    reference: str
+    lens: str
+    band: float
+    sort: str
+    query: QueueQuery
+    counts: Mapping[str, int]
+    case_ids: tuple[str, ...]
+    _answer: QueueAnswer = field(repr=False, compare=False)
+    _snapshot: Snapshot = field(repr=False, compare=False)
+
+    def __len__(self) -> int:
+        return len(self.case_ids)
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready: the header and one dict per listed case (as ``closecall queue --json``).
+
+        Examples
+        --------
+        >>> result = study.queue(QueueQuery(limit=3))  # doctest: +SKIP
+        >>> result.to_dict()["rows"][0]["case_id"]  # doctest: +SKIP
+        'HR-0002696'
+        """
+        return {
+            "snapshot": self.snapshot_id,
+            "reference": self.reference,
+            "lens": self.lens,
+            "band": self.band,
+            "sort": self.sort,
+            "query": self.query.to_dict(),
+            "counts": dict(self.counts),
+            "rows": self._answer.rows(self._snapshot),
+        }
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per listed case with flat columns.
+
+        Columns: ``rank``, ``case_id``, ``group``, ``margin`` (reference model, log-odds,
+        > 0 favourable), ``decision``, ``flip``, ``differs`` (the ``model@lens`` pairs that
+        decide otherwise, ``;``-separated), ``margin_<model>`` and ``decision_<model>`` for
+        every model, any measure the query used (``ambiguity``, ``dependence``), and
+        ``state`` and ``claimed_by`` when the ledger is readable.
+
+        Examples
+        --------
+        >>> frame = study.queue().to_frame()  # doctest: +SKIP
+        >>> frame[["case_id", "margin", "state"]].head()  # doctest: +SKIP
+        """
+        import pandas as pd
+        from scipy.special import logit
+
+        from closecall.review.states import STATE_NAMES
+
+        snap, answer = self._snapshot, self._answer
+        q, rows = answer.queue, answer.listed
+        margin = q.margin[rows]
+        differs = q.grid.differs[rows]
+        joined = np.full(len(rows), "", dtype=object)
+        for j, (model, lens) in enumerate(q.grid.pairs):
+            joined = np.where(differs[:, j], joined + f"{model}@{lens};", joined)
+        cols: dict[str, Any] = {
+            "rank": np.arange(1, len(rows) + 1),
+            "case_id": np.asarray(snap.case_ids)[rows].astype(str),
+            "group": np.asarray(snap.group_labels)[rows].astype(str),
+            "margin": margin,
+            "decision": np.where(margin > 0, "favourable", "unfavourable"),
+            "flip": differs.any(axis=1),
+            "differs": [s.rstrip(";") for s in joined],
+        }
+        t0 = float(logit(snap.lenses[0].threshold))
+        for m in snap.model_names:
+            mm = np.asarray(snap.logit(m))[rows] - t0
+            cols[f"margin_{m}"] = mm
+            cols[f"decision_{m}"] = np.where(mm > 0, "favourable", "unfavourable")
+        for name, values in q.measures.items():
+            cols[name] = np.asarray(values)[rows]
+        if answer.states is not None:
+            cols["state"] = np.asarray(STATE_NAMES)[answer.states[rows]]
+            cols["claimed_by"] = [";".join(answer.claimed.get(c, [])) for c in cols["case_id"]]
+        return pd.DataFrame(cols)
+
+
+@dataclass(frozen=True)
+class Explanation:
+    """Why one case is close: every quantity of the analysis for it.
+
+    Attributes
+    ----------
+    case_id, group
+        The case and its group level.
+    margin, decision
+        The pooled model's margin (log-odds, > 0 favourable) and decision under ``lens``.
+    lens
+        The cost lens's name.
+    details
+        Everything else, as ``closecall explain --json`` gives it (suite decisions,
+        contributions, dependence, counterparts, bands, neighbours, fit flags).
+    """
+
+    case_id: str
+    group: str
+    margin: float
+    decision: str
+    lens: str
+    details: Mapping[str, Any] = field(repr=False)
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready, the same keys as ``closecall explain --json``.
+
+        Examples
+        --------
+        >>> study.explain("HR-0002696").to_dict()["dependence"]["share"]  # doctest: +SKIP
+        """
+        return dict(_plain(self.details))
+
+
+@dataclass(frozen=True)
+class Report:
+    """A study-wide result (proxies, bands, a model comparison, weights, the disparity report).
+
+    Attributes
+    ----------
+    kind
+        Which report: ``proxies``, ``bands``, ``compare``, ``model`` or ``disparity``.
+    snapshot_id
+        The snapshot it was computed on.
+    data
+        Its figures, as the command's ``--json`` gives them.
+    """
+
+    kind: str
+    snapshot_id: str
+    data: Mapping[str, Any] = field(repr=False)
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready figures.
+
+        Examples
+        --------
+        >>> study.bands().to_dict()["epsilon"]  # doctest: +SKIP
+        """
+        return {"kind": self.kind, "snapshot": self.snapshot_id, **_plain(self.data)}
+
+
+@dataclass(frozen=True)
+class LedgerEntries:
+    """Ledger entries in sequence order.
+
+    Attributes
+    ----------
+    entries
+        The entries (frozen :class:`closecall.review.ledger.Entry` records).
+    """
+
+    entries: tuple[Entry, ...]
+
+    def __len__(self) -> int:
+        return len(self.entries)
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready: ``{"entries": [...]}``, each entry as ``closecall ledger show --json``.
+
+        Examples
+        --------
+        >>> study.ledger.show(limit=5).to_dict()["entries"][0]["action"]  # doctest: +SKIP
+        """
+        return {"entries": [e.to_dict() for e in self.entries]}
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per entry, flat columns (the per-model decisions left out: see to_dict).
+
+        Examples
+        --------
+        >>> study.ledger.show().to_frame()[["seq", "case_id", "action"]]  # doctest: +SKIP
+        """
+        import pandas as pd
+
+        names = ("seq", "time", "reviewer", "case_id", "snapshot_id", "reference_model",
+                 "reference_decision", "reference_margin", "action", "reason", "note",
+                 "supersedes", "hash")  # fmt: skip
+        return pd.DataFrame(
+            {n: [getattr(e, n) for e in self.entries] for n in names}, columns=list(names)
+        )

@@ -1,0 +1,347 @@
+"""``closecall.Study``: one study, opened for analysis and review from Python.
+
+It holds the opened study (config and snapshot) and passes it to the engine functions that
+the command line and the review screen use too, so all three give the same answers.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+from typing import TYPE_CHECKING
+
+from closecall.api.results import Explanation, LedgerEntries, QueueResult, Report
+from closecall.core.errors import UserError
+from closecall.review.query import QueueQuery, answer_queue
+
+if TYPE_CHECKING:
+    import pandas as pd
+
+    from closecall.core.progress import Progress
+    from closecall.review.ledger import Entry
+    from closecall.review.ledger.verify import VerifyResult
+    from closecall.suite.opening import OpenedStudy
+
+
+class Ledger:
+    """The study's review ledger: read, verify and export it (see docs/ledger.md)."""
+
+    def __init__(self, study: Study) -> None:
+        self._study = study
+
+    def show(
+        self, *, case_id: str | None = None, reviewer: str | None = None, limit: int | None = None
+    ) -> LedgerEntries:
+        """Entries in sequence order, filtered; with ``limit``, the most recent ``limit``.
+
+        Examples
+        --------
+        >>> study.ledger.show(limit=10).to_frame()  # doctest: +SKIP
+        """
+        from closecall.review.decisions import ledger_entries
+
+        entries = ledger_entries(
+            self._study.opened.config, case_id=case_id, reviewer=reviewer, limit=limit
+        )
+        return LedgerEntries(tuple(entries))
+
+    def verify(self, anchor: str | None = None, *, allow_empty: bool = False) -> VerifyResult:
+        """Check the ledger is there, structured as the schema says, and its chain intact.
+
+        Examples
+        --------
+        >>> study.ledger.verify().ok  # doctest: +SKIP
+        True
+        """
+        from closecall.review.decisions import verify_ledger
+
+        return verify_ledger(self._study.opened.config, anchor, allow_empty=allow_empty)
+
+    def export(
+        self,
+        *,
+        all_entries: bool = False,
+        key_file: str | Path | None = None,
+        pseudonymise_reviewers: bool = False,
+        notes: bool = True,
+    ) -> pd.DataFrame:
+        """The analyst export: each case's effective review (or every entry) as a table.
+
+        Examples
+        --------
+        >>> study.ledger.export(notes=False).head()  # doctest: +SKIP
+        """
+        from closecall.reports.export import export_reviews
+        from closecall.review.decisions import ledger_entries
+
+        opened = self._study.opened
+        result = export_reviews(
+            opened,
+            ledger_entries(opened.config),
+            all_entries=all_entries,
+            key_file=key_file,
+            pseudonymise_reviewers=pseudonymise_reviewers,
+            notes=notes,
+        )
+        return result.table
+
+
+@dataclass(frozen=True)
+class Study:
+    """A configured data set, its fitted model suite and its ledger.
+
+    Open one with :meth:`Study.open`; every method passes the opened study to the engine
+    functions the command line and the review screen use. The tool supports human review
+    and decides nothing; its statistics are evidence for review, not legal findings.
+
+    Examples
+    --------
+    >>> from closecall import Study
+    >>> study = Study.open("demo-study/closecall.toml")  # doctest: +SKIP
+    >>> study.queue().to_frame().head()  # doctest: +SKIP
+    """
+
+    opened: OpenedStudy
+
+    @classmethod
+    def open(
+        cls, config_path: str | Path = "closecall.toml", progress: Progress | None = None
+    ) -> Study:
+        """Read the config and load the cached snapshot, or fit the suite when there is none.
+
+        Parameters
+        ----------
+        config_path
+            The study's ``closecall.toml`` (or its folder).
+        progress
+            Called with (label, done, total) while a fit runs.
+
+        Examples
+        --------
+        >>> study = Study.open("demo-study/closecall.toml")  # doctest: +SKIP
+        >>> study.snapshot_id  # doctest: +SKIP
+        """
+        from closecall.core.progress import quiet
+        from closecall.suite.opening import open_study
+
+        return cls(open_study(config_path, progress or quiet))
+
+    def fit(self, refit: bool = False, progress: Progress | None = None) -> Study:
+        """The study on the current data and config (a new :class:`Study`; this one is frozen).
+
+        Parameters
+        ----------
+        refit
+            Fit again and replace the cached snapshot whatever state it is in.
+        progress
+            Called with (label, done, total) as the work goes on.
+
+        Examples
+        --------
+        >>> study = study.fit(refit=True)  # doctest: +SKIP
+        """
+        from closecall.core.progress import quiet
+        from closecall.suite.opening import fit_study
+
+        return Study(fit_study(self.opened.config, progress or quiet, refit=refit, rehash=True))
+
+    @property
+    def snapshot_id(self) -> str:
+        """The id of the snapshot every result is computed on."""
+        return str(self.opened.snapshot.id)
+
+    @property
+    def ledger(self) -> Ledger:
+        """The review ledger: ``show``, ``verify``, ``export``.
+
+        Examples
+        --------
+        >>> len(study.ledger.show())  # doctest: +SKIP
+        """
+        return Ledger(self)
+
+    def queue(self, query: QueueQuery | None = None) -> QueueResult:
+        """The close calls a query asks for, with each case's review state and claims.
+
+        Examples
+        --------
+        >>> from closecall import QueueQuery
+        >>> study.queue(QueueQuery(unreviewed=True, limit=20)).to_frame()  # doctest: +SKIP
+        """
+        snap = self.opened.snapshot
+        answer = answer_queue(self.opened, query)
+        listed = answer.listed
+        return QueueResult(
+            snapshot_id=str(snap.id),
+            reference=snap.reference,
+            lens=snap.lenses[0].name,
+            band=float(answer.queue.band),
+            sort=answer.queue.sort,
+            query=answer.query,
+            counts=dict(answer.queue.counts),
+            case_ids=tuple(str(c) for c in snap.case_ids[listed]),
+            _answer=answer,
+            _snapshot=snap,
+        )
+
+    def explain(self, case_id: str, *, exact: bool = False, lens: str | None = None) -> Explanation:
+        """Why one case is close: suite decisions, contributions, dependence, bands, neighbours.
+
+        Examples
+        --------
+        >>> study.explain("HR-0002696").margin  # doctest: +SKIP
+        """
+        from closecall.analysis.explain import explain_case
+
+        d = explain_case(self.opened, case_id, exact=exact, lens=lens)
+        return Explanation(
+            case_id=d["case_id"],
+            group=d["group"],
+            margin=float(d["margin"]),
+            decision=d["decision"],
+            lens=d["lens"]["name"],
+            details=d,
+        )
+
+    def proxies(self) -> Report:
+        """Which features stand in for the group attribute (the fit's proxy report).
+
+        Examples
+        --------
+        >>> study.proxies().to_dict()["proxies"]  # doctest: +SKIP
+        """
+        snap = self.opened.snapshot
+        return Report("proxies", str(snap.id), snap.proxies.to_json())
+
+    def bands(self, epsilon: float | None = None, lens: str | None = None) -> Report:
+        """How many decisions could flip, per group, and how ambiguity grows with ε.
+
+        Examples
+        --------
+        >>> study.bands(epsilon=0.002).to_dict()["groups"]  # doctest: +SKIP
+        """
+        import math
+
+        from closecall.analysis.multiplicity import (
+            EPSILON_CURVE,
+            UNCERTAINTY_EPSILON,
+            ambiguity_by_group,
+            epsilon_curve,
+        )
+
+        opened = self.opened
+        eps = float(opened.config.multiplicity.epsilon if epsilon is None else epsilon)
+        if not (math.isfinite(eps) and eps > 0):
+            raise UserError(f"epsilon must be a number > 0, not {eps}", "pass e.g. 0.002")
+        snap = opened.snapshot
+        groups = ambiguity_by_group(snap, "pooled", eps, lens, seed=opened.config.seed)
+        curve = epsilon_curve(snap, "pooled", tuple(sorted({*EPSILON_CURVE, eps})), lens)
+        data = {
+            "model": "pooled",
+            "lens": snap.lens(lens).name,
+            "uncertainty_epsilon": UNCERTAINTY_EPSILON,
+            "epsilon": eps,
+            "groups": groups,
+            "epsilon_curve": curve,
+        }
+        return Report("bands", str(snap.id), data)
+
+    def compare(
+        self, *, lens: str | None = None, n_boot: int = 1000, seed: int | None = None
+    ) -> Report:
+        """Which model errs less for whom, on held-out history, with bootstrap intervals.
+
+        Examples
+        --------
+        >>> study.compare(n_boot=500).to_dict()["rows"][0]  # doctest: +SKIP
+        """
+        from closecall.analysis.comparison import compare_models
+
+        if n_boot < 100:
+            raise UserError(f"{n_boot} bootstrap replicates are too few", "use at least 100")
+        opened = self.opened
+        res = compare_models(
+            opened.snapshot,
+            lens=lens,
+            n_boot=n_boot,
+            seed=opened.config.seed if seed is None else seed,
+        )
+        return Report("compare", str(opened.snapshot.id), res.to_dict())
+
+    def model(self, level: float = 0.95) -> Report:
+        """Every model's weights on the data's own scale, with standard errors, odds ratios and
+        intervals, the intercept, each lens's threshold, group and proxy weights marked.
+
+        Examples
+        --------
+        >>> study.model().to_dict()["models"][0]["rows"][0]["term"]  # doctest: +SKIP
+        '(intercept)'
+        """
+        from closecall.analysis.weights import model_weights
+
+        if not 0 < level < 1:
+            raise UserError(f"confidence level {level} is not between 0 and 1", "pass e.g. 0.95")
+        snap = self.opened.snapshot
+        return Report("model", str(snap.id), model_weights(snap, level))
+
+    def record(
+        self,
+        case_id: str,
+        action: str,
+        *,
+        reason: str | None = None,
+        note: str = "",
+        supersedes: int | None = None,
+    ) -> Entry:
+        """Record a reviewer's action on a case (as the process's login) in the ledger.
+
+        Parameters
+        ----------
+        action
+            ``uphold``, ``override-favourable``, ``override-unfavourable`` or ``defer``.
+        reason, note
+            A code from ``[review] reasons`` and a note; both required for overrides.
+        supersedes
+            Sequence number of an earlier entry for this case that this one corrects.
+
+        Examples
+        --------
+        >>> study.record("HR-0002696", "defer", note="waiting for the survey")  # doctest: +SKIP
+        """
+        from closecall.review.decisions import record_review
+
+        return record_review(self.opened, case_id, action, reason, note, supersedes)
+
+    def disparity(
+        self,
+        *,
+        outcomes: str | Path | None = None,
+        key_file: str | Path | None = None,
+        level: float = 0.95,
+        n_boot: int = 2000,
+        seed: int = 0,
+        period: str = "month",
+    ) -> Report:
+        """Human-versus-model disparity over the effective reviews, by group.
+
+        Examples
+        --------
+        >>> study.disparity(n_boot=500).to_dict()["rates"]  # doctest: +SKIP
+        """
+        from closecall.reports.disparity.from_study import study_report
+
+        if n_boot < 100:
+            raise UserError(f"{n_boot} bootstrap replicates are too few", "use at least 100")
+        report = study_report(
+            self.opened,
+            outcomes=outcomes,
+            key_file=key_file,
+            level=level,
+            n_boot=n_boot,
+            seed=seed,
+            period=period,
+        )
+        return Report("disparity", str(self.opened.snapshot.id), report.to_dict())
+
+
+__all__ = ["Ledger", "Study"]

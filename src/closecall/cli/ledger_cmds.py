@@ -278,4 +278,7 @@ def register(app: typer.Typer) -> None:
             raise
     else:
         register_ledger_export(ledger_app)
+    from closecall.cli.ledger_pg_cmds import register_ledger_team
+
+    register_ledger_team(ledger_app)
     app.add_typer(ledger_app, name="ledger")

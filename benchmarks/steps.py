@@ -519,9 +519,10 @@ def ledger_step(p: dict[str, Any]) -> Result:
                     **{
                         k: getattr(content, k)
                         for k in HASHED_FIELDS
-                        if k not in ("seq", "format", "time", "prev_hash")
+                        if k not in ("seq", "format", "time", "prev_hash", "signature")
                     },
                     "prev_hash": prev,
+                    "signature": None,
                 }
                 fields["hash"] = prev = entry_hash(fields)
                 fields["decisions"] = canonical_json(fields["decisions"]).decode("utf-8")

@@ -110,7 +110,7 @@ def test_record_show_verify_on_the_demo(study_config: ConfigMaker, cli: Any) -> 
     assert shown["rows"][1] == second
     r = cli("ledger", "show", "--limit", "1", "--format", "csv", "--config", str(config))
     assert r.code == 0 and r.out.splitlines()[0].startswith("seq,format,time,reviewer,case_id")
-    assert len(r.out.splitlines()) == 2 and r.out.splitlines()[1].startswith("2,1,")
+    assert len(r.out.splitlines()) == 2 and r.out.splitlines()[1].startswith("2,2,")
     r = cli("ledger", "show", "--reviewer", "nobody-here", "--json", "--config", str(config))
     assert json.loads(r.out)["count"] == 0
 

@@ -15,6 +15,7 @@ from ledger_helpers import content
 from closecall.core.errors import UserError
 from closecall.review.ledger import GENESIS_HASH, SCHEMA_VERSION, canonical_json, open_ledger
 from closecall.review.ledger import schema as ledger_schema
+from closecall.review.ledger.entry import HASHED_FIELDS as ENTRY_COLUMNS
 
 
 def test_entries_chain_from_genesis_with_sha256_over_canonical_json(tmp_path: Path) -> None:
@@ -121,7 +122,8 @@ def test_an_old_schema_is_migrated_and_keeps_its_entries(tmp_path: Path) -> None
     conn.execute("BEGIN IMMEDIATE")
     assert ledger_schema.migrate(conn, target=1) == [1]  # a version-1 file: no drafts, claims
     conn.execute("ATTACH DATABASE ? AS src", (str(source),))
-    conn.execute("INSERT INTO entries SELECT * FROM src.entries")
+    v1_columns = ", ".join(c for c in (*ENTRY_COLUMNS, "hash") if c != "signature")
+    conn.execute(f"INSERT INTO entries SELECT {v1_columns} FROM src.entries")
     conn.execute("COMMIT")
     conn.execute("DETACH DATABASE src")
     conn.close()
@@ -131,7 +133,7 @@ def test_an_old_schema_is_migrated_and_keeps_its_entries(tmp_path: Path) -> None
         assert ledger.drafts.load("x", "A-1") is None and ledger.claims.active() == {}
         assert ledger.verify().ok
     with open_ledger(path) as ledger:  # a writer upgrades it
-        assert ledger_schema.schema_version(ledger.connection) == SCHEMA_VERSION == 2
+        assert ledger_schema.schema_version(ledger.connection) == SCHEMA_VERSION == 3
         assert ledger.entries() == old_entries
         new = ledger.append(content("after"))
         assert new.seq == 4 and new.prev_hash == old_entries[-1].hash

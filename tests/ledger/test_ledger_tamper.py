@@ -61,7 +61,8 @@ EDITS = {
     "reason": "'policy-exception'",
     "note": "'note 3 (improved)'",
     "supersedes": "1",
-    "format": "2",
+    "format": "1",  # format 1 hashes fewer fields (no signature)
+    "signature": "'AAAA'",
     "prev_hash": "'" + "1" * 64 + "'",
     "hash": "'" + "2" * 64 + "'",
 }

@@ -8,18 +8,11 @@ import numpy as np
 import pytest
 
 from closecall.analysis.explain import explain_case
+from closecall.core.text import signed, sparkline
 from closecall.review.decisions import record_review
 from closecall.suite.opening import OpenedStudy
 from closecall.tui import case_sections
-from closecall.tui.marks import (
-    TO_FAV,
-    UPHELD,
-    band_glyph,
-    block_bar,
-    model_letters,
-    signed,
-    sparkline,
-)
+from closecall.tui.marks import TO_FAV, UPHELD, band_glyph, block_bar, model_letters
 from closecall.tui.session import ListSettings, ReviewSession
 
 

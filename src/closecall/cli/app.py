@@ -44,6 +44,7 @@ COMMAND_MODULES = (
     "closecall.cli.ledger_cmds",
     "closecall.cli.disparity_cmds",
     "closecall.cli.review_cmds",
+    "closecall.cli.team_cmds",
 )
 # Which module holds each command: a command loads only its own module (and so only the
 # engine parts it needs), which keeps `closecall ledger verify` or `closecall review` quick to
@@ -62,6 +63,7 @@ COMMAND_HOME = {
     "disparity": "disparity_cmds",
     "demo-reviews": "disparity_cmds",
     "review": "review_cmds",
+    "keys": "team_cmds",
 }
 _registered: set[str] = set()
 

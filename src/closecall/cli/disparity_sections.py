@@ -11,7 +11,7 @@ from rich.console import Console
 from rich.markup import escape
 from rich.table import Table
 
-from closecall.cli.output import safe_text
+from closecall.core.text import safe_text
 from closecall.reports.disparity.heldout import RateGap
 from closecall.reports.disparity.power import Detectable
 from closecall.reports.disparity.report import DisparityReport

@@ -27,8 +27,9 @@ from closecall.analysis.multiplicity import (
     epsilon_curve,
 )
 from closecall.cli.common import ConfigOption, JsonOption, load
-from closecall.cli.output import console, emit_json, plain, safe_text
+from closecall.cli.output import console, emit_json, plain
 from closecall.core.errors import UserError
+from closecall.core.text import safe_text
 from closecall.suite.proxies import proxy_sets
 
 LensOption = typer.Option(None, "--lens", help="Cost lens name (default: the first one).")
@@ -357,7 +358,14 @@ def proxies(config: Path = ConfigOption, as_json: bool = JsonOption) -> None:
         return
     _heading("Proxies: associated with the group and influential without it")
     t = _grid(
-        "feature", "kind", "assoc.", "interval", "infl.", "interval", "peeled", "proxy",
+        "feature",
+        "kind",
+        "assoc.",
+        "interval",
+        "infl.",
+        "interval",
+        "peeled",
+        "proxy",
         right=(2, 3, 4, 5, 6),
     )
     for pr in sorted(report.rows, key=lambda x: (not x.proxy, not x.possible, -x.association)):

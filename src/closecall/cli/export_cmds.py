@@ -10,8 +10,9 @@ from typing import TYPE_CHECKING
 import typer
 
 from closecall.cli.common import ConfigOption, load
-from closecall.cli.output import err_console, escape_text_cells, json_safe, safe_text
+from closecall.cli.output import err_console
 from closecall.core.errors import UserError
+from closecall.core.text import escape_text_cells, json_safe, safe_text
 from closecall.review.decisions import ledger_entries
 from closecall.setup.config import load_config
 from closecall.setup.output_files import check_key_file, check_output, study_files

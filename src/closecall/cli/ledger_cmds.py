@@ -12,8 +12,9 @@ from rich.table import Table
 from rich.text import Text
 
 from closecall.cli.common import ConfigOption, FormatOption, JsonOption, load, resolve_format
-from closecall.cli.output import Format, console, emit_json, emit_rows, safe_text
+from closecall.cli.output import Format, console, emit_json, emit_rows
 from closecall.core.errors import UserError
+from closecall.core.text import safe_text
 from closecall.review.decisions import check_text, ledger_entries, record_review, verify_ledger
 from closecall.review.ledger import ACTIONS, Entry, canonical_json
 from closecall.setup.config import load_config

@@ -11,6 +11,8 @@ from rich.table import Table
 from rich.text import Text
 
 from closecall.analysis.margin_distribution import MarginDistribution, margin_distribution
+from closecall.api.results import QueueResult
+from closecall.api.study import Study
 from closecall.cli.common import (
     ConfigOption,
     FormatOption,
@@ -27,9 +29,9 @@ from closecall.cli.output import (
     err_console,
     format_cell,
     plain,
-    safe_text,
 )
-from closecall.review.query import QueueAnswer, QueueQuery, answer_queue
+from closecall.core.text import safe_text
+from closecall.review.query import QueueQuery
 from closecall.review.queue import SORT_KEYS
 from closecall.setup.config import CONFIG_NAME
 from closecall.suite.fit_flags import PROBLEM_WORDS, fits_text, grouped_flags, snapshot_flags
@@ -274,30 +276,31 @@ def queue(
         id_prefix=id_prefix,
         all_cases=all_cases,
     )
-    study = load(config, quiet=fmt is not Format.table)
-    answer = answer_queue(study, query)
-    rows = answer.rows(study.snapshot)
-    dist = margin_distribution(study.snapshot, answer.queue.band, CHART_BINS) if chart else None
+    study = Study(load(config, quiet=fmt is not Format.table))
+    result = study.queue(query)
+    rows = result.to_dict()["rows"]
+    snap = study.opened.snapshot
+    dist = margin_distribution(snap, result.band, CHART_BINS) if chart else None
     if fmt is Format.table:
         if dist is not None:
             _print_chart(dist)
-        _print_queue_table(study.snapshot, answer.queue, rows)
+        _print_queue_table(snap, result, rows)
     elif fmt is Format.csv:
-        emit_rows(_flat_queue_rows(study.snapshot, answer.queue, rows), fmt)
+        emit_rows(_flat_queue_rows(snap, result, rows), fmt)
     else:
-        emit_rows(rows, fmt, meta=_queue_meta(study.snapshot, answer, dist))
+        emit_rows(rows, fmt, meta=_queue_meta(result, dist))
 
 
-def _queue_meta(snap: Any, answer: QueueAnswer, dist: MarginDistribution | None) -> dict[str, Any]:
+def _queue_meta(result: QueueResult, dist: MarginDistribution | None) -> dict[str, Any]:
     """The --json header of a queue: snapshot, reference, band, sort, counts, filters."""
-    q, query = answer.queue, answer.query
+    query = result.query
     meta: dict[str, Any] = {
-        "snapshot": snap.id,
-        "reference": snap.reference,
-        "lens": snap.lenses[0].name,
-        "band": q.band,
-        "sort": q.sort,
-        "counts": q.counts,
+        "snapshot": result.snapshot_id,
+        "reference": result.reference,
+        "lens": result.lens,
+        "band": result.band,
+        "sort": result.sort,
+        "counts": dict(result.counts),
         "filters": {
             "ambiguous": query.ambiguous,
             "rests_on": query.rests_on,
@@ -310,7 +313,7 @@ def _queue_meta(snap: Any, answer: QueueAnswer, dist: MarginDistribution | None)
     return meta
 
 
-def _flat_queue_rows(snap: Any, q: Any, rows: list[dict[str, Any]]) -> list[dict[str, Any]]:
+def _flat_queue_rows(snap: Any, q: QueueResult, rows: list[dict[str, Any]]) -> list[dict[str, Any]]:
     """Queue rows with one column per value (CSV)."""
     return [
         {
@@ -334,7 +337,7 @@ CHART_BINS = 48
 
 def _print_chart(dist: MarginDistribution) -> None:
     """One line of block characters per group (each scaled to its tallest bin), then an axis."""
-    from closecall.tui.marks import sparkline
+    from closecall.core.text import sparkline
 
     labels = [_short_label(g) for g in dist.levels]
     width = max(len(g) for g in labels) + 1
@@ -374,7 +377,7 @@ SHORT_MODEL = {
 }
 
 
-def _print_queue_table(snap: Any, q: Any, rows: list[dict[str, Any]]) -> None:
+def _print_queue_table(snap: Any, q: QueueResult, rows: list[dict[str, Any]]) -> None:
     """A compact table that fits 80 columns: margins per model, how many pairs flip."""
     table = Table(
         title=f"close calls — snapshot {snap.id}",

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import math
 import re
-from collections.abc import Iterable, Mapping
+from collections.abc import Callable, Iterable, Mapping
 from typing import TYPE_CHECKING, Any
 
 from closecall.core.errors import UserError
@@ -210,6 +210,7 @@ def record_review(
     """
     config = study.config
     login = require_record(config.review, config.path)
+    sign = author_signer(config, login)
     check_text("the case id", case_id)
     check_action(action)
     reason = check_reason(config, action, reason)
@@ -249,7 +250,51 @@ def record_review(
         second_opinion=second_opinion,
     )
     with open_ledger(config.review.ledger) as ledger:
-        return ledger.append(content)
+        return ledger.append(content, sign)
+
+
+def author_signer(config: StudyConfig, login: str) -> Callable[[bytes], str] | None:
+    """The function that signs ``login``'s entries, or None to record unsigned.
+
+    With no key registered in ``[team.keys]`` an entry is signed if the account has a key
+    (so it verifies once the key is registered) and unsigned otherwise. Once the study
+    registers any key, every recording login must have one registered and hold the matching
+    private key: a study that checks authorship never takes an unsigned entry.
+
+    Raises
+    ------
+    UserError
+        Keys are registered but not this login's, the account has no private key, or its
+        key is not the registered one (docs/team.md, "Keys").
+    """
+    from closecall.review.ledger import signing
+
+    key = signing.load_private()
+    keys = config.team.keys
+    if not keys:
+        return None if key is None else signing.signer(key)
+    folder = signing.key_folder()
+    if login not in keys:
+        raise UserError(
+            f"{config.path}: login '{login}' has no public key registered under [team.keys]; "
+            "this study signs every entry, so nothing was recorded",
+            "run 'closecall keys init' (once) and ask the study owner to add the line it "
+            "prints under [team.keys]",
+        )
+    if key is None:
+        raise UserError(
+            f"no signing key for login '{login}' in {folder}; this study signs every entry, "
+            "so nothing was recorded",
+            "copy your key back into that folder, or run 'closecall keys init' and ask the "
+            "study owner to register the new public key under [team.keys]",
+        )
+    if signing.public_text(key.public_key()) != keys[login]:
+        raise UserError(
+            f"the signing key in {folder} is not the one registered for '{login}' under "
+            f"[team.keys] of {config.path}; nothing was recorded",
+            "ask the study owner to register the public key 'closecall keys show' prints",
+        )
+    return signing.signer(key)
 
 
 def _check_supersedes(config: StudyConfig, case_id: str, supersedes: int) -> None:
@@ -333,7 +378,9 @@ def verify_ledger(
     from closecall.review.ledger.verify import verify_file
 
     require_read(config.review, config.path)
-    return verify_file(config.review.ledger, check_anchor(anchor), allow_empty=allow_empty)
+    return verify_file(
+        config.review.ledger, check_anchor(anchor), allow_empty=allow_empty, keys=config.team.keys
+    )
 
 
 def check_ledger(config: StudyConfig) -> None:

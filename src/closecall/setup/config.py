@@ -6,6 +6,8 @@ suggested; relative paths are resolved against the folder that holds the config 
 
 from __future__ import annotations
 
+import base64
+import binascii
 import difflib
 import hashlib
 import json
@@ -98,6 +100,14 @@ class ReviewConfig:
 
 
 @dataclass(frozen=True)
+class TeamConfig:
+    """A team sharing the study on one server (docs/team.md)."""
+
+    #: login -> base64 Ed25519 public key; when any is set, new entries must be signed
+    keys: dict[str, str] = field(default_factory=dict)
+
+
+@dataclass(frozen=True)
 class StudyConfig:
     """A whole study: where the data is, how to model it, how reviews are kept."""
 
@@ -110,6 +120,7 @@ class StudyConfig:
     proxies: ProxyConfig
     multiplicity: MultiplicityConfig
     review: ReviewConfig
+    team: TeamConfig = field(default_factory=TeamConfig)
 
     @property
     def root(self) -> Path:
@@ -129,6 +140,7 @@ class StudyConfig:
         d = asdict(self)
         d.pop("path")
         d.pop("review")  # review settings don't change the fit
+        d.pop("team")
         # the data files' bytes are hashed into the snapshot id; where the study folder lives
         # must not matter, so a copied or moved study keeps its snapshot id
         d["data"]["history"] = self.data.history.name
@@ -174,6 +186,7 @@ _SCHEMA: dict[str, dict[str, type | tuple[type, ...]]] = {
         "ledger": str,
         "claim_minutes": (int, float),
     },
+    "team": {"keys": dict},
 }
 
 
@@ -486,6 +499,8 @@ def parse_config(raw: dict[str, Any], path: Path) -> StudyConfig:
         claim_minutes=number(path, "review", "claim_minutes", r.get("claim_minutes", 30.0)),
     )
 
+    team = _team(path, raw)
+
     return StudyConfig(
         path=path,
         name=str(study.get("name", path.parent.name)),
@@ -496,7 +511,30 @@ def parse_config(raw: dict[str, Any], path: Path) -> StudyConfig:
         proxies=proxies,
         multiplicity=multiplicity,
         review=review,
+        team=team,
     )
+
+
+def _team(path: Path, raw: dict[str, Any]) -> TeamConfig:
+    """[team]: ``keys`` maps logins to base64 Ed25519 public keys (32 bytes each)."""
+    t = _table(path, raw, "team")
+    _check_keys(path, "team", t)
+    keys: dict[str, str] = {}
+    for login, text in t.get("keys", {}).items():
+        raw_key = None
+        if isinstance(text, str):
+            try:
+                raw_key = base64.b64decode(text.strip(), validate=True)
+            except (binascii.Error, ValueError):
+                raw_key = None
+        if raw_key is None or len(raw_key) != 32:
+            raise UserError(
+                f"{path}: [team.keys] {login} = {toml_text(text)} is not an Ed25519 public key "
+                "(base64 of 32 bytes)",
+                f"paste the line 'closecall keys show' prints for {login}; see docs/team.md",
+            )
+        keys[str(login)] = text.strip()
+    return TeamConfig(keys=keys)
 
 
 def _lenses(path: Path, lens_raw: object) -> tuple[CostLens, ...]:

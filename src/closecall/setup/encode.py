@@ -10,15 +10,23 @@ reported.
 from __future__ import annotations
 
 from dataclasses import asdict, dataclass, field
-from typing import TYPE_CHECKING, Any
+from typing import Any
 
 import numpy as np
 import pandas as pd
 
-if TYPE_CHECKING:
-    from closecall.setup.load import Feature
-
 MISSING_LEVEL = "(missing)"
+
+
+@dataclass(frozen=True)
+class Feature:
+    """One input feature and how it enters the model (resolved by :mod:`.load`)."""
+
+    name: str
+    kind: str  # numeric | categorical
+    is_group: bool = False
+
+
 # The largest distance from the history mean, in history standard deviations, a numeric value
 # may have (data.py refuses others). A history value can never be this far out (Samuelson's
 # inequality bounds it by sqrt(n - 1)); a pending value this far out is an entry or unit error.

@@ -32,7 +32,7 @@ import pandas as pd
 
 from closecall.core.errors import UserError
 from closecall.setup.config import DataConfig, StudyConfig
-from closecall.setup.encode import MAX_STANDARD_SCORE, numeric_values, standard_scale
+from closecall.setup.encode import MAX_STANDARD_SCORE, Feature, numeric_values, standard_scale
 from closecall.setup.files import require_file
 
 GROUP_SEPARATOR = "/"
@@ -280,15 +280,6 @@ def _check_flat(path: Path, columns: list[str]) -> None:
 def _text_dtype() -> object:
     """The dtype read_csv gives a column read with ``dtype=str`` (depends on pandas)."""
     return pd.read_csv(io.StringIO("a\nx\n"), dtype={"a": str})["a"].dtype
-
-
-@dataclass(frozen=True)
-class Feature:
-    """One input feature and how it enters the model."""
-
-    name: str
-    kind: str  # numeric | categorical
-    is_group: bool = False
 
 
 @dataclass

@@ -14,8 +14,8 @@ from textual.binding import Binding, BindingType
 from textual.markup import escape
 from textual.screen import Screen
 
-from closecall.cli.output import safe_text
 from closecall.core.errors import UserError
+from closecall.core.text import safe_text
 from closecall.suite.opening import OpenedStudy
 from closecall.tui.decision_dialog import DecisionDialog
 from closecall.tui.queue_screen import QueueScreen

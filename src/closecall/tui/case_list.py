@@ -22,7 +22,7 @@ from textual.reactive import reactive
 from textual.scroll_view import ScrollView
 from textual.strip import Strip
 
-from closecall.cli.output import safe_text
+from closecall.core.text import percent, safe_text, signed
 from closecall.tui.marks import (
     AGREE,
     AMBIGUOUS,
@@ -37,9 +37,7 @@ from closecall.tui.marks import (
     UPHELD,
     band_glyph,
     model_letters,
-    share,
     short_model,
-    signed,
 )
 from closecall.tui.session import ReviewSession
 
@@ -277,7 +275,7 @@ class CaseList(ScrollView, can_focus=True):
         segs.append(Segment(f"{self._marks(r):<{lay.marks}} ", flag))
         dep = session.peek("dependence")
         waiting = "…" if not session.measures_ready else "—"
-        segs.append(Segment(f"{share(float(dep[r])) if dep is not None else waiting:>4} ", muted))
+        segs.append(Segment(f"{percent(float(dep[r])) if dep is not None else waiting:>4} ", muted))
         state = self._state(r, case_id)
         segs.append(Segment(f"{state:<{STATE_WIDTH}}", self._state_style(r, row_base)))
         for m in lay.extra_models:

@@ -5,7 +5,7 @@ from __future__ import annotations
 import contextlib
 from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Any, ClassVar
+from typing import Any, ClassVar, Protocol, runtime_checkable
 
 from rich.text import Text
 from scipy.special import logit
@@ -17,8 +17,8 @@ from textual.screen import Screen
 from textual.widgets import Static
 from textual.worker import get_current_worker
 
-from closecall.cli.output import safe_text
 from closecall.core.errors import UserError
+from closecall.core.text import safe_text, signed
 from closecall.review.decisions import (
     active_claims,
     case_history,
@@ -39,12 +39,18 @@ from closecall.tui.marks import (
     OPEN,
     STATE_OF_ACTION,
     STATE_WORD,
-    signed,
 )
 from closecall.tui.session import ReviewSession
 
 Neighbour = Callable[[int, int], "int | None"]
 WIDE = 110  # from this width the sections sit in two columns
+
+
+@runtime_checkable
+class RecordListener(Protocol):
+    """A screen that lists cases and updates a row when an entry is recorded (the queue)."""
+
+    def recorded(self, entry: Entry) -> None: ...
 
 
 @dataclass
@@ -235,12 +241,10 @@ class CaseScreen(Screen[None]):
         self.app.push_screen(DecisionDialog(self.session, self.case_id, claim=False), self._decided)
 
     def _decided(self, entry: Entry | None) -> None:
-        from closecall.tui.queue_screen import QueueScreen
-
         if entry is not None:
             self.say(f"recorded entry {entry.seq} · hash {entry.hash[:16]}… · n for the next case")
             for screen in self.app.screen_stack:
-                if isinstance(screen, QueueScreen):
+                if isinstance(screen, RecordListener):  # the queue screen, without importing it
                     screen.recorded(entry)
             self.session.states[self.row] = STATE_OF_ACTION[entry.action]
         self.show(self.row)

@@ -13,9 +13,9 @@ from typing import Any
 
 from rich.text import Text
 
-from closecall.cli.output import safe_text
+from closecall.core.text import percent, safe_text, signed
 from closecall.review.ledger import Draft, Entry
-from closecall.tui.marks import ACTION_WORD, block_bar, share, signed
+from closecall.tui.marks import ACTION_WORD, block_bar
 
 FLIPS = "⇄ flips"
 SAME = "= same"
@@ -69,7 +69,7 @@ def parts(d: dict[str, Any]) -> Text:
     text = Text()
     text.append(f"group part {signed(dep['group_part'])}")
     text.append(f" · proxy part {signed(dep['proxy_part'])} ({proxies})")
-    text.append(f" · rest {signed(dep['rest'])} · dependence share {share(dep['share'])}\n")
+    text.append(f" · rest {signed(dep['rest'])} · dependence share {percent(dep['share'])}\n")
     for label, key, rests in (
         ("without the group", "margin_group_neutral", dep["rests_on_group"]),
         ("without the group and its proxies", "margin_neutral", dep["rests_on_proxies"]),
@@ -126,7 +126,7 @@ def similar(d: dict[str, Any]) -> Text:
     if not nb["neighbours"]:
         text.append("no history cases to compare with\n")
     per_group = [
-        f"{safe_text(g['group'])} {share(g['favourable_share'])} of {g['neighbours']}"
+        f"{safe_text(g['group'])} {percent(g['favourable_share'])} of {g['neighbours']}"
         for g in nb["by_group"]
         if g["favourable_share"] is not None and not math.isnan(g["favourable_share"])
     ]

@@ -11,7 +11,7 @@ from textual.containers import Vertical
 from textual.screen import ModalScreen
 from textual.widgets import Static
 
-from closecall.cli.output import safe_text
+from closecall.core.text import safe_text
 from closecall.tui.key_bar import KeyBar
 
 LISTED = 3  # other drafts named by case id; the rest are counted

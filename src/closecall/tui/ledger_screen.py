@@ -17,12 +17,12 @@ from textual.screen import Screen
 from textual.timer import Timer
 from textual.widgets import DataTable, Input, Static
 
-from closecall.cli.output import safe_text
 from closecall.core.errors import UserError
+from closecall.core.text import safe_text, signed
 from closecall.review.decisions import ledger_entries, verify_ledger
 from closecall.review.ledger import Entry, VerifyResult
 from closecall.tui.key_bar import KeyBar
-from closecall.tui.marks import ACTION_SHORT, ACTION_WORD, signed
+from closecall.tui.marks import ACTION_SHORT, ACTION_WORD
 from closecall.tui.session import ReviewSession
 
 PAGE = 500  # entries listed at a time (the newest page first)

@@ -17,7 +17,8 @@ from rich.style import Style
 from rich.text import Text
 from textual.widget import Widget
 
-from closecall.tui.marks import REFERENCE, short_model, signed
+from closecall.core.text import signed
+from closecall.tui.marks import REFERENCE, short_model
 
 NAME_WIDTH = 10
 

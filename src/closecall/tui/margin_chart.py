@@ -12,9 +12,8 @@ from typing import ClassVar
 from rich.text import Text
 from textual.widget import Widget
 
-from closecall.cli.output import safe_text
-from closecall.tui.marks import sparkline
-from closecall.tui.session import GroupChart, ReviewSession, fmt_share
+from closecall.core.text import safe_text, share_of, sparkline
+from closecall.tui.session import GroupChart, ReviewSession
 
 MAX_GROUPS = 4
 MAX_BINS = 64
@@ -61,7 +60,7 @@ class MarginChart(Widget):
                     text.append("│", axis_style)
                 text.append(ch, band_style if in_band[i] else None)
             within, total = int(chart.within_band[g]), int(chart.totals[g])
-            text.append(f" {within:>7,} in band {fmt_share(within, total):>4}\n")
+            text.append(f" {within:>7,} in band {share_of(within, total):>4}\n")
         text.append(" " * label_w)
         text.append(self._axis(bins, chart), axis_style)
         text.append("  log-odds")

@@ -85,21 +85,6 @@ def decision_word(margin: float) -> str:
     return FAV if margin > 0 else UNFAV
 
 
-def signed(value: float, digits: int = 2) -> str:
-    """+0.42 / −0.42 with a true minus sign; '—' when not finite."""
-    if value is None or not math.isfinite(value):
-        return "—"
-    text = f"{value:+.{digits}f}"
-    return text.replace("-", "−")
-
-
-def share(value: float) -> str:
-    """A 0..1 share as a percentage of at most 4 cells; '—' when unknown."""
-    if value is None or not math.isfinite(value):
-        return "—"
-    return f"{round(100 * value):d}%"
-
-
 # --------------------------------------------------------------------------- glyph axes
 
 
@@ -139,18 +124,3 @@ def block_bar(value: float, scale: float, width: int) -> str:
         return ""
     n = min(width, max(1, round(abs(value) / scale * width))) if value != 0 else 0
     return ("▸" if value > 0 else "◂") * n
-
-
-SPARKS = " ▁▂▃▄▅▆▇█"
-
-
-def sparkline(counts: Sequence[float], peak: float) -> str:
-    """Counts as block characters, 0 → blank, ``peak`` → full block."""
-    if peak <= 0:
-        return " " * len(counts)
-    top = len(SPARKS) - 1
-    out = []
-    for c in counts:
-        level = 0 if c <= 0 else max(1, min(top, math.ceil(c / peak * top)))
-        out.append(SPARKS[level])
-    return "".join(out)

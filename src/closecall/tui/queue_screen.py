@@ -13,7 +13,7 @@ from textual.screen import Screen
 from textual.widgets import Input, Static
 from textual.worker import get_current_worker
 
-from closecall.cli.output import safe_text
+from closecall.core.text import safe_text
 from closecall.review.ledger import Entry
 from closecall.tui.case_list import CaseList
 from closecall.tui.key_bar import KeyBar

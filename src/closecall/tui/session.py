@@ -243,12 +243,5 @@ class ReviewSession:
         return margin_distribution(self.snap, self.band, bins)
 
 
-def fmt_share(part: int, whole: int) -> str:
-    if whole <= 0:
-        return "—"
-    pct = 100 * part / whole
-    return f"{pct:.0f}%" if pct >= 1 or pct == 0 else f"{pct:.1f}%"
-
-
 def finite(value: float | None) -> bool:
     return value is not None and math.isfinite(value)

@@ -14,8 +14,8 @@ from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 
 from closecall import __version__
-from closecall.cli.output import safe_text
 from closecall.core.cautions import CAUTIONS
+from closecall.core.text import safe_text
 from closecall.reports.disparity import html_sections as sections
 from closecall.reports.disparity.contingency import IndependenceTest
 from closecall.reports.disparity.rates import FOUR_FIFTHS

@@ -15,7 +15,7 @@ import numpy as np
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 
-from closecall.cli.output import safe_text
+from closecall.core.text import safe_text
 from closecall.reports.disparity.heldout import RateGap
 from closecall.reports.disparity.power import Detectable
 from closecall.reports.disparity.rates import FOUR_FIFTHS

@@ -21,7 +21,8 @@ from dataclasses import dataclass, field
 from typing import Any
 
 #: Version of the hashed entry layout; stored in every entry so the layout can grow later.
-ENTRY_FORMAT = 1
+#: Format 1 (before signatures) hashes :data:`SIGNED_FIELDS`; format 2 adds ``signature``.
+ENTRY_FORMAT = 2
 
 #: The predecessor hash of the first entry.
 GENESIS_HASH = "0" * 64
@@ -30,8 +31,8 @@ GENESIS_HASH = "0" * 64
 ACTIONS = ("uphold", "override-favourable", "override-unfavourable", "defer")
 OVERRIDES = ("override-favourable", "override-unfavourable")
 
-#: Fields covered by the hash, in the order they are stored (the hash itself is not covered).
-HASHED_FIELDS = (
+#: Fields the author's Ed25519 signature covers (and, in format 1, the hash covers).
+SIGNED_FIELDS = (
     "seq",
     "format",
     "time",
@@ -50,6 +51,10 @@ HASHED_FIELDS = (
     "prev_hash",
 )
 
+#: Fields covered by the hash of a format-2 entry, in the order they are stored (the hash
+#: itself is not covered): the signed fields and the signature (None when unsigned).
+HASHED_FIELDS = (*SIGNED_FIELDS, "signature")
+
 
 def canonical_json(obj: Any) -> bytes:
     """The canonical UTF-8 JSON bytes of ``obj``: sorted keys, no whitespace, no NaN."""
@@ -58,9 +63,21 @@ def canonical_json(obj: Any) -> bytes:
     ).encode("utf-8")
 
 
+def hashed_names(entry_format: object) -> tuple[str, ...]:
+    """The names the hash covers for an entry of ``entry_format`` (1: no signature)."""
+    return SIGNED_FIELDS if entry_format == 1 else HASHED_FIELDS
+
+
 def entry_hash(fields: dict[str, Any]) -> str:
     """SHA-256 (hex) over the canonical JSON of an entry's hashed fields."""
-    return hashlib.sha256(canonical_json({k: fields[k] for k in HASHED_FIELDS})).hexdigest()
+    names = hashed_names(fields["format"])
+    return hashlib.sha256(canonical_json({k: fields[k] for k in names})).hexdigest()
+
+
+def signed_message(fields: dict[str, Any]) -> bytes:
+    """The bytes the author signs: canonical JSON of :data:`SIGNED_FIELDS` (sequence number and
+    predecessor hash included, so a signature cannot be replayed elsewhere in the chain)."""
+    return canonical_json({k: fields[k] for k in SIGNED_FIELDS})
 
 
 @dataclass(frozen=True)
@@ -128,14 +145,15 @@ class Entry:
     prev_hash: str
     hash: str
     format: int = ENTRY_FORMAT
+    signature: str | None = None  # base64 Ed25519 over signed_message(); None: unsigned
 
     def hashed_fields(self) -> dict[str, Any]:
         """The fields the chain hash covers, as plain JSON values."""
-        return {k: getattr(self, k) for k in HASHED_FIELDS}
+        return {k: getattr(self, k) for k in hashed_names(self.format)}
 
     def to_dict(self) -> dict[str, Any]:
-        """All fields, including the hash, as plain JSON values."""
-        return {**self.hashed_fields(), "hash": self.hash}
+        """All fields (signature None for format 1), including the hash, as plain JSON values."""
+        return {**{k: getattr(self, k) for k in HASHED_FIELDS}, "hash": self.hash}
 
     def computed_hash(self) -> str:
         """The hash these fields should carry; differs from :attr:`hash` if edited."""

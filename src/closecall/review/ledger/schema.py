@@ -89,8 +89,13 @@ def _v2(conn: sqlite3.Connection) -> None:
     conn.execute("CREATE INDEX claims_expiry ON claims(expires_at)")
 
 
+def _v3(conn: sqlite3.Connection) -> None:
+    """Entry format 2: the author's signature (base64 Ed25519; NULL when unsigned)."""
+    conn.execute("ALTER TABLE entries ADD COLUMN signature TEXT")
+
+
 #: MIGRATIONS[k] takes a file from schema version k to k + 1.
-MIGRATIONS: tuple[Callable[[sqlite3.Connection], None], ...] = (_v1, _v2)
+MIGRATIONS: tuple[Callable[[sqlite3.Connection], None], ...] = (_v1, _v2, _v3)
 SCHEMA_VERSION = len(MIGRATIONS)
 
 TRIGGERS = ("entries_no_update", "entries_no_delete")

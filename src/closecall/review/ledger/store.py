@@ -24,7 +24,7 @@ import sqlite3
 import tempfile
 import time
 import urllib.parse
-from collections.abc import Callable, Iterator, Sequence
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from pathlib import Path
 from types import TracebackType
 from typing import TYPE_CHECKING, Any, Concatenate, ParamSpec, TypeVar
@@ -41,6 +41,7 @@ from closecall.review.ledger.entry import (
     EntryContent,
     canonical_json,
     entry_hash,
+    signed_message,
 )
 
 if TYPE_CHECKING:
@@ -55,6 +56,10 @@ MAX_NOTE_BYTES = 1_000_000
 
 _COLUMNS = (*HASHED_FIELDS, "hash")
 _SELECT = f"SELECT {', '.join(_COLUMNS)} FROM entries"
+#: The same for a file older than schema 3 (opened read-only, not upgraded): no signatures.
+_SELECT_V2 = (
+    "SELECT " + ", ".join("NULL" if c == "signature" else c for c in _COLUMNS) + (" FROM entries")
+)
 
 
 class _UnreadableEntry(Exception):
@@ -259,6 +264,8 @@ class Ledger:
         self.path = path
         self.readonly = readonly
         self._conn = conn
+        columns = {str(r[1]) for r in conn.execute("SELECT * FROM pragma_table_info('entries')")}
+        self._select = _SELECT if "signature" in columns or not columns else _SELECT_V2
         #: Drafts and soft claims: mutable, outside the chain (:mod:`.drafts`).
         self.drafts = Drafts(path, conn, self._write, _database_error)
         self.claims = Claims(path, conn, self._write, _database_error)
@@ -292,11 +299,14 @@ class Ledger:
     # ------------------------------------------------------------------ entries
 
     @_guarded
-    def append(self, content: EntryContent) -> Entry:
+    def append(self, content: EntryContent, sign: Callable[[bytes], str] | None = None) -> Entry:
         """Number, chain and store one entry; removes the reviewer's draft for the case.
 
         The write lock is taken before the last hash is read, so concurrent writers queue up
-        and each links to the entry committed just before it.
+        and each links to the entry committed just before it. ``sign`` (the author's key, see
+        :mod:`closecall.review.ledger.signing`) signs the entry's
+        :func:`~closecall.review.ledger.entry.signed_message` inside that lock; without it the
+        entry is stored unsigned.
         """
         _check_content(content)
         decisions = json.loads(canonical_json(content.decisions))  # plain JSON types only
@@ -333,6 +343,7 @@ class Ledger:
                 "supersedes": content.supersedes,
                 "prev_hash": prev_hash,
             }
+            fields["signature"] = sign(signed_message(fields)) if sign is not None else None
             fields["hash"] = entry_hash(fields)
             row = {**fields, "decisions": canonical_json(decisions).decode("utf-8")}
             conn.execute(
@@ -368,7 +379,9 @@ class Ledger:
         if reviewer is not None:
             where.append("reviewer = ?")
             params.append(reviewer)
-        sql = _SELECT + (f" WHERE {' AND '.join(where)}" if where else "") + " ORDER BY seq DESC"
+        sql = (
+            self._select + (f" WHERE {' AND '.join(where)}" if where else "") + " ORDER BY seq DESC"
+        )
         if limit is not None:
             sql += " LIMIT ?"
             params.append(str(int(limit)))
@@ -391,13 +404,13 @@ class Ledger:
 
     @_guarded
     def entry(self, seq: int) -> Entry | None:
-        row = self._conn.execute(_SELECT + " WHERE seq = ?", (seq,)).fetchone()
+        row = self._conn.execute(self._select + " WHERE seq = ?", (seq,)).fetchone()
         return _row_to_entry(row) if row else None
 
     def iter_rows(self) -> Iterator[dict[str, Any]]:
         """Every stored row as raw column values, in sequence order (for verification)."""
         try:
-            for row in self._conn.execute(_SELECT + " ORDER BY seq"):
+            for row in self._conn.execute(self._select + " ORDER BY seq"):
                 yield dict(zip(_COLUMNS, row, strict=True))
         except sqlite3.DatabaseError as exc:
             raise _database_error(self.path, exc) from None
@@ -427,11 +440,14 @@ class Ledger:
         """DamagedLedger unless the structure is exactly the schema's (what writers need)."""
         _refuse(self.path, self.structure_findings())
 
-    def verify(self, anchor: str | None = None) -> VerifyResult:
-        """Recompute the chain; see :func:`closecall.review.ledger.verify.verify_chain`."""
+    def verify(
+        self, anchor: str | None = None, keys: Mapping[str, str] | None = None
+    ) -> VerifyResult:
+        """Recompute the chain (and check signatures against ``keys``); see
+        :func:`closecall.review.ledger.verify.verify_chain`."""
         from closecall.review.ledger.verify import verify_chain
 
-        return verify_chain(self, anchor)
+        return verify_chain(self, anchor, keys)
 
 
 class _WriteTransaction:

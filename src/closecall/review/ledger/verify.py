@@ -11,6 +11,13 @@ An anchor — a head hash copied somewhere else earlier — must be the hash of 
 the verified chain; if it is not, entries up to the anchor were removed (a truncated tail) or
 the chain was rewritten since.
 
+With the study's registered public keys (``[team.keys]``), every signature is checked against
+the key registered for the entry's reviewer (RFC 8032 Ed25519 over the entry's signed fields):
+a signature that does not verify is ``forged-signature``; a signed entry whose reviewer has no
+registered key is ``unregistered``; an unsigned entry after the first signed one is
+``unsigned`` (a study that signs takes no unsigned entry). Unsigned entries before the first
+signed one (recorded before the study registered keys) stay valid and are listed.
+
 The file's structure must be the schema's: the append-only triggers in place *with the
 definitions the schema gives them* (a same-named trigger that does nothing is tampering), every
 table with its columns, no trigger the schema does not create. And the ledger must be there:
@@ -20,11 +27,12 @@ table with its columns, no trigger the schema does not create. And the ledger mu
 from __future__ import annotations
 
 import json
+from collections.abc import Mapping
 from dataclasses import asdict, dataclass
 from pathlib import Path
 from typing import Any
 
-from closecall.review.ledger.entry import GENESIS_HASH, entry_hash
+from closecall.review.ledger.entry import GENESIS_HASH, entry_hash, signed_message
 from closecall.review.ledger.store import DamagedLedger, Ledger, NoLedger, open_ledger
 
 
@@ -34,7 +42,8 @@ class Problem:
 
     ``kind`` is one of: ``missing`` (sequence gap: entry ``seq`` was deleted), ``edited``
     (fields do not match the hash), ``wrong-predecessor`` (does not link to the entry before),
-    ``malformed`` (a stored value cannot be read), ``anchor-not-found``; for the file's
+    ``malformed`` (a stored value cannot be read), ``anchor-not-found``; for authorship
+    ``forged-signature``, ``unregistered``, ``unsigned``; for the file's
     structure ``triggers-missing``, ``trigger-altered``, ``table-missing``, ``table-altered``,
     ``index-missing``, ``index-altered``, ``unexpected-object``; for the file itself
     ``no-ledger``, ``empty-ledger``, ``no-entries``, ``not-a-ledger``, ``unreadable``.
@@ -58,6 +67,9 @@ class VerifyResult:
     anchor: str | None
     anchor_seq: int | None  # where the anchor was found in the chain
     problems: tuple[Problem, ...] = ()  # the first break plus any structural findings
+    signed: int = 0  # entries whose signature verified against the registered key
+    unsigned: tuple[int, ...] = ()  # valid unsigned entries (before the first signed one)
+    keys_checked: bool = False  # public keys were registered, so signatures were checked
 
     @property
     def first_broken(self) -> int | None:
@@ -69,9 +81,93 @@ class VerifyResult:
         return d
 
 
-def verify_chain(ledger: Ledger, anchor: str | None = None) -> VerifyResult:
-    """Recompute every hash of ``ledger`` and check every link; see the module docstring."""
+#: At most this many authorship problems are named one by one (then a count).
+MAX_NAMED = 20
+
+
+class _Authorship:
+    """Signature checks, entry by entry, against the registered keys."""
+
+    def __init__(self, keys: Mapping[str, str] | None) -> None:
+        from closecall.review.ledger import signing
+
+        self._signing = signing
+        self.keys = {login: signing.parse_public(text) for login, text in (keys or {}).items()}
+        self.checked = bool(self.keys)
+        self.signed = 0
+        self.seen_signed = False
+        self.unsigned: list[int] = []
+        self.problems: list[Problem] = []
+        self.more = 0
+
+    def _add(self, problem: Problem) -> None:
+        if len(self.problems) < MAX_NAMED:
+            self.problems.append(problem)
+        else:
+            self.more += 1
+
+    def check(self, fields: dict[str, Any]) -> None:
+        seq, reviewer = fields["seq"], fields["reviewer"]
+        signature = fields.get("signature") if fields["format"] != 1 else None
+        if signature is None:
+            if self.seen_signed and self.checked:
+                self._add(
+                    Problem(
+                        "unsigned",
+                        seq,
+                        f"entry {seq} (reviewer {reviewer}) carries no signature, but entries "
+                        "before it are signed: it was added outside closecall or by a login "
+                        "whose key was not used",
+                    )
+                )
+            else:
+                self.unsigned.append(seq)
+            return
+        self.seen_signed = True
+        if not self.checked:
+            return
+        public = self.keys.get(reviewer)
+        if public is None:
+            self._add(
+                Problem(
+                    "unregistered",
+                    seq,
+                    f"entry {seq} is signed in the name of {reviewer}, who has no public key "
+                    "registered under [team.keys]: its author cannot be checked",
+                )
+            )
+            return
+        if not isinstance(signature, str) or not self._signing.signature_valid(
+            public, signed_message(fields), signature
+        ):
+            self._add(
+                Problem(
+                    "forged-signature",
+                    seq,
+                    f"entry {seq} claims reviewer {reviewer}, but its signature is not made "
+                    f"by {reviewer}'s registered key: the entry was forged or altered "
+                    "(written in another's name)",
+                )
+            )
+            return
+        self.signed += 1
+
+    def all_problems(self) -> list[Problem]:
+        if self.more:
+            return [
+                *self.problems,
+                Problem("forged-signature", None, f"and {self.more} more authorship problems"),
+            ]
+        return self.problems
+
+
+def verify_chain(
+    ledger: Ledger, anchor: str | None = None, keys: Mapping[str, str] | None = None
+) -> VerifyResult:
+    """Recompute every hash of ``ledger``, check every link and, with ``keys`` (login ->
+    base64 Ed25519 public key), every signature; see the module docstring."""
     anchor = anchor.strip().lower() if anchor else None
+    authorship = _Authorship(keys)
     expected_seq, expected_prev = 1, GENESIS_HASH
     verified = 0
     read = 0
@@ -128,12 +224,14 @@ def verify_chain(ledger: Ledger, anchor: str | None = None) -> VerifyResult:
                 f"{expected_prev[:16]}… (forged, reordered or replaced entries)",
             )
             continue
+        authorship.check(fields)
         if anchor is not None and row["hash"] == anchor:
             anchor_seq = seq
         verified += 1
         expected_seq, expected_prev = seq + 1, row["hash"]
 
     problems: list[Problem] = [problem] if problem else []
+    problems.extend(authorship.all_problems())
     if anchor is not None and anchor_seq is None and problem is None:
         problems.append(
             Problem(
@@ -162,6 +260,9 @@ def verify_chain(ledger: Ledger, anchor: str | None = None) -> VerifyResult:
         anchor=anchor,
         anchor_seq=anchor_seq,
         problems=tuple(problems),
+        signed=authorship.signed,
+        unsigned=tuple(authorship.unsigned),
+        keys_checked=authorship.checked,
     )
 
 
@@ -212,7 +313,11 @@ def _unverifiable(problem: Problem, anchor: str | None) -> VerifyResult:
 
 
 def verify_file(
-    path: str | Path, anchor: str | None = None, *, allow_empty: bool = False
+    path: str | Path,
+    anchor: str | None = None,
+    *,
+    allow_empty: bool = False,
+    keys: Mapping[str, str] | None = None,
 ) -> VerifyResult:
     """Verify the ledger file at ``path``: its presence, structure and chain.
 
@@ -240,7 +345,7 @@ def verify_file(
         return _unverifiable(Problem(exc.kind, None, exc.message), anchor)
     with ledger:
         try:
-            result = verify_chain(ledger, anchor)
+            result = verify_chain(ledger, anchor, keys)
         except DamagedLedger as exc:
             return _unverifiable(Problem(exc.kind, None, exc.message), anchor)
     if result.entries == 0 and result.ok:

@@ -44,6 +44,7 @@ COMMAND_MODULES = (
     "closecall.cli.ledger_cmds",
     "closecall.cli.disparity_cmds",
     "closecall.cli.review_cmds",
+    "closecall.cli.reasons_cmds",
     "closecall.cli.team_cmds",
 )
 # Which module holds each command: a command loads only its own module (and so only the
@@ -63,6 +64,7 @@ COMMAND_HOME = {
     "disparity": "disparity_cmds",
     "demo-reviews": "disparity_cmds",
     "review": "review_cmds",
+    "reasons": "reasons_cmds",
     "keys": "team_cmds",
 }
 _registered: set[str] = set()

@@ -17,7 +17,7 @@ from closecall.core.errors import UserError
 from closecall.core.text import safe_text
 from closecall.review.decisions import check_text, ledger_entries, record_review, verify_ledger
 from closecall.review.ledger import ACTIONS, Entry, canonical_json
-from closecall.setup.config import load_config
+from closecall.setup.config import DEFAULT_REASONS, load_config
 
 
 def _read_note_file(path: Path) -> str:
@@ -42,7 +42,11 @@ def record(
     case_id: str = typer.Argument(..., help="The case reviewed (its id in the data)."),
     action: str = typer.Option(..., "--action", "-a", help=f"One of: {', '.join(ACTIONS)}."),
     reason: str | None = typer.Option(
-        None, "--reason", "-r", help="A reason code from [review] reasons; required to override."
+        None,
+        "--reason",
+        "-r",
+        help="A reason code from the study's [review] reasons; required to override. "
+        f"Defaults: {', '.join(DEFAULT_REASONS)} ('closecall reasons' lists the study's).",
     ),
     note: str | None = typer.Option(
         None, "--note", "-n", help="Why; stored exactly as typed. Required to override."

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import sys
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import typer
 from rich import box
@@ -15,6 +15,9 @@ from closecall.cli.common import ConfigOption, FormatOption, JsonOption, load, r
 from closecall.cli.output import Format, console, emit_json, emit_rows
 from closecall.core.errors import UserError
 from closecall.core.text import safe_text
+
+if TYPE_CHECKING:
+    from closecall.review.ledger.verify import VerifyResult
 from closecall.review.decisions import check_text, ledger_entries, record_review, verify_ledger
 from closecall.review.ledger import ACTIONS, Entry, canonical_json
 from closecall.setup.config import DEFAULT_REASONS, load_config
@@ -268,9 +271,24 @@ def verify(
             _print(f"ledger {where}: NOT VERIFIED")
         for problem in result.problems:  # may quote tampered values: escape them
             _print(f"  {safe_text(problem.message)}")
+        if result.entries:
+            _print(_authorship_line(result))
         _print(f"head {result.head_seq} {safe_text(str(result.head_hash))}")
     if not result.ok:
         raise typer.Exit(1)
+
+
+def _authorship_line(result: VerifyResult) -> str:
+    """One line on signatures: how many checked, which entries are unsigned."""
+    unsigned = result.unsigned
+    listed = ", ".join(str(s) for s in unsigned[:10]) + (" …" if len(unsigned) > 10 else "")
+    tail = f"; {len(unsigned)} unsigned (older entries): {listed}" if unsigned else ""
+    if not result.keys_checked:
+        return (
+            "signatures: not checked (no public keys registered under [team.keys]; "
+            f"see docs/team.md){tail}"
+        )
+    return f"signatures: {result.signed} verified against registered keys{tail}"
 
 
 def register(app: typer.Typer) -> None:

@@ -45,6 +45,9 @@ class QueueResult:
         ledger is readable, ``reviewed`` (decided) and ``deferred``.
     case_ids
         The listed case ids, in order (after the limit).
+    measures
+        The per-case analysis measures the query used (``ambiguity``, ``dependence``): each
+        is a column of the rows and of the frame.
     """
 
     snapshot_id: str
@@ -55,6 +58,7 @@ class QueueResult:
     query: QueueQuery
     counts: Mapping[str, int]
     case_ids: tuple[str, ...]
+    measures: tuple[str, ...]
     _answer: QueueAnswer = field(repr=False, compare=False)
     _snapshot: Snapshot = field(repr=False, compare=False)
 

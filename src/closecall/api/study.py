@@ -180,6 +180,7 @@ class Study:
             query=answer.query,
             counts=dict(answer.queue.counts),
             case_ids=tuple(str(c) for c in snap.case_ids[listed]),
+            measures=tuple(answer.queue.measures),
             _answer=answer,
             _snapshot=snap,
         )
@@ -292,6 +293,7 @@ class Study:
         reason: str | None = None,
         note: str = "",
         supersedes: int | None = None,
+        second_opinion: bool = False,
     ) -> Entry:
         """Record a reviewer's action on a case (as the process's login) in the ledger.
 
@@ -303,6 +305,8 @@ class Study:
             A code from ``[review] reasons`` and a note; both required for overrides.
         supersedes
             Sequence number of an earlier entry for this case that this one corrects.
+        second_opinion
+            Record beside another reviewer's decision on the case instead of refusing.
 
         Examples
         --------
@@ -310,7 +314,9 @@ class Study:
         """
         from closecall.review.decisions import record_review
 
-        return record_review(self.opened, case_id, action, reason, note, supersedes)
+        return record_review(
+            self.opened, case_id, action, reason, note, supersedes, second_opinion=second_opinion
+        )
 
     def disparity(
         self,

@@ -19,13 +19,13 @@ from rich.text import Text
 from closecall.analysis.comparison import compare_models
 from closecall.analysis.counterparts import counterpart_flip_rates
 from closecall.analysis.dependence import dependence_by_group
-from closecall.analysis.explain import explain_case
 from closecall.analysis.multiplicity import (
     EPSILON_CURVE,
     UNCERTAINTY_EPSILON,
     ambiguity_by_group,
     epsilon_curve,
 )
+from closecall.api.study import Study
 from closecall.cli.common import ConfigOption, JsonOption, load
 from closecall.cli.output import console, emit_json, plain
 from closecall.core.errors import UserError
@@ -117,8 +117,8 @@ def explain(
       closecall explain HR-0002696
       closecall explain HR-0002696 --exact --json
     """
-    study = load(config, quiet=as_json)
-    data = explain_case(study, case_id, exact=exact, lens=lens)
+    study = Study(load(config, quiet=as_json))
+    data = study.explain(case_id, exact=exact, lens=lens).to_dict()
     if as_json:
         emit_json(data)
         return

@@ -11,6 +11,7 @@ from rich import box
 from rich.table import Table
 from rich.text import Text
 
+from closecall.api.study import Study
 from closecall.cli.common import ConfigOption, FormatOption, JsonOption, load, resolve_format
 from closecall.cli.output import Format, console, emit_json, emit_rows
 from closecall.core.errors import UserError
@@ -18,7 +19,7 @@ from closecall.core.text import safe_text
 
 if TYPE_CHECKING:
     from closecall.review.ledger.verify import VerifyResult
-from closecall.review.decisions import check_text, ledger_entries, record_review, verify_ledger
+from closecall.review.decisions import check_text, ledger_entries, verify_ledger
 from closecall.review.ledger import ACTIONS, Entry, canonical_json
 from closecall.setup.config import DEFAULT_REASONS, load_config
 
@@ -88,9 +89,14 @@ def record(
         raise UserError("give the note with --note or with --note-file, not both")
     text = _read_note_file(note_file) if note_file is not None else (note or "")
     check_text("--note", text)  # before the study is opened: fail fast on undecodable bytes
-    study = load(config, quiet=as_json)
-    entry = record_review(
-        study, case_id, action, reason, text, supersedes, second_opinion=second_opinion
+    study = Study(load(config, quiet=as_json))
+    entry = study.record(
+        case_id,
+        action,
+        reason=reason,
+        note=text,
+        supersedes=supersedes,
+        second_opinion=second_opinion,
     )
     if as_json:
         emit_json(entry.to_dict())

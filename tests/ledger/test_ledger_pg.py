@@ -459,3 +459,32 @@ def test_commands_refuse_a_password_and_a_server_that_is_down(cli: Any) -> None:
     res = cli("ledger", "setup", "postgresql://owner@127.0.0.1:1/x")
     assert res.code == 2 and "127.0.0.1:1/x" in res.err
     assert res.err.count("error:") == 1 and "Traceback" not in res.err
+
+
+def test_connection_lost_mid_record_stores_nothing_and_keeps_the_draft(
+    team: dict[str, str], monkeypatch: pytest.MonkeyPatch
+) -> None:
+    from closecall.review.ledger import pg_store
+
+    with open_pg_ledger(team["alice"]) as ledger:
+        ledger.append(content("one"))
+        ledger.drafts.save("x", "A-2", "half written", "uphold", None)
+        pid = ledger.connection.info.backend_pid
+        real_hash = pg_store.entry_hash
+
+        def cut_then_hash(fields: dict[str, Any]) -> str:
+            # the server ends this session while it holds the head lock, mid-transaction
+            with psycopg.connect(team["admin"], autocommit=True) as admin:
+                admin.execute("SELECT pg_terminate_backend(%s)", (pid,))
+            return real_hash(fields)
+
+        monkeypatch.setattr(pg_store, "entry_hash", cut_then_hash)
+        with pytest.raises(UserError, match="connection to the ledger database was lost"):
+            ledger.append(content("two", case_id="A-2"))
+    monkeypatch.undo()
+    with open_pg_ledger(team["alice"]) as ledger:
+        assert ledger.count() == 1 and ledger.verify().ok
+        draft = ledger.drafts.load("x", "A-2")
+        assert draft is not None and draft.note == "half written"
+        ledger.append(content("two", case_id="A-2"))  # the head lock was released
+        assert ledger.count() == 2

@@ -348,9 +348,6 @@ class PgLedger:
         decisions = json.loads(canonical_json(content.decisions))
         conn = self._conn
         try:
-            head_seq, head_hash, user, now = conn.execute(
-                "SELECT * FROM closecall.lock_head()"
-            ).fetchone()  # type: ignore[misc]
             if content.supersedes is not None:
                 earlier = conn.execute(
                     "SELECT case_id FROM closecall.entries WHERE seq = %s", (content.supersedes,)
@@ -359,6 +356,15 @@ class PgLedger:
                     raise ValueError(
                         f"entry {content.supersedes} is not an earlier entry for {content.case_id}"
                     )
+            # before the lock (rolled back with the entry if it fails): the lock is held
+            # only for reading the head, the insert and the commit
+            conn.execute(
+                "DELETE FROM closecall.drafts WHERE reviewer = session_user AND case_id = %s",
+                (content.case_id,),
+            )
+            head_seq, head_hash, user, now = conn.execute(
+                "SELECT * FROM closecall.lock_head()"
+            ).fetchone()  # type: ignore[misc]
             fields: dict[str, Any] = {
                 "seq": int(head_seq) + 1,
                 "format": ENTRY_FORMAT,
@@ -396,10 +402,6 @@ class PgLedger:
                     fields["hash"],
                     fields["prev_hash"],
                 ),
-            )
-            conn.execute(
-                "DELETE FROM closecall.drafts WHERE reviewer = session_user AND case_id = %s",
-                (content.case_id,),
             )
             conn.commit()
         except psycopg.errors.InsufficientPrivilege as exc:

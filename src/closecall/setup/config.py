@@ -490,6 +490,15 @@ def parse_config(raw: dict[str, Any], path: Path) -> StudyConfig:
 
     r = _table(path, raw, "review")
     _check_keys(path, "review", r)
+    if str(r.get("ledger", "")).strip().startswith(("postgresql://", "postgres://")):
+        # never echo the value: it may hold a password
+        raise UserError(
+            f"{path}: [review] ledger names a PostgreSQL database; the study commands do not "
+            "read a PostgreSQL ledger through the config yet",
+            "keep [review] ledger a file path for now; a team's PostgreSQL ledger is prepared "
+            "with 'closecall ledger setup URL' and filled with 'closecall ledger migrate' "
+            "(docs/ledger.md, Team deployment)",
+        )
     review = ReviewConfig(
         band=number(path, "review", "band", r.get("band", 0.5)),
         reasons=_str_tuple(path, "review", "reasons", r.get("reasons", list(DEFAULT_REASONS))),

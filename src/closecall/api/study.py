@@ -24,7 +24,13 @@ if TYPE_CHECKING:
 
 
 class Ledger:
-    """The study's review ledger: read, verify and export it (see docs/ledger.md)."""
+    """The study's review ledger: read, verify and export it (see docs/ledger.md).
+
+    Examples
+    --------
+    >>> study.ledger.verify().ok  # doctest: +SKIP
+    True
+    """
 
     def __init__(self, study: Study) -> None:
         self._study = study
@@ -147,7 +153,13 @@ class Study:
 
     @property
     def snapshot_id(self) -> str:
-        """The id of the snapshot every result is computed on."""
+        """The id of the snapshot every result is computed on.
+
+        Examples
+        --------
+        >>> study.snapshot_id  # doctest: +SKIP
+        '3f9c2a7d41e0b8c5'
+        """
         return str(self.opened.snapshot.id)
 
     @property

@@ -500,3 +500,32 @@ def test_a_database_url_in_the_study_config_is_refused_not_made_a_folder(
         make_config(tmp_path, ledger=url)
     assert "PostgreSQL" in info.value.message and "pw" not in info.value.message
     assert not any(tmp_path.iterdir())
+
+
+def test_the_documented_postgresql_verifier_agrees(team: dict[str, str], tmp_path: Path) -> None:
+    import re
+
+    doc = (Path(__file__).resolve().parents[2] / "docs" / "ledger.md").read_text("utf-8")
+    tail = doc[doc.index("<!-- pg-verifier:") :]
+    match = re.search(r"```python\n(.*?)```", tail, re.S)
+    assert match is not None
+    with open_pg_ledger(team["alice"]) as ledger:
+        for note in ("plain", "pipe | and\nnewline", "ünïcödé ✓"):
+            ledger.append(content(note))
+        head = ledger.head()
+    psql = next(Path("/usr/lib/postgresql").glob("*/bin/psql"))
+    rows = tmp_path / "rows.txt"
+    query = "SELECT hash, body FROM closecall.entries ORDER BY seq"
+    with rows.open("w") as out:
+        subprocess.run([psql, "-At", "-F", "|", "-c", query, team["ann"]], stdout=out, check=True)
+    run = subprocess.run(
+        [sys.executable, "-c", match.group(1), str(rows)], capture_output=True, text=True
+    )
+    assert run.stdout.split() == [str(head[0]), head[1]], run.stderr
+    _tamper(team["admin"], "UPDATE closecall.entries SET body = replace(body, 'plain', 'plan')")
+    with rows.open("w") as out:
+        subprocess.run([psql, "-At", "-F", "|", "-c", query, team["ann"]], stdout=out, check=True)
+    run = subprocess.run(
+        [sys.executable, "-c", match.group(1), str(rows)], capture_output=True, text=True
+    )
+    assert run.returncode != 0 and "entry 1 was altered" in run.stderr

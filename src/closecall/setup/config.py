@@ -417,8 +417,16 @@ def parse_config(raw: dict[str, Any], path: Path) -> StudyConfig:
     for required in ("history", "id", "outcome", "favourable", "group"):
         if required not in d:
             raise UserError(
-                f"{path}: [data] needs '{required}'",
-                "see docs/config.md; 'closecall init DATA' writes a starting config",
+                f"{path}: [data] needs '{required}'"
+                + (
+                    " (the protected attribute is never chosen for you)"
+                    if required == "group"
+                    else ""
+                ),
+                'write group = ["COLUMN"] under [data]: the comments there list candidates '
+                "from 'closecall init'"
+                if required == "group"
+                else "see docs/config.md; 'closecall init DATA' writes a starting config",
             )
     favourable = d["favourable"]
     if isinstance(favourable, float) and not math.isfinite(favourable):

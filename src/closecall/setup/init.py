@@ -6,6 +6,7 @@ import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 
 from closecall.core.errors import UserError
@@ -26,6 +27,88 @@ _GROUP_HINT = re.compile(
     r"disab|group|afam|black|minority)",
     re.I,
 )
+
+
+#: A group candidate has at most this many levels.
+MAX_GROUP_LEVELS = 8
+#: "Strongly associated" with a feature: Cramér's V or the correlation ratio at or above this
+#: (the proxies' default flag, [proxies] association).
+STRONG_ASSOCIATION = 0.3
+
+
+def _association(candidate: pd.Series, other: pd.Series) -> float:
+    """Cramér's V (categorical ``other``) or the correlation ratio η (numeric ``other``)."""
+    keep = candidate.notna().to_numpy() & other.notna().to_numpy()
+    codes, _ = pd.factorize(candidate[keep])
+    k = int(codes.max()) + 1 if len(codes) else 0
+    if k < 2:
+        return 0.0
+    if pd.api.types.is_numeric_dtype(other) and not pd.api.types.is_bool_dtype(other):
+        x = other[keep].to_numpy(dtype=float)
+        total = float(((x - x.mean()) ** 2).sum())
+        if total <= 0:
+            return 0.0
+        sums = np.bincount(codes, weights=x, minlength=k)
+        counts = np.bincount(codes, minlength=k)
+        means = sums / np.maximum(counts, 1)
+        between = float((counts * (means - x.mean()) ** 2).sum())
+        return float(np.sqrt(between / total))
+    table = pd.crosstab(codes, pd.factorize(other[keep])[0]).to_numpy(dtype=float)
+    if min(table.shape) < 2:
+        return 0.0
+    n = table.sum()
+    expected = table.sum(1, keepdims=True) * table.sum(0, keepdims=True) / n
+    chi2 = float(((table - expected) ** 2 / expected).sum())
+    return float(np.sqrt(chi2 / (n * (min(table.shape) - 1))))
+
+
+def group_candidates(
+    frame: pd.DataFrame, reserved: set[str], limit: int = 10
+) -> list[dict[str, object]]:
+    """Columns that could hold the protected attribute, each with why (never chosen here).
+
+    A candidate has few levels (2 to MAX_GROUP_LEVELS); it ranks higher when named like a
+    protected attribute and when strongly associated with another column (a group attribute
+    usually is, through its proxies). Returns ``{"column", "levels", "named_like", "associated"}``
+    dicts, most likely first.
+    """
+    out: list[dict[str, object]] = []
+    columns = [c for c in frame.columns if c not in reserved]
+    for c in columns:
+        levels = int(frame[c].nunique(dropna=True))
+        if not 2 <= levels <= MAX_GROUP_LEVELS:
+            continue
+        strongest = sorted(
+            ((_association(frame[c], frame[o]), o) for o in columns if o != c), reverse=True
+        )
+        associated = [
+            {"column": o, "association": round(v, 2)}
+            for v, o in strongest[:2]
+            if v >= STRONG_ASSOCIATION
+        ]
+        out.append(
+            {
+                "column": c,
+                "levels": levels,
+                "named_like": bool(_GROUP_HINT.search(c)),
+                "associated": associated,
+            }
+        )
+    out.sort(key=lambda d: (not d["named_like"], not d["associated"], d["levels"]))
+    return out[:limit]
+
+
+def _why(candidate: dict[str, object]) -> str:
+    parts = [f"{candidate['levels']} levels"]
+    if candidate["named_like"]:
+        parts.append("named like a protected attribute")
+    assoc = candidate["associated"]
+    if isinstance(assoc, list) and assoc:
+        parts.append(
+            "strongly associated with "
+            + ", ".join(f"{a['column']} ({a['association']:.2f})" for a in assoc)
+        )
+    return f"{candidate['column']}: " + "; ".join(parts)
 
 
 @dataclass
@@ -61,7 +144,19 @@ def infer_config(
         None,
     )
     two_valued = [c for c in frame.columns if frame[c].nunique(dropna=True) == 2 and c != id_col]
-    outcome = next((c for c in two_valued if _OUTCOME_HINT.search(c)), None)
+    outcome = None
+    if pending is not None:  # the label is what history has and pending lacks
+        pending_cols = set(read_table(pending).columns)
+        only_history = [c for c in two_valued if c not in pending_cols]
+        if len(only_history) == 1:
+            outcome = only_history[0]
+        elif only_history:
+            two_valued = only_history
+    if outcome is None:
+        named = [c for c in two_valued if _OUTCOME_HINT.search(c)]
+        outcome = named[0] if len(named) == 1 or (named and pending is None) else None
+        if outcome is None and len(two_valued) == 1:
+            outcome = two_valued[0]
     favourable: object = None
     if outcome is not None:
         values = list(pd.unique(frame[outcome].dropna()))
@@ -72,8 +167,10 @@ def infer_config(
             favourable = yes_like[0] if yes_like else values[0]
         if hasattr(favourable, "item"):
             favourable = favourable.item()
-    group = [c for c in frame.columns if _GROUP_HINT.search(c) and c not in (id_col, outcome)]
-    features = [c for c in frame.columns if c not in (id_col, outcome, *group)]
+    candidates = group_candidates(frame, {c for c in (id_col, outcome) if c})
+    candidate_names = [str(d["column"]) for d in candidates]
+    undecided = set(candidate_names) | (set(two_valued) if outcome is None else set())
+    features = [c for c in frame.columns if c not in (id_col, outcome)]
     kinds = {c: infer_kind(frame[c]) for c in features}
 
     rel = relative_to or data.parent
@@ -115,24 +212,28 @@ def infer_config(
             "outcome and favourable: which two-valued column is the label "
             f"(candidates: {', '.join(two_valued[:6]) or 'none'})"
         )
-    if group:
-        lines.append(f"group = [{', '.join(_quote(g) for g in group)}]   # CHECK")
-        inf.inferred["group"] = group
-        inf.to_decide.append(
-            f"group: confirm {', '.join(group)} is the protected attribute and that your legal "
-            "and data-protection officers allow processing it"
+    # the group attribute is never chosen here: fit refuses the config until the user does
+    lines.append('# group = ["..."]   # CHOOSE the protected attribute column(s); candidates:')
+    lines += [f"#   {_why(d)}" for d in candidates] or ["#   (no column has 2 to 8 levels)"]
+    inf.inferred["group_candidates"] = candidate_names
+    inf.to_decide.append(
+        'group: write group = ["..."] under [data] naming the protected attribute column(s) '
+        "(ask your legal and data-protection officers whether it may be processed); "
+        + (
+            "candidates: " + " | ".join(_why(d) for d in candidates)
+            if candidates
+            else "no column has 2 to 8 levels"
         )
-    else:
-        lines.append('# group = ["..."]   # DECIDE: the protected attribute column(s)')
-        inf.to_decide.append(
-            "group: which column(s) hold the protected attribute (ask your legal and "
-            "data-protection officers whether it may be processed)"
-        )
+    )
     lines.append("# features = [...]   # default: every other column")
     lines.append("# exclude = [...]    # columns to leave out")
     lines.append('# deployed_score = "..."   # probability column of the model in use')
     lines += ["", "[kinds]   # numeric or categorical, inferred from the data"]
-    lines += [f"{_quote(c)} = {_quote(k)}" for c, k in kinds.items()]
+    lines += [
+        f"{'# ' if c in undecided else ''}{_quote(c)} = {_quote(k)}"
+        + ("   # if it stays a feature" if c in undecided else "")
+        for c, k in kinds.items()
+    ]
     inf.inferred["kinds"] = kinds
     lines += [
         "",

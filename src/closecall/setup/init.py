@@ -34,6 +34,7 @@ MAX_GROUP_LEVELS = 8
 #: "Strongly associated" with a feature: Cramér's V or the correlation ratio at or above this
 #: (the proxies' default flag, [proxies] association).
 STRONG_ASSOCIATION = 0.3
+ASSOCIATION_ROWS = 20_000
 
 
 def _association(candidate: pd.Series, other: pd.Series) -> float:
@@ -74,12 +75,16 @@ def group_candidates(
     """
     out: list[dict[str, object]] = []
     columns = [c for c in frame.columns if c not in reserved]
+    # associations on at most ASSOCIATION_ROWS rows (seeded): a ranking hint, not a finding
+    sample = (
+        frame if len(frame) <= ASSOCIATION_ROWS else frame.sample(ASSOCIATION_ROWS, random_state=0)
+    )
     for c in columns:
         levels = int(frame[c].nunique(dropna=True))
         if not 2 <= levels <= MAX_GROUP_LEVELS:
             continue
         strongest = sorted(
-            ((_association(frame[c], frame[o]), o) for o in columns if o != c), reverse=True
+            ((_association(sample[c], sample[o]), o) for o in columns if o != c), reverse=True
         )
         associated = [
             {"column": o, "association": round(v, 2)}

@@ -416,6 +416,9 @@ def _fit_suite(config: StudyConfig, data: StudyData, progress: Progress) -> Suit
     y = data.y.astype(np.int8)
     G = len(levels)
     notes = list(data.notes)
+    from closecall.suite.coverage import outside_history, outside_history_notes
+
+    notes += outside_history_notes(outside_history(data))  # pending beyond history's range
 
     group_mask = encoder.group_mask
     nongroup = ~group_mask

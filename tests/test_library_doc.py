@@ -30,3 +30,10 @@ def test_library_page_blocks_run(tmp_path: Path, monkeypatch: pytest.MonkeyPatch
     for i, block in enumerate(python_blocks(DOC.read_text())):
         exec(compile(block, f"docs/library.md block {i + 1}", "exec"), namespace)
     assert (tmp_path / "reviews.csv").stat().st_size > 0
+
+
+def test_developer_docs_stay_inside_the_repository() -> None:
+    """DEVELOPERS.md and docs/ name files of this repository only (no ../ paths)."""
+    root = DOC.parents[1]
+    for page in [root / "DEVELOPERS.md", *sorted((root / "docs").glob("*.md"))]:
+        assert "../" not in page.read_text(), page.name

@@ -45,6 +45,7 @@ COMMAND_MODULES = (
     "closecall.cli.disparity_cmds",
     "closecall.cli.review_cmds",
     "closecall.cli.reasons_cmds",
+    "closecall.cli.model_cmds",
     "closecall.cli.team_cmds",
 )
 # Which module holds each command: a command loads only its own module (and so only the
@@ -65,6 +66,7 @@ COMMAND_HOME = {
     "demo-reviews": "disparity_cmds",
     "review": "review_cmds",
     "reasons": "reasons_cmds",
+    "model": "model_cmds",
     "keys": "team_cmds",
 }
 _registered: set[str] = set()

@@ -150,6 +150,12 @@ class ReviewApp(App[None]):
         if self.session is not None and not isinstance(self.screen, LedgerScreen):
             self.push_screen(LedgerScreen(self.session))
 
+    def action_model(self) -> None:
+        from closecall.tui.model_screen import ModelScreen
+
+        if self.session is not None and not isinstance(self.screen, ModelScreen):
+            self.push_screen(ModelScreen(self.session))
+
     # ------------------------------------------------------------------ command palette
 
     def _queue_screen(self) -> QueueScreen | None:
@@ -165,6 +171,9 @@ class ReviewApp(App[None]):
             return
         yield SystemCommand("Help", "Keys, what each mark means, cautions", self.action_help)
         yield SystemCommand("Ledger", "Recent entries and the chain's state", self.action_ledger)
+        yield SystemCommand(
+            "Model weights", "Every model's weights, odds ratios, thresholds", self.action_model
+        )
         queue = self._queue_screen()
         if queue is None:
             return

@@ -31,6 +31,7 @@ class QueueScreen(Screen[None]):
         Binding("d", "decide", "decide"),
         Binding("slash", "search", "find id", key_display="/"),
         Binding("l", "app.ledger", "ledger"),
+        Binding("m", "app.model", "model weights", show=False),
         Binding("question_mark,f1", "app.help", "help", key_display="?"),
         Binding("q", "app.quit", "quit"),
         Binding("ctrl+p", "app.command_palette", "commands", key_display="^p"),

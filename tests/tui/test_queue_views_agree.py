@@ -66,6 +66,10 @@ def test_cli_and_review_screen_list_the_same_cases(
     for flags, settings in REQUESTS:
         listed = [str(x) for x in ids[session.rebuild(settings).order]]
         assert _cli_ids(cli, study_config, flags) == listed, flags
+    header = json.loads(cli("queue", "--config", str(study_config), "--json").out)["counts"]
+    session.rebuild(ListSettings())
+    assert session.counts()["reviewed"] == header["reviewed"] == 3  # a, b, e: decided
+    assert header["deferred"] == 2  # c, d
     unreviewed = set(_cli_ids(cli, study_config, ["--unreviewed"]))
     # decided cases (uphold, override, a superseded deferral) leave; deferrals stay listed
     assert {a, b, e}.isdisjoint(unreviewed) and {c, d} <= unreviewed

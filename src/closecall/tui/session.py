@@ -17,7 +17,7 @@ from closecall.analysis.margin_distribution import MarginDistribution, margin_di
 from closecall.review.conflicts import study_conflicts
 from closecall.review.decisions import active_claims, latest_actions
 from closecall.review.ledger import Claim, current_login
-from closecall.review.query import QueueQuery, answer_queue
+from closecall.review.query import QueueQuery, answer_queue, awaiting_decision
 from closecall.review.queue import Queue
 from closecall.review.states import mark_conflicts, review_states
 from closecall.suite.opening import OpenedStudy
@@ -232,7 +232,7 @@ class ReviewSession:
         """Header counts: the queue's counts plus reviewed and claimed cases."""
         q = self.queue
         out = dict(q.counts) if q is not None else {}
-        out["reviewed"] = int(np.count_nonzero(self.states))
+        out["reviewed"] = int(np.count_nonzero(~awaiting_decision(self.states)))  # decided
         out["claimed"] = sum(1 for v in self.claims.values() if v)
         return out
 

@@ -196,3 +196,38 @@ class TestExactBandOneOutcomeGroup:
         res = cli("explain", str(snap.case_ids[i]), "--exact", "--json", "--config", str(config))
         assert res.code == 0, res
         assert "Traceback" not in res.err
+
+
+# --------------------------------------------------------------------------- tiny levels
+
+
+def test_two_cases_per_group_and_outcome_is_fitted_not_a_traceback(
+    cli: Cli, tmp_path: Path
+) -> None:
+    """[data] min_group_cases = 2 allows levels of 4 cases; proxy detection's group
+    recoverability used 5 stratified folds regardless and stopped with scikit-learn's
+    'n_splits=5 cannot be greater than the number of members in each class'."""
+    import pandas as pd
+    from test_hostile_fits import _write
+
+    frame = pd.DataFrame(
+        {
+            "id": [f"H{i}" for i in range(8)],
+            "g": ["A"] * 4 + ["B"] * 4,
+            "x1": [0.1, 0.5, -0.2, 0.9, 0.3, -0.4, 0.8, 0.05],
+            "x2": [1, 2, 3, 4, 5, 6, 7, 8.5],
+            "y": ["good", "bad"] * 4,  # two cases in each group × outcome cell
+        }
+    )
+    config = _write(tmp_path / "study", frame, 1.0)
+    text = config.read_text().replace("folds = 5", "folds = 2")
+    config.write_text(text.replace('group = "g"', 'group = "g"\nmin_group_cases = 2'))
+    res = cli("fit", "--config", str(config), "--json")
+    assert res.code == 0, res
+    out = json.loads(res.out)
+    assert out["fit_flags"], out  # separated and wide fits are flagged, not silent
+    snap = open_study(config).snapshot
+    assert 0.0 <= snap.proxies.recoverability <= 1.0
+    for args in (("queue", "--all"), ("bands",), ("explain", "H0", "--exact")):
+        r = cli(*args, "--config", str(config))
+        assert r.code == 0 and "Traceback" not in r.err, (args, r)

@@ -305,17 +305,24 @@ def group_recoverability(
     """Held-out AUC of predicting the group from the given (non-group) design columns.
 
     ``columns`` (a boolean mask) picks the columns after the rows are subsampled, so a large
-    history is never copied whole.
+    history is never copied whole. ``folds`` is lowered to the smallest level's count (at
+    least 2) so a study with very small levels is scored rather than refused.
     """
     rng = np.random.default_rng(seed)
     idx = np.arange(len(group_codes))
     if len(idx) > RECOVERABILITY_MAX_ROWS:
         idx = np.sort(rng.choice(idx, RECOVERABILITY_MAX_ROWS, replace=False))
+    counts = np.bincount(group_codes[idx], minlength=n_levels)
+    if counts[counts > 0].min() < 2:  # a small level thinned out by the subsample: use all
+        idx = np.arange(len(group_codes))
+        counts = np.bincount(group_codes, minlength=n_levels)
     Xs, gs = X[idx], group_codes[idx]
     if columns is not None:
         Xs = Xs[:, columns]
     scores = np.zeros((len(idx), n_levels))
-    skf = StratifiedKFold(n_splits=folds, shuffle=True, random_state=seed)
+    # no more folds than the smallest level has cases ([data] min_group_cases may be 2)
+    k = int(max(2, min(folds, counts[counts > 0].min())))
+    skf = StratifiedKFold(n_splits=k, shuffle=True, random_state=seed)
     for train, test in skf.split(Xs, gs):
         clf = LogisticRegression(C=1.0, max_iter=500)
         clf.fit(Xs[train], gs[train])

@@ -107,9 +107,15 @@ def _root(
 
 def main() -> None:
     """Entry point: runs the app, turning user errors into one message and exit code 2."""
+    from closecall.core.shared import permission_error, use_study_umask
+
+    use_study_umask()  # files made in a study are the group's (docs/team.md)
     register_for(sys.argv[1:])
     try:
-        app()  # standalone: usage errors print their own message and exit 2
+        try:
+            app()  # standalone: usage errors print their own message and exit 2
+        except PermissionError as exc:  # a file or folder this login may not use
+            raise permission_error(exc.filename) from None
     except UserError as exc:
         err_console.print(f"[bold red]error:[/] {safe_markup(exc.message)}", soft_wrap=True)
         if exc.fix:

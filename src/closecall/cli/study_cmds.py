@@ -60,17 +60,21 @@ def init(
     from closecall.setup.init import infer_config
 
     inf = infer_config(data, pending, relative_to=out.resolve().parent)
-    # the config is read by every reviewer of the study: usual permissions (umask applies)
-    write_output(
-        out,
-        inf.text.encode("utf-8"),
-        inputs,
-        option="--out",
-        force=force,
-        mode=0o666,
-        example=CONFIG_NAME,
-        may_replace=("config",),
-    )
+    # the config is read by every reviewer of the study and written by its owner only: the
+    # login's own umask applies (not the study umask, docs/team.md)
+    from closecall.core.shared import login_umask
+
+    with login_umask():
+        write_output(
+            out,
+            inf.text.encode("utf-8"),
+            inputs,
+            option="--out",
+            force=force,
+            mode=0o666,
+            example=CONFIG_NAME,
+            may_replace=("config",),
+        )
     if as_json:
         emit_json({"config": str(out), "inferred": inf.inferred, "to_decide": inf.to_decide})
         return
@@ -95,9 +99,11 @@ def demo(
 
     Example: closecall demo --out demo-study --cases 5000 && cd demo-study && closecall queue
     """
+    from closecall.core.shared import login_umask
     from closecall.setup.demo import write_demo
 
-    config = write_demo(out, cases=cases, seed=seed)  # refuses a folder holding a study
+    with login_umask():  # config and data: the owner's files (docs/team.md)
+        config = write_demo(out, cases=cases, seed=seed)  # refuses a folder holding a study
     sid = None
     if fit:
         with progress_bar(not as_json) as update:

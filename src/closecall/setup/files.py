@@ -10,9 +10,15 @@ from closecall.core.errors import UserError
 
 def require_file(path: Path) -> None:
     """Refuse a data path that is missing, a folder, or unreadable."""
-    if not path.exists():
-        raise UserError(f"{path}: file not found", "check the path in the study config")
+    from closecall.core.shared import permission_error
+
+    try:
+        os.stat(path)
+    except PermissionError:  # a folder on the way this login may not pass through
+        raise permission_error(path, "read") from None
+    except OSError:
+        raise UserError(f"{path}: file not found", "check the path in the study config") from None
     if path.is_dir():
         raise UserError(f"{path}: is a folder, not a data file", "name a .csv or .parquet file")
     if not os.access(path, os.R_OK):
-        raise UserError(f"{path}: permission denied", "make the file readable for your login")
+        raise permission_error(path, "read")

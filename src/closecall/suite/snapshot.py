@@ -34,6 +34,7 @@ from scipy.special import logit
 
 from closecall import __version__
 from closecall.core.errors import UserError
+from closecall.core.shared import permission_error, share_dir
 from closecall.setup.config import CostLens, StudyConfig
 from closecall.setup.encode import Encoder
 from closecall.setup.files import require_file
@@ -455,6 +456,9 @@ def save_snapshot(config: StudyConfig, snap: Snapshot, *, replace: bool = False)
     try:
         final.parent.mkdir(parents=True, exist_ok=True)
         tmp = Path(tempfile.mkdtemp(prefix=f".{snap.id}-", dir=final.parent))
+        share_dir(tmp)  # mkdtemp makes 0700: the team's other members must read it
+    except PermissionError as exc:
+        raise permission_error(exc.filename or final.parent, "write a snapshot in") from None
     except OSError as exc:
         raise UserError(
             f"cannot write the snapshot under {final.parent}: {exc.strerror or exc}",

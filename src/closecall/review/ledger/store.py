@@ -179,6 +179,34 @@ class DamagedLedger(UserError):
         self.findings = tuple(findings)
 
 
+def _permission(path: Path, text: str) -> UserError:
+    """A ledger (or its -wal/-shm companion, or its folder) this login may not use: each
+    named with owner, group and mode, and the command that fixes it."""
+    from closecall.core.shared import describe, permission_error
+
+    companions = [Path(f"{path}{s}") for s in ("-wal", "-shm")]
+    blocked = [
+        p
+        for p in (path, *companions, path.parent)
+        if p.exists() and not os.access(p, os.R_OK | os.W_OK | (os.X_OK if p.is_dir() else 0))
+    ]
+    if not blocked:
+        return UserError(
+            f"{path}: cannot open the ledger (SQLite says: {text})",
+            "check that the file and its folder are readable and writable by your login "
+            "(new ledgers are owner and group read/write only); if they are, run 'closecall "
+            "ledger verify'",
+        )
+    first = permission_error(blocked[0], "write")
+    others = "; ".join(describe(p) for p in blocked[1:])
+    return UserError(
+        f"{path}: the ledger cannot be written with your login (SQLite says: {text}): "
+        + first.message.removeprefix("permission denied: ")
+        + (f"; also {others}" if others else ""),
+        first.fix,
+    )
+
+
 def _database_error(path: Path, exc: sqlite3.DatabaseError | _UnreadableEntry) -> UserError:
     """The one place where an SQLite error about the ledger becomes a message for the user.
 
@@ -219,12 +247,8 @@ def _database_error(path: Path, exc: sqlite3.DatabaseError | _UnreadableEntry) -
             "wait for the other program to finish and run the command again; if it stays "
             "locked, close whatever holds the file open (an sqlite3 shell, a backup tool)",
         )
-    if "readonly" in low or "read-only" in low:
-        return UserError(
-            f"{path}: the ledger cannot be written with your login (SQLite says: {text})",
-            "ask the study owner for write permission on the ledger file and its folder "
-            "(owner and group read/write); commands that only read it still work",
-        )
+    if "readonly" in low or "read-only" in low or "unable to open" in low:
+        return _permission(path, text)
     if "full" in low:
         return UserError(
             f"{path}: the disk holding the ledger is full (SQLite says: {text})",

@@ -1,0 +1,126 @@
+"""Files a team shares: the study umask, folder modes and permission messages (docs/team.md).
+
+The policy: every file and folder closecall creates inside a study is readable and writable by
+the study folder's group — files 0660, folders 02770 (setgid, so what is made inside keeps the
+folder's group) — and gives nothing to others, whatever the login's umask. closecall's commands
+run under the process umask :data:`STUDY_UMASK` (007), so SQLite's ``-wal`` and ``-shm``
+companions, snapshot files, the digests cache and drafts never exist, even for an instant,
+with a narrower mode than the one another member needs to open them. Files meant for one
+person (exports outside the study, key files) are created with explicit owner-only modes, which
+the umask does not widen; a config or data file ``init`` and ``demo`` write keeps the login's
+own umask (:func:`login_umask`).
+"""
+
+from __future__ import annotations
+
+import contextlib
+import grp
+import os
+import pwd
+import stat
+from collections.abc import Iterator
+from pathlib import Path
+
+from closecall.core.errors import UserError
+
+#: Process umask while closecall works in a study: group read/write, nothing for others.
+STUDY_UMASK = 0o007
+#: Mode of a file closecall creates in a study, and of a folder (setgid added where the
+#: parent has it).
+FILE_MODE = 0o660
+DIR_MODE = 0o770
+
+_original: int | None = None
+
+
+def use_study_umask() -> int:
+    """Set the process umask to :data:`STUDY_UMASK`; the login's umask is remembered."""
+    global _original
+    old = os.umask(STUDY_UMASK)
+    if _original is None:
+        _original = old
+    return old
+
+
+@contextlib.contextmanager
+def login_umask() -> Iterator[None]:
+    """Create files with the login's own umask (a config or data file meant for its owner)."""
+    if _original is None:
+        yield
+        return
+    current = os.umask(_original)
+    try:
+        yield
+    finally:
+        os.umask(current)
+
+
+def shared_dir_mode(folder: Path) -> int:
+    """The mode a folder closecall made under ``folder``'s parent should have: 0770, plus the
+    setgid bit when the parent has it (so the group carries on down)."""
+    try:
+        parent = folder.parent.stat().st_mode
+    except OSError:
+        parent = 0
+    return DIR_MODE | (parent & stat.S_ISGID)
+
+
+def share_dir(folder: Path) -> None:
+    """Give a folder closecall just made (``mkdtemp`` makes 0700) the shared folder mode."""
+    os.chmod(folder, shared_dir_mode(folder))
+
+
+def describe(path: Path) -> str:
+    """``path (owner alice, group reviewers, mode 0640)`` for the path or, when it does not
+    exist, for its nearest existing parent."""
+    target = Path(path)
+    why = "does not exist"
+    while True:
+        try:
+            st = target.lstat()
+            break
+        except OSError as exc:
+            if isinstance(exc, PermissionError):
+                why = "cannot be reached by this login"
+            if target.parent == target:
+                return str(path)
+            target = target.parent
+    try:
+        owner = pwd.getpwuid(st.st_uid).pw_name
+    except KeyError:
+        owner = str(st.st_uid)
+    try:
+        group = grp.getgrgid(st.st_gid).gr_name
+    except KeyError:
+        group = str(st.st_gid)
+    what = "" if target == Path(path) else f"{path} {why}; its folder "
+    return f"{what}{target} (owner {owner}, group {group}, mode {stat.S_IMODE(st.st_mode):04o})"
+
+
+def _group_of(path: Path) -> str:
+    target = Path(path)
+    while not target.exists() and target.parent != target:
+        target = target.parent
+    try:
+        return grp.getgrgid(target.stat().st_gid).gr_name
+    except (KeyError, OSError):
+        return "GROUP"
+
+
+def permission_error(path: object, action: str = "use") -> UserError:
+    """One message for a file or folder this login may not use: the file, its owner, group
+    and mode, and the command that fixes it (run by its owner or an administrator)."""
+    p = Path(str(path)) if path else Path(".")
+    target = p
+    while not target.exists() and target.parent != target:
+        target = target.parent
+    group = _group_of(p)
+    if target.is_dir():
+        fix = f"chgrp -R {group} {target} && chmod -R g+rwX {target} && chmod g+s {target}"
+    else:
+        fix = f"chgrp {group} {target} && chmod g+rw {target}"
+    return UserError(
+        f"permission denied: cannot {action} {describe(p)}",
+        f"ask its owner or an administrator to run: {fix}; 'closecall team check' lists "
+        "every such problem in the study",
+    )

@@ -1,0 +1,301 @@
+"""A team on one server, with real OS accounts: two reviewers in a writers' group and an
+analyst outside it, each running closecall as themselves (``runuser``).
+
+Runs only as root (CI and this machine are): the session fixture creates the groups and users
+with unique names and removes them afterwards. Nothing is installed: the accounts run the
+project's own virtual environment (made traversable for the session, modes restored after).
+"""
+
+from __future__ import annotations
+
+import grp
+import os
+import re
+import secrets
+import shutil
+import sqlite3
+import stat
+import subprocess
+import sys
+import textwrap
+from collections.abc import Iterator
+from dataclasses import dataclass
+from pathlib import Path
+
+import pytest
+
+ROOT_ONLY = "needs root to create OS accounts and run commands as them (CI runs as root)"
+pytestmark = pytest.mark.skipif(
+    os.geteuid() != 0 or shutil.which("useradd") is None or shutil.which("runuser") is None,
+    reason=ROOT_ONLY,
+)
+
+CLOSECALL = Path(sys.executable).parent / "closecall"
+
+
+@dataclass
+class Team:
+    base: Path
+    writers: str  # the writers' group
+    r1: str
+    r2: str
+    analyst: str
+    study: Path  # a fresh study for each test comes from new_study()
+
+    def run(
+        self, user: str, *args: str, umask: str = "022", cwd: Path | None = None
+    ) -> subprocess.CompletedProcess[str]:
+        """``closecall ARGS`` as ``user`` under the ordinary ``umask``."""
+        script = f"umask {umask} && exec {CLOSECALL} " + " ".join(_quote(a) for a in args)
+        return subprocess.run(
+            ["runuser", "-u", user, "--", "sh", "-c", script],
+            capture_output=True,
+            text=True,
+            timeout=600,
+            cwd=cwd or self.base,
+            env={**_clean_env(), "HOME": str(self.base / "home" / user)},
+        )
+
+    def python(self, user: str, code: str, umask: str = "022") -> subprocess.Popen[str]:
+        script = f"umask {umask} && exec {sys.executable} -c {_quote(code)}"
+        return subprocess.Popen(
+            ["runuser", "-u", user, "--", "sh", "-c", script],
+            stdout=subprocess.PIPE,
+            stderr=subprocess.PIPE,
+            text=True,
+            cwd=self.base,
+            env={**_clean_env(), "HOME": str(self.base / "home" / user)},
+        )
+
+
+def _quote(s: str) -> str:
+    return "'" + s.replace("'", "'\"'\"'") + "'"
+
+
+def _clean_env() -> dict[str, str]:
+    keep = ("PATH", "LANG", "LC_ALL", "TZ")
+    env = {k: v for k, v in os.environ.items() if k in keep}
+    env.setdefault("LANG", "C.UTF-8")
+    return env
+
+
+def _traversable(path: Path) -> list[tuple[Path, int]]:
+    """Add o+x (and o+r on files) along ``path`` where missing; return what to restore."""
+    changed = []
+    parts = [path, *path.parents]
+    for p in parts:
+        mode = stat.S_IMODE(p.stat().st_mode)
+        need = stat.S_IXOTH if p.is_dir() else stat.S_IROTH
+        if not mode & need:
+            changed.append((p, mode))
+            os.chmod(p, mode | need)
+    return changed
+
+
+@pytest.fixture(scope="session")
+def team(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Team]:
+    sfx = secrets.token_hex(3)
+    base = Path(f"/tmp/cc16-{sfx}")
+    base.mkdir(mode=0o755)
+    os.chmod(base, 0o755)
+    writers, readers = f"ccw{sfx}", f"cca{sfx}"
+    r1, r2, analyst = f"ccr1{sfx}", f"ccr2{sfx}", f"ccan{sfx}"
+    made_users: list[str] = []
+    made_groups: list[str] = []
+    restore: list[tuple[Path, int]] = []
+    try:
+        for g in (writers, readers):
+            subprocess.run(["groupadd", g], check=True)
+            made_groups.append(g)
+        (base / "home").mkdir(mode=0o755)
+        for user, group in ((r1, writers), (r2, writers), (analyst, readers)):
+            home = base / "home" / user
+            subprocess.run(
+                ["useradd", "-M", "-d", str(home), "-g", group, "-s", "/bin/sh", user],
+                check=True,
+            )
+            made_users.append(user)
+            home.mkdir(mode=0o700)
+            shutil.chown(home, user, group)
+        real = Path(os.path.realpath(sys.executable))
+        restore += _traversable(real)
+        restore += _traversable(CLOSECALL)
+        import closecall
+
+        restore += _traversable(Path(closecall.__file__).resolve())
+        yield Team(base, writers, r1, r2, analyst, base / "study")
+    finally:
+        for p, mode in reversed(restore):
+            os.chmod(p, mode)
+        for u in made_users:
+            subprocess.run(["userdel", u], check=False)
+        for g in made_groups:
+            subprocess.run(["groupdel", g], check=False)
+        shutil.rmtree(base, ignore_errors=True)
+
+
+@pytest.fixture(scope="session")
+def fitted_demo(team: Team) -> Path:
+    """A fitted 3,300-case demo (about 620 pending cases) written by the supervisor (root),
+    kept as a template."""
+    template = team.base / "template"
+    res = subprocess.run(
+        [str(CLOSECALL), "demo", "--out", str(template), "--cases", "3300", "--seed", "3"],
+        capture_output=True,
+        text=True,
+        timeout=600,
+    )
+    assert res.returncode == 0, res.stderr
+    return template
+
+
+def new_study(team: Team, template: Path, name: str, *, setup: bool = True) -> Path:
+    """A copy of the demo set up as docs/team.md says: folder owned by the supervisor, in the
+    writers' group, group rwx + setgid, nothing for others; the config owner-writable."""
+    study = team.base / name
+    shutil.copytree(template, study, symlinks=True)
+    config = study / "closecall.toml"
+    text = re.sub(
+        r"(?m)^reviewers = .*$", f'reviewers = ["{team.r1}", "{team.r2}"]', config.read_text()
+    )
+    text = re.sub(r"(?m)^analysts = .*$", f'analysts = ["{team.analyst}"]', text)
+    config.write_text(text)
+    if setup:
+        gid = grp.getgrnam(team.writers).gr_gid
+        for dirpath, _dirnames, filenames in os.walk(study):
+            os.chown(dirpath, 0, gid)
+            os.chmod(dirpath, 0o2770)
+            for f in filenames:
+                p = Path(dirpath) / f
+                os.chown(p, 0, gid)
+                os.chmod(p, 0o660)
+        os.chmod(config, 0o644)
+        os.chmod(study, 0o3770)  # sticky too: members cannot delete each other's files
+    return study
+
+
+def _no_traceback(res: subprocess.CompletedProcess[str]) -> None:
+    assert "Traceback" not in res.stderr, res.stderr
+
+
+RECORDER = textwrap.dedent(
+    """
+    import sys
+    from closecall.cli.app import main
+    config, start, count = sys.argv[1], int(sys.argv[2]), int(sys.argv[3])
+    from closecall.suite.opening import open_study
+    ids = [str(c) for c in open_study(config).snapshot.case_ids[start:start + count]]
+    assert len(ids) == count, len(ids)
+    failures = 0
+    for case in ids:
+        sys.argv = ["closecall", "record", case, "--action", "uphold", "--note", "ok",
+                    "--config", config]
+        try:
+            main()
+        except SystemExit as exc:
+            if exc.code not in (0, None):
+                failures += 1
+    print("FAILURES", failures)
+    """
+)
+
+
+class TestSharedFiles:
+    def test_two_reviewers_record_300_each_at_once_under_umask_022(
+        self, team: Team, fitted_demo: Path
+    ) -> None:
+        study = new_study(team, fitted_demo, "concurrent")
+        config = str(study / "closecall.toml")
+        procs = [
+            team.python(
+                user,
+                RECORDER.replace(
+                    "sys.argv[1], int(sys.argv[2]), int(sys.argv[3])", f"{config!r}, {start}, 300"
+                ),
+            )
+            for user, start in ((team.r1, 0), (team.r2, 300))
+        ]
+        outs = [p.communicate(timeout=900) for p in procs]
+        for (out, err), p in zip(outs, procs, strict=True):
+            assert p.returncode == 0, err[-2000:]
+            assert "FAILURES 0" in out, err[-2000:]
+            assert "Traceback" not in err
+        conn = sqlite3.connect(f"file:{study / 'ledger.sqlite'}?mode=ro", uri=True)
+        per_user = dict(conn.execute("SELECT reviewer, COUNT(*) FROM entries GROUP BY reviewer"))
+        conn.close()
+        assert per_user == {team.r1: 300, team.r2: 300}
+        res = team.run(team.r2, "ledger", "verify", "--config", config)
+        assert res.returncode == 0 and "600 entries, chain intact" in res.stdout, res.stderr
+
+    def test_every_file_closecall_makes_is_the_groups_whatever_the_umask(
+        self, team: Team, fitted_demo: Path
+    ) -> None:
+        study = new_study(team, fitted_demo, "modes")
+        shutil.rmtree(study / ".closecall")
+        config = str(study / "closecall.toml")
+        res = team.run(team.r1, "fit", "--config", config, umask="077")
+        assert res.returncode == 0, res.stderr
+        case = _first_case(team, config)
+        res = team.run(
+            team.r1,
+            "record",
+            case,
+            "--action",
+            "uphold",
+            "--note",
+            "x",
+            "--config",
+            config,
+            umask="077",
+        )
+        assert res.returncode == 0, res.stderr
+        gid = grp.getgrnam(team.writers).gr_gid
+        made = [p for p in study.rglob("*") if p.stat().st_uid != 0]
+        assert any(p.name == "ledger.sqlite" for p in made)
+        assert any(p.is_dir() and p.parent.name == "snapshots" for p in made) or any(
+            p.is_dir() for p in made
+        )
+        for p in made:
+            st = p.stat()
+            assert st.st_gid == gid, p
+            want = 0o2770 if p.is_dir() else 0o660
+            assert stat.S_IMODE(st.st_mode) & 0o2770 == want, (p, oct(st.st_mode))
+            assert not st.st_mode & 0o007, (p, oct(st.st_mode))
+
+    def test_a_second_user_works_right_after_the_first_users_refit(
+        self, team: Team, fitted_demo: Path
+    ) -> None:
+        study = new_study(team, fitted_demo, "refit")
+        config = str(study / "closecall.toml")
+        res = team.run(team.r1, "fit", "--refit", "--config", config)
+        assert res.returncode == 0, res.stderr
+        res = team.run(team.r2, "queue", "--config", config)
+        _no_traceback(res)
+        assert res.returncode == 0, res.stderr
+        case = _first_case(team, config, user=team.r2)
+        res = team.run(
+            team.r2, "record", case, "--action", "uphold", "--note", "x", "--config", config
+        )
+        assert res.returncode == 0, res.stderr
+
+    def test_a_permission_problem_is_one_message_naming_the_file(
+        self, team: Team, fitted_demo: Path
+    ) -> None:
+        study = new_study(team, fitted_demo, "denied")
+        config = str(study / "closecall.toml")
+        os.chmod(study, 0o3771)  # others may pass through to the config, nothing else
+        res = team.run(team.analyst, "queue", "--config", config)
+        _no_traceback(res)
+        assert res.returncode == 2
+        assert res.stderr.startswith("error: permission denied"), res.stderr
+        assert "owner root" in res.stderr and "fix:" in res.stderr and "chgrp" in res.stderr
+
+
+def _first_case(team: Team, config: str, user: str | None = None) -> str:
+    res = team.run(user or team.r1, "queue", "--config", config, "--json")
+    assert res.returncode == 0, res.stderr
+    import json
+
+    data = json.loads(res.stdout)
+    rows = data["rows"] if isinstance(data, dict) else data
+    return str(rows[0].get("case_id") or rows[0].get("id"))

@@ -529,3 +529,19 @@ def test_the_documented_postgresql_verifier_agrees(team: dict[str, str], tmp_pat
         [sys.executable, "-c", match.group(1), str(rows)], capture_output=True, text=True
     )
     assert run.returncode != 0 and "entry 1 was altered" in run.stderr
+
+
+def test_signed_entries_verify_against_the_authors_key(team: dict[str, str]) -> None:
+    from cryptography.hazmat.primitives.asymmetric.ed25519 import Ed25519PrivateKey
+
+    from closecall.review.ledger.signing import public_text, signer
+
+    key = Ed25519PrivateKey.generate()
+    alice = team["alice"].split("://")[1].split("@")[0]
+    with open_pg_ledger(team["alice"]) as ledger:
+        entry = ledger.append(content("signed"), sign=signer(key))
+        assert entry.signature is not None
+        assert ledger.verify(keys={alice: public_text(key.public_key())}).ok
+        other = Ed25519PrivateKey.generate().public_key()
+        result = ledger.verify(keys={alice: public_text(other)})  # not alice's key
+    assert not result.ok

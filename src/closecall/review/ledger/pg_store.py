@@ -30,7 +30,7 @@ import dataclasses
 import json
 import re
 import urllib.parse
-from collections.abc import Callable, Iterable, Iterator
+from collections.abc import Callable, Iterable, Iterator, Mapping
 from datetime import datetime
 from types import TracebackType
 from typing import TYPE_CHECKING, Any
@@ -547,10 +547,13 @@ class PgLedger:
 
         _refuse(self.path, self.structure_findings())  # type: ignore[arg-type]
 
-    def verify(self, anchor: str | None = None) -> VerifyResult:
+    def verify(
+        self, anchor: str | None = None, keys: Mapping[str, str] | None = None
+    ) -> VerifyResult:
+        """Recompute the chain (and, with ``keys``, check signatures), as for the file."""
         from closecall.review.ledger.verify import verify_chain
 
-        return verify_chain(self, anchor)  # type: ignore[arg-type]
+        return verify_chain(self, anchor, keys)  # type: ignore[arg-type]
 
 
 class PgDrafts:

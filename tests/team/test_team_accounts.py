@@ -299,3 +299,47 @@ def _first_case(team: Team, config: str, user: str | None = None) -> str:
     data = json.loads(res.stdout)
     rows = data["rows"] if isinstance(data, dict) else data
     return str(rows[0].get("case_id") or rows[0].get("id"))
+
+
+class TestTeamCheck:
+    def test_a_mis_set_folder_lists_each_problem_with_its_fix(
+        self, team: Team, fitted_demo: Path
+    ) -> None:
+        study = new_study(team, fitted_demo, "misset", setup=False)
+        os.chmod(study, 0o755)
+        (study / "closecall.toml").chmod(0o664)
+        res = team.run(team.r1, "team", "check", "--config", str(study / "closecall.toml"))
+        _no_traceback(res)
+        assert res.returncode == 1, res.stdout + res.stderr
+        out = res.stdout
+        for fix in (
+            f"chmod g+rwx {study}",
+            f"chmod g+s {study}",
+            f"chmod +t {study}",
+            f"chmod go-w {study / 'closecall.toml'}",
+            f"usermod -aG root {team.r1}",
+            f"usermod -aG root {team.r2}",
+        ):
+            assert f"fix: {fix}" in out, (fix, out)
+
+    def test_a_correct_folder_gives_nothing(self, team: Team, fitted_demo: Path) -> None:
+        study = new_study(team, fitted_demo, "sound")
+        res = team.run(team.r2, "team", "check", "--config", str(study / "closecall.toml"))
+        assert res.returncode == 0, res.stdout + res.stderr
+        assert res.stdout.strip() == "team set-up: sound (nothing to fix)"
+
+    def test_setup_makes_a_mis_set_folder_sound(self, team: Team, fitted_demo: Path) -> None:
+        study = new_study(team, fitted_demo, "tosetup", setup=False)
+        config = str(study / "closecall.toml")
+        res = subprocess.run(
+            [str(CLOSECALL), "team", "setup", "--group", team.writers, "--config", config],
+            capture_output=True,
+            text=True,
+            timeout=300,
+        )
+        assert res.returncode == 0, res.stdout + res.stderr
+        mode = stat.S_IMODE(study.stat().st_mode)
+        assert mode & (stat.S_ISVTX | stat.S_ISGID) == stat.S_ISVTX | stat.S_ISGID
+        assert not (study / "closecall.toml").stat().st_mode & (stat.S_IWGRP | stat.S_IWOTH)
+        res = team.run(team.r1, "team", "check", "--config", config)
+        assert res.returncode == 0, res.stdout

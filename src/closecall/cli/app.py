@@ -68,6 +68,7 @@ COMMAND_HOME = {
     "reasons": "reasons_cmds",
     "model": "model_cmds",
     "keys": "team_cmds",
+    "team": "team_cmds",
 }
 _registered: set[str] = set()
 

@@ -1,10 +1,14 @@
-"""`closecall keys init|show`: an author's signing key (docs/team.md)."""
+"""`closecall keys init|show` (an author's signing key) and `closecall team check|setup`
+(the study folder set up for a team): docs/team.md."""
 
 from __future__ import annotations
 
+from dataclasses import asdict
+from pathlib import Path
+
 import typer
 
-from closecall.cli.common import JsonOption
+from closecall.cli.common import ConfigOption, JsonOption
 from closecall.cli.output import console, emit_json
 from closecall.core.text import safe_text
 
@@ -74,5 +78,76 @@ def keys_show(as_json: bool = JsonOption) -> None:
 
 
 def register(app: typer.Typer) -> None:
-    """Add the `keys` group to the closecall app."""
+    """Add the `keys` and `team` groups to the closecall app."""
     app.add_typer(keys_app, name="keys")
+    app.add_typer(team_app, name="team")
+
+
+team_app = typer.Typer(
+    help="Is the study folder set up for a team on one server? (docs/team.md)\n\n\b\n"
+    "Example:\n  closecall team check",
+    no_args_is_help=True,
+)
+
+
+@team_app.command("check")
+def team_check(as_json: bool = JsonOption, config: Path = ConfigOption) -> None:
+    """List what is wrong with the study folder's group and modes, its files, the config's
+    owner and mode and the reviewer/analyst lists, each with the command that fixes it.
+
+    Exit code 0 when nothing is wrong, 1 when something is.
+
+    \b
+    Example:
+      closecall team check --config /srv/grants/closecall.toml
+    """
+    from closecall.review.team import check_team
+    from closecall.setup.config import load_config
+
+    problems = check_team(load_config(config))
+    if as_json:
+        emit_json({"ok": not problems, "problems": [asdict(p) for p in problems]})
+    elif not problems:
+        _print("team set-up: sound (nothing to fix)")
+    else:
+        _print(f"team set-up: {len(problems)} problem(s)")
+        for p in problems:
+            _print(f"  {safe_text(p.where)}: {safe_text(p.message)}")
+            _print(f"    fix: {safe_text(p.fix)}")
+    if problems:
+        raise typer.Exit(1)
+
+
+@team_app.command("setup")
+def team_setup(
+    group: str | None = typer.Option(
+        None, "--group", help="The writers' group (default: the study folder's group)."
+    ),
+    config: Path = ConfigOption,
+) -> None:
+    """Set the study folder up for a team (as its owner or root): everything in the group with
+    group read/write, folders setgid, the study folder sticky, the config writable by its owner
+    only. Prints every change; then runs the check.
+
+    \b
+    Example:
+      sudo closecall team setup --group reviewers --config /srv/grants/closecall.toml
+    """
+    from closecall.core.errors import UserError
+    from closecall.review.team import check_team, setup_team
+    from closecall.setup.config import load_config
+
+    cfg = load_config(config)
+    try:
+        done = setup_team(cfg, group)
+    except KeyError:
+        raise UserError(f"no group '{group}' on this server", "sudo groupadd NAME first") from None
+    for line in done:
+        _print(safe_text(line))
+    problems = check_team(cfg)
+    _print(f"team set-up: {'sound' if not problems else f'{len(problems)} problem(s) left'}")
+    for p in problems:
+        _print(f"  {safe_text(p.where)}: {safe_text(p.message)}")
+        _print(f"    fix: {safe_text(p.fix)}")
+    if problems:
+        raise typer.Exit(1)

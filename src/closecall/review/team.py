@@ -1,0 +1,240 @@
+"""Is a study folder set up for a team? Each problem with the exact command that fixes it.
+
+What docs/team.md asks for: the study folder in the writers' group with group rwx, setgid (new
+files keep the group) and sticky (members cannot delete or replace each other's files), nothing
+writable by others; every file and folder inside it in that group, files group read/write,
+folders group rwx + setgid; the config owned by the folder's owner and writable by its owner
+only; every listed reviewer a member of the group, every listed analyst an existing login.
+"""
+
+from __future__ import annotations
+
+import grp
+import os
+import pwd
+import shlex
+import stat
+from dataclasses import dataclass
+from pathlib import Path
+
+from closecall.setup.config import StudyConfig
+
+
+@dataclass(frozen=True)
+class TeamProblem:
+    """One thing set up wrong: ``path`` (or login), what is wrong, the command that fixes it."""
+
+    where: str
+    message: str
+    fix: str
+
+
+def _name(uid: int) -> str:
+    try:
+        return pwd.getpwuid(uid).pw_name
+    except KeyError:
+        return str(uid)
+
+
+def _group(gid: int) -> str:
+    try:
+        return grp.getgrgid(gid).gr_name
+    except KeyError:
+        return str(gid)
+
+
+def group_members(gid: int) -> set[str]:
+    """Logins in the group: listed members and those whose primary group it is."""
+    try:
+        members = set(grp.getgrgid(gid).gr_mem)
+    except KeyError:
+        members = set()
+    members |= {p.pw_name for p in pwd.getpwall() if p.pw_gid == gid}
+    return members
+
+
+def _q(path: Path) -> str:
+    return shlex.quote(str(path))
+
+
+def check_team(config: StudyConfig) -> list[TeamProblem]:
+    """Every way the study folder, its files, the config and the login lists differ from the
+    team set-up of docs/team.md (empty: the set-up is sound). Reads only."""
+    root = config.root
+    problems: list[TeamProblem] = []
+    st = root.stat()
+    gid = st.st_gid
+    group = _group(gid)
+    mode = stat.S_IMODE(st.st_mode)
+    members = group_members(gid)
+    if members <= {_name(st.st_uid)}:
+        problems.append(
+            TeamProblem(
+                str(root),
+                f"the study folder's group {group} holds no one but its owner: the reviewers "
+                "cannot share it",
+                f"chgrp -R WRITERS {_q(root)}  (WRITERS: the reviewers' group)",
+            )
+        )
+    wants = (
+        (stat.S_IRWXG, "is not group read/write/enter", f"chmod g+rwx {_q(root)}"),
+        (
+            stat.S_ISGID,
+            "has no setgid bit: new files would not keep its group",
+            f"chmod g+s {_q(root)}",
+        ),
+        (
+            stat.S_ISVTX,
+            "is not sticky: members can delete or replace each other's files",
+            f"chmod +t {_q(root)}",
+        ),
+    )
+    for bit, what, fix in wants:
+        if mode & bit != bit:
+            problems.append(
+                TeamProblem(str(root), f"the study folder {what} (mode {mode:04o})", fix)
+            )
+    if mode & stat.S_IWOTH:
+        problems.append(
+            TeamProblem(
+                str(root),
+                f"the study folder is writable by others (mode {mode:04o})",
+                f"chmod o-w {_q(root)}",
+            )
+        )
+    config_path = config.path
+    problems += _config_problems(config_path, st.st_uid)
+    for dirpath, dirnames, filenames in os.walk(root):
+        for name in [*dirnames, *filenames]:
+            path = Path(dirpath) / name
+            if path == config_path or path.is_symlink():
+                continue
+            problems += _file_problems(path, gid, group)
+    for login in config.review.reviewers:
+        if login not in members:
+            try:
+                pwd.getpwnam(login)
+            except KeyError:
+                problems.append(
+                    TeamProblem(
+                        login,
+                        f"reviewer {login} is not a login on this server",
+                        f"correct [review] reviewers in {_q(config_path)}",
+                    )
+                )
+                continue
+            problems.append(
+                TeamProblem(
+                    login,
+                    f"reviewer {login} is not in the study group {group}: cannot write the ledger",
+                    f"usermod -aG {group} {login}",
+                )
+            )
+    for login in config.review.analysts:
+        try:
+            pwd.getpwnam(login)
+        except KeyError:
+            problems.append(
+                TeamProblem(
+                    login,
+                    f"analyst {login} is not a login on this server",
+                    f"correct [review] analysts in {_q(config_path)}",
+                )
+            )
+    return problems
+
+
+def _config_problems(path: Path, owner: int) -> list[TeamProblem]:
+    out = []
+    st = path.stat()
+    mode = stat.S_IMODE(st.st_mode)
+    if st.st_uid != owner:
+        out.append(
+            TeamProblem(
+                str(path),
+                f"the config is owned by {_name(st.st_uid)}, not by the "
+                f"study folder's owner {_name(owner)}",
+                f"chown {_name(owner)} {_q(path)}",
+            )
+        )
+    if mode & (stat.S_IWGRP | stat.S_IWOTH):
+        out.append(
+            TeamProblem(
+                str(path),
+                f"the config is writable by others than its owner (mode "
+                f"{mode:04o}): anyone who can edit it decides who may record",
+                f"chmod go-w {_q(path)}",
+            )
+        )
+    return out
+
+
+def _file_problems(path: Path, gid: int, group: str) -> list[TeamProblem]:
+    st = path.lstat()
+    mode = stat.S_IMODE(st.st_mode)
+    out = []
+    if st.st_gid != gid:
+        out.append(
+            TeamProblem(
+                str(path),
+                f"in group {_group(st.st_gid)}, not the study's {group} "
+                f"(owner {_name(st.st_uid)}, mode {mode:04o})",
+                f"chgrp {group} {_q(path)}",
+            )
+        )
+    if stat.S_ISDIR(st.st_mode):
+        need, fix = stat.S_IRWXG | stat.S_ISGID, f"chmod g+rwxs {_q(path)}"
+    else:
+        need, fix = stat.S_IRGRP | stat.S_IWGRP, f"chmod g+rw {_q(path)}"
+    if mode & need != need:
+        out.append(
+            TeamProblem(
+                str(path),
+                f"mode {mode:04o} does not give the group what it needs (owner {_name(st.st_uid)})",
+                fix,
+            )
+        )
+    if mode & stat.S_IWOTH:
+        out.append(
+            TeamProblem(str(path), f"writable by others (mode {mode:04o})", f"chmod o-w {_q(path)}")
+        )
+    return out
+
+
+def setup_team(config: StudyConfig, group: str | None = None) -> list[str]:
+    """Make the study folder as :func:`check_team` wants it (run by its owner or root);
+    returns what was done. The config becomes writable by its owner only.
+
+    Raises
+    ------
+    PermissionError
+        The login may not change a file's group or mode (the CLI names the file).
+    KeyError
+        ``group`` is not a group on this server.
+    """
+    root = config.root
+    gid = grp.getgrnam(group).gr_gid if group else root.stat().st_gid
+    name = _group(gid)
+    done = []
+    for dirpath, dirnames, filenames in os.walk(root):
+        for entry in [dirpath, *(os.path.join(dirpath, n) for n in [*dirnames, *filenames])]:
+            path = Path(entry)
+            if path.is_symlink():
+                continue
+            st = path.lstat()
+            if st.st_gid != gid:
+                os.chown(path, -1, gid)
+                done.append(f"chgrp {name} {_q(path)}")
+            mode = stat.S_IMODE(st.st_mode)
+            if path == config.path:
+                want = (mode | stat.S_IRGRP) & ~(stat.S_IWGRP | stat.S_IWOTH)
+            elif path.is_dir():
+                want = (mode | stat.S_IRWXG | stat.S_ISGID) & ~stat.S_IWOTH
+                if path == root:
+                    want |= stat.S_ISVTX
+            else:
+                want = (mode | stat.S_IRGRP | stat.S_IWGRP) & ~stat.S_IWOTH
+            if want != mode:
+                os.chmod(path, want)
+                done.append(f"chmod {want:04o} {_q(path)}")
+    return done

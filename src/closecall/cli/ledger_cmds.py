@@ -310,4 +310,7 @@ def register(app: typer.Typer) -> None:
     from closecall.cli.ledger_pg_cmds import register_ledger_team
 
     register_ledger_team(ledger_app)
+    from closecall.cli.team_cmds import register_ledger_anchor
+
+    register_ledger_anchor(ledger_app)
     app.add_typer(ledger_app, name="ledger")

@@ -151,3 +151,37 @@ def team_setup(
         _print(f"    fix: {safe_text(p.fix)}")
     if problems:
         raise typer.Exit(1)
+
+
+def ledger_anchor(
+    out: Path | None = typer.Option(
+        None, "--out", help="The anchor file (default: [team] anchor of the config)."
+    ),
+    as_json: bool = JsonOption,
+    config: Path = ConfigOption,
+) -> None:
+    """Verify the ledger and write its head (entry number and hash) to the anchor file.
+
+    Keep the anchor file where the reviewers cannot write (a folder only the supervisor can
+    write, [team] anchor in the config): from then on `closecall ledger verify` checks that the
+    chain still holds that entry, so a deleted, emptied or replaced ledger fails. Run it daily
+    (cron) as the supervisor.
+
+    \b
+    Example:
+      closecall ledger anchor --config /srv/grants/closecall.toml
+    """
+    from closecall.review.decisions import anchor_ledger
+    from closecall.setup.config import load_config
+
+    path, result = anchor_ledger(load_config(config), out)
+    if as_json:
+        emit_json({"anchor": str(path), "seq": result.head_seq, "hash": result.head_hash})
+        return
+    _print(f"anchored entry {result.head_seq} in {safe_text(str(path))}")
+    _print(f"head {result.head_seq} {result.head_hash}")
+
+
+def register_ledger_anchor(ledger_app: typer.Typer) -> None:
+    """Add `ledger anchor` to the `ledger` group."""
+    ledger_app.command("anchor")(ledger_anchor)

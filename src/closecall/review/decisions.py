@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import math
 import re
+from pathlib import Path
 from collections.abc import Callable, Iterable, Mapping
 from typing import TYPE_CHECKING, Any
 
@@ -373,14 +374,46 @@ def verify_ledger(
     """Check the study ledger: there, structured as the schema says, chain intact.
 
     See :func:`closecall.review.ledger.verify.verify_file`: a missing or empty ledger is a problem
-    unless ``allow_empty``. Needs read permission (reviewers or analysts).
+    unless ``allow_empty``. Needs read permission (reviewers or analysts). Without ``anchor``,
+    the head recorded in the ``[team] anchor`` file is checked when that file is there
+    (:mod:`closecall.review.anchors`), so a deleted, emptied or replaced ledger fails.
     """
     from closecall.review.ledger.verify import verify_file
 
     require_read(config.review, config.path)
+    if anchor is None and config.team.anchor is not None:
+        from closecall.review.anchors import read_anchor
+
+        recorded = read_anchor(config.team.anchor)
+        anchor = recorded[1] if recorded else None
     return verify_file(
         config.review.ledger, check_anchor(anchor), allow_empty=allow_empty, keys=config.team.keys
     )
+
+
+def anchor_ledger(config: StudyConfig, out: Path | None = None) -> tuple[Path, VerifyResult]:
+    """Verify the ledger and, when it is intact, write its head to the anchor file.
+
+    Raises
+    ------
+    UserError
+        No anchor file named, the ledger does not verify (nothing is written), or the anchor
+        folder is not writable by this login.
+    """
+    from closecall.review.anchors import anchor_path, write_anchor
+    from closecall.review.ledger.verify import verify_file
+
+    path = anchor_path(config, out)
+    require_read(config.review, config.path)
+    result = verify_file(config.review.ledger, None, keys=config.team.keys)
+    if not result.ok:
+        first = result.problem.message if result.problem else "it does not verify"
+        raise UserError(
+            f"{config.review.ledger}: not anchored, the ledger does not verify: {first}",
+            "run 'closecall ledger verify' and restore the ledger before anchoring it",
+        )
+    write_anchor(path, result.head_seq, result.head_hash)
+    return path, result
 
 
 def check_ledger(config: StudyConfig) -> None:

@@ -105,6 +105,9 @@ class TeamConfig:
 
     #: login -> base64 Ed25519 public key; when any is set, new entries must be signed
     keys: dict[str, str] = field(default_factory=dict)
+    #: file holding the ledger head the supervisor recorded (``closecall ledger anchor``);
+    #: verify checks the chain still holds it whenever the file is there
+    anchor: Path | None = None
 
 
 @dataclass(frozen=True)
@@ -186,7 +189,7 @@ _SCHEMA: dict[str, dict[str, type | tuple[type, ...]]] = {
         "ledger": str,
         "claim_minutes": (int, float),
     },
-    "team": {"keys": dict},
+    "team": {"keys": dict, "anchor": str},
 }
 
 
@@ -551,7 +554,8 @@ def _team(path: Path, raw: dict[str, Any]) -> TeamConfig:
                 f"paste the line 'closecall keys show' prints for {login}; see docs/team.md",
             )
         keys[str(login)] = text.strip()
-    return TeamConfig(keys=keys)
+    anchor = t.get("anchor")
+    return TeamConfig(keys=keys, anchor=(path.parent / anchor) if anchor else None)
 
 
 def _lenses(path: Path, lens_raw: object) -> tuple[CostLens, ...]:

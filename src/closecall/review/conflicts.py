@@ -86,11 +86,13 @@ def check_no_collision(
     seen_seq: int | None = None,
     supersedes: int | None = None,
     second_opinion: bool = False,
+    entries: Sequence[Entry] | None = None,
 ) -> None:
     """Raise :class:`ConflictingDecision` when recording would contradict another reviewer.
 
     ``second_opinion`` records knowingly beside the other decisions; it cannot be combined
     with ``supersedes`` (an entry either replaces one or stands beside the others).
+    ``entries`` are the case's entries when the caller has read them (read here otherwise).
     """
     if second_opinion and supersedes is not None:
         raise UserError(
@@ -99,7 +101,8 @@ def check_no_collision(
         )
     if second_opinion:
         return
-    entries = case_entries(config, case_id)
+    if entries is None:
+        entries = case_entries(config, case_id)
     others = colliding_entries(entries, login, seen_seq=seen_seq, supersedes=supersedes)
     if others:
         raise ConflictingDecision(case_id, others)

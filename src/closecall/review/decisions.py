@@ -242,15 +242,17 @@ def record_review(
         _check_supersedes(config, case_id, supersedes)
     from closecall.review.conflicts import check_no_collision
 
-    check_no_collision(
-        config,
-        case_id,
-        login,
-        seen_seq=seen_seq,
-        supersedes=supersedes,
-        second_opinion=second_opinion,
-    )
     with open_ledger(config.review.ledger) as ledger:
+        # read through the writer: a damaged ledger gets the writer's message
+        check_no_collision(
+            config,
+            case_id,
+            login,
+            seen_seq=seen_seq,
+            supersedes=supersedes,
+            second_opinion=second_opinion,
+            entries=() if second_opinion else ledger.entries(case_id=case_id),
+        )
         return ledger.append(content, sign)
 
 

@@ -9,8 +9,8 @@ from __future__ import annotations
 
 import math
 import re
-from pathlib import Path
 from collections.abc import Callable, Iterable, Mapping
+from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from closecall.core.errors import UserError

@@ -5,8 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from closecall.core.vocabulary import final_decisions
 from closecall.reports.disparity.simulate import simulate_actions
-from closecall.reports.disparity.table import final_decision
 
 
 def review_table(
@@ -38,7 +38,7 @@ def review_table(
             "action": actions,
         }
     )
-    frame["final_decision"] = final_decision(frame["model_decision"], frame["action"])
+    frame["final_decision"] = final_decisions(frame["model_decision"], frame["action"])
     return frame
 
 
@@ -64,5 +64,5 @@ def table_from_counts(rows: dict[str, tuple[int, int, int, int]]) -> pd.DataFram
             "action": np.array([k[1] for k in kinds])[kind],
         }
     )
-    frame["final_decision"] = final_decision(frame["model_decision"], frame["action"])
+    frame["final_decision"] = final_decisions(frame["model_decision"], frame["action"])
     return frame

@@ -12,10 +12,11 @@ from pathlib import Path
 import pytest
 
 from closecall.core.errors import UserError
+from closecall.core.vocabulary import CONFLICT, STATE_NAMES
 from closecall.review import decisions as reviews
 from closecall.review.conflicts import ConflictingDecision, conflicted_cases, last_seq
 from closecall.review.ledger import access
-from closecall.review.states import CONFLICT, STATE_NAMES, ledger_states
+from closecall.review.states import ledger_states
 
 
 @pytest.fixture(scope="module")

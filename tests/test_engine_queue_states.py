@@ -4,9 +4,8 @@ from __future__ import annotations
 
 import json
 
+from closecall.core.vocabulary import ACTIONS, STATE_OF_ACTION
 from closecall.review.decisions import record_review
-from closecall.review.ledger import ACTIONS
-from closecall.tui.marks import STATE_OF_ACTION
 
 
 def test_state_codes_match_the_review_screen() -> None:

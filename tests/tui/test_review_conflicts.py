@@ -9,9 +9,10 @@ from __future__ import annotations
 import pytest
 from tui_helpers import open_queue, screen_text, synchronous, wait_until
 
+from closecall.core.vocabulary import CONFLICT
 from closecall.review import decisions as reviews
 from closecall.review.ledger import access
-from closecall.review.states import CONFLICT, ledger_states
+from closecall.review.states import ledger_states
 from closecall.suite.opening import OpenedStudy
 from closecall.tui.app import ReviewApp
 from closecall.tui.conflict_prompt import ConflictPrompt

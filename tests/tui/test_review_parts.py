@@ -9,10 +9,11 @@ import pytest
 
 from closecall.analysis.explain import explain_case
 from closecall.core.text import signed, sparkline
+from closecall.core.vocabulary import TO_FAVOURABLE, UPHELD, model_letters
 from closecall.review.decisions import record_review
 from closecall.suite.opening import OpenedStudy
 from closecall.tui import case_sections
-from closecall.tui.marks import TO_FAV, UPHELD, band_glyph, block_bar, model_letters
+from closecall.tui.marks import band_glyph, block_bar
 from closecall.tui.session import ListSettings, ReviewSession
 
 
@@ -79,7 +80,7 @@ def test_review_states_follow_the_latest_entry(study: OpenedStudy) -> None:
     record_review(study, b, "defer", None, "")
     record_review(study, b, "override-favourable", study.config.review.reasons[0], "why")
     session.refresh_reviews()
-    assert session.states[order[0]] == UPHELD and session.states[order[1]] == TO_FAV
+    assert session.states[order[0]] == UPHELD and session.states[order[1]] == TO_FAVOURABLE
     assert session.counts()["reviewed"] == 2
     q = session.rebuild(ListSettings(unreviewed=True))
     assert order[0] not in q.order and order[1] not in q.order

@@ -123,8 +123,8 @@ def compare_models(
     seed : seed of the bootstrap (same seed, same intervals)
     level : interval coverage
     """
-    check_count("--boot", n_boot, 100, REPLICATES_MAX, example="1000")
-    check_seed("--seed", seed)
+    check_count("n_boot", n_boot, 100, REPLICATES_MAX, example="1000")
+    check_seed("seed", seed)
     lens_obj = snap.lens(lens)
     y = np.asarray(snap.hist_y)
     hg = np.asarray(snap.hist_group_codes)

@@ -36,8 +36,9 @@ from typing import Any
 
 import numpy as np
 
+from closecall.core.vocabulary import decision_word
 from closecall.setup.encode import EncodedFeature
-from closecall.suite.snapshot import Snapshot, decision_word
+from closecall.suite.snapshot import Snapshot
 
 BLOCK_ROWS = 100_000
 

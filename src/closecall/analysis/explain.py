@@ -58,8 +58,9 @@ from closecall.analysis.counterparts import counterparts_for_case
 from closecall.analysis.dependence import dependence, rests_on_uncertainty
 from closecall.analysis.multiplicity import UNCERTAINTY_EPSILON, bands, exact_band
 from closecall.analysis.neighbours import neighbours_for_case
+from closecall.core.vocabulary import decision_word
 from closecall.suite.fit_flags import case_fit_flags, snapshot_flags
-from closecall.suite.snapshot import Snapshot, decision_word
+from closecall.suite.snapshot import Snapshot
 
 MODEL = "pooled"
 

@@ -137,7 +137,7 @@ def bands(
 ) -> Bands:
     """Uncertainty and equally-good bands for every case (vectorised, from stored x̃ᵀH⁻¹x̃)."""
     _weighted(snap, model)
-    check_number("epsilon (--epsilon)", epsilon, 0, EPSILON_MAX, low_open=True, example="0.002")
+    check_number("epsilon", epsilon, 0, EPSILON_MAX, low_open=True, example="0.002")
     _, row_of_case = snap.weights(model)
     best = np.asarray(snap.objective(model), dtype=float)[np.asarray(row_of_case)]
     quad = np.asarray(snap.quad(model), dtype=float)

@@ -102,7 +102,7 @@ class QueueResult:
         import pandas as pd
         from scipy.special import logit
 
-        from closecall.review.states import STATE_NAMES
+        from closecall.core.vocabulary import STATE_NAMES
 
         snap, answer = self._snapshot, self._answer
         q, rows = answer.queue, answer.listed

@@ -8,6 +8,7 @@ import sys
 import typer
 
 from closecall import __version__
+from closecall.cli.errors import error_lines
 from closecall.cli.output import err_console, safe_markup
 from closecall.core.cautions import CAUTIONS
 from closecall.core.errors import UserError
@@ -118,9 +119,10 @@ def main() -> None:
         except PermissionError as exc:  # a file or folder this login may not use
             raise permission_error(exc.filename) from None
     except UserError as exc:
-        err_console.print(f"[bold red]error:[/] {safe_markup(exc.message)}", soft_wrap=True)
-        if exc.fix:
-            err_console.print(f"  [bold]fix:[/] {safe_markup(exc.fix)}", soft_wrap=True)
+        message, fix = error_lines(exc)
+        err_console.print(f"[bold red]error:[/] {safe_markup(message)}", soft_wrap=True)
+        if fix:
+            err_console.print(f"  [bold]fix:[/] {safe_markup(fix)}", soft_wrap=True)
         sys.exit(exc.exit_code)
     except KeyboardInterrupt:
         err_console.print("interrupted")

@@ -14,13 +14,14 @@ from rich.text import Text
 from closecall.api.study import Study
 from closecall.cli.common import ConfigOption, FormatOption, JsonOption, load, resolve_format
 from closecall.cli.output import Format, console, emit_json, emit_rows
-from closecall.core.errors import UserError
 from closecall.core.text import safe_text
 
 if TYPE_CHECKING:
     from closecall.review.ledger.verify import VerifyResult
+from closecall.core.errors import UserError
+from closecall.core.vocabulary import ACTIONS
 from closecall.review.decisions import check_text, ledger_entries, verify_ledger
-from closecall.review.ledger import ACTIONS, Entry, canonical_json
+from closecall.review.ledger import Entry, canonical_json
 from closecall.setup.config import DEFAULT_REASONS, load_config
 
 

@@ -31,6 +31,7 @@ from closecall.cli.output import (
     plain,
 )
 from closecall.core.text import safe_text
+from closecall.core.vocabulary import short_model
 from closecall.review.query import QueueQuery
 from closecall.review.queue import SORT_KEYS
 from closecall.setup.config import CONFIG_NAME
@@ -374,15 +375,6 @@ def _short_label(level: str, width: int = CHART_LABEL) -> str:
     return text if len(text) <= width else text[: width - 1] + "…"
 
 
-SHORT_MODEL = {
-    "pooled": "pooled",
-    "unaware": "unaware",
-    "proxy_free": "no-proxy",
-    "split": "split",
-    "deployed": "deployed",
-}
-
-
 def _print_queue_table(snap: Any, q: QueueResult, rows: list[dict[str, Any]]) -> None:
     """A compact table that fits 80 columns: margins per model, how many pairs flip."""
     table = Table(
@@ -408,7 +400,7 @@ def _print_queue_table(snap: Any, q: QueueResult, rows: list[dict[str, Any]]) ->
     table.add_column("group", no_wrap=True)
     for m in snap.model_names:
         star = "*" if m == snap.reference else ""
-        table.add_column(SHORT_MODEL.get(m, m) + star, justify="right", no_wrap=True)
+        table.add_column(short_model(m) + star, justify="right", no_wrap=True)
     table.add_column("flips", justify="right", no_wrap=True)
     for name in q.measures:
         table.add_column(MEASURE_HEADERS.get(name, name), justify="right", no_wrap=True)

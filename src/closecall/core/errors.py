@@ -1,6 +1,61 @@
-"""Errors a user can cause. The CLI prints them as one message and exits with code 2."""
+"""Errors a user can cause. The CLI prints them as one message and exits with code 2.
+
+A :class:`UserError` carries the problem and a fix. The fix is either plain advice or a
+structured :class:`Fix` naming the engine's field (a parameter or setting) and what it may be:
+each view words it its own way (the CLI as a flag, the review screen as its control), so engine
+messages never name a command-line flag.
+"""
 
 from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass
+
+
+@dataclass(frozen=True)
+class Fix:
+    """What to change, for any view to word: a field and the values it may take.
+
+    Parameters
+    ----------
+    field
+        The engine's name of the parameter or setting (``n_boot``, ``reason``, ``note``).
+    allowed
+        The values it may take, when they are few.
+    range
+        The values it may take in words (``a whole number from 100 to 1000000``).
+    example
+        One valid value.
+    hint
+        Further advice that names no control.
+    """
+
+    field: str
+    allowed: tuple[str, ...] = ()
+    range: str | None = None
+    example: str | None = None
+    hint: str | None = None
+
+    def words(self, name: str | None = None) -> str:
+        """The fix in words, calling the field ``name`` (the engine's name by default).
+
+        Examples
+        --------
+        >>> Fix("n_boot", range="a whole number ≥ 100", example="1000").words("--boot")
+        'give --boot a whole number ≥ 100, e.g. 1000'
+        """
+        label = name or self.field
+        if self.allowed:
+            text = f"give {label} one of: {', '.join(self.allowed)}"
+        elif self.range:
+            text = f"give {label} {self.range}"
+        else:
+            text = f"give {label}"
+        if self.example:
+            text += f", e.g. {self.example}"
+        if self.hint:
+            text += f"; {self.hint}"
+        return text
 
 
 class UserError(Exception):
@@ -11,15 +66,33 @@ class UserError(Exception):
     message
         What is wrong, naming the file, column or row.
     fix
-        What the user should do about it.
+        What the user should do about it: plain text, or a :class:`Fix` each view words.
+    about
+        The field the message is about (named before it: ``n_boot: 2 is out of range``), so
+        that a view can name it its own way.
     """
 
     exit_code = 2
 
-    def __init__(self, message: str, fix: str | None = None) -> None:
-        super().__init__(message)
-        self.message = message
-        self.fix = fix
+    def __init__(self, message: str, fix: str | Fix | None = None, *, about: str | None = None):
+        self.problem = message
+        self.about = about
+        self.remedy = fix if isinstance(fix, Fix) else None
+        self.message = self.worded_message()
+        self.fix = fix.words() if isinstance(fix, Fix) else fix
+        super().__init__(self.message)
+
+    def worded_message(self, name_of: Callable[[str], str] | None = None) -> str:
+        """The message, with the field it is about named by ``name_of`` (engine names)."""
+        if self.about is None:
+            return self.problem
+        return f"{name_of(self.about) if name_of else self.about}: {self.problem}"
+
+    def worded_fix(self, name_of: Callable[[str], str] | None = None) -> str | None:
+        """The fix, with its field named by ``name_of`` (engine names by default)."""
+        if self.remedy is None:
+            return self.fix
+        return self.remedy.words(name_of(self.remedy.field) if name_of else None)
 
     def __str__(self) -> str:
         return self.message if not self.fix else f"{self.message}\n  fix: {self.fix}"

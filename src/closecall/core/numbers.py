@@ -1,10 +1,11 @@
 """Range checks for numbers given to engine functions (command-line options, API arguments).
 
 The config file's numbers are checked by ``closecall.setup.config.number`` against the ranges
-of docs/config.md; a number that arrives another way (``--band``, ``--epsilon``, ``--seed``,
-``--boot``, a row count) is checked here, by the engine function that uses it, so that NaN,
-infinity, a negative count or a seed NumPy cannot take is refused with the valid range rather
-than turned into a table of wrong numbers or a traceback.
+of docs/config.md; a number that arrives another way (a band, epsilon, seed, bootstrap count
+or row count, from the command line or the library) is checked here, by the engine function
+that uses it, so that NaN, infinity, a negative count or a seed NumPy cannot take is refused
+with the valid range rather than turned into a table of wrong numbers or a traceback. Each
+check names the engine's parameter; the CLI words it as its flag (closecall.cli.errors).
 """
 
 from __future__ import annotations
@@ -14,7 +15,7 @@ import numbers
 
 import numpy as np
 
-from closecall.core.errors import UserError
+from closecall.core.errors import Fix, UserError
 
 SEED_MAX = 2**32 - 1  # NumPy's and scikit-learn's seeded generators take 0 .. 2**32 - 1
 REPLICATES_MAX = 1_000_000  # bootstrap replicates: far above any useful count, below memory
@@ -59,7 +60,8 @@ def check_number(
 
     Parameters
     ----------
-    name : how the user gave the value, e.g. ``--band`` (named in the message and the fix)
+    name : the engine's name of the parameter, e.g. ``band`` (each view names it its own way:
+        the CLI as its flag)
     value : the value given
     low, high : the bounds (None: open-ended); ``low_open`` / ``high_open`` exclude them
     whole : an integer is required
@@ -81,8 +83,9 @@ def check_number(
             return x
         what = "is out of range"
     shown = value if not isinstance(value, str) else repr(value)
-    fix = f"give {name} {rng}" + (f", e.g. {example}" if example else "")
-    raise UserError(f"{name} = {shown} {what}: it must be {rng}", fix)
+    raise UserError(
+        f"{shown} {what}: it must be {rng}", Fix(name, range=rng, example=example), about=name
+    )
 
 
 def check_seed(name: str, value: object) -> int:

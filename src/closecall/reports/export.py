@@ -30,14 +30,9 @@ from typing import TYPE_CHECKING
 import numpy as np
 import pandas as pd
 
-from closecall.core.errors import UserError
-from closecall.reports.disparity.table import (
-    DEFER,
-    FAVOURABLE,
-    OVERRIDE_FAVOURABLE,
-    OVERRIDE_UNFAVOURABLE,
-    UNFAVOURABLE,
-    UPHOLD,
+from closecall.core.errors import Fix, UserError
+from closecall.core.vocabulary import (
+    final_decision,
 )
 from closecall.review.ledger import Entry
 from closecall.setup.output_files import StudyFile, check_key_file, study_files, write_output
@@ -60,9 +55,7 @@ HASH_COLUMNS = ("prev_hash", "hash")
 # --------------------------------------------------------------------------- keys and pseudonyms
 
 
-def load_or_create_key(
-    path: str | Path, protected: Sequence[StudyFile] = ()
-) -> tuple[bytes, bool]:
+def load_or_create_key(path: str | Path, protected: Sequence[StudyFile] = ()) -> tuple[bytes, bool]:
     """Read a pseudonymisation key file, or create one (owner-only) if it does not exist.
 
     ``path`` may not be one of the ``protected`` study files (its ledger, config, data or
@@ -131,19 +124,6 @@ def pseudonymise(values: pd.Series, key: bytes, kind: str) -> pd.Series:
 
 
 # --------------------------------------------------------------------------- tables
-
-
-def final_decision_of(reference_decision: str, action: str) -> str | None:
-    """The decision that stands after an action (None for a deferral)."""
-    if action == UPHOLD:
-        return reference_decision
-    if action == OVERRIDE_FAVOURABLE:
-        return FAVOURABLE
-    if action == OVERRIDE_UNFAVOURABLE:
-        return UNFAVOURABLE
-    if action == DEFER:
-        return None
-    raise ValueError(f"unknown action {action!r}")
 
 
 def effective_mask(entries: pd.DataFrame) -> np.ndarray:
@@ -222,7 +202,7 @@ def review_frame(
     group = np.full(len(rows), None, dtype=object)
     group[rows >= 0] = labels[rows[rows >= 0]]
     final = [
-        final_decision_of(d, a)
+        final_decision(d, a)
         for d, a in zip(frame["reference_decision"], frame["action"], strict=True)
     ]
     lead = pd.DataFrame(
@@ -276,8 +256,9 @@ def export_reviews(
     """
     if pseudonymise_reviewers and key_file is None:
         raise UserError(
-            "--pseudonymise-reviewers needs a key",
-            "add --pseudonymise KEYFILE (a new file is created with a fresh key)",
+            "reviewer pseudonyms need a key",
+            Fix("pseudonymise", hint="a new file is created with a fresh key"),
+            about="pseudonymise_reviewers",
         )
     if not entries:
         raise UserError(

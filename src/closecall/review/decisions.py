@@ -13,10 +13,9 @@ from collections.abc import Callable, Iterable, Mapping
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-from closecall.core.errors import UserError
+from closecall.core.errors import Fix, UserError
+from closecall.core.vocabulary import ACTIONS, OVERRIDES
 from closecall.review.ledger import (
-    ACTIONS,
-    OVERRIDES,
     Claim,
     Draft,
     Entry,
@@ -57,8 +56,7 @@ def check_text(what: str, value: str) -> str:
 def check_action(action: str) -> str:
     if action not in ACTIONS:
         raise UserError(
-            f"unknown action '{check_text('the action', action)}'",
-            f"use one of: {', '.join(ACTIONS)}",
+            f"unknown action '{check_text('the action', action)}'", Fix("action", allowed=ACTIONS)
         )
     return action
 
@@ -71,14 +69,18 @@ def check_reason(config: StudyConfig, action: str, reason: str | None) -> str | 
         if action in OVERRIDES:
             raise UserError(
                 f"an {action} needs a reason code",
-                f"add --reason with one of: {', '.join(config.review.reasons)}",
+                Fix("reason", allowed=tuple(config.review.reasons)),
             )
         return None
     check_text("the reason", reason)
     if reason not in config.review.reasons:
         raise UserError(
             f"unknown reason code '{reason}' (not in [review] reasons of {config.path})",
-            f"use one of: {', '.join(config.review.reasons)}; or add it to [review] reasons",
+            Fix(
+                "reason",
+                allowed=tuple(config.review.reasons),
+                hint="or add it to [review] reasons in the study config",
+            ),
         )
     return reason
 
@@ -89,7 +91,7 @@ def check_note(action: str, note: str) -> str:
     if action in OVERRIDES and not note.strip():
         raise UserError(
             f"an {action} needs a note saying why the model's decision was overridden",
-            'add --note "…" (it is stored exactly as typed)',
+            Fix("note", hint="it is stored exactly as typed"),
         )
     size = len(note.encode("utf-8"))
     if size > MAX_NOTE_BYTES:
@@ -106,8 +108,9 @@ def check_anchor(anchor: str | None) -> str | None:
     value = anchor.strip().lower()
     if not _HASH.match(value):
         raise UserError(
-            f"--anchor '{anchor[:80]}' is not a head hash",
-            "pass the 64 hexadecimal characters printed by 'closecall ledger verify'",
+            f"'{anchor[:80]}' is not a head hash",
+            Fix("anchor", range="64 hexadecimal characters (the head hash a verification printed)"),
+            about="anchor",
         )
     return value
 
@@ -310,14 +313,15 @@ def _check_supersedes(config: StudyConfig, case_id: str, supersedes: int) -> Non
             earlier = None
     if earlier is None:
         raise UserError(
-            f"--supersedes {supersedes}: there is no ledger entry {supersedes}",
-            f"see the case's entries with 'closecall ledger show --case {case_id}'",
+            f"{supersedes}: there is no ledger entry {supersedes}",
+            Fix("supersedes", hint=f"name one of the entries of case {case_id} in the ledger"),
+            about="supersedes",
         )
     if earlier.case_id != case_id:
         raise UserError(
-            f"--supersedes {supersedes}: entry {supersedes} is about case "
-            f"'{earlier.case_id}', not '{case_id}'",
-            f"see the case's entries with 'closecall ledger show --case {case_id}'",
+            f"{supersedes}: entry {supersedes} is about case '{earlier.case_id}', not '{case_id}'",
+            Fix("supersedes", hint=f"name one of the entries of case {case_id} in the ledger"),
+            about="supersedes",
         )
 
 
@@ -341,7 +345,9 @@ def ledger_entries(
     """
     require_read(config.review, config.path)
     if limit is not None and limit < 1:
-        raise UserError(f"--limit {limit}: must be at least 1")
+        raise UserError(
+            f"{limit} must be at least 1", Fix("limit", range="a whole number ≥ 1"), about="limit"
+        )
     if before is not None and before < 1:
         raise UserError(f"entries before {before}: sequence numbers start at 1")
     try:

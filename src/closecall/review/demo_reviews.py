@@ -11,10 +11,10 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from closecall.core.errors import UserError
+from closecall.core.errors import Fix, UserError
 from closecall.core.numbers import check_count, check_number, check_seed
+from closecall.core.vocabulary import DEFER, UPHOLD
 from closecall.reports.disparity.simulate import simulate_actions
-from closecall.reports.disparity.table import DEFER, UPHOLD
 from closecall.review.decisions import check_action, check_note, check_reason
 from closecall.review.ledger import EntryContent, NoLedger, open_ledger
 from closecall.review.ledger.access import require_record
@@ -84,19 +84,23 @@ def simulate_reviews(
     """
     config = study.config
     require_record(config.review, config.path)
-    check_count("N (reviews to record)", n, 1, example="300")
-    check_count("--reviewers", reviewers, 1, example="4")
-    check_number("--bias (an odds ratio)", bias, 0, low_open=True, example="2.0")
-    check_seed("--seed", seed)
+    check_count("n", n, 1, example="300")
+    check_count("reviewers", reviewers, 1, example="4")
+    check_number("bias", bias, 0, low_open=True, example="2.0")
+    check_seed("seed", seed)
     nb = reviewers if biased_reviewers is None else biased_reviewers
     if not 0 <= nb <= reviewers:
-        raise UserError(f"--biased-reviewers {nb}: must be between 0 and {reviewers}")
+        raise UserError(
+            f"{nb} must be between 0 and {reviewers}",
+            Fix("biased_reviewers", range=f"a whole number from 0 to {reviewers}"),
+            about="biased_reviewers",
+        )
     done, real = _reviewed_cases(study)
     if real:
         raise UserError(
             f"{config.review.ledger}: this ledger holds real reviews; simulated ones would mix "
             "with them",
-            "simulate only on a fresh demo study (closecall demo --out DIR)",
+            "simulate only on a fresh demo study (a new demo written into an empty folder)",
         )
     snap = study.snapshot
     margin = snap.margins(snap.reference)
@@ -107,8 +111,9 @@ def simulate_reviews(
         biased_group = min(levels, key=lambda g: (shares[g], g))
     elif biased_group not in levels:
         raise UserError(
-            f"--biased-group '{biased_group}' is not a group of this study",
-            f"choose one of: {', '.join(levels)}",
+            f"'{biased_group}' is not a group of this study",
+            Fix("biased_group", allowed=tuple(levels)),
+            about="biased_group",
         )
 
     ids = np.asarray(snap.case_ids).astype(str)

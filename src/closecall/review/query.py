@@ -19,7 +19,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from closecall.core.errors import UserError
-from closecall.review.ledger import ACTIONS
+from closecall.core.vocabulary import ACTIONS
 from closecall.review.queue import RESTS_ON, SORT_KEYS, Queue, build_queue, queue_rows
 
 if TYPE_CHECKING:
@@ -143,7 +143,7 @@ class QueueAnswer:
 
     def rows(self, snapshot: Any) -> list[dict[str, Any]]:
         """Plain rows of the listed cases, with ``state`` and ``claimed_by`` when readable."""
-        from closecall.review.states import STATE_NAMES
+        from closecall.core.vocabulary import STATE_NAMES
 
         rows = queue_rows(snapshot, self.queue, 0, self.query.limit)
         if self.states is not None:

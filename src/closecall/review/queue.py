@@ -24,10 +24,11 @@ from typing import Any
 import numpy as np
 from scipy.special import logit
 
-from closecall.core.errors import UserError
+from closecall.core.errors import Fix, UserError
 from closecall.core.numbers import check_count, check_number
+from closecall.core.vocabulary import decision_word, model_at_lens
 from closecall.setup.config import EPSILON_MAX
-from closecall.suite.snapshot import Snapshot, decision_word
+from closecall.suite.snapshot import Snapshot
 
 SORT_KEYS = ("closeness", "margin", "ambiguity", "dependence", "id")
 RESTS_ON = ("group", "proxies")
@@ -140,11 +141,13 @@ def build_queue(
         (the group; the group and its proxies) is neutralised
     """
     if sort not in SORT_KEYS:
-        raise UserError(f"unknown sort key '{sort}'", f"use one of: {', '.join(SORT_KEYS)}")
+        raise UserError(f"unknown sort key '{sort}'", Fix("sort", allowed=tuple(SORT_KEYS)))
     check_queue_numbers(band, (options or {}).get("epsilon"))
     if rests_on_part is not None and rests_on_part not in RESTS_ON:
         raise UserError(
-            f"unknown part '{rests_on_part}' for --rests-on", f"use one of: {', '.join(RESTS_ON)}"
+            f"unknown part '{rests_on_part}'",
+            Fix("rests_on", allowed=tuple(RESTS_ON)),
+            about="rests_on",
         )
     options = options or {}
     margin = np.asarray(snap.margins(snap.reference))
@@ -205,9 +208,9 @@ def check_queue_numbers(band: object, epsilon: object = None) -> None:
     The band is |margin| in log-odds (≥ 0; 0 lists the flips only); ε is the equally-good set's
     slack, the range of ``[multiplicity] epsilon`` (docs/config.md).
     """
-    check_number("--band", band, 0, example="0.5")
+    check_number("band", band, 0, example="0.5")
     if epsilon is not None:
-        check_number("--epsilon", epsilon, 0, EPSILON_MAX, low_open=True, example="0.002")
+        check_number("epsilon", epsilon, 0, EPSILON_MAX, low_open=True, example="0.002")
 
 
 def queue_rows(
@@ -216,7 +219,7 @@ def queue_rows(
     """Plain rows for display or JSON, for queue positions [start, stop)."""
     check_count("the first position", start, 0)
     if stop is not None:
-        check_count("--limit (rows to show; 0 = all)", stop, start, example="20")
+        check_count("limit", stop, start, example="20")
     rows = q.order[start:stop]
     first = snap.lenses[0].name
     labels = snap.group_labels
@@ -227,7 +230,11 @@ def queue_rows(
     out: list[dict[str, Any]] = []
     for rank, r in enumerate(rows, start=start + 1):
         margins = {m: float(logits[m][r] - t0) for m in snap.model_names}
-        diff = [f"{m}@{lens}" for (m, lens), d in zip(q.grid.pairs, differs[r], strict=True) if d]
+        diff = [
+            model_at_lens(m, lens)
+            for (m, lens), d in zip(q.grid.pairs, differs[r], strict=True)
+            if d
+        ]
         row: dict[str, Any] = {
             "rank": rank,
             "case_id": str(ids[r]),

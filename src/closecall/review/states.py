@@ -7,7 +7,8 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from closecall.review.ledger import ACTIONS, Entry
+from closecall.core.vocabulary import ACTIONS, CONFLICT
+from closecall.review.ledger import Entry
 from closecall.suite.snapshot import Snapshot
 
 if TYPE_CHECKING:
@@ -16,8 +17,6 @@ if TYPE_CHECKING:
 #: State codes: 0 = not reviewed, then 1 + the index of the latest action in ACTIONS, and
 #: CONFLICT when reviewers' decisions in force disagree (closecall.review.conflicts).
 NOT_REVIEWED = 0
-STATE_NAMES = ("open", *ACTIONS, "conflict")
-CONFLICT = len(STATE_NAMES) - 1
 
 
 def review_states(

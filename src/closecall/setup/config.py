@@ -21,7 +21,6 @@ from closecall.core.errors import UserError
 
 CONFIG_NAME = "closecall.toml"
 
-MODEL_NAMES = ("pooled", "unaware", "proxy_free", "split", "deployed")
 DEFAULT_REASONS = (
     "information-not-in-model",
     "data-error",

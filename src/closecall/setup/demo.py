@@ -24,7 +24,7 @@ import numpy as np
 import pandas as pd
 from scipy.special import expit
 
-from closecall.core.errors import UserError
+from closecall.core.errors import Fix, UserError
 
 GROUPS = ("Aster", "Briar")
 ZONES = ("N", "P", "Q", "R", "S", "T")
@@ -105,7 +105,9 @@ analysts = []
 def generate(cases: int = 5000, seed: int = 7) -> tuple[pd.DataFrame, np.ndarray, np.ndarray]:
     """All applications, their true outcomes and their recorded (biased) outcomes."""
     if cases < 200:
-        raise UserError(f"--cases {cases} is too small", "use at least 200 cases")
+        raise UserError(
+            f"{cases} is too small", Fix("cases", range="at least 200 cases"), about="cases"
+        )
     rng = np.random.default_rng(seed)
     n = cases
     briar = rng.random(n) < TRUE["share_briar"]

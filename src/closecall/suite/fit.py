@@ -36,6 +36,7 @@ from sklearn.model_selection import StratifiedKFold
 
 from closecall.core.errors import UserError
 from closecall.core.progress import Progress, quiet
+from closecall.core.vocabulary import FITTED_MODELS
 from closecall.setup.config import StudyConfig
 from closecall.setup.encode import Encoder, fit_encoder
 from closecall.setup.load import StudyData
@@ -54,8 +55,6 @@ from closecall.suite.solver import (
     quadratic_form,
     restricted_start,
 )
-
-FITTED_MODELS = ("pooled", "unaware", "proxy_free", "split")
 
 
 @dataclass

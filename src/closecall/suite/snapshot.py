@@ -35,6 +35,7 @@ from scipy.special import logit
 from closecall import __version__
 from closecall.core.errors import UserError
 from closecall.core.shared import permission_error, share_dir
+from closecall.core.vocabulary import decision_word
 from closecall.setup.config import CostLens, StudyConfig
 from closecall.setup.encode import Encoder
 from closecall.setup.files import require_file
@@ -337,10 +338,6 @@ class Snapshot:
     @property
     def metrics(self) -> list[dict[str, Any]]:
         return list(self.meta["metrics"])
-
-
-def decision_word(favourable: bool) -> str:
-    return "favourable" if favourable else "unfavourable"
 
 
 def build_snapshot(

@@ -23,21 +23,23 @@ from textual.scroll_view import ScrollView
 from textual.strip import Strip
 
 from closecall.core.text import percent, safe_text, signed
+from closecall.core.vocabulary import (
+    OPEN,
+    TO_FAVOURABLE,
+    TO_UNFAVOURABLE,
+    UPHELD,
+    model_letters,
+    short_model,
+)
 from closecall.tui.marks import (
     AGREE,
     AMBIGUOUS,
     CLAIM_MINE,
     CLAIM_OTHER,
     CURSOR,
-    OPEN,
     REFERENCE,
     STATE_WORD,
-    TO_FAV,
-    TO_UNFAV,
-    UPHELD,
     band_glyph,
-    model_letters,
-    short_model,
 )
 from closecall.tui.session import ReviewSession
 
@@ -314,7 +316,7 @@ class CaseList(ScrollView, can_focus=True):
 
     def _state_style(self, r: int, base: Style) -> Style:
         code = int(self.session.states[r])
-        if code in (UPHELD, TO_FAV, TO_UNFAV):
+        if code in (UPHELD, TO_FAVOURABLE, TO_UNFAVOURABLE):
             return self._style("case-list--done", base)
         return base
 

@@ -19,6 +19,7 @@ from textual.worker import get_current_worker
 
 from closecall.core.errors import UserError
 from closecall.core.text import safe_text, signed
+from closecall.core.vocabulary import OPEN, STATE_OF_ACTION, decision_word
 from closecall.review.decisions import (
     active_claims,
     case_history,
@@ -28,18 +29,10 @@ from closecall.review.decisions import (
 )
 from closecall.review.ledger import Draft, Entry
 from closecall.suite.fit_flags import PROBLEM_WORDS, case_fit_flags
-from closecall.suite.snapshot import decision_word
 from closecall.tui import analysis_bridge, case_sections
 from closecall.tui.key_bar import KeyBar
 from closecall.tui.margin_axis import AxisData, AxisLine, MarginAxis
-from closecall.tui.marks import (
-    AMBIGUOUS,
-    CLAIM_MINE,
-    CLAIM_OTHER,
-    OPEN,
-    STATE_OF_ACTION,
-    STATE_WORD,
-)
+from closecall.tui.marks import AMBIGUOUS, CLAIM_MINE, CLAIM_OTHER, STATE_WORD
 from closecall.tui.session import ReviewSession
 
 Neighbour = Callable[[int, int], "int | None"]

@@ -22,13 +22,14 @@ from textual.widgets import Static, TextArea
 
 from closecall.core.errors import UserError
 from closecall.core.text import safe_text, signed
+from closecall.core.vocabulary import ACTIONS, decision_word
 from closecall.review.conflicts import ConflictingDecision, last_seq
 from closecall.review.decisions import claim_case, load_draft, record_review, release_claim
-from closecall.review.ledger import ACTIONS, Entry
-from closecall.suite.snapshot import decision_word
+from closecall.review.ledger import Entry
 from closecall.tui.choice_list import ChoiceList
 from closecall.tui.conflict_prompt import SECOND_OPINION, SUPERSEDE, ConflictPrompt
 from closecall.tui.draft_keeper import DraftKeeper, DraftValue
+from closecall.tui.errors import fix_text, message_text
 from closecall.tui.key_bar import KeyBar
 from closecall.tui.session import ReviewSession
 
@@ -219,9 +220,10 @@ class DecisionDialog(ModalScreen[Entry | None]):
     def _refused(self, exc: UserError) -> None:
         text = Text()
         text.append("✗ not recorded: ", "bold")
-        text.append(exc.message)
-        if exc.fix:
-            text.append(f"\n  {_dialog_fix(exc.fix)}")
+        text.append(message_text(exc))
+        fix = fix_text(exc)
+        if fix:
+            text.append(f"\n  {fix}")
         self.query_one("#dialog-status", Static).update(text)
 
     def _conflict(self, exc: ConflictingDecision, value: DraftValue) -> None:
@@ -285,10 +287,3 @@ class DecisionDialog(ModalScreen[Entry | None]):
 
     def say(self, message: str) -> None:
         self.query_one("#dialog-status", Static).update(message)
-
-
-def _dialog_fix(fix: str) -> str:
-    """The engine's advice, worded for this dialog instead of the command line."""
-    return fix.replace("add --reason with one of:", "choose a reason:").replace(
-        'add --note "…" (it is stored exactly as typed)', "write a note below"
-    )

@@ -12,6 +12,7 @@ from textual.screen import Screen
 from textual.widgets import Static
 
 from closecall.core.cautions import CAUTIONS
+from closecall.core.vocabulary import model_letters, short_model
 from closecall.tui.key_bar import KeyBar, key_label, one_key
 from closecall.tui.marks import (
     ACTION_SHORT,
@@ -22,8 +23,6 @@ from closecall.tui.marks import (
     CURSOR,
     REFERENCE,
     STATE_WORD,
-    model_letters,
-    short_model,
 )
 
 MEANINGS = [

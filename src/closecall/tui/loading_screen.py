@@ -16,6 +16,7 @@ from textual.worker import get_current_worker
 from closecall.core.cautions import CAUTIONS
 from closecall.core.errors import UserError
 from closecall.suite.opening import OpenedStudy, open_study
+from closecall.tui.errors import fix_text, message_text
 from closecall.tui.fit_progress import FitProgress
 from closecall.tui.key_bar import KeyBar
 from closecall.tui.session import ReviewSession
@@ -99,9 +100,10 @@ class LoadingScreen(Screen[None]):
             self.app.call_from_thread(self._ready, session)
 
     def _failed(self, exc: UserError) -> None:
-        text = f"Could not open the study: {exc.message}"
-        if exc.fix:
-            text += f"\nfix: {exc.fix}"
+        text = f"Could not open the study: {message_text(exc)}"
+        fix = fix_text(exc)
+        if fix:
+            text += f"\nfix: {fix}"
         self.query_one("#loading-error", Static).update(text)
 
     def _ready(self, session: ReviewSession) -> None:

@@ -18,7 +18,8 @@ from rich.text import Text
 from textual.widget import Widget
 
 from closecall.core.text import signed
-from closecall.tui.marks import REFERENCE, short_model
+from closecall.core.vocabulary import short_model
+from closecall.tui.marks import REFERENCE
 
 NAME_WIDTH = 10
 

@@ -7,23 +7,24 @@ line up in any UTF-8 terminal, with or without colour.
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+
+from closecall.core.vocabulary import (
+    CONFLICT,
+    DEFERRED,
+    OPEN,
+    TO_FAVOURABLE,
+    TO_UNFAVOURABLE,
+    UPHELD,
+)
 
 # --------------------------------------------------------------------------- review states
 
-OPEN, UPHELD, TO_FAV, TO_UNFAV, DEFERRED, CONFLICT = 0, 1, 2, 3, 4, 5
-STATE_OF_ACTION = {
-    "uphold": UPHELD,
-    "override-favourable": TO_FAV,
-    "override-unfavourable": TO_UNFAV,
-    "defer": DEFERRED,
-}
 #: Short state words for the case list (at most 9 cells).
 STATE_WORD = {
     OPEN: "open",
     UPHELD: "✓ upheld",
-    TO_FAV: "✓ →fav",
-    TO_UNFAV: "✓ →unfav",
+    TO_FAVOURABLE: "✓ →fav",
+    TO_UNFAVOURABLE: "✓ →unfav",
     DEFERRED: "… later",
     CONFLICT: "!conflict",  # reviewers' decisions in force disagree
 }
@@ -50,39 +51,6 @@ AGREE = "·"  # a model/lens that decides as the reference does
 REFERENCE = "*"  # the reference model under the operative lens
 CURSOR = "▶"
 AMBIGUOUS = "≈"  # the band of equally good models straddles the threshold
-
-_KNOWN_LETTERS = {
-    "pooled": "P",
-    "unaware": "U",
-    "proxy_free": "N",  # no proxies
-    "split": "S",
-    "deployed": "D",
-}
-
-
-#: Short names for the standard models where the full name is too wide.
-SHORT_MODEL = {"proxy_free": "no-proxy"}
-
-
-def short_model(name: str) -> str:
-    return SHORT_MODEL.get(name, name)
-
-
-def model_letters(names: Sequence[str]) -> dict[str, str]:
-    """One distinct capital letter per model (P U N S D for the standard suite)."""
-    out: dict[str, str] = {}
-    used: set[str] = set()
-    for name in names:
-        candidates = [_KNOWN_LETTERS.get(name, "")] + [c.upper() for c in name if c.isalnum()]
-        candidates += [chr(c) for c in range(ord("A"), ord("Z") + 1)]
-        letter = next(c for c in candidates if c and c not in used)
-        used.add(letter)
-        out[name] = letter
-    return out
-
-
-def decision_word(margin: float) -> str:
-    return FAV if margin > 0 else UNFAV
 
 
 # --------------------------------------------------------------------------- glyph axes

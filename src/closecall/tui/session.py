@@ -218,7 +218,7 @@ class ReviewSession:
     def refresh_reviews(self) -> None:
         """Read each case's latest action and the claims (call from a worker)."""
         latest = latest_actions(self.config)  # one query, however long the ledger
-        self.states = review_states(self.snap, latest)  # codes match marks.STATE_OF_ACTION
+        self.states = review_states(self.snap, latest)  # codes of closecall.core.vocabulary
         self.states = mark_conflicts(self.snap, self.states, study_conflicts(self.config))
         self.claims = active_claims(self.study)
 

@@ -9,10 +9,11 @@ import pandas as pd
 from scipy import stats
 
 from closecall.core.errors import UserError
+from closecall.core.vocabulary import DECISIONS, FAVOURABLE
 from closecall.reports.disparity.heldout import RateGap, rate_gap
 from closecall.reports.disparity.intervals import proportion, wilson_interval
 from closecall.reports.disparity.power import Detectable, detectable_split
-from closecall.reports.disparity.table import DECISIONS, FAVOURABLE, check_reviews, group_order
+from closecall.reports.disparity.table import check_reviews, group_order
 
 
 @dataclass(frozen=True)

@@ -10,6 +10,7 @@ import numpy as np
 import pandas as pd
 
 from closecall.core.errors import UserError
+from closecall.core.vocabulary import FAVOURABLE, UNFAVOURABLE
 from closecall.reports.disparity.periods import check_period
 from closecall.reports.disparity.report import (
     DisparityReport,
@@ -17,7 +18,7 @@ from closecall.reports.disparity.report import (
     PopulationInput,
     build_report,
 )
-from closecall.reports.disparity.table import FAVOURABLE, REVIEW_COLUMNS, UNFAVOURABLE
+from closecall.reports.disparity.table import REVIEW_COLUMNS
 from closecall.reports.export import load_or_create_key, pseudonymise, review_frame
 from closecall.review.decisions import ledger_entries
 from closecall.setup.load import read_table

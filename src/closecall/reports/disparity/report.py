@@ -140,10 +140,8 @@ def build_report(
     Uniform Guidelines on Employee Selection Procedures, 29 CFR 1607.4(D).
     B. Green and Y. Chen, "Disparate interactions", FAT* 2019.
     """
-    if n_boot < 100:
-        raise ValueError("n_boot should be at least 100 for percentile intervals")
-    check_count("--boot", n_boot, 100, REPLICATES_MAX, example="2000")
-    check_seed("--seed", seed)
+    check_count("n_boot", n_boot, 100, REPLICATES_MAX, example="2000")
+    check_seed("seed", seed)
     df = check_reviews(reviews)
     groups = group_order(df)
     with_outcome = "outcome" in df.columns

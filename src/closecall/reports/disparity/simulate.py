@@ -14,12 +14,7 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from closecall.reports.disparity.table import (
-    DEFER,
-    OVERRIDE_FAVOURABLE,
-    OVERRIDE_UNFAVOURABLE,
-    UPHOLD,
-)
+from closecall.core.vocabulary import DEFER, OVERRIDE_FAVOURABLE, OVERRIDE_UNFAVOURABLE, UPHOLD
 
 
 def _expit(x: NDArray[np.float64]) -> NDArray[np.float64]:

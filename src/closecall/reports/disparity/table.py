@@ -6,16 +6,11 @@ import numpy as np
 import pandas as pd
 
 from closecall.core.errors import UserError
-
-FAVOURABLE = "favourable"
-UNFAVOURABLE = "unfavourable"
-DECISIONS = (FAVOURABLE, UNFAVOURABLE)
-
-UPHOLD = "uphold"
-OVERRIDE_FAVOURABLE = "override-favourable"
-OVERRIDE_UNFAVOURABLE = "override-unfavourable"
-DEFER = "defer"
-ACTIONS = (UPHOLD, OVERRIDE_FAVOURABLE, OVERRIDE_UNFAVOURABLE, DEFER)
+from closecall.core.vocabulary import (
+    ACTIONS,
+    DECISIONS,
+    FAVOURABLE,
+)
 
 #: Columns of the effective-review table: one row per reviewed case.
 REVIEW_COLUMNS = (
@@ -27,19 +22,6 @@ REVIEW_COLUMNS = (
     "final_decision",
     "action",
 )
-
-
-def final_decision(model_decision: pd.Series, action: pd.Series) -> pd.Series:
-    """The decision that stands after review.
-
-    ``uphold`` keeps the model's decision, ``override-favourable`` / ``override-unfavourable``
-    set it, ``defer`` leaves no decision (missing value).
-    """
-    out = pd.Series(pd.NA, index=model_decision.index, dtype="object")
-    out[action == UPHOLD] = model_decision[action == UPHOLD]
-    out[action == OVERRIDE_FAVOURABLE] = FAVOURABLE
-    out[action == OVERRIDE_UNFAVOURABLE] = UNFAVOURABLE
-    return out
 
 
 def check_reviews(reviews: pd.DataFrame, source: str = "review table") -> pd.DataFrame:

@@ -3,12 +3,11 @@
 See docs/ledger.md for the format and guarantees.
 """
 
+from closecall.core.vocabulary import ACTIONS, OVERRIDES
 from closecall.review.ledger.access import current_login, may_read, may_record
 from closecall.review.ledger.drafts import Claim, Claims, Draft, Drafts
 from closecall.review.ledger.entry import (
-    ACTIONS,
     GENESIS_HASH,
-    OVERRIDES,
     Entry,
     EntryContent,
     canonical_json,

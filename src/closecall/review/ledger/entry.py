@@ -20,6 +20,8 @@ import json
 from dataclasses import dataclass, field
 from typing import Any
 
+from closecall.core.vocabulary import OVERRIDES
+
 #: Version of the hashed entry layout; stored in every entry so the layout can grow later.
 #: Format 1 (before signatures) hashes :data:`SIGNED_FIELDS`; format 2 adds ``signature``.
 ENTRY_FORMAT = 2
@@ -28,8 +30,6 @@ ENTRY_FORMAT = 2
 GENESIS_HASH = "0" * 64
 
 #: The reviewer's possible actions on a case.
-ACTIONS = ("uphold", "override-favourable", "override-unfavourable", "defer")
-OVERRIDES = ("override-favourable", "override-unfavourable")
 
 #: Fields the author's Ed25519 signature covers (and, in format 1, the hash covers).
 SIGNED_FIELDS = (

@@ -30,10 +30,10 @@ from types import TracebackType
 from typing import TYPE_CHECKING, Any, Concatenate, ParamSpec, TypeVar
 
 from closecall.core.errors import UserError
+from closecall.core.vocabulary import ACTIONS
 from closecall.review.ledger import schema
 from closecall.review.ledger.drafts import Claims, Drafts, delete_draft, utc_iso, utc_now
 from closecall.review.ledger.entry import (
-    ACTIONS,
     ENTRY_FORMAT,
     GENESIS_HASH,
     HASHED_FIELDS,

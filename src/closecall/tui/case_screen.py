@@ -30,6 +30,7 @@ from closecall.review.decisions import (
 from closecall.review.ledger import Draft, Entry
 from closecall.suite.fit_flags import PROBLEM_WORDS, case_fit_flags
 from closecall.tui import analysis_bridge, case_sections
+from closecall.tui.access_guard import may_decide
 from closecall.tui.key_bar import KeyBar
 from closecall.tui.margin_axis import AxisData, AxisLine, MarginAxis
 from closecall.tui.marks import AMBIGUOUS, CLAIM_MINE, CLAIM_OTHER, STATE_WORD
@@ -231,6 +232,8 @@ class CaseScreen(Screen[None]):
     def action_decide(self) -> None:
         from closecall.tui.decision_dialog import DecisionDialog
 
+        if not may_decide(self):
+            return
         self.app.push_screen(DecisionDialog(self.session, self.case_id, claim=False), self._decided)
 
     def _decided(self, entry: Entry | None) -> None:

@@ -15,6 +15,7 @@ from textual.worker import get_current_worker
 
 from closecall.core.text import safe_text
 from closecall.review.ledger import Entry
+from closecall.tui.access_guard import may_decide
 from closecall.tui.case_list import CaseList
 from closecall.tui.key_bar import KeyBar
 from closecall.tui.margin_chart import MarginChart
@@ -264,6 +265,8 @@ class QueueScreen(Screen[None]):
             return
         from closecall.tui.decision_dialog import DecisionDialog
 
+        if not may_decide(self):
+            return
         case_id = str(self.session.snap.case_ids[row])
         self.app.push_screen(DecisionDialog(self.session, case_id), self._decided)
 

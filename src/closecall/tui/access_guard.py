@@ -1,0 +1,29 @@
+"""A login that may not record (an analyst, an unlisted login) gets a message, never the
+decision dialog (docs/team.md)."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from closecall.core.text import safe_text
+from closecall.review.ledger.access import may_record
+
+
+def may_decide(screen: Any) -> bool:
+    """True when the session's login may record; otherwise say why on ``screen`` and refuse.
+
+    ``screen`` is a review screen with a ``session`` (and, on the case screen, ``say``).
+    """
+    session = screen.session
+    if may_record(session.config.review, session.login):
+        return True
+    message = (
+        f"login '{safe_text(session.login)}' may not record reviews in this study (not in "
+        f"[review] reviewers of {safe_text(str(session.config.path))}): reading only. Ask "
+        "the study owner to add it to reviewers"
+    )
+    say = getattr(screen, "say", None)
+    if callable(say):
+        say(message)
+    screen.notify(message, severity="warning", timeout=10, markup=False)
+    return False

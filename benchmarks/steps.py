@@ -302,7 +302,7 @@ def proxies_step(p: dict[str, Any]) -> Result:
     from closecall.setup.encode import fit_encoder
     from closecall.suite.fit import proxy_columns
     from closecall.suite.proxies import detect_proxies
-    from closecall.suite.solver import fit_logit
+    from closecall.suite.solver import fit_logit, one_blas_thread
 
     cfg, data, X, y = _encoded(p["config"])
     enc = fit_encoder(data.history, data.features, data.group_columns)
@@ -310,7 +310,9 @@ def proxies_step(p: dict[str, Any]) -> Result:
     hg = np.searchsorted(levels, data.history_group)
     nongroup = ~enc.group_mask
     unaware = fit_logit(X, y, nongroup, cfg.model.penalty)
-    with Clock() as c:
+    # fit_suite runs proxy detection with BLAS held to one thread (one_blas_thread); with the
+    # default two, scikit-learn's group classifier spins both cores on a shared machine
+    with one_blas_thread(), Clock() as c:
         report = detect_proxies(
             raw_columns=proxy_columns(enc, X),
             X=X,

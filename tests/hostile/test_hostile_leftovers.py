@@ -102,9 +102,9 @@ class TestNumbersOnTheCommandLine:
         from closecall.core.errors import UserError
         from closecall.reports.disparity.report import build_report
 
-        with pytest.raises(UserError, match="--seed = -1"):
+        with pytest.raises(UserError, match="seed: -1"):
             build_report(pd.DataFrame(), seed=-1)
-        with pytest.raises(UserError, match="--boot"):
+        with pytest.raises(UserError, match="n_boot"):
             build_report(pd.DataFrame(), n_boot=10**14)
 
     def test_limit_zero_still_lists_every_case(self, cli: Cli, study_dir: Path) -> None:
@@ -119,10 +119,10 @@ class TestNumbersOnTheCommandLine:
 
         snap = open_study(study_dir / CONFIG).snapshot
         for band in (float("nan"), float("inf"), -0.5):
-            with pytest.raises(UserError, match="--band"):
+            with pytest.raises(UserError, match="band"):
                 build_queue(snap, band=band)
         q = build_queue(snap, band=0.5)
-        with pytest.raises(UserError, match="--limit"):
+        with pytest.raises(UserError, match=r"limit|stop"):
             queue_rows(snap, q, 0, -1)
         assert len(queue_rows(snap, q, 0, 3)) == min(3, len(q))
 

@@ -32,7 +32,7 @@ def _num(value: float) -> str:
     return text.lstrip("-") if float(text) == 0 else text
 
 
-def weights_text(data: dict[str, Any], term_width: int = 22) -> Text:
+def weights_text(data: dict[str, Any], term_width: int = 28) -> Text:
     """The weights as aligned plain lines (fits 80 columns with terms up to ``term_width``)."""
     out = Text(no_wrap=True, overflow="ellipsis")
     out.append(

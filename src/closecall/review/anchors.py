@@ -26,7 +26,7 @@ def anchor_path(config: StudyConfig, out: Path | None = None) -> Path:
         raise UserError(
             f"{config.path}: no anchor file named under [team] anchor",
             'add anchor = "/srv/anchors/STUDY.anchor" under [team] (a folder only the '
-            "supervisor can write), or pass --out PATH",
+            "supervisor can write), or name the anchor file to write",
         )
     return Path(path)
 

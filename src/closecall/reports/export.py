@@ -256,7 +256,7 @@ def export_reviews(
     """
     if pseudonymise_reviewers and key_file is None:
         raise UserError(
-            "reviewer pseudonyms need a key",
+            "needs a key (reviewer pseudonyms are keyed)",
             Fix("pseudonymise", hint="a new file is created with a fresh key"),
             about="pseudonymise_reviewers",
         )

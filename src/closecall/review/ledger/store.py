@@ -636,10 +636,16 @@ def _refuse(path: Path, findings: Sequence[schema.Finding]) -> None:
 
 
 def _intact(objects: dict[tuple[str, str], schema.SchemaObject], table: str) -> bool:
-    """The table is there with the definition version 1 gave it."""
+    """The table is there with the definition some schema version gave it (columns are
+    added by later versions, e.g. the entries' signature in version 3)."""
     have = objects.get(("table", table))
-    want = schema.expected_objects(1)[("table", table)]
-    return have is not None and (have.sql == want.sql or have.key == want.key)
+    if have is None:
+        return False
+    for version in range(1, schema.SCHEMA_VERSION + 1):
+        want = schema.expected_objects(version).get(("table", table))
+        if want is not None and (have.sql == want.sql or have.key == want.key):
+            return True
+    return False
 
 
 def _marker(conn: sqlite3.Connection, objects: dict[tuple[str, str], schema.SchemaObject]) -> Any:

@@ -10,8 +10,9 @@ when there are enough reviewers to cluster on, and model-based otherwise; the fi
 from __future__ import annotations
 
 import warnings
+from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Literal
+from typing import Any, Literal
 
 import numpy as np
 import pandas as pd
@@ -225,7 +226,8 @@ def conditional_disparity(
                 "likelihood odds ratio is 0 or unbounded (separation), so every group is "
                 "estimated by Firth's penalised likelihood instead"
             )
-        return _firth(
+        return _firth_or(
+            empty,
             direction,
             risk_set,
             ref,
@@ -247,7 +249,8 @@ def conditional_disparity(
             res = model.fit(disp=0, method="newton", maxiter=100)
     except (PerfectSeparationError, PerfectSeparationWarning, np.linalg.LinAlgError) as exc:
         notes.append(f"maximum likelihood failed ({exc}); Firth's penalised likelihood used")
-        return _firth(
+        return _firth_or(
+            empty,
             direction,
             risk_set,
             ref,
@@ -267,7 +270,8 @@ def conditional_disparity(
             "maximum likelihood did not converge or gave infinite standard errors (likely "
             "quasi-separation by margin); Firth's penalised likelihood used"
         )
-        return _firth(
+        return _firth_or(
+            empty,
             direction,
             risk_set,
             ref,
@@ -367,6 +371,18 @@ def conditional_disparity(
         standard_errors=se_text,
         reviewers=clusters,
     )
+
+
+def _firth_or(empty: Callable[[str], ConditionalFit], *args: Any) -> ConditionalFit:
+    """:func:`_firth`, or ``empty(reason)`` when even the penalised fit has no solution (a
+    singular design: e.g. every margin in the risk set equal)."""
+    try:
+        return _firth(*args)
+    except np.linalg.LinAlgError:
+        return empty(
+            "Firth's penalised likelihood could not be fitted either (the design is singular, "
+            "e.g. the margins in the risk set do not vary): no odds ratios"
+        )
 
 
 def _firth(

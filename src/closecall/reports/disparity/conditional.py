@@ -218,6 +218,13 @@ def conditional_disparity(
     clusters = len(np.unique(reviewer))
     z = z_value(level)
 
+    def by_firth() -> ConditionalFit:
+        """The same model by Firth's penalised likelihood (or ``empty`` if even that fails)."""
+        return _firth_or(
+            empty, direction, risk_set, ref, x, y_all, order, others, at_risk, events, level,
+            notes, clusters,
+        )
+
     if separated:
         for g in separated:
             kind = "no" if events[g] == 0 else "only"
@@ -226,21 +233,7 @@ def conditional_disparity(
                 "likelihood odds ratio is 0 or unbounded (separation), so every group is "
                 "estimated by Firth's penalised likelihood instead"
             )
-        return _firth_or(
-            empty,
-            direction,
-            risk_set,
-            ref,
-            x,
-            y_all,
-            order,
-            others,
-            at_risk,
-            events,
-            level,
-            notes,
-            clusters,
-        )
+        return by_firth()
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("error", PerfectSeparationWarning)
@@ -249,42 +242,14 @@ def conditional_disparity(
             res = model.fit(disp=0, method="newton", maxiter=100)
     except (PerfectSeparationError, PerfectSeparationWarning, np.linalg.LinAlgError) as exc:
         notes.append(f"maximum likelihood failed ({exc}); Firth's penalised likelihood used")
-        return _firth_or(
-            empty,
-            direction,
-            risk_set,
-            ref,
-            x,
-            y_all,
-            order,
-            others,
-            at_risk,
-            events,
-            level,
-            notes,
-            clusters,
-        )
+        return by_firth()
     bse = np.asarray(res.bse, dtype=float)
     if not res.mle_retvals.get("converged", False) or not np.all(np.isfinite(bse)):
         notes.append(
             "maximum likelihood did not converge or gave infinite standard errors (likely "
             "quasi-separation by margin); Firth's penalised likelihood used"
         )
-        return _firth_or(
-            empty,
-            direction,
-            risk_set,
-            ref,
-            x,
-            y_all,
-            order,
-            others,
-            at_risk,
-            events,
-            level,
-            notes,
-            clusters,
-        )
+        return by_firth()
 
     params = np.asarray(res.params, dtype=float)
     mb_p = np.asarray(res.pvalues, dtype=float)

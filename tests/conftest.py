@@ -34,6 +34,7 @@ class CliResult:
 @pytest.fixture
 def cli(capsys: pytest.CaptureFixture[str], monkeypatch: pytest.MonkeyPatch):  # type: ignore[no-untyped-def]
     """Run `closecall ARGS…` in-process; returns exit code, stdout and stderr."""
+    import os
     import sys
 
     from closecall.cli.app import main
@@ -42,10 +43,14 @@ def cli(capsys: pytest.CaptureFixture[str], monkeypatch: pytest.MonkeyPatch):  #
         capsys.readouterr()
         monkeypatch.setattr(sys, "argv", ["closecall", *args])
         code = 0
+        umask = os.umask(0o022)  # the command sets its own (0o007); a process would end there
+        os.umask(umask)
         try:
             main()
         except SystemExit as exc:
             code = int(exc.code or 0) if not isinstance(exc.code, str) else 1
+        finally:
+            os.umask(umask)  # do not leak the command's umask into later tests
         captured = capsys.readouterr()
         return CliResult(code, captured.out, captured.err)
 

@@ -107,7 +107,8 @@ def team(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Team]:
         for g in (writers, readers):
             subprocess.run(["groupadd", g], check=True)
             made_groups.append(g)
-        (base / "home").mkdir(mode=0o755)
+        (base / "home").mkdir()
+        os.chmod(base / "home", 0o755)  # explicit, whatever the umask
         for user, group in ((r1, writers), (r2, writers), (analyst, readers)):
             home = base / "home" / user
             subprocess.run(

@@ -10,9 +10,8 @@ when there are enough reviewers to cluster on, and model-based otherwise; the fi
 from __future__ import annotations
 
 import warnings
-from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Any, Literal
+from typing import Literal
 
 import numpy as np
 import pandas as pd
@@ -219,11 +218,18 @@ def conditional_disparity(
     z = z_value(level)
 
     def by_firth() -> ConditionalFit:
-        """The same model by Firth's penalised likelihood (or ``empty`` if even that fails)."""
-        return _firth_or(
-            empty, direction, risk_set, ref, x, y_all, order, others, at_risk, events, level,
-            notes, clusters,
-        )
+        """The same model by Firth's penalised likelihood, or ``empty`` when even that has no
+        solution (a singular design: e.g. the margins in the risk set do not vary)."""
+        try:
+            return _firth(
+                direction, risk_set, ref, x, y_all, order, others, at_risk, events, level,
+                notes, clusters,
+            )
+        except np.linalg.LinAlgError:
+            return empty(
+                "Firth's penalised likelihood could not be fitted either (the design is "
+                "singular, e.g. the margins in the risk set do not vary): no odds ratios"
+            )
 
     if separated:
         for g in separated:
@@ -336,18 +342,6 @@ def conditional_disparity(
         standard_errors=se_text,
         reviewers=clusters,
     )
-
-
-def _firth_or(empty: Callable[[str], ConditionalFit], *args: Any) -> ConditionalFit:
-    """:func:`_firth`, or ``empty(reason)`` when even the penalised fit has no solution (a
-    singular design: e.g. every margin in the risk set equal)."""
-    try:
-        return _firth(*args)
-    except np.linalg.LinAlgError:
-        return empty(
-            "Firth's penalised likelihood could not be fitted either (the design is singular, "
-            "e.g. the margins in the risk set do not vary): no odds ratios"
-        )
 
 
 def _firth(

@@ -41,6 +41,7 @@ app = typer.Typer(
 # Each module defines `register(app)`; listed here so the order of --help is stable.
 COMMAND_MODULES = (
     "closecall.cli.study_cmds",
+    "closecall.cli.queue_cmds",
     "closecall.cli.explain_cmds",
     "closecall.cli.ledger_cmds",
     "closecall.cli.disparity_cmds",
@@ -56,7 +57,7 @@ COMMAND_HOME = {
     "init": "study_cmds",
     "demo": "study_cmds",
     "fit": "study_cmds",
-    "queue": "study_cmds",
+    "queue": "queue_cmds",
     "explain": "explain_cmds",
     "proxies": "explain_cmds",
     "bands": "explain_cmds",

@@ -77,7 +77,7 @@ async def test_ledger_pages_back_to_the_first_entry_and_forward_again(study: Ope
         assert _seqs(ledger) == list(range(ENTRIES, ENTRIES - PAGE, -1))  # newest first
         text = screen_text(app)
         assert "page 1 (newest) · 1,801–2,300" in text
-        assert "o older" in text and "n newer" in text  # the keys are on screen
+        assert "< older" in text and "> newer" in text  # the keys are on screen
         title = text.splitlines()[0]
         assert "ledger.sqlite" in title  # a long path is cut at the front, the name stays
 
@@ -86,17 +86,17 @@ async def test_ledger_pages_back_to_the_first_entry_and_forward_again(study: Ope
             seen += _seqs(ledger)
             if page < 5:
                 top = ledger.entries[-1].seq - 1
-                await pilot.press("o")
+                await pilot.press("less_than_sign")
                 await wait_until(pilot, functools.partial(_starts_at, ledger, top))
         assert sorted(seen) == list(range(1, ENTRIES + 1))  # every entry, each once
         assert _seqs(ledger) == list(range(300, 0, -1))
         assert "page 5 (4 back) · 1–300 · oldest" in screen_text(app)
         assert "? help" in screen_text(app)  # every key fits on the bar at 80 columns
-        await pilot.press("o")  # nothing older: stays
+        await pilot.press("less_than_sign")  # nothing older: stays
         await pilot.pause(0.2)
         assert _seqs(ledger)[-1] == 1
 
-        await pilot.press("n")
+        await pilot.press("greater_than_sign")
         await wait_until(pilot, lambda: ledger.entries[0].seq == 800)
         assert "page 4 (3 back) · 301–800" in screen_text(app)
         await pilot.press("t")
@@ -116,12 +116,12 @@ async def test_paging_keeps_the_reviewer_filter(study: OpenedStudy) -> None:
         ledger = app.screen
         assert isinstance(ledger, LedgerScreen)
         await wait_until(pilot, lambda: bool(ledger.entries))
-        await pilot.press("o")  # page back first: a new filter starts at the newest again
+        await pilot.press("less_than_sign")  # page back: a new filter starts at the newest
         await wait_until(pilot, lambda: ledger.entries[0].seq == ENTRIES - PAGE)
-        await pilot.press("r", "b", "o", "enter")
+        await pilot.press("w", "b", "o", "enter")
         await wait_until(pilot, lambda: {e.reviewer for e in ledger.entries} == {"bo"})
         assert _seqs(ledger) == bo[::-1][:PAGE]
-        await pilot.press("o")
+        await pilot.press("less_than_sign")
         await wait_until(pilot, lambda: ledger.entries[0].seq == bo[::-1][PAGE])
         assert _seqs(ledger) == bo[::-1][PAGE:]
         assert {e.reviewer for e in ledger.entries} == {"bo"}
@@ -153,8 +153,8 @@ async def test_quit_question_names_the_drafts_on_other_cases(study: OpenedStudy)
         assert f"Your 5 saved drafts on other cases ({listed} and 2 more) are kept" in box
         assert "nothing is lost" in box
         assert here not in box.split("Your 5")[1]  # the open case is not an "other" draft
-        assert "y quit, keep the draft n stay" in box  # the whole question fits in 80×24
-        await pilot.press("n")
+        assert "y quit, keep the draft esc stay" in box  # the whole question fits in 80×24
+        await pilot.press("escape")
         await wait_until(pilot, lambda: isinstance(app.screen, DecisionDialog))
 
 

@@ -137,12 +137,15 @@ class ReviewApp(App[None]):
     def action_help(self) -> None:
         from closecall.tui.help_screen import HelpScreen
 
-        if self.session is None or isinstance(self.screen, HelpScreen):
+        if isinstance(self.screen, HelpScreen):  # ? again closes it
+            self.screen.dismiss()
+            return
+        if self.session is None:
             return
         snap = self.session.snap
-        self.push_screen(
-            HelpScreen(snap.model_names, [lens.name for lens in snap.lenses], snap.reference)
-        )
+        lenses = [lens.name for lens in snap.lenses]
+        here = type(self.screen)  # help opens at this screen's keys
+        self.push_screen(HelpScreen(snap.model_names, lenses, snap.reference, here))
 
     def action_ledger(self) -> None:
         from closecall.tui.ledger_screen import LedgerScreen

@@ -174,10 +174,10 @@ class CaseScreen(Screen[None]):
         code = int(session.states[row])
         state = STATE_WORD[code]
         others = session.claimed_by_others(self.case_id)
-        if code == OPEN and others:
-            state = f"{CLAIM_OTHER} open by {safe_text(', '.join(others))}"
+        if code == OPEN and others:  # "open" is the state (undecided); a claim is a claim
+            state += f" · {CLAIM_OTHER} claimed by {safe_text(', '.join(others))}"
         elif code == OPEN:
-            state = f"{CLAIM_MINE} open by you"
+            state += f" · {CLAIM_MINE} claimed by you"
         text.append(f" · {state}")
         self.query_one("#title", Static).update(text)
         self.query_one("#case-summary", Static).update(

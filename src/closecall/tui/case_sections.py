@@ -34,6 +34,20 @@ def _decision(margin: float) -> str:
     return "fav" if margin > 0 else "unfav"
 
 
+def fit_label(name: str, tag: str, width: int) -> str:
+    """``name`` + ``tag`` in ``width`` cells: a long name is cut (with ``…``), never the tag.
+
+    Examples
+    --------
+    >>> fit_label("neighbourhood_income_band", " (proxy)", 22)
+    'neighbourhood… (proxy)'
+    """
+    if len(name) + len(tag) <= width:
+        return name + tag
+    room = max(1, width - len(tag) - 1)
+    return name[:room] + "…" + tag
+
+
 def contributions(d: dict[str, Any], width: int, top: int = TOP_CONTRIBUTIONS) -> Text:
     """The features that move the margin most, each with a signed bar."""
     dep = d["dependence"]
@@ -46,8 +60,8 @@ def contributions(d: dict[str, Any], width: int, top: int = TOP_CONTRIBUTIONS) -
     bar_w = max(6, min(16, width - name_w - 10 - 8 - 2))
     for r in rows:
         role = {"group": " (group)", "proxy": " (proxy)"}.get(r["role"], "")
-        label = f"{safe_text(r['feature'])}{role}"
-        text.append(f"{label[:name_w]:<{name_w}} ", "bold" if role else None)
+        label = fit_label(safe_text(r["feature"]), role, name_w)
+        text.append(f"{label:<{name_w}} ", "bold" if role else None)
         text.append(f"{_value(r['value'])[:10]:>10} ")
         c = float(r["contribution"])
         bar = block_bar(c, scale, bar_w)

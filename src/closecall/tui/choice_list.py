@@ -1,15 +1,13 @@
 """A short list of options where one is chosen: ``◉`` marks the choice, ``▸`` the cursor.
 
-Both marks are glyphs, so the list reads the same without colour. Enter or space chooses the
-option under the cursor; a digit chooses that option directly.
+Both marks are glyphs, so the list reads the same without colour. Enter chooses the option
+under the cursor; a digit chooses that option directly (space is page down on every other
+screen, so it chooses nothing here).
 """
 
 from __future__ import annotations
 
-from typing import ClassVar
-
 from textual import events
-from textual.binding import Binding, BindingType
 from textual.message import Message
 from textual.widgets import OptionList
 from textual.widgets.option_list import Option
@@ -19,8 +17,6 @@ CHOSEN, NOT_CHOSEN, POINTER = "◉", "○", "▸"
 
 class ChoiceList(OptionList):
     """Options with values; ``chosen`` is the index of the chosen one (None: nothing yet)."""
-
-    BINDINGS: ClassVar[list[BindingType]] = [Binding("space", "select", "choose", show=False)]
 
     class Chosen(Message):
         def __init__(self, choice_list: ChoiceList, value: str | None) -> None:

@@ -22,7 +22,7 @@ class ConfirmQuit(ModalScreen[bool]):
 
     BINDINGS: ClassVar[list[BindingType]] = [
         Binding("y", "answer(True)", "quit, keep the draft"),
-        Binding("n,escape", "answer(False)", "stay"),
+        Binding("escape", "answer(False)", "stay", key_display="esc"),
     ]
 
     def __init__(self, case_id: str, other_drafts: list[str] | None = None) -> None:

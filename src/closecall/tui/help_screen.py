@@ -86,7 +86,8 @@ MEANINGS = [
 def _keys_of(title: str, bindings: list[BindingType]) -> Text:
     """One line per binding, each key written once (the first binding of a key wins)."""
     text = Text()
-    text.append(f"{title}\n", "bold")
+    if title:
+        text.append(f"{title}\n", "bold")
     seen: set[str] = set()
     for b in bindings:
         if not isinstance(b, Binding) or not b.description:
@@ -101,20 +102,43 @@ def _keys_of(title: str, bindings: list[BindingType]) -> Text:
     return text
 
 
-def help_text(model_names: list[str], lens_names: list[str], reference: str) -> Text:
-    """The help page as one text (also used by docs and tests)."""
+def screen_keys() -> list[tuple[type, str, list[BindingType]]]:
+    """Every screen with keys: its class, its name in the help, its bindings (in help order)."""
     from closecall.tui.case_list import CaseList
     from closecall.tui.case_screen import CaseScreen
     from closecall.tui.decision_dialog import DecisionDialog
-    from closecall.tui.ledger_screen import LedgerScreen
+    from closecall.tui.ledger_screen import EntryScreen, LedgerScreen
+    from closecall.tui.model_screen import ModelScreen
     from closecall.tui.queue_screen import QueueScreen
 
+    return [
+        (QueueScreen, "Close-call list", [*QueueScreen.BINDINGS, *CaseList.BINDINGS]),
+        (CaseScreen, "Case", list(CaseScreen.BINDINGS)),
+        (DecisionDialog, "Decision", list(DecisionDialog.BINDINGS)),
+        (LedgerScreen, "Ledger", list(LedgerScreen.BINDINGS)),
+        (EntryScreen, "Ledger entry", list(EntryScreen.BINDINGS)),
+        (ModelScreen, "Model", list(ModelScreen.BINDINGS)),
+    ]
+
+
+def help_text(
+    model_names: list[str], lens_names: list[str], reference: str, here: type | None = None
+) -> Text:
+    """The help page as one text (also used by docs and tests).
+
+    ``here`` is the screen help was opened from: its keys come first, under "Keys here".
+    """
+    sections = screen_keys()
+    current = [s for s in sections if here is not None and issubclass(here, s[0])]
     text = Text()
-    text.append("Keys\n", "bold underline")
-    text.append(_keys_of("Close-call list", [*QueueScreen.BINDINGS, *CaseList.BINDINGS]))
-    text.append(_keys_of("Case", CaseScreen.BINDINGS))
-    text.append(_keys_of("Decision", DecisionDialog.BINDINGS))
-    text.append(_keys_of("Ledger", LedgerScreen.BINDINGS))
+    for _, name, bindings in current:
+        text.append(f"Keys here: {name}\n", "bold underline")
+        text.append(_keys_of("", bindings))
+        text.append("\n")
+    text.append("Keys\n" if not current else "Keys on the other screens\n", "bold underline")
+    for cls, name, bindings in sections:
+        if not current or cls is not current[0][0]:
+            text.append(_keys_of(name, bindings))
     text.append("Anywhere\n", "bold")
     text.append("  ^p           commands (every action by name)\n")
     text.append("  ^q           quit (asks first if a note is not recorded)\n\n")
@@ -152,14 +176,22 @@ class HelpScreen(Screen[None]):
     """Keys, meanings and cautions."""
 
     BINDINGS: ClassVar[list[BindingType]] = [
-        Binding("escape,q,question_mark", "back", "back", key_display="esc"),
+        Binding("escape", "back", "back", key_display="esc"),
+        Binding("question_mark,f1", "app.help", "help", key_display="?"),
         Binding("down,j", "scroll('down')", "down", show=False),
         Binding("up,k", "scroll('up')", "up", show=False),
     ]
 
-    def __init__(self, model_names: list[str], lens_names: list[str], reference: str) -> None:
+    def __init__(
+        self,
+        model_names: list[str],
+        lens_names: list[str],
+        reference: str,
+        here: type | None = None,
+    ) -> None:
         super().__init__()
-        self._text = help_text(model_names, lens_names, reference)
+        self.here = here
+        self._text = help_text(model_names, lens_names, reference, here)
 
     def compose(self) -> ComposeResult:
         yield Static(Text("Help ─ keys, meanings, cautions", style="bold"), id="title")

@@ -9,10 +9,10 @@ from __future__ import annotations
 from typing import ClassVar
 
 from rich.text import Text
-from textual import on, work
+from textual import events, on, work
 from textual.app import ComposeResult
 from textual.binding import Binding, BindingType
-from textual.containers import Horizontal
+from textual.containers import Horizontal, VerticalScroll
 from textual.screen import Screen
 from textual.timer import Timer
 from textual.widgets import DataTable, Input, Static
@@ -32,15 +32,22 @@ FILTER_PAUSE_SECONDS = 0.3
 TITLE_PATH_CELLS = 68  # fits the title line at 80 columns
 
 
+FILTER_PROMPT = {
+    "reviewer": "type a reviewer's login (exact) · ⏎ apply · esc back to the entries",
+    "case": "type a case id (exact) · ⏎ apply · esc back to the entries",
+}
+
+
 class LedgerScreen(Screen[None]):
-    """Ledger entries a page at a time, newest first; ``o``/``n`` page back and forth."""
+    """Ledger entries a page at a time, newest first; ``<``/``>`` page back and forth."""
 
     BINDINGS: ClassVar[list[BindingType]] = [
         Binding("escape", "back", "back", key_display="esc"),
-        Binding("r", "filter('reviewer')", "by reviewer"),
-        Binding("c", "filter('case')", "by case"),
-        Binding("o", "page('older')", "older"),
-        Binding("n", "page('newer')", "newer"),
+        Binding("enter", "open_entry", "full", key_display="⏎"),
+        Binding("w", "filter('reviewer')", "reviewer"),
+        Binding("slash", "filter('case')", "case", key_display="/"),
+        Binding("less_than_sign", "page('older')", "older", key_display="<"),
+        Binding("greater_than_sign", "page('newer')", "newer", key_display=">"),
         Binding("t", "page('newest')", "newest"),
         Binding("v", "verify", "verify"),
         Binding("question_mark,f1", "app.help", "help", key_display="?"),
@@ -56,6 +63,8 @@ class LedgerScreen(Screen[None]):
         self._wanted: list[int | None] = [None]
         self._generation = 0  # only the latest request's page is shown
         self._timer: Timer | None = None
+        self.shown: Entry | None = None  # the entry shown below the table
+        self.verified_once = False
 
     def compose(self) -> ComposeResult:
         where = str(self.session.config.review.ledger)
@@ -73,7 +82,9 @@ class LedgerScreen(Screen[None]):
             yield Static("", id="page", markup=False)
         table: DataTable[Text] = DataTable(id="entries", cursor_type="row", zebra_stripes=False)
         yield table
-        yield Static("", id="entry-detail", markup=False)
+        with VerticalScroll(id="entry-detail-box"):
+            yield Static("", id="entry-detail", markup=False)
+        yield Static("", id="status", markup=False)
         yield KeyBar(self.BINDINGS, id="keys")
 
     def on_mount(self) -> None:
@@ -155,28 +166,33 @@ class LedgerScreen(Screen[None]):
                 return
 
     def _show_entry(self, e: Entry) -> None:
-        margin = "—" if e.reference_margin is None else signed(e.reference_margin)
-        text = Text()
-        text.append(f"entry {e.seq}", "bold")
-        text.append(f" · {safe_text(e.case_id)} · {ACTION_WORD.get(e.action, e.action)}")
-        if e.reason:
-            text.append(f" ({safe_text(e.reason)})")
-        text.append(f" · by {safe_text(e.reviewer)} · {e.time[:19].replace('T', ' ')} UTC")
-        if e.supersedes is not None:
-            text.append(f" · corrects entry {e.supersedes}")
-        text.append(f"\nmodel {e.reference_model}: {e.reference_decision} {margin}")
-        text.append(f" · snapshot {e.snapshot_id[:12]}\n")
-        text.append(_preview(e.note, 400) or "(no note)")
-        text.append(f"\nhash {e.hash}")
-        self.query_one("#entry-detail", Static).update(text)
+        self.shown = e
+        self.query_one("#entry-detail", Static).update(entry_text(e))
+        self.query_one("#entry-detail-box", VerticalScroll).scroll_home(animate=False)
+
+    def action_open_entry(self) -> None:
+        """The entry under the cursor in full, on its own scrolling screen."""
+        if self.shown is not None:
+            self.app.push_screen(EntryScreen(self.shown))
+
+    @on(DataTable.RowSelected)
+    def _selected(self, event: DataTable.RowSelected) -> None:
+        event.stop()
+        self.action_open_entry()
 
     def _show_detail(self, message: str) -> None:
+        self.shown = None
         self.query_one("#entry-detail", Static).update(message)
+
+    def say(self, message: str) -> None:
+        self.query_one("#status", Static).update(message)
 
     # ------------------------------------------------------------------ chain
 
     def action_verify(self) -> None:
         self.query_one("#chain", Static).update("chain … checking")
+        if self.verified_once:  # the first check runs on opening; say when a later one ends
+            self.say("checking the chain again…")
         self._verify()
 
     @work(thread=True, exclusive=True, group="ledger-verify")
@@ -191,6 +207,10 @@ class LedgerScreen(Screen[None]):
 
     def _chain_text(self, text: str) -> None:
         self.query_one("#chain", Static).update(text)
+        if self.verified_once:
+            now = self.session.clock().strftime("%H:%M:%S")
+            self.say(f"chain checked again at {now} UTC: {text.split(' · ')[0]}")
+        self.verified_once = True
 
     # ------------------------------------------------------------------ keys
 
@@ -223,10 +243,76 @@ class LedgerScreen(Screen[None]):
     def action_filter(self, which: str) -> None:
         self.query_one(f"#by-{which}", Input).focus()
 
+    def on_descendant_focus(self, event: events.DescendantFocus) -> None:
+        """A filter field took the keys: say what to type and how to leave it."""
+        if isinstance(event.widget, Input):
+            which = "reviewer" if event.widget.id == "by-reviewer" else "case"
+            self.say(FILTER_PROMPT[which])
+
+    def on_descendant_blur(self, event: events.DescendantBlur) -> None:
+        if isinstance(event.widget, Input):
+            self.say("")
+
     def action_back(self) -> None:
         if isinstance(self.focused, Input):
             self.query_one("#entries", DataTable).focus()
             return
+        self.dismiss()
+
+
+def entry_text(e: Entry) -> Text:
+    """One entry in full: what, by whom, when, the model's view, the whole note, the hash."""
+    margin = "—" if e.reference_margin is None else signed(e.reference_margin)
+    text = Text()
+    text.append(f"entry {e.seq}", "bold")
+    text.append(f" · {safe_text(e.case_id)} · {ACTION_WORD.get(e.action, e.action)}")
+    if e.reason:
+        text.append(f" ({safe_text(e.reason)})")
+    text.append(f" · by {safe_text(e.reviewer)} · {e.time[:19].replace('T', ' ')} UTC")
+    if e.supersedes is not None:
+        text.append(f" · corrects entry {e.supersedes}")
+    text.append(f"\nmodel {e.reference_model}: {e.reference_decision} {margin}")
+    text.append(f" · snapshot {e.snapshot_id[:12]}\n")
+    note = safe_text(e.note.strip(), multiline=True)
+    text.append(note or "(no note)")
+    text.append(f"\nhash {e.hash}")
+    return text
+
+
+class EntryScreen(Screen[None]):
+    """One ledger entry in full (the whole note, wrapped); esc goes back."""
+
+    BINDINGS: ClassVar[list[BindingType]] = [
+        Binding("escape", "back", "back", key_display="esc"),
+        Binding("question_mark,f1", "app.help", "help", key_display="?"),
+        Binding("down,j", "scroll(1)", "scroll down", show=False),
+        Binding("up,k", "scroll(-1)", "scroll up", show=False),
+        Binding("pagedown,space", "page(1)", "page down", show=False),
+        Binding("pageup,b", "page(-1)", "page up", show=False),
+    ]
+
+    def __init__(self, entry: Entry) -> None:
+        super().__init__()
+        self.entry = entry
+
+    def compose(self) -> ComposeResult:
+        title = f"Ledger entry {self.entry.seq} ─ {safe_text(self.entry.case_id)}"
+        yield Static(Text(title, no_wrap=True, overflow="ellipsis"), id="title")
+        with VerticalScroll(id="entry-body"):
+            yield Static(entry_text(self.entry), id="entry-full", markup=False)
+        yield KeyBar(self.BINDINGS, id="keys")
+
+    def on_mount(self) -> None:
+        self.query_one("#entry-body").focus()
+
+    def action_scroll(self, step: int) -> None:
+        self.query_one("#entry-body", VerticalScroll).scroll_relative(y=step, animate=False)
+
+    def action_page(self, step: int) -> None:
+        body = self.query_one("#entry-body", VerticalScroll)
+        body.scroll_relative(y=step * max(1, body.size.height - 1), animate=False)
+
+    def action_back(self) -> None:
         self.dismiss()
 
 

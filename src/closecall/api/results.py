@@ -234,3 +234,64 @@ class LedgerEntries:
         return pd.DataFrame(
             {n: [getattr(e, n) for e in self.entries] for n in names}, columns=list(names)
         )
+
+
+@dataclass(frozen=True)
+class WhatIfResult:
+    """A what-if: a policy against the baseline (or a second policy), over the cases under
+    review (docs/whatif.md explains every figure).
+
+    Attributes
+    ----------
+    snapshot_id
+        The snapshot it was computed on.
+    baseline, policy
+        The two policies in words (``deployed``, ``deployed without heritage``…).
+    changed, to_favourable, to_unfavourable
+        How many decisions the policy changes, in all and by direction.
+    by_group
+        Per group level: ``cases``, ``changed``, ``to_favourable``, ``to_unfavourable``,
+        ``share`` of the group's cases changed with its Wilson interval.
+    case_ids
+        The changed cases' ids, in snapshot order.
+    data
+        Every figure, as ``closecall whatif --json`` gives it (rates and adverse impact ratios
+        per group with intervals, held-out error rates per group, notes).
+    """
+
+    snapshot_id: str
+    baseline: str
+    policy: str
+    changed: int
+    to_favourable: int
+    to_unfavourable: int
+    by_group: Mapping[str, Mapping[str, Any]]
+    case_ids: tuple[str, ...]
+    data: Mapping[str, Any] = field(repr=False)
+
+    def __len__(self) -> int:
+        return len(self.case_ids)
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready figures (as ``closecall whatif --json``).
+
+        Examples
+        --------
+        >>> study.whatif(drop=["heritage"]).to_dict()["total"]["changed"]  # doctest: +SKIP
+        """
+        return {"kind": "whatif", "snapshot": self.snapshot_id, **_plain(self.data)}
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per changed case: ``case_id``, ``group``, ``direction`` (``to favourable``
+        or ``to unfavourable``), ``baseline_margin`` and ``policy_margin`` (log-odds, > 0
+        favourable).
+
+        Examples
+        --------
+        >>> study.whatif(model="unaware").to_frame().groupby("group").size()  # doctest: +SKIP
+        """
+        import pandas as pd
+
+        names = ("case_id", "group", "direction", "baseline_margin", "policy_margin")
+        rows = self.data.get("changed_cases", [])
+        return pd.DataFrame({n: [r[n] for r in rows] for n in names}, columns=list(names))

@@ -6,11 +6,12 @@ the command line and the review screen use too, so all three give the same answe
 
 from __future__ import annotations
 
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING
 
-from closecall.api.results import Explanation, LedgerEntries, QueueResult, Report
+from closecall.api.results import Explanation, LedgerEntries, QueueResult, Report, WhatIfResult
 from closecall.core.errors import UserError
 from closecall.review.query import QueueQuery, answer_queue
 
@@ -296,6 +297,67 @@ class Study:
             raise UserError(f"confidence level {level} is not between 0 and 1", "pass e.g. 0.95")
         snap = self.opened.snapshot
         return Report("model", str(snap.id), model_weights(snap, level))
+
+    def whatif(
+        self,
+        *,
+        model: str | None = None,
+        lens: str | None = None,
+        drop: Sequence[str] = (),
+        group_thresholds: Mapping[str, float] | None = None,
+        against: str | None = None,
+        level: float = 0.95,
+    ) -> WhatIfResult:
+        """What a policy change would do to the cases under review, against the decision in
+        force (or against a second policy), by group: decisions changed by direction,
+        favourable rates and adverse impact ratios, held-out error rates, with intervals.
+
+        Parameters
+        ----------
+        model
+            A model of the suite or ``deployed`` (None: the model in force).
+        lens
+            A cost lens (None: the deployed card's cut-off, or the operative lens).
+        drop
+            Features whose weights in the deployed scorecard are set to zero.
+        group_thresholds
+            Group level → probability threshold for that group (the others keep the lens's).
+        against
+            A second policy in text form (``model=unaware;lens=cautious``) to compare with,
+            instead of the decision in force.
+        level
+            Confidence level of every interval.
+
+        Examples
+        --------
+        >>> result = study.whatif(drop=["heritage"])  # doctest: +SKIP
+        >>> result.by_group["Briar"]["to_favourable"]  # doctest: +SKIP
+        >>> result.to_frame().head()  # doctest: +SKIP
+        """
+        from closecall.analysis.whatif import Policy
+        from closecall.analysis.whatif_figures import figures_dict, whatif
+
+        policy = Policy(
+            model=model,
+            lens=lens,
+            drop=tuple(str(f) for f in drop),
+            group_thresholds=tuple((str(k), v) for k, v in (group_thresholds or {}).items()),
+        )
+        other = Policy.parse(against) if against is not None else None
+        snap = self.opened.snapshot
+        fig = whatif(self.opened, policy, other, level=level)
+        data = figures_dict(fig, snap.case_ids, snap.group_labels)
+        return WhatIfResult(
+            snapshot_id=str(snap.id),
+            baseline=fig.baseline.label,
+            policy=fig.policy.label,
+            changed=fig.total.changed,
+            to_favourable=fig.total.to_favourable,
+            to_unfavourable=fig.total.to_unfavourable,
+            by_group={c.group: data["changes"][i] for i, c in enumerate(fig.changes)},
+            case_ids=tuple(str(c) for c in snap.case_ids[fig.rows]),
+            data=data,
+        )
 
     def record(
         self,

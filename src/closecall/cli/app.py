@@ -49,6 +49,7 @@ COMMAND_MODULES = (
     "closecall.cli.reasons_cmds",
     "closecall.cli.model_cmds",
     "closecall.cli.team_cmds",
+    "closecall.cli.whatif_cmds",
 )
 # Which module holds each command: a command loads only its own module (and so only the
 # engine parts it needs), which keeps `closecall ledger verify` or `closecall review` quick to
@@ -71,6 +72,7 @@ COMMAND_HOME = {
     "model": "model_cmds",
     "keys": "team_cmds",
     "team": "team_cmds",
+    "whatif": "whatif_cmds",
 }
 _registered: set[str] = set()
 

@@ -99,6 +99,16 @@ class ReviewConfig:
 
 
 @dataclass(frozen=True)
+class DeployedConfig:
+    """[deployed]: the model in use as a scorecard (docs/scorecard.md)."""
+
+    scorecard: Path | None = None  # a CSV or TOML card; None: no card
+    #: SHA-256 of the card file's bytes when the config was read (a changed card changes the
+    #: snapshot id); None when the file could not be read (fitting then names the problem)
+    scorecard_digest: str | None = None
+
+
+@dataclass(frozen=True)
 class TeamConfig:
     """A team sharing the study on one server (docs/team.md)."""
 
@@ -123,6 +133,7 @@ class StudyConfig:
     multiplicity: MultiplicityConfig
     review: ReviewConfig
     team: TeamConfig = field(default_factory=TeamConfig)
+    deployed: DeployedConfig = field(default_factory=DeployedConfig)
 
     @property
     def root(self) -> Path:
@@ -147,6 +158,10 @@ class StudyConfig:
         # must not matter, so a copied or moved study keeps its snapshot id
         d["data"]["history"] = self.data.history.name
         d["data"]["pending"] = self.data.pending.name if self.data.pending else None
+        if self.deployed.scorecard is None:
+            d.pop("deployed")  # studies without a card keep their snapshot id
+        else:
+            d["deployed"]["scorecard"] = self.deployed.scorecard.name
         return hashlib.sha256(json.dumps(d, sort_keys=True, default=str).encode()).hexdigest()
 
 
@@ -189,6 +204,7 @@ _SCHEMA: dict[str, dict[str, type | tuple[type, ...]]] = {
         "claim_minutes": (int, float),
     },
     "team": {"keys": dict, "anchor": str},
+    "deployed": {"scorecard": str},
 }
 
 
@@ -473,10 +489,13 @@ def parse_config(raw: dict[str, Any], path: Path) -> StudyConfig:
             f"{path}: [model] reference = {toml_text(model.reference)}",
             "set reference to 'pooled' or 'deployed'",
         )
-    if model.reference == "deployed" and not data.deployed_score:
+    deployed = _deployed(path, raw, data)
+    if model.reference == "deployed" and not data.deployed_score and not deployed.scorecard:
         raise UserError(
-            f"{path}: [model] reference = 'deployed' but [data] names no deployed_score",
-            "add deployed_score = COLUMN under [data], or set reference = 'pooled'",
+            f"{path}: [model] reference = 'deployed' but [data] names no deployed_score and "
+            "[deployed] no scorecard",
+            "add deployed_score = COLUMN under [data] or scorecard = FILE under [deployed], "
+            "or set reference = 'pooled'",
         )
 
     lenses = _lenses(path, raw.get("lens", [{"name": "equal-costs"}]))
@@ -531,7 +550,37 @@ def parse_config(raw: dict[str, Any], path: Path) -> StudyConfig:
         multiplicity=multiplicity,
         review=review,
         team=team,
+        deployed=deployed,
     )
+
+
+def _deployed(path: Path, raw: dict[str, Any], data: DataConfig) -> DeployedConfig:
+    """[deployed] scorecard: the card's path and the SHA-256 of its bytes (docs/scorecard.md).
+
+    The card itself is read and checked against the data when the suite is fitted
+    (closecall.suite.scorecard.load_scorecard)."""
+    t = _table(path, raw, "deployed")
+    _check_keys(path, "deployed", t)
+    if "scorecard" not in t:
+        return DeployedConfig()
+    if not t["scorecard"].strip():
+        raise UserError(
+            f"{path}: [deployed] scorecard is empty",
+            "name the card file (CSV or TOML), or remove the key; see docs/scorecard.md",
+        )
+    if data.deployed_score:
+        raise UserError(
+            f"{path}: [deployed] scorecard and [data] deployed_score both name the model in "
+            "use; a study has one deployed model",
+            "keep the scorecard (closecall then computes its scores itself) or the score "
+            "column, not both",
+        )
+    card = path.parent / t["scorecard"]
+    try:
+        digest: str | None = hashlib.sha256(card.read_bytes()).hexdigest()
+    except OSError:
+        digest = None
+    return DeployedConfig(scorecard=card, scorecard_digest=digest)
 
 
 def _team(path: Path, raw: dict[str, Any]) -> TeamConfig:

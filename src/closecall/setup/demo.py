@@ -102,6 +102,56 @@ analysts = []
 """
 
 
+# The Harbourside Housing Renewal Office's published points card for the fast track (fictional,
+# our own): the deployed model as a scorecard (docs/scorecard.md). Its points follow the true
+# structure on the scale of 20 points to double the odds (500 points = odds 1:1), except for
+# the planted group weight: Briar households lose 18 points (≈ 0.62 in log-odds) although the
+# group has no true effect. It leaves household_size and zone out. docs/demo.md states its
+# true effect.
+DEMO_SCORECARD = """feature,level,low,high,points
+(intercept),,,,474
+(cutoff),,,,500
+(pdo),,,,20
+(anchor_points),,,,500
+(anchor_odds),,,,1
+household_income_k,,,25,-12
+household_income_k,,25,35,-5
+household_income_k,,35,45,0
+household_income_k,,45,60,8
+household_income_k,,60,,20
+quotes_obtained,,,1,0
+quotes_obtained,,1,2,10
+quotes_obtained,,2,3,20
+quotes_obtained,,3,,30
+dwelling_age,,,40,4
+dwelling_age,,40,80,0
+dwelling_age,,80,,-4
+dwelling_age,(missing),,,0
+prior_grant,yes,,,12
+prior_grant,no,,,0
+depot_distance_km,,,5,3
+depot_distance_km,,5,10,0
+depot_distance_km,,10,,-4
+self_funded_share,,,0.1,0
+self_funded_share,,0.1,0.2,4
+self_funded_share,,0.2,0.3,9
+self_funded_share,,0.3,0.4,15
+self_funded_share,,0.4,,21
+energy_label,A,,,0
+energy_label,B,,,0
+energy_label,C,,,0
+energy_label,D,,,0
+energy_label,E,,,-7
+energy_label,F,,,-7
+energy_label,G,,,-7
+heritage,Aster,,,0
+heritage,Briar,,,-18
+"""
+#: The card's planted group weight (points) and its scale (points to double the odds).
+SCORECARD_BRIAR_POINTS = -18
+SCORECARD_PDO = 20
+
+
 def generate(cases: int = 5000, seed: int = 7) -> tuple[pd.DataFrame, np.ndarray, np.ndarray]:
     """All applications, their true outcomes and their recorded (biased) outcomes."""
     if cases < 200:

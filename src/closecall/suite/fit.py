@@ -91,6 +91,9 @@ class SuiteResult:
     metrics: list[dict[str, Any]]
     notes: list[str] = field(default_factory=list)
     fit_flags: list[dict[str, Any]] = field(default_factory=list)  # see closecall.suite.fit_flags
+    #: the deployed scorecard's arrays and metadata (closecall.suite.scorecard_study)
+    card_arrays: dict[str, np.ndarray] = field(default_factory=dict)
+    card_meta: dict[str, Any] | None = None
 
 
 def _strata(y: np.ndarray, g: np.ndarray) -> np.ndarray:
@@ -625,6 +628,27 @@ def _fit_suite(config: StudyConfig, data: StudyData, progress: Progress) -> Suit
             oof_logit=dl if data.pending is None else np.full(len(y), np.nan),
             full_W=np.zeros((0, X.shape[1] + 1)),
         )
+    card_arrays: dict[str, np.ndarray] = {}
+    card_meta = None
+    if config.deployed.scorecard is not None:  # the model in use as a scorecard
+        from closecall.suite.scorecard_study import score_card
+
+        progress("scoring the deployed scorecard", 0, 1)
+        card = score_card(config, data, fold)
+        card_arrays, card_meta = card.arrays, card.meta
+        notes += card.notes
+        if card.logit is not None:
+            models["deployed"] = ModelScores(
+                name="deployed",
+                W=np.zeros((0, X.shape[1] + 1)),
+                row_of_case=np.full(len(ids), -1, dtype=np.int32),
+                objective=np.zeros(0),
+                n_train=np.zeros(0),
+                logit=card.logit,
+                quad=np.full(len(ids), np.nan),
+                oof_logit=card.oof_logit,
+                full_W=np.zeros((0, X.shape[1] + 1)),
+            )
     progress("held-out metrics", 0, 1)
     metrics = held_out_metrics(models, y, hg, levels, config)
     return SuiteResult(
@@ -645,6 +669,8 @@ def _fit_suite(config: StudyConfig, data: StudyData, progress: Progress) -> Suit
         metrics=metrics,
         notes=notes + checks.notes(),
         fit_flags=checks.flags,
+        card_arrays=card_arrays,
+        card_meta=card_meta,
     )
 
 

@@ -374,6 +374,7 @@ def build_snapshot(
         arrays[f"ntrain__{name}"] = ms.n_train
         arrays[f"oof__{name}"] = ms.oof_logit
         arrays[f"fullW__{name}"] = ms.full_W
+    arrays.update(suite.card_arrays)  # the deployed scorecard (closecall.suite.scorecard_study)
     reference = config.model.reference
     meta: dict[str, Any] = {
         "id": sid,
@@ -411,6 +412,8 @@ def build_snapshot(
         "notes": suite.notes,
         "fit_flags": suite.fit_flags,  # closecall.suite.fit.FitFlags (issue 10, item 4)
     }
+    if suite.card_meta is not None:
+        meta["deployed_card"] = suite.card_meta
     return Snapshot(sid, meta, arrays)
 
 

@@ -1,0 +1,128 @@
+"""The study's scorecard as the suite's deployed model: scores, held-out metrics per group,
+recalibration, what cannot be computed.
+
+Outside references: the points-to-double-odds scaling (common practice in credit scoring;
+Siddiqi, Credit Risk Scorecards, 2006 — from memory), scikit-learn's roc_auc_score and
+log_loss, statsmodels' Logit; the demo card's points are recomputed with plain pandas.
+"""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy.special import expit
+from sklearn.metrics import log_loss, roc_auc_score
+
+from closecall.setup.demo import DEMO_SCORECARD, write_demo
+from closecall.suite.opening import OpenedStudy, open_study
+from closecall.suite.scorecard_study import card_meta, deployed_card
+
+
+def card_study(folder: Path, card: str = DEMO_SCORECARD, *, cases: int = 1500) -> Path:
+    """A demo study whose deployed model is ``card`` (written as scorecard.csv)."""
+    config = write_demo(folder, cases=cases, seed=3)
+    (folder / "scorecard.csv").write_text(card)
+    text = config.read_text()
+    if 'deployed_score = "deployed_score"' in text:
+        text = text.replace('deployed_score = "deployed_score"', "")
+        text += '\n[deployed]\nscorecard = "scorecard.csv"\n'
+    config.write_text(text)
+    return config
+
+
+def demo_points(frame: pd.DataFrame) -> np.ndarray:
+    """The demo card's points recomputed with plain pandas/NumPy, row by row of the card."""
+    inc, q = frame["household_income_k"], frame["quotes_obtained"]
+    age, dist = frame["dwelling_age"], frame["depot_distance_km"]
+    share = frame["self_funded_share"]
+    return (
+        474
+        + np.select([inc < 25, inc < 35, inc < 45, inc < 60], [-12, -5, 0, 8], 20)
+        + np.select([q < 1, q < 2, q < 3], [0, 10, 20], 30)
+        + np.select([age.isna(), age < 40, age < 80], [0, 4, 0], -4)
+        + np.where(frame["prior_grant"] == "yes", 12, 0)
+        + np.select([dist < 5, dist < 10], [3, 0], -4)
+        + np.select([share < 0.1, share < 0.2, share < 0.3, share < 0.4], [0, 4, 9, 15], 21)
+        + np.where(frame["energy_label"].isin(["E", "F", "G"]), -7, 0)
+        + np.where(frame["heritage"] == "Briar", -18, 0)
+    ).astype(float)
+
+
+@pytest.fixture(scope="module")
+def study(tmp_path_factory: pytest.TempPathFactory) -> OpenedStudy:
+    return open_study(card_study(tmp_path_factory.mktemp("card")))
+
+
+def test_deployed_model_is_the_card_on_its_own_scale(study: OpenedStudy) -> None:
+    card = deployed_card(study)
+    assert card is not None and card.scaling == "card"
+    # factor = PDO / ln 2 and offset = anchor_points − factor·ln(anchor_odds) (common practice)
+    assert card.factor == pytest.approx(20 / math.log(2))
+    assert card.offset == pytest.approx(500.0)
+    pending = pd.read_csv(study.config.data.pending)  # type: ignore[arg-type]
+    rows = study.snapshot.rows_of(pending["application_id"].to_numpy())
+    points = demo_points(pending)
+    # ln(odds) = (points − 500) · ln 2 / 20: the odds double every 20 points, 1:1 at 500
+    np.testing.assert_allclose(
+        np.asarray(study.snapshot.logit("deployed"))[rows],
+        (points - 500) * math.log(2) / 20,
+        atol=1e-12,
+    )
+    stored = np.asarray(study.snapshot.arrays["card__points"])[rows]
+    np.testing.assert_array_equal(stored.sum(axis=1) + 474, points)
+
+
+def test_deployed_held_out_metrics_per_group(study: OpenedStudy) -> None:
+    history = pd.read_csv(study.config.data.history)
+    y = (history["completed"] == "yes").to_numpy().astype(int)
+    p = expit((demo_points(history) - 500) * math.log(2) / 20)
+    rows = {r["group"]: r for r in study.snapshot.metrics if r["model"] == "deployed"}
+    assert set(rows) == {"Aster", "Briar", "all"}
+    for group in ("Aster", "Briar"):
+        sel = (history["heritage"] == group).to_numpy()
+        # scikit-learn's roc_auc_score and log_loss on the card's own probabilities
+        assert rows[group]["auc"] == pytest.approx(roc_auc_score(y[sel], p[sel]), abs=1e-12)
+        assert rows[group]["log_loss"] == pytest.approx(log_loss(y[sel], p[sel]), rel=1e-9)
+        assert rows[group]["cases"] == int(sel.sum())
+        errors = ((p[sel] > 0.5) != (y[sel] == 1)).mean()
+        assert rows[group]["error_rate[equal-costs]"] == pytest.approx(errors)
+
+
+def test_card_without_scale_is_recalibrated_like_statsmodels(tmp_path: Path) -> None:
+    sm = pytest.importorskip("statsmodels.api")
+    text = "\n".join(
+        line for line in DEMO_SCORECARD.splitlines() if "(pdo)" not in line and "anchor" not in line
+    )
+    opened = open_study(card_study(tmp_path, text + "\n"))
+    card = deployed_card(opened)
+    assert card is not None and card.scaling == "recalibrated"
+    history = pd.read_csv(opened.config.data.history)
+    y = (history["completed"] == "yes").to_numpy().astype(int)
+    pts = demo_points(history)
+    a, b = sm.Logit(y, sm.add_constant(pts)).fit(disp=0).params
+    assert 1 / card.factor == pytest.approx(b, rel=1e-6)  # type: ignore[operator]
+    assert card.offset == pytest.approx(-a / b, rel=1e-6)
+    # held-out log-odds: each fold is scored by a recalibration on the other folds
+    fold = np.asarray(opened.snapshot.arrays["fold"])
+    oof = np.asarray(opened.snapshot.arrays["oof__deployed"])
+    for k in (0, 3):
+        train = fold != k
+        a_k, b_k = sm.Logit(y[train], sm.add_constant(pts[train])).fit(disp=0).params
+        np.testing.assert_allclose(oof[~train], a_k + b_k * pts[~train], rtol=1e-6)
+    assert any("recalibrated" in n for n in opened.snapshot.meta["notes"])
+
+
+def test_what_cannot_be_computed_is_said(tmp_path: Path) -> None:
+    # the pending file's deployed_score column is not in the history: the card scores the
+    # pending cases, but cannot be checked against recorded outcomes
+    text = DEMO_SCORECARD + "deployed_score,,,0.5,-5\ndeployed_score,,0.5,,5\n"
+    opened = open_study(card_study(tmp_path, text))
+    meta = card_meta(opened.snapshot)
+    assert meta is not None
+    assert any("held-out metrics" in c and "deployed_score" in c for c in meta["cannot"])
+    assert not [r for r in opened.snapshot.metrics if r["model"] == "deployed"]
+    assert "deployed" in opened.snapshot.model_names  # its own scale still gives log-odds

@@ -11,6 +11,7 @@ from pathlib import Path
 
 import pytest
 
+from closecall.cli.errors import error_lines
 from closecall.core.errors import UserError
 from closecall.core.vocabulary import CONFLICT, STATE_NAMES
 from closecall.review import decisions as reviews
@@ -60,7 +61,10 @@ def test_other_reviewers_decision_refuses_with_its_details(fresh, monkeypatch) -
     message = err.value.message
     assert f"entry {first.seq} by alice" in message and "uphold" in message
     assert "checked the file" in message and first.time[:10] in message
-    assert f"--supersedes {first.seq}" in (err.value.fix or "")
+    remedy = err.value.remedy  # the engine names its fields; the command line words them
+    assert remedy is not None and (remedy.field, remedy.value) == ("supersedes", str(first.seq))
+    assert f"--supersedes {first.seq}" in (error_lines(err.value)[1] or "")
+    assert "--second-opinion" in (error_lines(err.value)[1] or "")
     assert [e.seq for e in err.value.others] == [first.seq]
     assert last_seq(fresh.config) == 1  # nothing recorded
     # the same reviewer correcting themself is not a collision

@@ -22,6 +22,8 @@ import numpy as np
 import pytest
 from hostile_helpers import assert_refused, assert_unchanged, copy_study, study_digests
 
+from closecall.cli.errors import error_lines
+
 Damage = Callable[[Path, Path], None]  # (snapshot folder, study folder)
 
 DIGESTS = ".closecall/digests.json"  # rewritten by any command that hashes the data afresh
@@ -539,7 +541,8 @@ def test_a_snapshot_edited_after_opening_is_not_recorded_from(study_dir: Path) -
     flip_a_byte(folder, study_dir)
     with pytest.raises(UserError, match=r"logit__pooled\.npy") as err:
         record_review(study, case, "uphold", None, "seen")
-    assert "closecall fit --refit" in str(err.value)
+    assert err.value.remedy is not None and err.value.remedy.field == "refit"  # engine words
+    assert "closecall fit --refit" in (error_lines(err.value)[1] or "")  # the command line's
     with open_ledger(study.config.review.ledger, readonly=True) as ledger:
         assert ledger.count() == 2
     damaged = f".closecall/snapshots/{folder.name}/logit__pooled.npy"

@@ -97,23 +97,6 @@ def test_the_review_screens_no_longer_rewrite_engine_text() -> None:
         assert "--note" not in path.read_text(encoding="utf-8"), path
 
 
-#: Engine modules whose messages still name a flag or a command with options, left for later
-#: (each names a file or a command to run, not a parameter; see the issue-13 report).
-PENDING = {
-    "setup/output_files.py",
-    "setup/config.py",
-    "suite/snapshot.py",
-    "suite/opening.py",
-    "review/conflicts.py",
-    "review/ledger/verify.py",
-    "review/ledger/pg_store.py",
-    "reports/export.py",
-    "reports/disparity/periods.py",
-    "reports/disparity/errors_by_group.py",
-    "reports/disparity/conditional.py",
-}
-
-
 def _message_strings(path: Path) -> list[tuple[int, str]]:
     tree = ast.parse(path.read_text(encoding="utf-8"))
     docstrings = {
@@ -138,9 +121,83 @@ def test_engine_messages_name_no_flags() -> None:
     for package in ("core", "setup", "suite", "analysis", "review", "reports"):
         for path in sorted((ENGINE / package).rglob("*.py")):
             rel = str(path.relative_to(ENGINE))
-            if rel in PENDING:
-                continue
             for line, text in _message_strings(path):
                 if FLAG.search(text):
                     found.append(f"{rel}:{line}: {text[:60]!r}")
     assert found == []
+
+
+class TestFixesThatMovedIntoTheViews:
+    """Messages that used to name flags in the engine: the engine names fields, views word them."""
+
+    def test_a_damaged_snapshot_asks_for_a_refit_in_each_views_words(self, study_dir: Path) -> None:
+        from closecall.cli.errors import error_lines
+        from closecall.suite.opening import refit_fix
+
+        config = open_study(study_dir / "closecall.toml").config
+        exc = UserError("snapshot x: damaged", refit_fix(config))
+        _no_flag(exc)
+        assert exc.fix is not None and "fit(refit=True)" in exc.fix
+        cli_fix = error_lines(exc)[1] or ""
+        assert f"run 'closecall fit --refit --config {config.path}'" in cli_fix
+        assert "leave the review screen" in (fix_text(exc) or "")
+
+    @pytest.mark.parametrize("kind", ["exists", "study file", "folder"])
+    def test_an_output_path_names_the_field(self, study_dir: Path, kind: str) -> None:
+        from closecall.cli.errors import error_lines
+        from closecall.setup.output_files import check_output, study_files
+
+        config = open_study(study_dir / "closecall.toml").config
+        target = {
+            "exists": study_dir / "out.csv",
+            "study file": config.path,
+            "folder": study_dir,
+        }[kind]
+        if kind == "exists":
+            target.write_text("x\n")
+        with pytest.raises(UserError) as caught:
+            check_output(target, study_files(config), field="out")
+        _no_flag(caught.value)
+        message, fix = error_lines(caught.value)
+        assert message.startswith("--out: ")
+        if kind == "exists":
+            assert fix == "pass --force to replace it; or give --out a new file"
+
+    def test_a_second_opinion_that_also_replaces_is_refused_in_fields(
+        self, study_dir: Path
+    ) -> None:
+        from closecall.cli.errors import error_lines
+        from closecall.review.conflicts import check_no_collision
+
+        config = open_study(study_dir / "closecall.toml").config
+
+        with pytest.raises(UserError) as caught:
+            check_no_collision(config, "A", "alice", supersedes=3, second_opinion=True)
+        _no_flag(caught.value)
+        assert error_lines(caught.value)[1] == (
+            "pass --supersedes 3 alone to replace entry 3; "
+            "or pass --second-opinion alone to stand beside it"
+        )
+
+    def test_a_period_unit_names_the_field(self) -> None:
+        from closecall.cli.errors import error_lines
+        from closecall.reports.disparity.periods import check_period
+
+        with pytest.raises(UserError) as caught:
+            check_period("week")
+        _no_flag(caught.value)
+        assert error_lines(caught.value) == (
+            "--period: 'week' is not a period unit",
+            "give --period one of: month, quarter",
+        )
+
+    def test_an_empty_ledger_is_allowed_through_a_structured_fix(self, tmp_path: Path) -> None:
+        from closecall.cli.errors import fix_words
+        from closecall.review.ledger.verify import verify_file
+
+        result = verify_file(tmp_path / "none.sqlite")
+        assert result.problem is not None and result.problem.remedy is not None
+        assert not FLAG.search(result.problem.message)
+        assert fix_words(result.problem.remedy) == (
+            "pass --allow-empty if the study has no reviews yet"
+        )

@@ -327,7 +327,7 @@ def disparity(
     if key_file is not None:  # before anything is fitted or created
         check_key_file(key_file, study_files(cfg, outcomes=outcomes))
     if html is not None:
-        check_output(html, protected, option="--html", force=force, example="disparity.html")
+        check_output(html, protected, field="html", force=force, example="disparity.html")
     study = load(config, quiet=as_json)
     report = study_report(
         study,
@@ -343,7 +343,7 @@ def disparity(
             html,
             render_html(report).encode("utf-8"),
             protected,
-            option="--html",
+            field="html",
             force=force,
             example="disparity.html",
         )

@@ -10,6 +10,7 @@ from typing import TYPE_CHECKING
 import typer
 
 from closecall.cli.common import ConfigOption, load
+from closecall.cli.errors import fix_words
 from closecall.cli.output import err_console
 from closecall.core.errors import UserError
 from closecall.core.text import escape_text_cells, json_safe, safe_text
@@ -87,7 +88,7 @@ def export(
     if key_file is not None:  # before anything is fitted or created
         check_key_file(key_file, study_files(cfg))
     if out is not None:
-        check_output(out, protected, option="--out", force=force, example=f"reviews.{fmt.value}")
+        check_output(out, protected, field="out", force=force, example=f"reviews.{fmt.value}")
     if fmt is ExportFormat.parquet and out is None and sys.stdout.isatty():
         raise UserError("Parquet is binary and will not be printed", "add --out FILE.parquet")
     study = load(config, quiet=True)
@@ -107,6 +108,8 @@ def export(
         )
     for warning in result.warnings:
         err_console.print(f"note: {safe_text(warning)}", markup=False)
+    for advice in result.advice:
+        err_console.print(f"  fix: {fix_words(advice)}", markup=False)
     table = spreadsheet_safe(result.table) if spreadsheet else result.table
     what = "entries" if all_entries else "effective reviews"
     if out is None:

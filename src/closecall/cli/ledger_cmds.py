@@ -13,6 +13,7 @@ from rich.text import Text
 
 from closecall.api.study import Study
 from closecall.cli.common import ConfigOption, FormatOption, JsonOption, load, resolve_format
+from closecall.cli.errors import fix_words
 from closecall.cli.output import Format, console, emit_json, emit_rows
 from closecall.core.text import safe_text
 
@@ -278,6 +279,8 @@ def verify(
             _print(f"ledger {where}: NOT VERIFIED")
         for problem in result.problems:  # may quote tampered values: escape them
             _print(f"  {safe_text(problem.message)}")
+            if problem.remedy is not None:
+                _print(f"  fix: {fix_words(problem.remedy)}")
         if result.entries:
             _print(_authorship_line(result))
         _print(f"head {result.head_seq} {safe_text(str(result.head_hash))}")

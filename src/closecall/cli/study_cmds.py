@@ -59,7 +59,7 @@ def init(
             out,
             inf.text.encode("utf-8"),
             inputs,
-            option="--out",
+            field="out",
             force=force,
             mode=0o666,
             example=CONFIG_NAME,

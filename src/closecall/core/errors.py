@@ -28,6 +28,18 @@ class Fix:
         One valid value.
     hint
         Further advice that names no control.
+    switch
+        The field is on or off and the fix is to turn it on (``force``, ``allow_empty``).
+    value
+        The one value to give it (``supersedes`` ``3``).
+    command
+        The study step that takes the field, when the fix is to run it again (``fit``).
+    config
+        The study config that step runs on, when the view needs to name it.
+    purpose
+        What the change does, worded after it (``to replace it``).
+    alternative
+        Another way out, worded after this one (``or …``).
     """
 
     field: str
@@ -35,24 +47,53 @@ class Fix:
     range: str | None = None
     example: str | None = None
     hint: str | None = None
+    switch: bool = False
+    value: str | None = None
+    command: str | None = None
+    config: str | None = None
+    purpose: str | None = None
+    alternative: Fix | None = None
 
-    def words(self, name: str | None = None) -> str:
-        """The fix in words, calling the field ``name`` (the engine's name by default).
+    def words(self, name_of: Callable[[str], str] | None = None) -> str:
+        """The fix in words, each field named by ``name_of`` (the engine's names by default).
+
+        A view words a step to run again (``command``) its own way; here it is the library call.
 
         Examples
         --------
-        >>> Fix("n_boot", range="a whole number ≥ 100", example="1000").words("--boot")
+        >>> Fix("n_boot", range="a whole number ≥ 100", example="1000").words(lambda f: "--boot")
         'give --boot a whole number ≥ 100, e.g. 1000'
+        >>> Fix("force", switch=True, purpose="to replace it").words()
+        'pass force=True to replace it'
+        >>> Fix("refit", switch=True, command="fit").words()
+        'call Study.fit(refit=True)'
         """
-        label = name or self.field
-        if self.allowed:
+        label = name_of(self.field) if name_of else self.field
+        if self.command:
+            setting = f"{self.field}=True" if self.switch else ""
+            study = f"Study.open({self.config!r})" if self.config else "Study"
+            text = f"call {study}.{self.command}({setting})"
+        elif self.switch:
+            text = f"pass {label}" if name_of else f"pass {self.field}=True"
+        elif self.value is not None:
+            text = f"pass {label} {self.value}" if name_of else f"pass {self.field}={self.value}"
+        elif self.allowed:
             text = f"give {label} one of: {', '.join(self.allowed)}"
         elif self.range:
             text = f"give {label} {self.range}"
         else:
             text = f"give {label}"
+        return self.finish(text, lambda alt: alt.words(name_of))
+
+    def finish(self, text: str, word_alternative: Callable[[Fix], str]) -> str:
+        """``text`` (the change, worded by a view) followed by the example, purpose, hint and
+        the alternative (worded by ``word_alternative``)."""
         if self.example:
             text += f", e.g. {self.example}"
+        if self.purpose:
+            text += f" {self.purpose}"
+        if self.alternative is not None:
+            text += f"; or {word_alternative(self.alternative)}"
         if self.hint:
             text += f"; {self.hint}"
         return text
@@ -92,7 +133,7 @@ class UserError(Exception):
         """The fix, with its field named by ``name_of`` (engine names by default)."""
         if self.remedy is None:
             return self.fix
-        return self.remedy.words(name_of(self.remedy.field) if name_of else None)
+        return self.remedy.words(name_of)
 
     def __str__(self) -> str:
         return self.message if not self.fix else f"{self.message}\n  fix: {self.fix}"

@@ -182,6 +182,8 @@ class ExportResult:
     key_file: Path | None
     key_created: bool
     warnings: tuple[str, ...]
+    #: what the user may do about the warnings, for each view to word
+    advice: tuple[Fix, ...] = ()
 
 
 def review_frame(
@@ -267,6 +269,7 @@ def export_reviews(
         )
     table = review_frame(study, entries, all_entries=all_entries)
     warnings: list[str] = []
+    advice: list[Fix] = []
     unknown = int(table["group"].isna().sum())
     if unknown:
         warnings.append(
@@ -284,16 +287,15 @@ def export_reviews(
             table["reviewer"] = pseudonymise(table["reviewer"], key, "reviewer")
         table = table.drop(columns=list(HASH_COLUMNS))
         if notes:
-            warnings.append(
-                "notes are exported as typed and may name people or cases; "
-                "add --no-notes to leave them out"
-            )
+            warnings.append("notes are exported as typed and may name people or cases")
+            advice.append(Fix("notes", value="False", purpose="to leave them out"))
     return ExportResult(
         table=table,
         entries=len(entries),
         key_file=key_path,
         key_created=created,
         warnings=tuple(warnings),
+        advice=tuple(advice),
     )
 
 

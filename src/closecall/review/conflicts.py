@@ -17,7 +17,7 @@ from collections.abc import Sequence
 import numpy as np
 import pandas as pd
 
-from closecall.core.errors import UserError
+from closecall.core.errors import Fix, UserError
 from closecall.review.ledger import Entry, NoLedger, open_ledger
 from closecall.setup.config import StudyConfig
 
@@ -35,8 +35,13 @@ class ConflictingDecision(UserError):
         first = self.others[0].seq
         super().__init__(
             f"case '{case_id}' already has a decision by another reviewer: {told}",
-            f"to replace it, record again with --supersedes {first}; to add yours beside it, "
-            "with --second-opinion; otherwise leave the case as it is",
+            Fix(
+                "supersedes",
+                value=str(first),
+                purpose="to replace it",
+                alternative=Fix("second_opinion", switch=True, purpose="to add yours beside it"),
+                hint="otherwise leave the case as it is",
+            ),
         )
 
 
@@ -96,8 +101,13 @@ def check_no_collision(
     """
     if second_opinion and supersedes is not None:
         raise UserError(
-            f"--supersedes {supersedes} and --second-opinion contradict each other",
-            "give --supersedes N to replace entry N, or --second-opinion to stand beside it",
+            f"replacing entry {supersedes} and a second opinion beside it contradict each other",
+            Fix(
+                "supersedes",
+                value=str(supersedes),
+                purpose=f"alone to replace entry {supersedes}",
+                alternative=Fix("second_opinion", switch=True, purpose="alone to stand beside it"),
+            ),
         )
     if second_opinion:
         return

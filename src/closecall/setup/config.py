@@ -17,7 +17,7 @@ from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any
 
-from closecall.core.errors import UserError
+from closecall.core.errors import Fix, UserError
 
 CONFIG_NAME = "closecall.toml"
 
@@ -398,7 +398,11 @@ def load_config(path: str | Path) -> StudyConfig:
     if not path.exists():
         raise UserError(
             f"{path}: no study config here",
-            "run 'closecall init DATA' to write one, or pass --config PATH",
+            Fix(
+                "config",
+                range="the path of a study config",
+                hint="to write one, run 'closecall init DATA'",
+            ),
         )
     try:
         raw = tomllib.loads(path.read_text(encoding="utf-8"))

@@ -24,7 +24,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING
 
-from closecall.core.errors import UserError
+from closecall.core.errors import Fix, UserError
 
 if TYPE_CHECKING:
     from closecall.setup.config import StudyConfig
@@ -197,13 +197,15 @@ def check_output(
     path: str | Path,
     protected: Sequence[StudyFile],
     *,
-    option: str,
+    field: str,
     force: bool = False,
     example: str = "reviews.csv",
     may_replace: tuple[str, ...] = (),
 ) -> Path:
     """Refuse an output path that would overwrite a study file, a folder, or (without
     ``force``) any existing file; return the real path to write.
+
+    ``field`` is the engine's name of the output (``out``, ``html``): each view words it.
 
     Raises
     ------
@@ -214,35 +216,42 @@ def check_output(
     reason = protected_reason(path, protected, may_replace=may_replace)
     if reason is not None:
         raise UserError(
-            f"{option} {path}: {reason}; writing there would destroy it",
-            f"name a new file for {option}, e.g. {option} {example}",
+            f"{path}: {reason}; writing there would destroy it",
+            Fix(field, range="a new file", example=example),
+            about=field,
         )
     real = _real(path)
     if real.is_dir():
-        raise UserError(f"{option} {path}: is a folder", f"name a file for {option}")
+        raise UserError(f"{path}: is a folder", Fix(field, range="a file"), about=field)
     if real.exists() and not force:
-        raise UserError(
-            f"{option} {path}: already exists",
-            "pass --force to replace it, or name a new file",
-        )
+        raise UserError(f"{path}: already exists", _replace_fix(field), about=field)
     if not real.parent.is_dir():
         raise UserError(
-            f"{option} {path}: the folder {real.parent} does not exist",
+            f"{path}: the folder {real.parent} does not exist",
             "create the folder first, or name a file in an existing folder",
+            about=field,
         )
     return real
 
 
+def _replace_fix(field: str) -> Fix:
+    """The fix for an output file that exists: replace it, or name another."""
+    return Fix(
+        "force", switch=True, purpose="to replace it", alternative=Fix(field, range="a new file")
+    )
+
+
 def check_key_file(
-    path: str | Path, protected: Sequence[StudyFile], *, option: str = "--pseudonymise"
+    path: str | Path, protected: Sequence[StudyFile], *, field: str = "key_file"
 ) -> Path:
     """Refuse a key file path that is one of the study's files (an existing key is fine)."""
     path = Path(path)
     reason = protected_reason(path, protected)
     if reason is not None:
         raise UserError(
-            f"{option} {path}: {reason}; it cannot hold the pseudonymisation key",
-            f"name a key file outside the study's files, e.g. {option} ~/.closecall-key",
+            f"{path}: {reason}; it cannot hold the pseudonymisation key",
+            Fix(field, range="a key file outside the study's files", example="~/.closecall-key"),
+            about=field,
         )
     return _real(path)
 
@@ -252,7 +261,7 @@ def write_output(
     data: bytes,
     protected: Sequence[StudyFile],
     *,
-    option: str,
+    field: str,
     force: bool = False,
     mode: int = OWNER_ONLY,
     example: str = "reviews.csv",
@@ -272,7 +281,7 @@ def write_output(
         The path is refused, or the file system refuses the write.
     """
     real = check_output(
-        path, protected, option=option, force=force, example=example, may_replace=may_replace
+        path, protected, field=field, force=force, example=example, may_replace=may_replace
     )
     tmp = real.with_name(f".{real.name}.{secrets.token_hex(6)}.tmp")
     try:
@@ -284,12 +293,13 @@ def write_output(
         if force:
             os.replace(tmp, real)
         else:
-            _link_new(tmp, real, option, path)
+            _link_new(tmp, real, field, path)
         _sync_folder(real.parent)
     except OSError as exc:
         raise UserError(
-            f"{option} {path}: cannot write the file ({exc.strerror})",
+            f"{path}: cannot write the file ({exc.strerror})",
             "check the folder exists and you may write there, or name another file",
+            about=field,
         ) from None
     finally:
         with contextlib.suppress(FileNotFoundError):
@@ -297,20 +307,15 @@ def write_output(
     return real
 
 
-def _link_new(tmp: Path, real: Path, option: str, path: str | Path) -> None:
+def _link_new(tmp: Path, real: Path, field: str, path: str | Path) -> None:
     """Put ``tmp`` in place at ``real`` only if nothing is there (atomic where links exist)."""
     try:
         os.link(tmp, real)
     except FileExistsError:
-        raise UserError(
-            f"{option} {path}: already exists", "pass --force to replace it, or name a new file"
-        ) from None
+        raise UserError(f"{path}: already exists", _replace_fix(field), about=field) from None
     except OSError:  # no hard links on this file system: rename if still absent
         if real.exists():
-            raise UserError(
-                f"{option} {path}: already exists",
-                "pass --force to replace it, or name a new file",
-            ) from None
+            raise UserError(f"{path}: already exists", _replace_fix(field), about=field) from None
         os.rename(tmp, real)
 
 
@@ -332,7 +337,7 @@ def check_config_output(path: str | Path, inputs: Sequence[StudyFile], *, force:
     """Where ``closecall init`` may write its draft: a new file, or with ``force`` an earlier
     config (a file that reads as TOML) — never a data file, a ledger or a snapshot."""
     real = check_output(
-        path, inputs, option="--out", force=force, example=CONFIG_EXAMPLE, may_replace=("config",)
+        path, inputs, field="out", force=force, example=CONFIG_EXAMPLE, may_replace=("config",)
     )
     if real.exists():
         import tomllib
@@ -341,9 +346,10 @@ def check_config_output(path: str | Path, inputs: Sequence[StudyFile], *, force:
             tomllib.loads(real.read_text(encoding="utf-8"))
         except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError):
             raise UserError(
-                f"--out {path}: is not a study config (it does not read as TOML); --force "
-                "replaces only an earlier config",
-                f"name a new file for --out, e.g. --out {CONFIG_EXAMPLE}",
+                f"{path}: is not a study config (it does not read as TOML); only an earlier "
+                "config may be replaced",
+                Fix("out", range="a new file", example=CONFIG_EXAMPLE),
+                about="out",
             ) from None
     return real
 
@@ -359,20 +365,21 @@ def check_demo_folder(folder: str | Path) -> Path:
     """
     folder = Path(folder)
     real = _real(folder)
-    fix = "name a new or empty folder for --out, e.g. --out demo-study-2"
+    fix = Fix("out", range="a new or empty folder", example="demo-study-2")
     if real.exists() and not real.is_dir():
-        raise UserError(f"--out {folder}: is a file, not a folder", fix)
+        raise UserError(f"{folder}: is a file, not a folder", fix, about="out")
     reason = protected_reason(real, ())
     if reason is not None:  # a folder named like a file of the study next to it
-        raise UserError(f"--out {folder}: {reason}", fix)
+        raise UserError(f"{folder}: {reason}", fix, about="out")
     if not real.is_dir():
         return real
     held = [n for n in (*DEMO_FILES, WORKDIR_NAME) if (real / n).exists()]
     held += sorted(p.name for p in real.glob("*.sqlite") if p.is_file())
     if held:
         raise UserError(
-            f"--out {folder}: already holds a study ({', '.join(held)}); "
+            f"{folder}: already holds a study ({', '.join(held)}); "
             "writing the demo there would replace its files",
             fix,
+            about="out",
         )
     return real

@@ -3,9 +3,10 @@
 from __future__ import annotations
 
 import os
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
+from closecall.core.errors import Fix
 from closecall.core.progress import Progress, quiet
 from closecall.setup.config import StudyConfig, load_config
 from closecall.suite.snapshot import (
@@ -29,11 +30,9 @@ class OpenedStudy:
     fitted_now: bool = False
 
 
-def refit_fix(config: StudyConfig) -> str:
-    """The fix for a damaged snapshot of this study: the refit command, with its config."""
-    if config.path.name == "closecall.toml" and config.path.parent.resolve() == Path.cwd():
-        return REFIT_FIX
-    return REFIT_FIX.replace("--refit'", f"--refit --config {config.path}'")
+def refit_fix(config: StudyConfig) -> Fix:
+    """The fix for a damaged snapshot of this study: fit it again, with its config."""
+    return replace(REFIT_FIX, config=str(config.path))
 
 
 def fit_study(
@@ -60,7 +59,7 @@ def fit_study(
     Raises
     ------
     UserError
-        A damaged, edited or foreign cached snapshot (the fix: ``closecall fit --refit``),
+        A damaged, edited or foreign cached snapshot (the fix: fit again with ``refit``),
         and every data and config problem.
     """
     progress("hashing data", 0, 1)

@@ -8,7 +8,8 @@ and memory-mapped, so opening a large snapshot is quick.
 The cache is evidence, so it is checked: meta.json carries an integrity table (byte size,
 SHA-256, dtype and shape of every array file, and the SHA-256 of meta.json's own content), and
 loading refuses a snapshot that is damaged, edited, incomplete, foreign or of another format,
-with the fix ``closecall fit --refit`` (which rebuilds it without reading it).
+with the fix :data:`REFIT_FIX` (fit again with ``refit``, which rebuilds it without
+reading it: ``closecall fit --refit`` on the command line).
 
 The id hashes the data files' bytes, the study config (the parts that change the fit) and the
 package version: a changed input gives a new id, an unchanged one reuses the cache.
@@ -33,7 +34,7 @@ import numpy as np
 from scipy.special import logit
 
 from closecall import __version__
-from closecall.core.errors import UserError
+from closecall.core.errors import Fix, UserError
 from closecall.core.shared import permission_error, share_dir
 from closecall.core.vocabulary import decision_word
 from closecall.setup.config import CostLens, StudyConfig
@@ -54,7 +55,13 @@ SNAPSHOT_FORMAT = 3
 _BLOCK = 1 << 22  # read files in 4 MiB blocks when hashing
 _HEX64 = re.compile(r"^[0-9a-f]{64}$")
 _MAX_META_BYTES = 64 << 20
-REFIT_FIX = "run 'closecall fit --refit' to rebuild it from the data (the ledger is not touched)"
+REFIT_FIX = Fix(
+    "refit",
+    switch=True,
+    command="fit",
+    purpose="to rebuild it from the data (the ledger is not touched)",
+)
+"""The fix for a damaged snapshot: fit again without reading it (each view words the step)."""
 
 
 def _sha256_file(path: Path) -> str:
@@ -705,14 +712,14 @@ def _check_arrays(folder: Path, table: dict[str, dict[str, Any]], bad: _Bad) -> 
             bad(f"{name}.npy does not match the SHA-256 recorded when it was written (damaged)")
 
 
-def _bad(folder: Path, fix: str) -> _Bad:
+def _bad(folder: Path, fix: Fix) -> _Bad:
     def bad(problem: str) -> NoReturn:
         raise SnapshotDamaged(f"snapshot {folder}: {problem}", fix)
 
     return bad
 
 
-def load_snapshot(folder: Path, *, fix: str = REFIT_FIX) -> Snapshot:
+def load_snapshot(folder: Path, *, fix: Fix = REFIT_FIX) -> Snapshot:
     """Load a snapshot folder after checking it; arrays memory-mapped read-only, never unpickled.
 
     Checked: meta.json is JSON of this format with the expected keys and types, names this
@@ -759,7 +766,7 @@ def load_snapshot(folder: Path, *, fix: str = REFIT_FIX) -> Snapshot:
     return Snapshot(str(meta["id"]), meta, arrays, folder=folder, file_state=before)
 
 
-def recheck_snapshot(snap: Snapshot, *, fix: str = REFIT_FIX) -> None:
+def recheck_snapshot(snap: Snapshot, *, fix: Fix = REFIT_FIX) -> None:
     """Refuse a snapshot whose files changed on disk since it was loaded (before recording).
 
     Its arrays are memory-mapped, so bytes written to them after loading would reach the

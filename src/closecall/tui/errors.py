@@ -27,6 +27,11 @@ def fix_text(exc: UserError) -> str | None:
         return f"{text}; {remedy.hint}" if remedy.hint else text
     if remedy.field == "note":
         return "write a note below" + (f" ({remedy.hint})" if remedy.hint else "")
+    if remedy.command:  # a step the screens do not take: the shell command, in plain words
+        flag = f" --{remedy.field.replace('_', '-')}" if remedy.switch else ""
+        config = f" --config {remedy.config}" if remedy.config else ""
+        text = f"leave the review screen and run 'closecall {remedy.command}{flag}{config}'"
+        return remedy.finish(text, lambda alt: alt.words(control))
     return exc.worded_fix(control)
 
 

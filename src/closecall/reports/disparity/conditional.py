@@ -284,7 +284,7 @@ def conditional_disparity(
             f"only {clusters} reviewer(s) in this risk set (fewer than {MIN_CLUSTERS}): too few "
             "to cluster on, so the intervals treat reviews as independent; if reviewers differ "
             "in how often they override, they are too narrow"
-            + ("; the cluster-robust figures are in --json" if cl_bse is not None else "")
+            + ("; the cluster-robust figures are in the JSON output" if cl_bse is not None else "")
         )
 
     def wald(j: int, se: float, crit: float) -> tuple[float, float]:

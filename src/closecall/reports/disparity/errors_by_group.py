@@ -8,7 +8,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from closecall.core.errors import UserError
+from closecall.core.errors import Fix, UserError
 from closecall.core.vocabulary import DECISIONS, FAVOURABLE
 from closecall.reports.disparity.heldout import RateGap, rate_gap
 from closecall.reports.disparity.intervals import proportion, wilson_interval
@@ -111,7 +111,10 @@ def error_rates(reviews: pd.DataFrame, *, level: float = 0.95) -> ErrorCompariso
     Q. McNemar, Psychometrika 12 (1947) 153-157 (model against final on the same cases).
     """
     if "outcome" not in reviews.columns:
-        raise UserError("review table: no outcome column", "join outcomes first (--outcomes FILE)")
+        raise UserError(
+            "review table: no outcome column",
+            Fix("outcomes", range="a file of known outcomes by case id", hint="joined first"),
+        )
     df = check_reviews(reviews)
     outcome = df["outcome"]
     bad = outcome.notna() & ~outcome.isin(DECISIONS)

@@ -14,7 +14,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from closecall.core.errors import UserError
+from closecall.core.errors import Fix, UserError
 from closecall.reports.disparity.contingency import IndependenceTest
 from closecall.reports.disparity.intervals import proportion, wilson_interval
 from closecall.reports.disparity.overrides import GroupOverrides, override_counts, override_tests
@@ -65,12 +65,11 @@ class PeriodReport:
     notes: tuple[str, ...]
 
 
-def check_period(unit: str, source: str = "--period") -> str:
-    """Validate a period unit."""
+def check_period(unit: str) -> str:
+    """Validate a period unit (the report's ``period``)."""
     if unit not in PERIODS:
         raise UserError(
-            f"{source} {unit!r}: not a period unit",
-            f"use one of: {', '.join(PERIODS)}",
+            f"{unit!r} is not a period unit", Fix("period", allowed=PERIODS), about="period"
         )
     return unit
 

@@ -32,6 +32,7 @@ from dataclasses import asdict, dataclass
 from pathlib import Path
 from typing import Any
 
+from closecall.core.errors import Fix
 from closecall.review.ledger.entry import GENESIS_HASH, entry_hash, signed_message
 from closecall.review.ledger.store import DamagedLedger, Ledger, NoLedger, open_ledger
 
@@ -52,6 +53,8 @@ class Problem:
     kind: str
     seq: int | None
     message: str
+    #: what to do about it, for each view to word (a missing or empty ledger: allow one)
+    remedy: Fix | None = None
 
 
 @dataclass(frozen=True)
@@ -266,7 +269,8 @@ def verify_chain(
     )
 
 
-_ALLOW = "pass --allow-empty if the study has no reviews yet"
+_ALLOW = "accept an empty ledger if the study has no reviews yet"
+_ALLOW_FIX = Fix("allow_empty", switch=True, purpose="if the study has no reviews yet")
 
 
 def _missing_file(path: Path) -> Problem:
@@ -276,6 +280,7 @@ def _missing_file(path: Path) -> Problem:
         f"there is no ledger file at {path}: it was deleted or moved, [review] ledger names "
         f"the wrong file, or no review was ever recorded. Restore it from a backup, correct "
         f"[review] ledger, or {_ALLOW}",
+        _ALLOW_FIX,
     )
 
 
@@ -286,6 +291,7 @@ def _empty_file(path: Path) -> Problem:
         f"the ledger file {path} is empty ({path.stat().st_size} bytes, no tables): closecall "
         f"never leaves a ledger like this, so it was emptied or made by hand. Restore it from "
         f"a backup, or {_ALLOW}",
+        _ALLOW_FIX,
     )
 
 
@@ -295,6 +301,7 @@ def _no_entries(path: Path) -> Problem:
         None,
         f"the ledger {path} holds no entries (none recorded yet, or all removed). Restore it "
         f"from a backup if reviews were recorded, or {_ALLOW}",
+        _ALLOW_FIX,
     )
 
 

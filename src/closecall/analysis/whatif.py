@@ -46,6 +46,7 @@ from closecall.core.vocabulary import MODEL_NAMES
 
 if TYPE_CHECKING:
     from closecall.suite.opening import OpenedStudy
+    from closecall.suite.scorecard import Scorecard
     from closecall.suite.snapshot import Snapshot
 
 DEPLOYED = "deployed"
@@ -57,22 +58,11 @@ def baseline_model(snap: Snapshot) -> str:
     return DEPLOYED if DEPLOYED in snap.model_names else snap.reference
 
 
-def _card(study: OpenedStudy) -> object | None:
+def _card(study: OpenedStudy) -> Scorecard | None:
     """The deployed scorecard of the study, when one is configured (None otherwise)."""
-    try:
-        from closecall.suite import scorecard
-    except ImportError:  # the scorecard import is not part of this version
-        return None
-    getter = getattr(scorecard, "deployed_card", None)
-    if getter is None:
-        try:
-            import importlib
+    from closecall.suite.scorecard_study import deployed_card
 
-            module = importlib.import_module("closecall.suite.scorecard_study")
-        except ImportError:
-            return None
-        getter = getattr(module, "deployed_card", None)
-    return None if getter is None else getter(study)
+    return deployed_card(study)
 
 
 def _check_model(snap: Snapshot, model: str) -> None:

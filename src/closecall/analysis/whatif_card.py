@@ -1,11 +1,17 @@
 """What-if policies on the deployed scorecard: its points with chosen weights set to zero.
 
-The card scores the raw values of the cases under review and of the history (it was not fitted
-to this history, so its scores of the history are held-out already). At its own cut-off a case
-is decided favourably iff its points (dropped features at 0) reach the cut-off; under a cost
-lens or a per-group threshold, the card's probability — its own points-to-odds scaling, or
-the logistic recalibration on the history when it has none (docs/scorecard.md) — is compared
-with the threshold.
+The snapshot keeps each case's points per card feature (closecall.suite.scorecard_study), for
+the cases under review and for the history; a policy that drops features adds up the other
+features' points and the intercept (one matrix-vector product, no reading of the data). At its
+own cut-off a case is decided favourably iff its points reach the cut-off (the card's rule);
+under a cost lens or a per-group threshold the card's probability — from its own points-to-odds
+scaling, or from the logistic recalibration on the history when it has none
+(docs/scorecard.md) — is compared with the threshold.
+
+The card was not fitted to the history, so its points there are held-out; its decisions at the
+cut-off are too. Under a lens, the undropped card's history scores are the snapshot's
+cross-fitted ones; with weights dropped they use the whole-history recalibration (a note says
+so).
 """
 
 from __future__ import annotations
@@ -20,25 +26,10 @@ from closecall.analysis.whatif_policy import Policy, PolicyScores
 from closecall.core.errors import Fix, UserError
 
 if TYPE_CHECKING:
-    import pandas as pd
-
     from closecall.suite.opening import OpenedStudy
 
-_FRAMES: dict[str, tuple[pd.DataFrame, pd.DataFrame]] = {}  # snapshot id -> (cases, history)
-
-
-def study_frames(study: OpenedStudy) -> tuple[pd.DataFrame, pd.DataFrame]:
-    """The raw values of the cases under review and of the history, in the snapshot's row
-    order (read once per snapshot)."""
-    sid = str(study.snapshot.id)
-    if sid not in _FRAMES:
-        from closecall.setup.load import load_study_data
-
-        data = load_study_data(study.config)
-        cases = data.history if data.pending is None else data.pending
-        _FRAMES.clear()  # one study's frames at a time
-        _FRAMES[sid] = (cases, data.history)
-    return _FRAMES[sid]
+POINTS = "card__points"
+HIST_POINTS = "card__hist_points"
 
 
 def _check_drop(card: Any, drop: tuple[str, ...]) -> None:
@@ -46,35 +37,53 @@ def _check_drop(card: Any, drop: tuple[str, ...]) -> None:
     for feature in drop:
         if feature not in known:
             raise UserError(
-                f"the deployed scorecard ({card.source}) gives no points for '{feature}', so "
-                "its weight cannot be set to zero",
+                f"the deployed scorecard ({card.source.name}) gives no points for '{feature}', "
+                "so its weight cannot be set to zero",
                 Fix("drop", allowed=known),
                 about="drop",
             )
 
 
+def card_totals(
+    study: OpenedStudy, card: Any, drop: tuple[str, ...]
+) -> tuple[np.ndarray, np.ndarray | None]:
+    """(points of every case under review, points of every history case or None when the
+    history lacks the card's columns), with the ``drop`` features' points at zero."""
+    snap = study.snapshot
+    keep = np.array([f not in drop for f in card.features], dtype=float)
+    M = np.asarray(snap.arrays[POINTS], dtype=float)
+    cases = card.intercept + M @ keep
+    if HIST_POINTS in snap.arrays:
+        H: np.ndarray | None = np.asarray(snap.arrays[HIST_POINTS], dtype=float)
+    elif snap.cross_fitted:
+        H = M  # the cases under review are the history
+    else:
+        H = None
+    return cases, (None if H is None else card.intercept + H @ keep)
+
+
 def card_policy_scores(study: OpenedStudy, card: Any, policy: Policy) -> PolicyScores:
     """The margins of a policy on the deployed scorecard (``policy.model`` is ``deployed``)."""
-    from closecall.suite.scorecard import absolute_logodds, card_points
+    from closecall.suite.scorecard import absolute_logodds
 
     _check_drop(card, policy.drop)
     snap = study.snapshot
-    cases, history = study_frames(study)
-    p_cases = card_points(card, cases, policy.drop)
-    p_hist = card_points(card, history, policy.drop)
-    y = np.asarray(snap.hist_y)
+    p_cases, p_hist = card_totals(study, card, policy.drop)
+    n_hist = len(snap.hist_y)
+    notes: list[str] = []
     if policy.lens is None and not policy.group_thresholds:
-        factor = float(card.factor) if card.factor else 1.0  # a positive scale keeps the sign
-        margin = (p_cases - card.cutoff) / factor
-        held = (p_hist - card.cutoff) / factor
+        scale = float(card.factor) if card.factor else 1.0  # positive: keeps the sign
+        margin = (p_cases - card.cutoff) / scale
+        held = np.full(n_hist, np.nan) if p_hist is None else (p_hist - card.cutoff) / scale
+        if not card.factor:
+            notes.append("the card has no log-odds scale: its margins are in points")
         at_zero = True
-        rule = "its own cut-off"
     else:
         if card.offset is None or card.factor is None:
             raise UserError(
-                f"the deployed scorecard ({card.source}) has no probability scale, so a cost "
-                "lens or a group threshold cannot be applied to it",
-                Fix("lens", hint="give the card its points-to-odds scaling (docs/scorecard.md)"),
+                f"the deployed scorecard ({card.source.name}) has no probability scale, so a "
+                "cost lens or a group threshold cannot be applied to it",
+                "give the card its points-to-odds scaling (pdo and an anchor; docs/scorecard.md)",
                 about="lens",
             )
         lens_t = float(snap.lens(policy.lens).threshold)
@@ -82,23 +91,38 @@ def card_policy_scores(study: OpenedStudy, card: Any, policy: Policy) -> PolicyS
         for level, t in policy.group_thresholds:
             cuts[snap.group_levels.index(level)] = float(logit(t))
         margin = absolute_logodds(card, p_cases) - cuts[np.asarray(snap.group_codes)]
-        held = absolute_logodds(card, p_hist) - cuts[np.asarray(snap.hist_group_codes)]
+        hist_cut = cuts[np.asarray(snap.hist_group_codes)]
+        if not policy.drop and "oof__deployed" in snap.arrays:
+            held = np.asarray(snap.arrays["oof__deployed"], dtype=float) - hist_cut
+        elif p_hist is None:
+            held = np.full(n_hist, np.nan)
+        else:
+            held = absolute_logodds(card, p_hist) - hist_cut
+            if card.scaling == "recalibrated":
+                notes.append(
+                    "with weights dropped, the card's history probabilities use its "
+                    "recalibration on the whole history: its error rates under a lens or group "
+                    "threshold are not fully held-out"
+                )
         at_zero = False
-        rule = "the probability thresholds"
-    held = np.where(y >= 0, held, np.nan)
-    notes = [f"the deployed scorecard decides at {rule}; its points are scored afresh"]
-    if card.scaling == "recalibrated" and policy.lens is not None:
+    source = "the scorecard's points on the history (the card is not fitted to it)"
+    if not np.isfinite(held).any():
+        source = ""
         notes.append(
-            "the card's probabilities come from a logistic recalibration on this history, so "
-            "its error rates under a lens are not fully held-out"
+            "the history lacks the card's columns: the card's error rates on the history "
+            "cannot be computed"
         )
     shown = replace(policy, drop=tuple(policy.drop))
     return PolicyScores(
         shown,
-        shown.label(),
+        shown.label() if policy.lens or policy.group_thresholds else _cutoff_label(shown),
         np.asarray(margin, dtype=float),
         np.asarray(held, dtype=float),
-        "the scorecard's points on the history (not fitted to it)",
+        source,
         tuple(notes),
         at_zero_favourable=at_zero,
     )
+
+
+def _cutoff_label(policy: Policy) -> str:
+    return policy.label().replace("deployed", "deployed scorecard at its cut-off", 1)

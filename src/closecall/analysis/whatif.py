@@ -121,7 +121,8 @@ def resolve(study: OpenedStudy, policy: Policy) -> Policy:
     """``policy`` with its model filled in (the baseline's when left out); UserError for a
     model, lens or group level the study lacks."""
     snap = study.snapshot
-    full = replace(policy, model=policy.model or baseline_model(snap))
+    model = baseline_model(snap) if policy.model is None else policy.model
+    full = replace(policy, model=model)
     _check_model(snap, str(full.model))
     if full.lens is not None:
         _check_lens(snap, full.lens)

@@ -42,7 +42,7 @@ def test_queue_frame_is_the_cli_queue(demo_config: Path, cli: Any) -> None:
     study = Study.open(demo_config)
     result = study.queue(QueueQuery(flips=True, sort="ambiguity"))
     frame = result.to_frame()
-    flags = ("--json", "-n", "0", "--flips", "--sort", "ambiguity")
+    flags = ("--json", "-n", "0", "--flips", "any", "--sort", "ambiguity")
     rows = json.loads(cli("queue", "--config", str(demo_config), *flags).out)["rows"]
     assert list(frame["case_id"]) == [r["case_id"] for r in rows] == list(result.case_ids)
     np.testing.assert_allclose(frame["margin"], [r["margin"] for r in rows])

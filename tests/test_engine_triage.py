@@ -45,19 +45,19 @@ def test_priority_rests_on_then_model_flip_then_uncertain_then_lens() -> None:
     uncertain = np.array([0, 0, 0, 1, 0, 0], dtype=bool)
     tier = triage_tiers(kinds, rests, uncertain)
     assert [TIERS[t] for t in tier] == [
-        "close to threshold",
+        "near threshold",
         "model flip",
         "lens flip",
-        "uncertain",
+        "ambiguous",
         "rests on group",
-        "close to threshold",
+        "near threshold",
     ]
     margin = np.array([0.4, 0.3, 0.1, 0.2, 0.45, -0.05])
     order = triage_order(np.arange(6), tier, margin)
     assert order.tolist() == [4, 1, 3, 2, 5, 0]
     counts = tier_counts(tier, np.arange(6))
-    assert counts == {"rests on group": 1, "model flip": 1, "uncertain": 1, "lens flip": 1,
-                      "close to threshold": 2}  # fmt: skip
+    assert counts == {"rests on group": 1, "model flip": 1, "ambiguous": 1, "lens flip": 1,
+                      "near threshold": 2}  # fmt: skip
 
 
 def test_on_the_demo_every_flip_is_one_kind(demo_study) -> None:  # type: ignore[no-untyped-def]

@@ -24,7 +24,9 @@ from closecall.tui.session import ListSettings, ReviewSession
 REQUESTS = [
     ([], ListSettings()),
     (["--unreviewed"], ListSettings(unreviewed=True)),
-    (["--unreviewed", "--flips"], ListSettings(unreviewed=True, flips=True)),
+    (["--unreviewed", "--flips", "any"], ListSettings(unreviewed=True, flips="any")),
+    (["--flips", "model"], ListSettings(flips="model")),
+    (["--flips", "lens", "--sort", "closeness"], ListSettings(flips="lens", sort="closeness")),
     (["--unreviewed", "--sort", "ambiguity"], ListSettings(unreviewed=True, sort="ambiguity")),
     (["--unreviewed", "--ambiguous"], ListSettings(unreviewed=True, ambiguous=True)),
     (["--unreviewed", "--rests-on", "proxies"], ListSettings(unreviewed=True, rests_on="proxies")),

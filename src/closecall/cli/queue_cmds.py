@@ -15,22 +15,33 @@ from closecall.api.results import QueueResult
 from closecall.api.study import Study
 from closecall.cli.common import ConfigOption, FormatOption, JsonOption, load, resolve_format
 from closecall.cli.output import Format, console, emit_rows, format_cell, plain
-from closecall.core.text import safe_text
+from closecall.core.text import safe_text, signed
 from closecall.core.vocabulary import short_model
 from closecall.review.query import QueueQuery
-from closecall.review.queue import SORT_KEYS
+from closecall.review.queue import SORT_KEYS, group_attribute
+from closecall.review.triage import TIER_KEYS, TIERS
 
 
 def queue(
     config: Path = ConfigOption,
     limit: int = typer.Option(20, "--limit", "-n", help="How many rows to show (0 = all)."),
     group: str | None = typer.Option(None, "--group", "-g", help="Only this group level."),
-    flips: bool = typer.Option(False, "--flips", help="Only cases some model or lens flips."),
+    flips: str | None = typer.Option(
+        None,
+        "--flips",
+        help="Only flips: 'model' (another model decides otherwise under the first lens), "
+        "'lens' (only another cost lens does) or 'any'.",
+    ),
     band: float | None = typer.Option(
         None, "--band", help="Review band in log-odds (default: config)."
     ),
     all_cases: bool = typer.Option(False, "--all", help="List every case, not only close calls."),
-    sort: str = typer.Option("closeness", "--sort", help=f"One of: {', '.join(SORT_KEYS)}."),
+    sort: str = typer.Option(
+        "triage",
+        "--sort",
+        help=f"One of: {', '.join(SORT_KEYS)}. triage: rests on the group or its proxies, "
+        "then model flips, ambiguous, lens flips, near the threshold.",
+    ),
     id_prefix: str | None = typer.Option(None, "--id", help="Only ids starting with this text."),
     ambiguous: bool = typer.Option(
         False,
@@ -64,17 +75,19 @@ def queue(
     fmt: Format = FormatOption,
     as_json: bool = JsonOption,
 ) -> None:
-    """List the close calls: near the threshold, or decided differently by the suite.
+    """List the close calls, the ones a supervisor should review first at the top.
 
-    Margins are log-odds distances from the threshold (> 0 favourable) under the reference
-    model and the first cost lens; 'differs' names each model@lens that decides otherwise.
-    Sorting by ambiguity or dependence, or filtering with --ambiguous / --rests-on, adds
-    that measure as a column (docs/methods.md explains both).
+    Triage order (the default): decisions that rest on the group or its proxies, then model
+    flips (another model decides otherwise), ambiguous cases, lens flips (only another cost
+    lens does), then the rest near the threshold. Each row says why in words, how far the
+    case is from the threshold (on the line, just above or below…) and which models or lenses
+    decide otherwise. Every count below the table is of the cases the filters keep. The tool
+    supports human review and decides nothing.
 
     \b
     Examples:
-      closecall queue --flips --group Briar --limit 10
-      closecall queue --ambiguous --rests-on proxies --sort dependence
+      closecall queue --flips model --group Briar --limit 10
+      closecall queue --rests-on proxies --sort dependence
     """
     fmt = resolve_format(fmt, as_json)
     query = QueueQuery(
@@ -115,7 +128,11 @@ def _queue_meta(result: QueueResult, dist: MarginDistribution | None) -> dict[st
         "band": result.band,
         "sort": result.sort,
         "counts": dict(result.counts),
+        "group_attribute": group_attribute(result._snapshot),
+        "same_as": dict(result._answer.queue.same_as),
         "filters": {
+            "group": query.group,
+            "flips": query.flips,
             "ambiguous": query.ambiguous,
             "rests_on": query.rests_on,
             "epsilon": query.epsilon,
@@ -183,44 +200,105 @@ def _short_label(level: str, width: int = CHART_LABEL) -> str:
 
 
 def _print_queue_table(snap: Any, q: QueueResult, rows: list[dict[str, Any]]) -> None:
-    """A compact table that fits 80 columns: margins per model, how many pairs flip."""
+    """A table that fits 80 columns: why each case is listed, how close, who differs.
+
+    Wider terminals also get the margin in log-odds and every model's margin.
+    """
+    answer = q._answer.queue  # the engine's queue: tiers and identical models
     table = Table(
-        title=f"close calls — snapshot {snap.id}",
+        title=f"close calls — snapshot {snap.id} — in {SORT_TITLES.get(q.sort, q.sort)} order",
         header_style="bold",
         box=box.SIMPLE_HEAD,
         show_edge=False,
         pad_edge=False,
-        padding=(0, 0) if q.measures else (0, 1),  # measure columns: one space between
-        caption=plain(
-            f"{q.counts['listed']:,} listed of {q.counts['cases']:,} cases; "
-            f"{q.counts['within_band']:,} within ±{q.band:g} of the threshold, "
-            f"{q.counts['flips']:,} flips. Margins in log-odds under lens "
-            f"'{snap.lenses[0].name}', > 0 favourable; * marks the reference model; "
-            f"'flips' counts the model × lens pairs that decide otherwise "
-            f"(--json lists them)."
-            + "".join(MEASURE_NOTES[name] for name in q.measures if name in MEASURE_NOTES)
-        ),
+        padding=(0, 0),
     )
-    label_width = max(TABLE_LABEL, console.width - 80)
+    attribute = group_attribute(snap)
+    label_width = max(TABLE_LABEL, len(attribute), console.width - 80)
     table.add_column("#", justify="right", no_wrap=True)
     table.add_column("case", no_wrap=True)
-    table.add_column("group", no_wrap=True)
-    for m in snap.model_names:
+    table.add_column(_short_label(attribute, label_width), no_wrap=True)
+    table.add_column("distance", no_wrap=True)
+    table.add_column("why first", no_wrap=True)
+    table.add_column("decided otherwise by", min_width=16, ratio=1, overflow="fold")
+    has_state = any("state" in r for r in rows)
+    # every model's margin when the terminal has room beside the words and the state
+    labels = max([len(attribute), *(len(safe_text(str(r["group"]))) for r in rows)])
+    used = len(f"{len(rows):,}") + max([10, *(len(r["case_id"]) for r in rows)])
+    used += min(label_width, labels) + 11 + 16 + 20 + 7 * len(q.measures) + 7
+    used += 10 if has_state else 0
+    shown_models = []
+    for m in (m for m in snap.model_names if m not in answer.same_as):
+        width = max(6, len(short_model(m)) + 1) + 1
+        if used + width > console.width:
+            break
+        shown_models.append(m)
+        used += width
+    for m in shown_models:
         star = "*" if m == snap.reference else ""
         table.add_column(short_model(m) + star, justify="right", no_wrap=True)
-    table.add_column("flips", justify="right", no_wrap=True)
     for name in q.measures:
         table.add_column(MEASURE_HEADERS.get(name, name), justify="right", no_wrap=True)
+    if has_state:
+        table.add_column("state", no_wrap=True)
     for r in rows:
-        table.add_row(
+        cells: list[Any] = [
             str(r["rank"]),
             Text(format_cell(r["case_id"])),
             Text(_short_label(str(r["group"]), label_width)),
-            *(f"{r['margins'][m]:+.2f}" for m in snap.model_names),
-            str(len(r["differs"])) if r["differs"] else "—",
-            *(f"{r[name]:.2f}" for name in q.measures),
-        )
+            r["closeness"],
+            r["why"],
+            Text(safe_text(", ".join(r["others_differ"]) or "—")),
+        ]
+        cells += [signed(r["margins"][m]) for m in shown_models]
+        cells += [f"{r[name]:.2f}" for name in q.measures]
+        if has_state:
+            cells.append(r.get("state", ""))
+        table.add_row(*cells)
     console.print(table)
+    footer = _footer(snap, q, answer.same_as, len(rows))
+    if shown_models:
+        footer.append(
+            f"{', '.join(short_model(m) for m in shown_models)}: each model's margin in "
+            f"log-odds (* the reference), > 0 favourable."
+        )
+    for line in footer:
+        console.print(plain(line))
+
+
+SORT_TITLES = {"triage": "triage", "closeness": "flips-first", "margin": "|margin|"}
+
+
+def _footer(snap: Any, q: QueueResult, same_as: dict[str, str], shown: int) -> list[str]:
+    """What the counts are of (the filters in force), then how to read the columns."""
+    c = q.counts
+    b = q.band
+    filters = q.query.describe()
+    lines = [
+        f"{c['listed']:,} listed ({filters}) of {c['cases']:,} cases in the study"
+        + (f"; showing the first {shown:,}" if shown < c["listed"] else "")
+        + ".",
+        f"Of the listed: {c['within_band']:,} within ±{b:g} of the threshold; "
+        f"{c['flips']:,} flip ({c['model_flips']:,} by another model, "
+        f"{c['lens_flips']:,} by another cost lens only)"
+        + (f"; {c['reviewed']:,} decided, {c['deferred']:,} deferred" if "reviewed" in c else "")
+        + ".",
+        "By triage: "
+        + " · ".join(f"{c[f'tier_{k}']:,} {name}" for k, name in zip(TIER_KEYS, TIERS, strict=True))
+        + ".",
+        f"distance: the {short_model(snap.reference)} model's margin under lens "
+        f"'{snap.lenses[0].name}' in words — on the line within ±{b / 4:g} log-odds (a quarter "
+        f"of the band), just above/below within ±{b:g}, above/below within ±{2 * b:g}, well "
+        f"above/below beyond; above = favourable.",
+    ]
+    lines += [
+        f"{short_model(m)} = {short_model(o)}: the same weights"
+        + (" (no proxy flagged)" if m == "proxy_free" and o == "unaware" else "")
+        + f"; named once, as {short_model(o)}."
+        for m, o in same_as.items()
+    ]
+    lines += [MEASURE_NOTES[name].strip() for name in q.measures if name in MEASURE_NOTES]
+    return lines
 
 
 MEASURE_HEADERS = {"ambiguity": "amb.", "dependence": "dep."}

@@ -88,11 +88,11 @@ FITTED_MODELS = ("pooled", "unaware", "proxy_free", "split")
 SHORT_MODEL = {
     "pooled": "pooled",
     "unaware": "unaware",
-    "proxy_free": "no-proxy",
+    "proxy_free": "proxy-free",
     "split": "split",
     "deployed": "deployed",
 }
-#: Each standard model's one letter (N: no proxies).
+#: Each standard model's one letter (N: no proxies; kept for narrow legends).
 MODEL_LETTER = {"pooled": "P", "unaware": "U", "proxy_free": "N", "split": "S", "deployed": "D"}
 
 

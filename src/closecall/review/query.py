@@ -20,13 +20,23 @@ import numpy as np
 
 from closecall.core.errors import UserError
 from closecall.core.vocabulary import ACTIONS
-from closecall.review.queue import RESTS_ON, SORT_KEYS, Queue, build_queue, queue_rows
+from closecall.review.queue import (
+    FLIP_KINDS,
+    RESTS_ON,
+    SORT_KEYS,
+    Queue,
+    build_queue,
+    queue_rows,
+)
+from closecall.review.triage import TriageInputs
 
 if TYPE_CHECKING:
     from closecall.suite.opening import OpenedStudy
 
 #: Sorts by a per-case analysis measure (largest first, then nearest the threshold).
 MEASURE_SORTS = ("ambiguity", "dependence")
+#: The flips filter in words.
+FLIP_WORDS = {"any": "flips", "model": "model flips", "lens": "lens-only flips"}
 #: The review-state code of a deferral (codes: 0 open, 1 + ACTIONS.index(action)).
 DEFERRED_STATE = 1 + ACTIONS.index("defer")
 
@@ -43,12 +53,16 @@ class QueueQuery:
     Parameters
     ----------
     sort
-        One of ``closeness`` (flips first, then nearest the threshold), ``margin``,
-        ``ambiguity``, ``dependence``, ``id``.
+        One of ``triage`` (the default: rests on the group or its proxies, model flips,
+        ambiguous, lens flips, near the threshold; nearest the threshold first within each),
+        ``closeness`` (flips first, then nearest the threshold), ``margin``, ``ambiguity``,
+        ``dependence``, ``id``.
     group
         Keep one level of the group attribute.
     flips
-        Keep cases that some model or cost lens decides differently.
+        Keep flips: ``"any"`` (some model or cost lens decides differently; ``True`` means
+        the same), ``"model"`` (another model does, under the operative lens) or ``"lens"``
+        (only another cost lens does). None or False: no flips filter.
     ambiguous
         Keep cases whose equally-good band straddles the threshold.
     rests_on
@@ -72,13 +86,15 @@ class QueueQuery:
     Examples
     --------
     >>> from closecall import QueueQuery
-    >>> QueueQuery(flips=True, limit=10).limit
-    10
+    >>> QueueQuery(flips="model", limit=10).flips
+    'model'
+    >>> QueueQuery(flips=True).flips
+    'any'
     """
 
-    sort: str = "closeness"
+    sort: str = "triage"
     group: str | None = None
-    flips: bool = False
+    flips: str | bool | None = None
     ambiguous: bool = False
     rests_on: str | None = None
     unreviewed: bool = False
@@ -90,6 +106,14 @@ class QueueQuery:
     all_cases: bool = False
 
     def __post_init__(self) -> None:
+        if self.flips is True:
+            object.__setattr__(self, "flips", "any")
+        elif self.flips is False:
+            object.__setattr__(self, "flips", None)
+        if self.flips is not None and self.flips not in FLIP_KINDS:
+            raise UserError(
+                f"unknown kind of flip '{self.flips}'", f"use one of: {', '.join(FLIP_KINDS)}"
+            )
         if self.sort not in SORT_KEYS:
             raise UserError(
                 f"unknown sort key '{self.sort}'", f"use one of: {', '.join(SORT_KEYS)}"
@@ -114,6 +138,30 @@ class QueueQuery:
                 f"the limit must be a whole number >= 0, not {self.limit!r}",
                 "pass a limit such as 20 (or none for every case)",
             )
+
+    def describe(self) -> str:
+        """The filters in force, in words (``all close calls`` when there is none).
+
+        Examples
+        --------
+        >>> QueueQuery(group="Briar", flips="model", unreviewed=True).describe()
+        'group Briar · model flips · unreviewed'
+        """
+        parts = [] if not self.all_cases else ["every case"]
+        if self.group is not None:
+            parts.append(f"group {self.group}")
+        if self.flips is not None:
+            parts.append(FLIP_WORDS[str(self.flips)])
+        if self.ambiguous:
+            parts.append("ambiguous")
+        if self.rests_on is not None:
+            part = "group or its proxies" if self.rests_on == "proxies" else "group"
+            parts.append(f"resting on the {part}")
+        if self.unreviewed:
+            parts.append("unreviewed")
+        if self.id_prefix:
+            parts.append(f"ids starting {self.id_prefix!r}")
+        return " · ".join(parts) or "all close calls"
 
     def to_dict(self) -> dict[str, Any]:
         """The query as JSON-ready values.
@@ -225,6 +273,7 @@ def answer_queue(
     if query.unreviewed and states is not None:
         keep &= awaiting_decision(states)
     measures: dict[str, np.ndarray] = {}
+    triage = _triage_inputs(study, query, cache)
     if query.ambiguous:
         keep &= _analysis(study, "ambiguous", query, cache)
         measures["ambiguity"] = _analysis(study, "ambiguity", query, cache)
@@ -237,18 +286,39 @@ def answer_queue(
         snap,
         band=float(study.config.review.band if query.band is None else query.band),
         group=query.group,
-        flips_only=query.flips,
+        flips_only=query.flips or False,
         close_only=not query.all_cases,
         sort="closeness" if query.sort in MEASURE_SORTS else query.sort,
         id_prefix=query.id_prefix,
         exclude_rows=None if keep.all() else ~keep,
+        triage=triage,
     )
     if query.sort in MEASURE_SORTS:  # build_queue's rule: largest first, then nearest zero
         key, rows = measures[query.sort], q.order
         q.order = rows[np.lexsort((np.abs(q.margin[rows]), -key[rows]))]
         q.sort = query.sort
     q.measures.update(measures)
-    if states is not None:
-        q.counts["reviewed"] = int(np.count_nonzero(~awaiting_decision(states)))
-        q.counts["deferred"] = int(np.count_nonzero(states == DEFERRED_STATE))
+    if states is not None:  # among the listed cases, like every other count but two
+        listed = states[q.order]
+        q.counts["reviewed"] = int(np.count_nonzero(~awaiting_decision(listed)))
+        q.counts["deferred"] = int(np.count_nonzero(listed == DEFERRED_STATE))
+    if claimed:
+        ids = snap.case_ids[q.order]
+        q.counts["claimed"] = int(
+            np.count_nonzero(np.isin(ids, [c for c, who in claimed.items() if who]))
+        )
     return QueueAnswer(query, q, states, claimed)
+
+
+def _triage_inputs(
+    study: OpenedStudy, query: QueueQuery, cache: Mapping[str, np.ndarray] | None
+) -> TriageInputs:
+    """The analysis filters the triage tiers read; a filter that does not apply is None."""
+
+    def get(name: str) -> np.ndarray | None:
+        try:
+            return _analysis(study, name, query, cache)
+        except (UserError, ValueError):  # e.g. a reference model with imported scores
+            return None
+
+    return TriageInputs(get("rests_on_group"), get("rests_on_proxies"), get("ambiguous"))

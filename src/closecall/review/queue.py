@@ -2,9 +2,14 @@
 
 A case is a *close call* when its margin under the reference model and the operative (first)
 cost lens lies within the review band of zero, or when any model of the suite or any cost lens
-decides it differently (a *flip*). The queue lists close calls with flips first, then by
-closeness (|margin|); other orders and filters are available. All of it is vectorised: one
-argsort over all cases.
+decides it differently (a *flip*: a *model flip* when another model decides otherwise under
+the operative lens, a *lens flip* when only another lens does). The queue lists close calls in
+triage order (:mod:`closecall.review.triage`: rests on the group or its proxies, model flips,
+ambiguous, lens flips, near the threshold; nearest the threshold first within each); other
+orders and filters are available. All of it is vectorised: one lexsort over all cases.
+
+Counts describe the cases the filters keep (``listed``), except ``cases`` and ``close_calls``,
+which are the study's.
 
 Two orders and filters come from the analysis (docs/methods.md):
 
@@ -26,11 +31,30 @@ from scipy.special import logit
 
 from closecall.core.errors import Fix, UserError
 from closecall.core.numbers import check_count, check_number
-from closecall.core.vocabulary import decision_word, model_at_lens
+from closecall.core.vocabulary import decision_word, model_at_lens, short_model
+from closecall.review.triage import (
+    CLOSENESS_WORDS,
+    PROXIES_WORD,
+    TIER_KEYS,
+    TIER_REASONS,
+    TIER_WORDS,
+    TIERS,
+    DecisionGrid,
+    FlipKinds,
+    TriageInputs,
+    closeness_codes,
+    flip_kinds,
+    triage_order,
+    triage_tiers,
+)
 from closecall.setup.config import EPSILON_MAX
 from closecall.suite.snapshot import Snapshot
 
-SORT_KEYS = ("closeness", "margin", "ambiguity", "dependence", "id")
+#: Orders: triage (the default), closeness (flips first, then |margin|), |margin|, two analysis
+#: measures (largest first), case id.
+SORT_KEYS = ("triage", "closeness", "margin", "ambiguity", "dependence", "id")
+#: Which flips the flips filter keeps: any, model flips, lens-only flips.
+FLIP_KINDS = ("any", "model", "lens")
 RESTS_ON = ("group", "proxies")
 
 # Extra per-case measures registered by analysis modules:
@@ -55,29 +79,6 @@ MEASURES: dict[str, Callable[[Snapshot, dict[str, Any]], np.ndarray]] = {
     "ambiguity": _ambiguity,
     "dependence": _dependence,
 }
-
-
-@dataclass
-class DecisionGrid:
-    """Every model's decision under every lens, for all cases."""
-
-    pairs: list[tuple[str, str]]  # (model, lens) per column
-    favourable: np.ndarray  # (n, len(pairs)) bool
-    reference_col: int
-
-    @property
-    def reference(self) -> np.ndarray:
-        return self.favourable[:, self.reference_col]
-
-    @property
-    def differs(self) -> np.ndarray:
-        """(n, pairs) True where a model/lens decides differently from the reference."""
-        diff: np.ndarray = self.favourable != self.reference[:, None]
-        return diff
-
-    @property
-    def flip(self) -> np.ndarray:
-        return np.asarray(self.differs.any(axis=1))
 
 
 def decision_grid(snap: Snapshot) -> DecisionGrid:
@@ -105,6 +106,9 @@ class Queue:
     sort: str
     counts: dict[str, int] = field(default_factory=dict)
     measures: dict[str, np.ndarray] = field(default_factory=dict)
+    tier: np.ndarray | None = None  # (n,) int8 triage tier of every case (index into TIERS)
+    rests_group: np.ndarray | None = None  # (n,) bool: flips without the group alone
+    same_as: dict[str, str] = field(default_factory=dict)  # model -> identical earlier model
 
     def __len__(self) -> int:
         return len(self.order)
@@ -115,14 +119,15 @@ def build_queue(
     *,
     band: float,
     group: str | None = None,
-    flips_only: bool = False,
+    flips_only: bool | str = False,
     close_only: bool = True,
-    sort: str = "closeness",
+    sort: str = "triage",
     id_prefix: str | None = None,
     options: dict[str, Any] | None = None,
     exclude_rows: np.ndarray | None = None,
     ambiguous_only: bool = False,
     rests_on_part: str | None = None,
+    triage: TriageInputs | None = None,
 ) -> Queue:
     """Rank and filter the cases of a snapshot.
 
@@ -130,7 +135,8 @@ def build_queue(
     ----------
     band : close calls have |reference margin| <= band (log-odds)
     group : keep one group level
-    flips_only : keep cases that some model or lens decides differently
+    flips_only : keep cases that some model or lens decides differently (True or "any"),
+        model flips only ("model") or lens-only flips ("lens")
     close_only : keep close calls only (False: every case)
     sort : one of SORT_KEYS
     id_prefix : keep ids starting with this text
@@ -139,6 +145,8 @@ def build_queue(
     ambiguous_only : keep cases whose equally-good band straddles zero
     rests_on_part : "group" or "proxies": keep cases whose decision flips when that part
         (the group; the group and its proxies) is neutralised
+    triage : the analysis filters the triage tiers read (rests on the group, on the group and
+        its proxies, ambiguous); None: the tiers use the flips only
     """
     if sort not in SORT_KEYS:
         raise UserError(f"unknown sort key '{sort}'", Fix("sort", allowed=tuple(SORT_KEYS)))
@@ -150,15 +158,17 @@ def build_queue(
             about="rests_on",
         )
     options = options or {}
+    flip_kind = _flip_kind(flips_only)
     margin = np.asarray(snap.margins(snap.reference))
     grid = decision_grid(snap)
-    flip = grid.flip
+    kinds = flip_kinds(grid, snap.reference, snap.lenses[0].name)
+    flip = kinds.model | kinds.lens
     close = np.abs(margin) <= band
     keep = np.ones(snap.n_cases, dtype=bool)
     if close_only:
         keep &= close | flip
-    if flips_only:
-        keep &= flip
+    if flip_kind is not None:
+        keep &= {"any": flip, "model": kinds.model, "lens": kinds.lens}[flip_kind]
     if group is not None:
         if group not in snap.group_levels:
             raise UserError(
@@ -190,16 +200,87 @@ def build_queue(
         order = rows[np.argsort(np.abs(margin[rows]), kind="stable")]
     elif sort == "id":
         order = rows[np.argsort(np.asarray(snap.case_ids)[rows], kind="stable")]
-    else:  # closeness: flips first, then by |margin|
+    elif sort == "closeness":  # flips first, then by |margin|
         order = rows[np.lexsort((np.abs(margin[rows]), ~flip[rows]))]
+    triage = triage or TriageInputs()
+    tier = triage_tiers(kinds, triage.rests_on, triage.ambiguous)
+    if sort == "triage":
+        order = triage_order(rows, tier, margin)
     counts = {
         "cases": int(snap.n_cases),
         "close_calls": int((close | flip).sum()),
-        "within_band": int(close.sum()),
-        "flips": int(flip.sum()),
-        "listed": len(order),
+        **listed_counts(order, close, kinds, tier),
     }
-    return Queue(snap.id, order, margin, grid, band, sort, counts, measures)
+    return Queue(
+        snap.id, order, margin, grid, band, sort, counts, measures, tier, triage.rests_group,
+        identical_models(snap),
+    )  # fmt: skip
+
+
+def listed_counts(
+    order: np.ndarray, close: np.ndarray, kinds: FlipKinds, tier: np.ndarray
+) -> dict[str, int]:
+    """Counts of the listed cases: within the band, flips by kind, and per triage tier."""
+    per_tier = np.bincount(tier[order], minlength=len(TIERS))
+    return {
+        "listed": len(order),
+        "within_band": int(np.count_nonzero(close[order])),
+        "flips": int(np.count_nonzero(kinds.model[order] | kinds.lens[order])),
+        "model_flips": int(np.count_nonzero(kinds.model[order])),
+        "lens_flips": int(np.count_nonzero(kinds.lens[order])),
+        **{f"tier_{key}": int(c) for key, c in zip(TIER_KEYS, per_tier, strict=True)},
+    }
+
+
+def _flip_kind(flips: bool | str | None) -> str | None:
+    """The flips filter as one of FLIP_KINDS, or None when off (True means any flip)."""
+    if flips is None or flips is False:
+        return None
+    if flips is True:
+        return "any"
+    if flips not in FLIP_KINDS:
+        raise UserError(
+            f"unknown kind of flip '{flips}'", Fix("flips", allowed=FLIP_KINDS), about="flips"
+        )
+    return str(flips)
+
+
+def identical_models(snap: Snapshot) -> dict[str, str]:
+    """Models that are another, earlier model of the suite: {later: earlier}.
+
+    The proxy-free model is the unaware one when no proxy is flagged (it drops the same
+    columns of the same data); any other pair counts when its fitted weights agree to within
+    a millionth (solver tolerance). Such a model is named once in lists.
+    """
+    out: dict[str, str] = {}
+    names = list(snap.model_names)
+    proxies = (snap.meta.get("proxies") or {}).get("proxies")
+    if "proxy_free" in names and "unaware" in names and proxies == []:
+        out["proxy_free"] = "unaware"
+    fitted: list[tuple[str, np.ndarray, np.ndarray]] = []
+    for name in names:
+        if name in out:
+            continue
+        try:
+            weights, row = snap.weights(name)
+        except (KeyError, UserError):
+            continue
+        if weights.size == 0:  # imported scores: no weights
+            continue
+        for earlier, w, r in fitted:
+            same_shape = w.shape == weights.shape and np.array_equal(r, row)
+            if same_shape and np.allclose(w, weights, rtol=1e-6, atol=1e-8):
+                out[name] = earlier
+                break
+        else:
+            fitted.append((name, np.asarray(weights), np.asarray(row)))
+    return out
+
+
+def group_attribute(snap: Snapshot) -> str:
+    """The group attribute's name (its columns joined with '/'), as headers show it."""
+    columns = snap.meta.get("group_columns") or ["group"]
+    return "/".join(str(c) for c in columns)
 
 
 def check_queue_numbers(band: object, epsilon: object = None) -> None:
@@ -226,23 +307,35 @@ def queue_rows(
     ids = snap.case_ids
     t0 = float(logit(snap.lenses[0].threshold))
     logits = {m: np.asarray(snap.logit(m)) for m in snap.model_names}
-    differs = q.grid.differs
+    differs = q.grid.differs[rows]
+    kinds = q.grid.kinds()
+    tier = q.tier if q.tier is not None else np.full(snap.n_cases, len(TIERS) - 1, np.int8)
+    near = closeness_codes(q.margin[rows], q.band)
+    probability = 1.0 / (1.0 + np.exp(-logits[snap.reference][rows]))
     out: list[dict[str, Any]] = []
-    for rank, r in enumerate(rows, start=start + 1):
+    for i, r in enumerate(rows):
         margins = {m: float(logits[m][r] - t0) for m in snap.model_names}
         diff = [
             model_at_lens(m, lens)
-            for (m, lens), d in zip(q.grid.pairs, differs[r], strict=True)
+            for (m, lens), d in zip(q.grid.pairs, differs[i], strict=True)
             if d
         ]
+        t = int(tier[r])
         row: dict[str, Any] = {
-            "rank": rank,
+            "rank": start + 1 + i,
             "case_id": str(ids[r]),
             "group": str(labels[r]),
             "margin": float(q.margin[r]),
+            "closeness": CLOSENESS_WORDS[int(near[i])],
+            "probability": float(probability[i]),
             "decision": decision_word(bool(q.margin[r] > 0)),
+            "tier": TIERS[t],
+            "why": _row_word(q, t, r),
+            "reason": TIER_REASONS[t],
             "flip": bool(diff),
+            "flip_kind": "model" if kinds.model[r] else "lens" if kinds.lens[r] else None,
             "differs": diff,
+            "others_differ": others_differ(q, differs[i]),
             "margins": margins,
             "decisions": {m: decision_word(v > 0) for m, v in margins.items()},
             "lens": first,
@@ -251,3 +344,34 @@ def queue_rows(
             row[name] = float(values[r])
         out.append(row)
     return out
+
+
+def _row_word(q: Queue, tier: int, row: int) -> str:
+    """The short reason of one row ("rests on proxies" when the group alone does not flip it)."""
+    if tier == 0 and q.rests_group is not None and not q.rests_group[row]:
+        return PROXIES_WORD
+    return TIER_WORDS[tier]
+
+
+def others_differ(q: Queue, differs: np.ndarray) -> list[str]:
+    """Who decides one case differently from the reference, in words, most telling first.
+
+    The other models that differ under the operative lens (by their one name; a model
+    identical to an earlier one is named once), then the cost lenses under which the reference
+    model differs (``cautious lens``). Only when neither does, the other model@lens pairs
+    (every pair is in the row's ``differs``).
+    """
+    ref_model, first = q.grid.pairs[q.grid.reference_col]
+    models: list[str] = []
+    lenses: list[str] = []
+    pairs: list[str] = []
+    for (model, lens), d in zip(q.grid.pairs, differs, strict=True):
+        if not d or model in q.same_as:
+            continue
+        if lens == first:
+            models.append(short_model(model))
+        elif model == ref_model:
+            lenses.append(f"{lens} lens")
+        else:
+            pairs.append(model_at_lens(short_model(model), lens))
+    return models + lenses if models or lenses else pairs

@@ -119,7 +119,7 @@ class QueueScreen(Screen[None]):
 
         item("s", f"by {q.sort if q else s.sort}")
         item("g", f"{safe_text(s.group)} only" if s.group else "all groups")
-        item("f", "flips", s.flips)
+        item("f", "flips", s.flips is not None)
         item("a", "ambiguous", s.ambiguous)
         item("u", "unreviewed", s.unreviewed)
         if s.rests_on:

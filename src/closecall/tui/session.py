@@ -23,7 +23,9 @@ from closecall.review.states import mark_conflicts, review_states
 from closecall.suite.opening import OpenedStudy
 from closecall.tui import analysis_bridge
 
-SORTS = ("closeness", "ambiguity", "dependence")
+SORTS = ("triage", "closeness", "ambiguity", "dependence")
+#: Sorts that need no analysis measure.
+PLAIN_SORTS = ("triage", "closeness")
 Clock = Callable[[], datetime]
 
 
@@ -35,9 +37,9 @@ def utc_clock() -> datetime:
 class ListSettings:
     """What the case list shows and in which order."""
 
-    sort: str = "closeness"
+    sort: str = "triage"
     group: str | None = None
-    flips: bool = False
+    flips: str | None = None  # "any", "model" or "lens" (closecall.review.queue.FLIP_KINDS)
     ambiguous: bool = False
     unreviewed: bool = False
     rests_on: str | None = None  # "group" or "proxies": the decision flips without that part
@@ -46,7 +48,7 @@ class ListSettings:
         parts = [f"sort {self.sort}"]
         parts.append(f"group {self.group}" if self.group else "all groups")
         if self.flips:
-            parts.append("flips only")
+            parts.append(f"{'' if self.flips == 'any' else self.flips + ' '}flips only")
         if self.ambiguous:
             parts.append("ambiguous only")
         if self.unreviewed:
@@ -142,7 +144,7 @@ class ReviewSession:
     # ------------------------------------------------------------------ the list
 
     def available_sorts(self) -> list[str]:
-        return [s for s in SORTS if s == "closeness" or self.measure(s) is not None]
+        return [s for s in SORTS if s in PLAIN_SORTS or self.measure(s) is not None]
 
     def rebuild(self, settings: ListSettings | None = None) -> Queue:
         """Build the list for ``settings`` (slow at national scale: call from a worker).
@@ -152,8 +154,8 @@ class ReviewSession:
         a measure follows build_queue's rule (largest first, then nearest the threshold).
         """
         settings = settings or self.settings
-        if settings.sort != "closeness" and self.measure(settings.sort) is None:
-            settings = replace(settings, sort="closeness")
+        if settings.sort not in PLAIN_SORTS and self.measure(settings.sort) is None:
+            settings = replace(settings, sort="triage")
         answer = answer_queue(
             self.study,
             self.query(settings),
@@ -169,6 +171,8 @@ class ReviewSession:
     def query(self, settings: ListSettings | None = None) -> QueueQuery:
         """The engine's request for ``settings`` (a filter the analysis cannot give is off)."""
         s = settings or self.settings
+        for name in ("rests_on_group", "rests_on_proxies", "ambiguous"):
+            self.mask(name)  # the triage tiers read them: computed once, then from the cache
         ambiguous = s.ambiguous and self.mask("ambiguous") is not None
         rests_on = s.rests_on
         if rests_on is not None and self.mask(f"rests_on_{rests_on}") is None:
@@ -232,8 +236,11 @@ class ReviewSession:
         """Header counts: the queue's counts plus reviewed and claimed cases."""
         q = self.queue
         out = dict(q.counts) if q is not None else {}
-        out["reviewed"] = int(np.count_nonzero(~awaiting_decision(self.states)))  # decided
-        out["claimed"] = sum(1 for v in self.claims.values() if v)
+        # of the listed cases, like every count of the queue
+        listed = q.order if q is not None else np.zeros(0, dtype=np.int64)
+        out["reviewed"] = int(np.count_nonzero(~awaiting_decision(self.states[listed])))
+        claimed = [case for case, who in self.claims.items() if who]
+        out["claimed"] = int(np.count_nonzero(np.isin(self.snap.case_ids[listed], claimed)))
         return out
 
     # ------------------------------------------------------------------ chart

@@ -490,18 +490,6 @@ def test_connection_lost_mid_record_stores_nothing_and_keeps_the_draft(
         assert ledger.count() == 2
 
 
-@pytest.mark.parametrize("url", ["postgresql://db.example/ledger", "postgres://u:pw@db/x"])
-def test_a_database_url_in_the_study_config_is_refused_not_made_a_folder(
-    tmp_path: Path, url: str
-) -> None:
-    from ledger_helpers import make_config
-
-    with pytest.raises(UserError) as info:
-        make_config(tmp_path, ledger=url)
-    assert "PostgreSQL" in info.value.message and "pw" not in info.value.message
-    assert not any(tmp_path.iterdir())
-
-
 def test_the_documented_postgresql_verifier_agrees(team: dict[str, str], tmp_path: Path) -> None:
     import re
 

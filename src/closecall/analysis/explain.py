@@ -210,7 +210,9 @@ def _with_reviews(config: Any, nb: dict[str, Any]) -> dict[str, Any]:
 
     for n in nb["neighbours"]:
         n["review"] = None
-    if not config.review.ledger.exists():
+    from closecall.review.ledger.backend import ledger_present
+
+    if not ledger_present(config.review.ledger):
         return nb
     try:
         for n in nb["neighbours"]:

@@ -128,7 +128,7 @@ def _preview(note: str, width: int) -> str:
     return flat if len(flat) <= width else flat[: max(width - 1, 0)] + "…"
 
 
-def _table(entries: list[Entry], ledger: Path) -> Table:
+def _table(entries: list[Entry], ledger: Path | str) -> Table:
     """A compact table as wide as the terminal; the note gets the room that is left.
 
     Cells are Text, never read as rich markup, and control characters are shown as codes.

@@ -18,7 +18,8 @@ import numpy as np
 import pandas as pd
 
 from closecall.core.errors import Fix, UserError
-from closecall.review.ledger import Entry, NoLedger, open_ledger
+from closecall.review.ledger import Entry, NoLedger
+from closecall.review.ledger.backend import ledger_present, open_any_ledger
 from closecall.setup.config import StudyConfig
 
 #: Actions that do not decide a case: never in conflict with a decision.
@@ -121,10 +122,10 @@ def check_no_collision(
 def case_entries(config: StudyConfig, case_id: str) -> list[Entry]:
     """Every entry on ``case_id`` (no permission check: the caller has one); empty without a
     ledger."""
-    if not config.review.ledger.exists():
+    if not ledger_present(config.review.ledger):
         return []
     try:
-        with open_ledger(config.review.ledger, readonly=True) as ledger:
+        with open_any_ledger(config.review.ledger, readonly=True) as ledger:
             return ledger.entries(case_id=case_id)
     except NoLedger:
         return []
@@ -132,10 +133,10 @@ def case_entries(config: StudyConfig, case_id: str) -> list[Entry]:
 
 def last_seq(config: StudyConfig) -> int:
     """The highest sequence number in the ledger (0 when there is none yet)."""
-    if not config.review.ledger.exists():
+    if not ledger_present(config.review.ledger):
         return 0
     try:
-        with open_ledger(config.review.ledger, readonly=True) as ledger:
+        with open_any_ledger(config.review.ledger, readonly=True) as ledger:
             return ledger.head()[0]
     except NoLedger:
         return 0
@@ -166,10 +167,10 @@ def conflicted_cases(entries: Sequence[Entry]) -> list[str]:
 
 def study_conflicts(config: StudyConfig) -> list[str]:
     """:func:`conflicted_cases` over the study's whole ledger (empty without one)."""
-    if not config.review.ledger.exists():
+    if not ledger_present(config.review.ledger):
         return []
     try:
-        with open_ledger(config.review.ledger, readonly=True) as ledger:
+        with open_any_ledger(config.review.ledger, readonly=True) as ledger:
             return conflicted_cases(ledger.entries())
     except NoLedger:
         return []

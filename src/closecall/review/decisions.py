@@ -22,9 +22,9 @@ from closecall.review.ledger import (
     EntryContent,
     NoLedger,
     VerifyResult,
-    open_ledger,
 )
 from closecall.review.ledger.access import require_read, require_record
+from closecall.review.ledger.backend import ledger_present, open_any_ledger
 from closecall.review.ledger.store import MAX_NOTE_BYTES
 from closecall.setup.config import StudyConfig, load_config
 
@@ -245,7 +245,7 @@ def record_review(
         _check_supersedes(config, case_id, supersedes)
     from closecall.review.conflicts import check_no_collision
 
-    with open_ledger(config.review.ledger) as ledger:
+    with open_any_ledger(config.review.ledger) as ledger:
         # read through the writer: a damaged ledger gets the writer's message
         check_no_collision(
             config,
@@ -305,9 +305,9 @@ def author_signer(config: StudyConfig, login: str) -> Callable[[bytes], str] | N
 
 def _check_supersedes(config: StudyConfig, case_id: str, supersedes: int) -> None:
     earlier: Entry | None = None
-    if config.review.ledger.exists():
+    if ledger_present(config.review.ledger):
         try:
-            with open_ledger(config.review.ledger, readonly=True) as ledger:
+            with open_any_ledger(config.review.ledger, readonly=True) as ledger:
                 earlier = ledger.entry(supersedes)
         except NoLedger:
             earlier = None
@@ -351,7 +351,7 @@ def ledger_entries(
     if before is not None and before < 1:
         raise UserError(f"entries before {before}: sequence numbers start at 1")
     try:
-        with open_ledger(config.review.ledger, readonly=True) as ledger:
+        with open_any_ledger(config.review.ledger, readonly=True) as ledger:
             return ledger.entries(case_id=case_id, reviewer=reviewer, limit=limit, before=before)
     except NoLedger:
         return []
@@ -364,7 +364,7 @@ def latest_actions(config: StudyConfig) -> list[tuple[str, str]]:
     """
     require_read(config.review, config.path)
     try:
-        with open_ledger(config.review.ledger, readonly=True) as ledger:
+        with open_any_ledger(config.review.ledger, readonly=True) as ledger:
             return ledger.latest_actions()
     except NoLedger:
         return []
@@ -429,7 +429,7 @@ def check_ledger(config: StudyConfig) -> None:
     ledger, damaged, or its structure changed. An absent ledger is fine (the first record
     creates it). Reads only."""
     try:
-        with open_ledger(config.review.ledger, readonly=True) as ledger:
+        with open_any_ledger(config.review.ledger, readonly=True) as ledger:
             ledger.require_intact()
     except NoLedger:
         return
@@ -454,7 +454,7 @@ def save_draft(
         check_action(action)
     if reason is not None:
         check_text("the reason", reason)
-    with open_ledger(config.review.ledger) as ledger:
+    with open_any_ledger(config.review.ledger) as ledger:
         return ledger.drafts.save(login, case_id, note, action, reason)
 
 
@@ -463,7 +463,7 @@ def load_draft(study: OpenedStudy, case_id: str) -> Draft | None:
     config = study.config
     login = require_record(config.review, config.path)
     try:
-        with open_ledger(config.review.ledger, readonly=True) as ledger:
+        with open_any_ledger(config.review.ledger, readonly=True) as ledger:
             return ledger.drafts.load(login, case_id)
     except NoLedger:
         return None
@@ -474,7 +474,7 @@ def my_drafts(study: OpenedStudy) -> list[Draft]:
     config = study.config
     login = require_record(config.review, config.path)
     try:
-        with open_ledger(config.review.ledger, readonly=True) as ledger:
+        with open_any_ledger(config.review.ledger, readonly=True) as ledger:
             return ledger.drafts.of(login)
     except NoLedger:
         return []
@@ -484,8 +484,8 @@ def drop_draft(study: OpenedStudy, case_id: str) -> None:
     """Discard this login's draft for ``case_id`` (recording removes it by itself)."""
     config = study.config
     login = require_record(config.review, config.path)
-    if config.review.ledger.exists():
-        with open_ledger(config.review.ledger) as ledger:
+    if ledger_present(config.review.ledger):
+        with open_any_ledger(config.review.ledger) as ledger:
             ledger.drafts.drop(login, case_id)
 
 
@@ -497,7 +497,7 @@ def claim_case(study: OpenedStudy, case_id: str) -> Claim:
     config = study.config
     login = require_record(config.review, config.path)
     study.snapshot.case_index(case_id)
-    with open_ledger(config.review.ledger) as ledger:
+    with open_any_ledger(config.review.ledger) as ledger:
         return ledger.claims.take(case_id, login, config.review.claim_minutes)
 
 
@@ -505,8 +505,8 @@ def release_claim(study: OpenedStudy, case_id: str) -> None:
     """Withdraw this login's claim on ``case_id`` (no-op if there is none)."""
     config = study.config
     login = require_record(config.review, config.path)
-    if config.review.ledger.exists():
-        with open_ledger(config.review.ledger) as ledger:
+    if ledger_present(config.review.ledger):
+        with open_any_ledger(config.review.ledger) as ledger:
             ledger.claims.release(case_id, login)
 
 
@@ -517,7 +517,7 @@ def active_claims(
     config = study.config
     require_read(config.review, config.path)
     try:
-        with open_ledger(config.review.ledger, readonly=True) as ledger:
+        with open_any_ledger(config.review.ledger, readonly=True) as ledger:
             return ledger.claims.active(case_ids)
     except NoLedger:
         return {}

@@ -16,8 +16,9 @@ from closecall.core.numbers import check_count, check_number, check_seed
 from closecall.core.vocabulary import DEFER, UPHOLD
 from closecall.reports.disparity.simulate import simulate_actions
 from closecall.review.decisions import check_action, check_note, check_reason
-from closecall.review.ledger import EntryContent, NoLedger, open_ledger
+from closecall.review.ledger import EntryContent, NoLedger
 from closecall.review.ledger.access import require_record
+from closecall.review.ledger.backend import is_database, open_any_ledger
 
 if TYPE_CHECKING:
     from closecall.suite.opening import OpenedStudy
@@ -28,7 +29,7 @@ SIM_PREFIX = "sim-reviewer-"
 def _reviewed_cases(study: OpenedStudy) -> tuple[set[str], bool]:
     """Case ids already in the ledger, and whether any entry is a real (non-simulated) one."""
     try:
-        with open_ledger(study.config.review.ledger, readonly=True) as ledger:
+        with open_any_ledger(study.config.review.ledger, readonly=True) as ledger:
             entries = ledger.entries()
     except NoLedger:
         return set(), False
@@ -83,6 +84,14 @@ def simulate_reviews(
         Bad counts, an unknown group, no unreviewed cases, or a ledger with real reviews.
     """
     config = study.config
+    if is_database(config.review.ledger):
+        raise UserError(
+            f"{config.path}: [review] ledger names a PostgreSQL database, which records every "
+            "entry as the database user who sends it, so simulated reviewers cannot be recorded "
+            "there (and simulated reviews never belong in a team's ledger)",
+            "simulate on a demo study whose [review] ledger is a file (closecall demo writes "
+            'one with ledger = "ledger.sqlite")',
+        )
     require_record(config.review, config.path)
     check_count("n", n, 1, example="300")
     check_count("reviewers", reviewers, 1, example="4")
@@ -167,7 +176,7 @@ def simulate_reviews(
                 note=check_note(action, note),
             )
         )
-    with open_ledger(config.review.ledger) as ledger:
+    with open_any_ledger(config.review.ledger) as ledger:
         for content in contents:
             ledger.append(content)
     return len(contents)

@@ -264,6 +264,9 @@ def answer_queue(
 
         reviews = study_review_states(study)
     if query.unreviewed and reviews is None:
+        from closecall.review.ledger.access import require_read
+
+        require_read(study.config.review, study.config.path)  # names the role (PostgreSQL)
         raise UserError(
             "listing unreviewed cases needs to read the ledger, and this login may not",
             "ask for your login to be listed under [review] reviewers or analysts",

@@ -94,7 +94,8 @@ class ReviewConfig:
     reasons: tuple[str, ...] = DEFAULT_REASONS
     reviewers: tuple[str, ...] = ()  # logins who may record; empty = anyone
     analysts: tuple[str, ...] = ()  # logins who may read and export
-    ledger: Path = Path("ledger.sqlite")
+    #: the ledger file, or (text) a PostgreSQL database's URL or conninfo, never with a password
+    ledger: Path | str = Path("ledger.sqlite")
     claim_minutes: float = 30.0
 
 
@@ -523,21 +524,12 @@ def parse_config(raw: dict[str, Any], path: Path) -> StudyConfig:
 
     r = _table(path, raw, "review")
     _check_keys(path, "review", r)
-    if str(r.get("ledger", "")).strip().startswith(("postgresql://", "postgres://")):
-        # never echo the value: it may hold a password
-        raise UserError(
-            f"{path}: [review] ledger names a PostgreSQL database; the study commands do not "
-            "read a PostgreSQL ledger through the config yet",
-            "keep [review] ledger a file path for now; a team's PostgreSQL ledger is prepared "
-            "with 'closecall ledger setup URL' and filled with 'closecall ledger migrate' "
-            "(docs/ledger.md, Team deployment)",
-        )
     review = ReviewConfig(
         band=number(path, "review", "band", r.get("band", 0.5)),
         reasons=_str_tuple(path, "review", "reasons", r.get("reasons", list(DEFAULT_REASONS))),
         reviewers=_str_tuple(path, "review", "reviewers", r.get("reviewers", [])),
         analysts=_str_tuple(path, "review", "analysts", r.get("analysts", [])),
-        ledger=root / r.get("ledger", "ledger.sqlite"),
+        ledger=_ledger(path, root, r.get("ledger", "ledger.sqlite")),
         claim_minutes=number(path, "review", "claim_minutes", r.get("claim_minutes", 30.0)),
     )
 
@@ -585,6 +577,25 @@ def _deployed(path: Path, raw: dict[str, Any], data: DataConfig) -> DeployedConf
     except OSError:
         digest = None
     return DeployedConfig(scorecard=card, scorecard_digest=digest)
+
+
+def _ledger(path: Path, root: Path, value: Any) -> Path | str:
+    """[review] ledger: a file (relative to the config's folder) or a PostgreSQL database.
+
+    A ``postgresql://`` URL or a libpq conninfo stays text; one holding a password is refused
+    (and never echoed): libpq takes it from ~/.pgpass, PGPASSWORD or peer/GSS authentication.
+    """
+    from closecall.review.ledger.pg_store import check_url, is_url
+
+    if not isinstance(value, str) or not value.strip():
+        raise UserError(
+            f"{path}: [review] ledger must be a file name or a postgresql:// URL",
+            'for example ledger = "ledger.sqlite" or ledger = "postgresql://db.example/reviews"',
+        )
+    if is_url(value):
+        check_url(value.strip(), f"{path}: [review] ledger")
+        return value.strip()
+    return root / value
 
 
 def _team(path: Path, raw: dict[str, Any]) -> TeamConfig:

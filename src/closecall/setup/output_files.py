@@ -88,16 +88,17 @@ def study_files(
         A file of known outcomes this command reads, if any.
     """
     ledger = config.review.ledger
-    found: list[StudyFile] = [
-        StudyFile(_real(config.path), "the study's config", "config"),
-        StudyFile(_real(ledger), "the study's ledger", "ledger"),
-    ]
-    found += [
-        StudyFile(
-            _real(f"{ledger}{suffix}"), f"the ledger's SQLite companion ({suffix[1:]})", "ledger"
-        )
-        for suffix in LEDGER_COMPANIONS
-    ]
+    found: list[StudyFile] = [StudyFile(_real(config.path), "the study's config", "config")]
+    if isinstance(ledger, Path):  # (a ledger in PostgreSQL has no file here)
+        found.append(StudyFile(_real(ledger), "the study's ledger", "ledger"))
+        found += [
+            StudyFile(
+                _real(f"{ledger}{suffix}"),
+                f"the ledger's SQLite companion ({suffix[1:]})",
+                "ledger",
+            )
+            for suffix in LEDGER_COMPANIONS
+        ]
     found.append(StudyFile(_real(config.data.history), "the study's history data file", "data"))
     if config.data.pending is not None:
         found.append(StudyFile(_real(config.data.pending), "the study's pending data file", "data"))

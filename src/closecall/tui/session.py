@@ -16,7 +16,7 @@ import numpy as np
 from closecall.analysis.margin_distribution import MarginDistribution, margin_distribution
 from closecall.review.conflicts import study_conflicts
 from closecall.review.decisions import active_claims, latest_actions
-from closecall.review.ledger import Claim, current_login
+from closecall.review.ledger import Claim, ledger_login
 from closecall.review.query import QueueQuery, answer_queue, awaiting_decision
 from closecall.review.queue import Queue
 from closecall.review.states import mark_conflicts, review_states
@@ -70,7 +70,8 @@ class ReviewSession:
         The open study (config + snapshot).
     login
         The name shown for "you" on screen (tests inject a fixed one). The ledger always
-        records, and claims are compared with, the process's real login.
+        records, and claims are compared with, the process's real login (for a ledger in
+        PostgreSQL, the database session user).
     clock
         Source of the current time for anything the screens show about "now".
     """
@@ -79,7 +80,7 @@ class ReviewSession:
         self.study = study
         self.snap = study.snapshot
         self.config = study.config
-        self.login = current_login()
+        self.login = ledger_login(self.config.review)  # the database user on PostgreSQL
         self.display_login = login or self.login
         self.clock = clock
         self.band = float(study.config.review.band)

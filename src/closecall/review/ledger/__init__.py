@@ -4,7 +4,7 @@ See docs/ledger.md for the format and guarantees.
 """
 
 from closecall.core.vocabulary import ACTIONS, OVERRIDES
-from closecall.review.ledger.access import current_login, may_read, may_record
+from closecall.review.ledger.access import current_login, ledger_login, may_read, may_record
 from closecall.review.ledger.drafts import Claim, Claims, Draft, Drafts
 from closecall.review.ledger.entry import (
     GENESIS_HASH,
@@ -36,6 +36,7 @@ __all__ = [
     "canonical_json",
     "current_login",
     "entry_hash",
+    "ledger_login",
     "may_read",
     "may_record",
     "open_ledger",

@@ -227,6 +227,16 @@ def _schema_sql(reviewer: str, analyst: str) -> list[str]:
             END $$""",
         "REVOKE ALL ON ALL TABLES IN SCHEMA closecall FROM PUBLIC",
         f"REVOKE ALL ON ALL TABLES IN SCHEMA closecall FROM {reviewer}, {analyst}",
+        # any grant to anyone else (made by hand since) goes too: setup restores the guards
+        """DO $$ DECLARE g record; BEGIN
+              FOR g IN SELECT DISTINCT c.relname, r.rolname FROM pg_class c
+                  CROSS JOIN LATERAL aclexplode(c.relacl) a
+                  JOIN pg_roles r ON r.oid = a.grantee
+                  WHERE c.relnamespace = 'closecall'::regnamespace AND c.relkind = 'r'
+                  AND a.grantee <> c.relowner LOOP
+                EXECUTE format('REVOKE ALL ON closecall.%I FROM %I', g.relname, g.rolname);
+              END LOOP;
+            END $$""",
         "REVOKE ALL ON FUNCTION closecall.lock_head() FROM PUBLIC",
         "GRANT SELECT ON closecall.meta TO PUBLIC",
         f"GRANT SELECT ON closecall.entries, closecall.head TO {reviewer}, {analyst}",
@@ -434,6 +444,26 @@ class PgLedger:
             f'ask the ledger database\'s owner to run: GRANT {role} TO "{user}";',
         )
 
+    def session_user(self) -> str:
+        """The database user this connection records as (the ledger's identity)."""
+        return str(self._read("SELECT session_user")[0][0])
+
+    def access(self, login: str | None = None) -> tuple[str, bool, bool]:
+        """(session user, may record, may read) for ``login`` (default: the session user),
+        as the database's group roles say; an unknown ``login`` may do nothing."""
+        reviewer = self._role("reviewer_role")
+        analyst = self._role("analyst_role")
+        row = self._read(
+            "SELECT session_user::text, "
+            "coalesce((SELECT pg_has_role(r.oid, %s, 'MEMBER') FROM pg_roles r "
+            "  WHERE r.rolname = coalesce(%s, session_user::text)), false), "
+            "coalesce((SELECT pg_has_role(r.oid, %s, 'MEMBER') "
+            "  OR pg_has_role(r.oid, %s, 'MEMBER') FROM pg_roles r "
+            "  WHERE r.rolname = coalesce(%s, session_user::text)), false)",
+            (reviewer, login, reviewer, analyst, login),
+        )[0]
+        return str(row[0]), bool(row[1]), bool(row[2])
+
     def check_access(self, record: bool) -> None:
         """AccessDenied naming the role to ask for, unless the session user holds it."""
         reviewer = self._role("reviewer_role")
@@ -534,18 +564,127 @@ class PgLedger:
             if t not in have
         ]
 
+    def privilege_findings(self) -> list[Any]:
+        """Table privileges of anyone but the owner that differ from what setup grants: an
+        UPDATE, DELETE or TRUNCATE granted to the roles (or to anyone), or a grant removed."""
+        from closecall.review.ledger.schema import Finding
+
+        expected = _expected_grants(self._role("reviewer_role"), self._role("analyst_role"))
+        rows = self._read(
+            "SELECT c.relname, coalesce(r.rolname, 'PUBLIC'), a.privilege_type "
+            "FROM pg_class c CROSS JOIN LATERAL aclexplode(c.relacl) a "
+            "LEFT JOIN pg_roles r ON r.oid = a.grantee "
+            "WHERE c.relnamespace = 'closecall'::regnamespace AND c.relkind = 'r' "
+            "AND a.grantee <> c.relowner"
+        )
+        have = {(str(t), str(g), str(p)) for t, g, p in rows}
+        findings = [
+            Finding(
+                "privilege-granted",
+                f"{table}.{grantee}",
+                f"{grantee} was granted {privilege} on closecall.{table}, which setup never grants",
+            )
+            for table, grantee, privilege in sorted(have - expected)
+        ]
+        findings += [
+            Finding(
+                "privilege-missing",
+                f"{table}.{grantee}",
+                f"the grant of {privilege} on closecall.{table} to {grantee} was revoked",
+            )
+            for table, grantee, privilege in sorted(expected - have)
+        ]
+        return findings
+
+    def policy_findings(self) -> list[Any]:
+        """Row-level security of drafts and claims: switched on, its policies as setup made
+        them (each reviewer writes only their own drafts and claims)."""
+        from closecall.review.ledger.schema import Finding
+
+        findings: list[Finding] = []
+        rows = self._read(
+            "SELECT relname, relrowsecurity FROM pg_class "
+            "WHERE relnamespace = 'closecall'::regnamespace AND relname IN ('drafts', 'claims')"
+        )
+        for table, on in sorted(rows):
+            if not on:
+                findings.append(
+                    Finding(
+                        "row-security-off",
+                        str(table),
+                        f"row-level security is switched off on closecall.{table}",
+                    )
+                )
+        rows = self._read(
+            "SELECT p.polname, c.relname, p.polcmd, "
+            "coalesce(pg_get_expr(p.polqual, p.polrelid), ''), "
+            "coalesce(pg_get_expr(p.polwithcheck, p.polrelid), ''), "
+            "p.polpermissive, p.polroles = '{0}' "
+            "FROM pg_policy p JOIN pg_class c ON c.oid = p.polrelid "
+            "WHERE c.relnamespace = 'closecall'::regnamespace"
+        )
+        have = {
+            str(name): (str(table), str(cmd), _expr(qual), _expr(check), bool(perm), bool(pub))
+            for name, table, cmd, qual, check, perm, pub in rows
+        }
+        for name, want in _POLICIES.items():
+            got = have.pop(name, None)
+            if got is None:
+                findings.append(
+                    Finding("policy-missing", name, f"the row-level policy {name} was dropped")
+                )
+            elif got != want:
+                findings.append(
+                    Finding(
+                        "policy-altered",
+                        name,
+                        f"the row-level policy {name} on closecall.{got[0]} was changed",
+                    )
+                )
+        for name, got in sorted(have.items()):
+            findings.append(
+                Finding(
+                    "unexpected-object",
+                    name,
+                    f"a row-level policy {name} on closecall.{got[0]} was added",
+                )
+            )
+        return findings
+
     def structure_findings(self) -> list[Any]:
+        """Guard triggers, table privileges and row-level policies that differ from what
+        ``ledger setup`` made; empty when they are the same."""
         from closecall.review.ledger.schema import Finding
 
         return [
-            Finding("triggers-missing", name, f"the guard trigger {name} is missing or disabled")
-            for name in self.missing_triggers()
+            *(
+                Finding(
+                    "triggers-missing", name, f"the guard trigger {name} is missing or disabled"
+                )
+                for name in self.missing_triggers()
+            ),
+            *self.privilege_findings(),
+            *self.policy_findings(),
         ]
 
     def require_intact(self) -> None:
-        from closecall.review.ledger.store import _refuse
+        """DamagedLedger naming the first differences, unless guards, privileges and policies
+        are exactly as ``ledger setup`` made them (what writers need)."""
+        from closecall.review.ledger.store import DamagedLedger
 
-        _refuse(self.path, self.structure_findings())  # type: ignore[arg-type]
+        findings = self.structure_findings()
+        if findings:
+            shown = "; ".join(f.message for f in findings[:3])
+            more = f" (and {len(findings) - 3} more)" if len(findings) > 3 else ""
+            raise DamagedLedger(
+                self.path,
+                f"the ledger's guards were changed outside closecall: {shown}{more}",
+                kind="structure",
+                findings=findings,
+                fix="ask the database's owner to run 'closecall ledger setup' on it again "
+                "(it restores the guards, privileges and policies) and 'closecall ledger "
+                "verify'; closecall will not write to it as it is",
+            )
 
     def verify(
         self, anchor: str | None = None, keys: Mapping[str, str] | None = None
@@ -553,7 +692,50 @@ class PgLedger:
         """Recompute the chain (and, with ``keys``, check signatures), as for the file."""
         from closecall.review.ledger.verify import verify_chain
 
-        return verify_chain(self, anchor, keys)  # type: ignore[arg-type]
+        return verify_chain(self, anchor, keys)
+
+
+def _expected_grants(reviewer: str, analyst: str) -> set[tuple[str, str, str]]:
+    """(table, grantee, privilege) that setup grants to anyone but the tables' owner."""
+    rw = ("SELECT", "INSERT", "UPDATE", "DELETE")
+    return {
+        ("meta", "PUBLIC", "SELECT"),
+        ("entries", reviewer, "SELECT"),
+        ("entries", reviewer, "INSERT"),
+        ("entries", analyst, "SELECT"),
+        ("head", reviewer, "SELECT"),
+        ("head", analyst, "SELECT"),
+        *(("drafts", reviewer, p) for p in rw),
+        *(("claims", reviewer, p) for p in rw),
+    }
+
+
+def _expr(text: str) -> str:
+    """A policy expression as PostgreSQL prints it, without case, spaces or parentheses."""
+    return re.sub(r"[\s()]", "", text.lower())
+
+
+#: name -> (table, command, USING, WITH CHECK, permissive, for every role) as setup makes them;
+#: commands as pg_policy codes them ('*' all, 'r' SELECT).
+_POLICIES = {
+    "own_drafts": (
+        "drafts",
+        "*",
+        _expr("(reviewer = SESSION_USER)"),
+        _expr("(reviewer = SESSION_USER)"),
+        True,
+        True,
+    ),
+    "see_claims": ("claims", "r", "true", "", True, True),
+    "own_claims": (
+        "claims",
+        "*",
+        _expr("((reviewer = SESSION_USER) OR (expires_at <= clock_timestamp()))"),
+        _expr("(reviewer = SESSION_USER)"),
+        True,
+        True,
+    ),
+}
 
 
 class PgDrafts:
@@ -764,7 +946,9 @@ def open_pg_ledger(url: str, *, readonly: bool = False, inspect: bool = False) -
                 f"ask its owner to run: closecall ledger setup '{ledger.path}'",
             )
         if not inspect:
-            ledger.check_access(record=not (readonly or inspect))
+            ledger.check_access(record=not readonly)
+        if not (readonly or inspect):
+            ledger.require_intact()
     except BaseException:
         conn.close()
         raise

@@ -166,7 +166,7 @@ class DamagedLedger(UserError):
 
     def __init__(
         self,
-        path: Path,
+        path: Path | str,
         what: str,
         *,
         kind: str,

@@ -30,11 +30,14 @@ import json
 from collections.abc import Mapping
 from dataclasses import asdict, dataclass
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from closecall.core.errors import Fix
 from closecall.review.ledger.entry import GENESIS_HASH, entry_hash, signed_message
 from closecall.review.ledger.store import DamagedLedger, Ledger, NoLedger, open_ledger
+
+if TYPE_CHECKING:
+    from closecall.review.ledger.pg_store import PgLedger
 
 
 @dataclass(frozen=True)
@@ -165,7 +168,7 @@ class _Authorship:
 
 
 def verify_chain(
-    ledger: Ledger, anchor: str | None = None, keys: Mapping[str, str] | None = None
+    ledger: Ledger | PgLedger, anchor: str | None = None, keys: Mapping[str, str] | None = None
 ) -> VerifyResult:
     """Recompute every hash of ``ledger``, check every link and, with ``keys`` (login ->
     base64 Ed25519 public key), every signature; see the module docstring."""
@@ -326,7 +329,8 @@ def verify_file(
     allow_empty: bool = False,
     keys: Mapping[str, str] | None = None,
 ) -> VerifyResult:
-    """Verify the ledger file at ``path``: its presence, structure and chain.
+    """Verify the ledger file at ``path`` (or the PostgreSQL ledger a URL names): its
+    presence, structure and chain.
 
     A missing file, a file with no tables and a ledger with no entries are each a problem
     (``no-ledger``, ``empty-ledger``, ``no-entries``) unless ``allow_empty``; a folder or a
@@ -340,8 +344,12 @@ def verify_file(
         The file could not be read for a reason outside it (permissions, a lock held by
         another program) or was written by a newer closecall.
     """
-    path = Path(path)
     anchor = anchor.strip().lower() if anchor else None
+    from closecall.review.ledger.backend import is_database
+
+    if is_database(path):
+        return _verify_database(str(path), anchor, allow_empty, keys)
+    path = Path(path)
     if not path.exists():  # (a dangling link too)
         return _nothing(_missing_file(path), anchor, allow_empty, path)
     try:
@@ -360,7 +368,30 @@ def verify_file(
     return result
 
 
-def _nothing(problem: Problem, anchor: str | None, allow_empty: bool, path: Path) -> VerifyResult:
+def _verify_database(
+    url: str, anchor: str | None, allow_empty: bool, keys: Mapping[str, str] | None
+) -> VerifyResult:
+    """:func:`verify_file` for a PostgreSQL ledger: the guards, privileges, policies and the
+    chain; a database without entries is ``no-entries`` unless ``allow_empty``."""
+    from closecall.review.ledger.pg_store import open_pg_ledger
+
+    with open_pg_ledger(url, inspect=True) as ledger:
+        result = verify_chain(ledger, anchor, keys)
+        where = ledger.path
+    if result.entries == 0 and result.ok:
+        problem = Problem(
+            "no-entries",
+            None,
+            f"the ledger {where} holds no entries (none recorded yet, or all removed). Restore "
+            f"it from a backup if reviews were recorded, or {_ALLOW}",
+        )
+        return _nothing(problem, anchor, allow_empty, where)
+    return result
+
+
+def _nothing(
+    problem: Problem, anchor: str | None, allow_empty: bool, path: Path | str
+) -> VerifyResult:
     """The result for a ledger with nothing in it: ``problem`` unless empty is allowed."""
     problems = [] if allow_empty else [problem]
     if anchor is not None and anchor != GENESIS_HASH:

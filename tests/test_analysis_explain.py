@@ -34,6 +34,7 @@ KEYS = {
     "neighbours",
     "proxies",
     "fit_flags",  # issue 10: flags of the fits that scored the case
+    "deployed_card",  # issue 15: the deployed scorecard's own reasons (None without a card)
 }
 
 

@@ -17,39 +17,10 @@ import pytest
 from scipy.special import expit
 from sklearn.metrics import log_loss, roc_auc_score
 
-from closecall.setup.demo import DEMO_SCORECARD, write_demo
+from closecall.setup.demo import DEMO_SCORECARD
 from closecall.suite.opening import OpenedStudy, open_study
 from closecall.suite.scorecard_study import card_meta, deployed_card
-
-
-def card_study(folder: Path, card: str = DEMO_SCORECARD, *, cases: int = 1500) -> Path:
-    """A demo study whose deployed model is ``card`` (written as scorecard.csv)."""
-    config = write_demo(folder, cases=cases, seed=3)
-    (folder / "scorecard.csv").write_text(card)
-    text = config.read_text()
-    if 'deployed_score = "deployed_score"' in text:
-        text = text.replace('deployed_score = "deployed_score"', "")
-        text += '\n[deployed]\nscorecard = "scorecard.csv"\n'
-    config.write_text(text)
-    return config
-
-
-def demo_points(frame: pd.DataFrame) -> np.ndarray:
-    """The demo card's points recomputed with plain pandas/NumPy, row by row of the card."""
-    inc, q = frame["household_income_k"], frame["quotes_obtained"]
-    age, dist = frame["dwelling_age"], frame["depot_distance_km"]
-    share = frame["self_funded_share"]
-    return (
-        474
-        + np.select([inc < 25, inc < 35, inc < 45, inc < 60], [-12, -5, 0, 8], 20)
-        + np.select([q < 1, q < 2, q < 3], [0, 10, 20], 30)
-        + np.select([age.isna(), age < 40, age < 80], [0, 4, 0], -4)
-        + np.where(frame["prior_grant"] == "yes", 12, 0)
-        + np.select([dist < 5, dist < 10], [3, 0], -4)
-        + np.select([share < 0.1, share < 0.2, share < 0.3, share < 0.4], [0, 4, 9, 15], 21)
-        + np.where(frame["energy_label"].isin(["E", "F", "G"]), -7, 0)
-        + np.where(frame["heritage"] == "Briar", -18, 0)
-    ).astype(float)
+from scorecard_helpers import card_study, demo_points
 
 
 @pytest.fixture(scope="module")

@@ -44,6 +44,9 @@ proxies : {"flagged": [feature names], "recoverability_auc": float}
 fit_flags : {"this_case": [flags of the fits that scored this case], "in_snapshot": int}; a flag
     is a dict described in closecall.suite.fit_flags (separation, one outcome value, …: the fit was
     kept with a penalty despite the problem)
+deployed_card : None without ``[deployed] scorecard``; else the card's own reasons for the case
+    (points, margin against its cut-off, contributions, group and proxy parts, neutralised
+    margins, counterparts, similar cases; keys in closecall.analysis.deployed_card.explain_card)
 
 All margins are in log-odds; > 0 means the favourable decision.
 """
@@ -56,6 +59,7 @@ import numpy as np
 
 from closecall.analysis.counterparts import counterparts_for_case
 from closecall.analysis.dependence import dependence, rests_on_uncertainty
+from closecall.analysis.deployed_card import explain_card
 from closecall.analysis.multiplicity import UNCERTAINTY_EPSILON, bands, exact_band
 from closecall.analysis.neighbours import neighbours_for_case
 from closecall.core.vocabulary import decision_word
@@ -134,6 +138,7 @@ def explain_case(
             if not np.isfinite(exact_part[k]):
                 exact_part[k] = None
 
+    neighbours = _with_reviews(config, neighbours_for_case(snap, i, config.multiplicity.neighbours))
     return {
         "case_id": str(snap.case_ids[i]),
         "snapshot": snap.id,
@@ -184,9 +189,7 @@ def explain_case(
             "quad": float(b.quad[i]),
             "exact": exact_part,
         },
-        "neighbours": _with_reviews(
-            config, neighbours_for_case(snap, i, config.multiplicity.neighbours)
-        ),
+        "neighbours": neighbours,
         "proxies": {
             "flagged": snap.proxies.proxies,
             "recoverability_auc": snap.proxies.recoverability,
@@ -195,6 +198,9 @@ def explain_case(
             "this_case": case_fit_flags(snap, i),
             "in_snapshot": len(snapshot_flags(snap)),
         },
+        "deployed_card": explain_card(
+            snap, i, values, [str(n["case_id"]) for n in neighbours["neighbours"]]
+        ),
     }
 
 

@@ -277,6 +277,111 @@ def _print_explanation(d: dict[str, Any]) -> None:
     _say(f"favourable among them: {_pct(nb['favourable_share'])}")
     _say(f"favourable among the {nb['k']} nearest of each group: {per_group}")
     _say(_txt(f"proxies flagged: {', '.join(d['proxies']['flagged']) or 'none'}", "dim"))
+    if d.get("deployed_card") is not None:
+        _print_card(d["deployed_card"])
+
+
+def _pts(x: float) -> str:
+    """Signed points, with the same minus sign as the log-odds."""
+    return f"{x:+.4g}".replace("-", "−")
+
+
+def _print_card(c: dict[str, Any]) -> None:
+    """The deployed scorecard's own reasons (docs/scorecard.md explains every figure)."""
+    lo = c["margin"] is not None
+    _heading(f"The deployed scorecard's own reasons ({safe_text(c['card'])})")
+    line = Text(
+        f"{c['points']:.4g} points, cut-off {c['cutoff']:.4g}: margin {_pts(c['margin_points'])} "
+        "points"
+    )
+    if lo:
+        line.append(f" = {_signed(c['margin'], 3)} log-odds")
+    line.append(" → ")
+    line.append_text(_decision(1.0 if c["decision"] == "favourable" else -1.0))
+    console.print(line)
+    if c["probability"] is not None:
+        _say(
+            _txt(
+                f"P(favourable) {c['probability']:.3f} on the card's "
+                + ("own scale" if c["scaling"] in ("card", "log-odds") else "recalibrated scale"),
+                "dim",
+            )
+        )
+    t = _grid("feature", "value", "role", "points", "average", "contribution", right=(3, 4, 5))
+    for row in c["contributions"]:
+        role = row["role"].upper() if row["role"] != "other" else ""
+        t.add_row(
+            _txt(row["feature"]),
+            _txt(_value(row["value"])),
+            _txt(role, "bold magenta" if role else ""),
+            _pts(row["points"]),
+            f"{row['mean_points']:.3g}",
+            _pts(row["contribution_points"])
+            + (f" ({_signed(row['contribution'], 3)})" if lo else ""),
+        )
+    t.add_row(
+        _txt("+ baseline"),
+        "",
+        "",
+        "",
+        "",
+        _pts(c["baseline_points"]) + (f" ({_signed(c['baseline'], 3)})" if lo else ""),
+    )
+    console.print(t)
+    _say(
+        f"group {_pts(c['group_part_points'])} · proxies {_pts(c['proxy_part_points'])} · "
+        f"rest {_pts(c['rest_points'])} points (contribution = points − the history average)"
+    )
+    t = _grid("neutralised", "margin (points)", "decision", "", right=(1,))
+    for label, key, flag, what in (
+        ("the group", "margin_group_neutral_points", "rests_on_group", "rests on the group"),
+        (
+            "group and proxies",
+            "margin_neutral_points",
+            "rests_on_proxies",
+            "rests on group/proxies",
+        ),
+    ):
+        t.add_row(
+            _txt(label),
+            _pts(c[key]),
+            _decision(1.0 if c[key] >= 0 else -1.0),
+            _txt(f"{FLAG} FLIPS: {what}" if c[flag] else "same decision", "bold"),
+        )
+    console.print(t)
+    t = _grid("as group", "what changes", "margin (points)", "decision", "", right=(2,))
+    for cp in c["counterparts"]:
+        for label, mkey, fkey in (
+            ("group only", "margin_group_swapped", "flips_group_swapped"),
+            ("group; proxies carried", "margin_carried", "flips_carried"),
+        ):
+            if cp[mkey] is None:
+                continue
+            t.add_row(
+                _txt(cp["group"]),
+                _txt(label),
+                _pts(cp[mkey]),
+                _decision(1.0 if cp[mkey] >= 0 else -1.0),
+                _txt(f"{FLAG} FLIPS" if cp[fkey] else "same", "bold"),
+            )
+    console.print(t)
+    if c["similar_cases"]:
+        cases = ", ".join(
+            f"{safe_text(n['case_id'])} {n['points']:.4g} ({n['decision']})"
+            for n in c["similar_cases"]
+        )
+        _say(f"the similar past cases on the card: {cases}")
+    for text in c["cannot"]:
+        _say(_txt(f"cannot be computed: {text}", "bold"))
+    for text in c["notes"]:
+        _say(_txt(text, "dim"))
+    _say(
+        _txt(
+            "the card decides favourable at or above its cut-off; under a cost lens the suite "
+            "compares its probability with the lens threshold (docs/scorecard.md)",
+            "dim",
+        )
+    )
 
 
 def _print_fit_flags(ff: dict[str, Any]) -> None:

@@ -19,7 +19,6 @@ from typing import Any
 
 import numpy as np
 
-from closecall.core.errors import UserError
 from closecall.setup.config import StudyConfig
 from closecall.setup.load import StudyData
 from closecall.suite.scorecard import (
@@ -30,7 +29,6 @@ from closecall.suite.scorecard import (
     recalibrate,
     unseen_levels,
 )
-from closecall.suite.snapshot import REFIT_FIX
 
 META_KEY = "deployed_card"
 POINTS = "card__points"
@@ -147,11 +145,4 @@ def deployed_card(opened: Any) -> Scorecard | None:
     ``opened`` is a :class:`closecall.suite.opening.OpenedStudy`.
     """
     meta = card_meta(opened.snapshot)
-    if meta is None:
-        if opened.config.deployed.scorecard is not None:
-            raise UserError(
-                f"snapshot {opened.snapshot.id} has no scorecard results",
-                REFIT_FIX,
-            )
-        return None
-    return Scorecard.from_json(meta["card"])
+    return None if meta is None else Scorecard.from_json(meta["card"])

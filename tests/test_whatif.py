@@ -228,3 +228,29 @@ def test_cli_table_names_the_counts_per_group(study: Study, demo_config: Path, c
             if line.split()
         ), g
     assert result.case_ids[0] in res.out
+
+
+def test_queue_changed_by_lists_exactly_the_changed_cases(study: Study) -> None:
+    from closecall import QueueQuery
+
+    snap = study.opened.snapshot
+    t = snap.lenses[0].threshold
+    after = np.asarray(snap.logit("split")) > logit(t)
+    # Reference: the changed cases recomputed with NumPy from the snapshot's log-odds
+    expected = set(snap.case_ids[_baseline(snap) != after].astype(str))
+    listed = study.queue(QueueQuery(changed_by="model=split", limit=None)).case_ids
+    assert set(listed) == expected and len(listed) == len(expected) > 0
+    grouped = study.queue(QueueQuery(changed_by="model=split", group="Briar")).case_ids
+    briar = set(snap.case_ids[snap.group_labels == "Briar"].astype(str))
+    assert set(grouped) == expected & briar
+
+
+def test_cli_queue_changed_by(study: Study, demo_config: Path, cli: Any) -> None:
+    res = cli(
+        "queue", "--config", str(demo_config), "--changed-by", "model=unaware", "--limit", "0",
+        "--json",
+    )  # fmt: skip
+    assert res.code == 0, res
+    data = json.loads(res.out)
+    assert data["filters"]["changed_by"] == "model=unaware"
+    assert {r["case_id"] for r in data["rows"]} == set(study.whatif(model="unaware").case_ids)

@@ -68,8 +68,9 @@ BAD_POLICIES = [
     (["--lens", "reckless"], ("--lens", "equal-costs")),
     (["--against", "colour=red"], ("--against", "drop=heritage")),
     (["--against", "model"], ("--against",)),
-    (["--against", "model=nonesuch"], ("--model", "nonesuch")),
-    (["--against", "threshold=Briar=2"], ("--group-threshold", "out of range")),
+    (["--against", "model=nonesuch"], ("--against", "nonesuch")),
+    (["--against", "threshold=Briar=2"], ("--against", "out of range", "threshold")),
+    (["--against", "drop=heritage"], ("--against", "imported as scores")),
     (["--level", "1"], ("--level",)),
     (["--level", "0"], ("--level",)),
     (["--level", "nan"], ("--level",)),
@@ -139,3 +140,25 @@ class TestLibrary:
             study.whatif(**kwargs)
         assert err.value.fix and err.value.about
         assert_unchanged(before, study_dir)
+
+
+class TestQueueChangedBy:
+    @pytest.mark.parametrize(
+        ("policy", "needles"),
+        [
+            ("drop", ("--changed-by", "drop=heritage")),
+            ("colour=red", ("--changed-by",)),
+            ("model=nonesuch", ("--changed-by", "nonesuch")),
+            ("threshold=Nowhere=0.3", ("--changed-by", "Nowhere", "threshold")),
+            ("threshold=Briar=7", ("--changed-by", "out of range")),
+            ("drop=heritage", ("--changed-by", "imported as scores")),
+        ],
+    )
+    def test_refused_and_unchanged(
+        self, study_dir: Path, cli: Any, policy: str, needles: tuple[str, ...]
+    ) -> None:
+        before = study_digests(study_dir)
+        before.pop(DIGEST_CACHE, None)
+        res = cli("queue", "--config", str(study_dir / "closecall.toml"), "--changed-by", policy)
+        assert_refused(res, *needles)
+        assert_unchanged(before, study_dir, allow_new=(DIGEST_CACHE,))

@@ -39,6 +39,7 @@ from closecall.analysis.whatif_policy import (
     POLICY_KEYS,
     Policy,
     PolicyScores,
+    in_policy_text,
     parse_group_threshold,
 )
 from closecall.core.errors import Fix, UserError
@@ -186,6 +187,35 @@ def policy_scores(study: OpenedStudy, policy: Policy) -> PolicyScores:
     return PolicyScores(shown, shown.label(), margin, held, source, tuple(notes))
 
 
+def policy_choices(study: OpenedStudy) -> list[Policy]:
+    """The policies worth weighing first, in order: the deployed scorecard with each of its
+    features' weights set to zero (the group attribute's first), every other model of the
+    suite, and the model in force under every other cost lens."""
+    snap = study.snapshot
+    model = baseline_model(snap)
+    card = _card(study) if model == DEPLOYED else None
+    out: list[Policy] = []
+    if card is not None:
+        group = set(snap.meta.get("group_columns", []))
+        features = sorted(card.features, key=lambda f: f not in group)
+        out += [Policy(drop=(f,)) for f in features]
+    out += [Policy(model=m) for m in snap.model_names if m != model]
+    first = None if card is not None else snap.lenses[0].name
+    out += [Policy(lens=lens.name) for lens in snap.lenses if lens.name != first]
+    return out
+
+
+def policy_from_text(study: OpenedStudy, text: str) -> Policy:
+    """A policy from its text form, checked against the study (its model, lens, group levels
+    and dropped features); every refusal is about the text (field ``policy``)."""
+    policy = Policy.parse(text)
+    try:
+        policy_scores(study, policy)
+    except UserError as exc:
+        raise in_policy_text(exc) from None
+    return policy
+
+
 def changed_rows(
     study: OpenedStudy, policy: Policy, against: Policy | None = None
 ) -> tuple[np.ndarray, np.ndarray]:
@@ -204,6 +234,8 @@ __all__ = [
     "baseline_model",
     "changed_rows",
     "parse_group_threshold",
+    "policy_choices",
+    "policy_from_text",
     "policy_scores",
     "resolve",
 ]

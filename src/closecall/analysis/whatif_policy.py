@@ -95,13 +95,21 @@ class Policy:
 
     @classmethod
     def parse(cls, text: str) -> Policy:
-        """A policy from its text form (see the module docstring); UserError naming the item.
+        """A policy from its text form; UserError about the text (field ``policy``) naming the
+        item, with the policy's own keys in the fix.
 
         Examples
         --------
         >>> Policy.parse("model=split; lens=cautious")
         Policy(model='split', lens='cautious', drop=(), group_thresholds=())
         """
+        try:
+            return cls._parse(text)
+        except UserError as exc:
+            raise in_policy_text(exc) from None
+
+    @classmethod
+    def _parse(cls, text: str) -> Policy:
         model: str | None = None
         lens: str | None = None
         drop: list[str] = []
@@ -129,6 +137,16 @@ class Policy:
             else:
                 thresholds.append(parse_group_threshold(value))
         return cls(model, lens, tuple(drop), tuple(thresholds))
+
+
+def in_policy_text(exc: UserError) -> UserError:
+    """A refusal of something inside a policy's text, made about the text (field ``policy``):
+    the fix names the policy's keys (``threshold``, ``drop``…), not the fields."""
+    if exc.about == "policy":
+        return exc
+    key = {"group_threshold": "threshold"}
+    fix = exc.worded_fix(lambda field: key.get(field, field))
+    return UserError(exc.problem, fix, about="policy")
 
 
 def parse_group_threshold(text: str) -> tuple[str, float]:

@@ -334,7 +334,7 @@ class Study:
         >>> result.by_group["Briar"]["to_favourable"]  # doctest: +SKIP
         >>> result.to_frame().head()  # doctest: +SKIP
         """
-        from closecall.analysis.whatif import Policy
+        from closecall.analysis.whatif import Policy, policy_from_text
         from closecall.analysis.whatif_figures import figures_dict, whatif
 
         policy = Policy(
@@ -343,7 +343,7 @@ class Study:
             drop=tuple(str(f) for f in drop),
             group_thresholds=tuple((str(k), v) for k, v in (group_thresholds or {}).items()),
         )
-        other = Policy.parse(against) if against is not None else None
+        other = policy_from_text(self.opened, against) if against is not None else None
         snap = self.opened.snapshot
         fig = whatif(self.opened, policy, other, level=level)
         data = figures_dict(fig, snap.case_ids, snap.group_labels)

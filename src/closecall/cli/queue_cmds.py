@@ -36,6 +36,12 @@ def queue(
         None, "--band", help="Review band in log-odds (default: config)."
     ),
     all_cases: bool = typer.Option(False, "--all", help="List every case, not only close calls."),
+    changed_by: str | None = typer.Option(
+        None,
+        "--changed-by",
+        help="Only the cases whose decision this what-if policy changes, close calls or not "
+        "(e.g. 'drop=heritage'; see closecall whatif).",
+    ),
     sort: str = typer.Option(
         "triage",
         "--sort",
@@ -102,6 +108,7 @@ def queue(
         limit=None if limit == 0 else limit,
         id_prefix=id_prefix,
         all_cases=all_cases,
+        changed_by=changed_by,
     )
     study = Study(load(config, quiet=fmt is not Format.table))
     result = study.queue(query)
@@ -137,6 +144,7 @@ def _queue_meta(result: QueueResult, dist: MarginDistribution | None) -> dict[st
             "rests_on": query.rests_on,
             "epsilon": query.epsilon,
             "unreviewed": query.unreviewed,
+            "changed_by": query.changed_by,
         },
     }
     if dist is not None:

@@ -38,15 +38,8 @@ def _say(text: str) -> None:
     console.print(safe_text(text), markup=False, highlight=False, soft_wrap=True)
 
 
-#: The option that sets each engine field of a what-if (the shared table lacks these).
-FLAGS = {
-    "drop": "--drop-weight",
-    "group_threshold": "--group-threshold",
-    "model": "--model",
-    "lens": "--lens",
-    "policy": "--against",
-    "level": "--level",
-}
+#: Fields this command names otherwise than the shared table (cli/errors.py) does.
+FLAGS = {"policy": "--against", "model": "--model", "lens": "--lens", "level": "--level"}
 
 
 def _worded(exc: UserError) -> UserError:

@@ -82,6 +82,10 @@ class QueueQuery:
         Keep case ids starting with this text.
     all_cases
         List every case, not only the close calls.
+    changed_by
+        Keep the cases whose decision a what-if policy changes, against the decision in
+        force, given in its text form (``drop=heritage``, ``model=unaware;lens=cautious``:
+        :class:`closecall.analysis.whatif.Policy`); close calls or not.
 
     Examples
     --------
@@ -104,6 +108,7 @@ class QueueQuery:
     limit: int | None = None
     id_prefix: str | None = None
     all_cases: bool = False
+    changed_by: str | None = None
 
     def __post_init__(self) -> None:
         if self.flips is True:
@@ -138,6 +143,10 @@ class QueueQuery:
                 f"the limit must be a whole number >= 0, not {self.limit!r}",
                 "pass a limit such as 20 (or none for every case)",
             )
+        if self.changed_by is not None:  # the policy's form; the study checks its names
+            from closecall.analysis.whatif_policy import Policy
+
+            Policy.parse(self.changed_by)
 
     def describe(self) -> str:
         """The filters in force, in words (``all close calls`` when there is none).
@@ -161,6 +170,8 @@ class QueueQuery:
             parts.append("unreviewed")
         if self.id_prefix:
             parts.append(f"ids starting {self.id_prefix!r}")
+        if self.changed_by is not None:
+            parts.append(f"changed by {self.changed_by}")
         return " · ".join(parts) or "all close calls"
 
     def to_dict(self) -> dict[str, Any]:
@@ -285,12 +296,14 @@ def answer_queue(
         measures["dependence"] = _analysis(study, "dependence", query, cache)
     if query.sort in MEASURE_SORTS and query.sort not in measures:
         measures[query.sort] = _analysis(study, query.sort, query, cache)
+    if query.changed_by is not None:
+        keep &= _changed_by(study, query.changed_by)
     q = build_queue(
         snap,
         band=float(study.config.review.band if query.band is None else query.band),
         group=query.group,
         flips_only=query.flips or False,
-        close_only=not query.all_cases,
+        close_only=not (query.all_cases or query.changed_by is not None),
         sort="closeness" if query.sort in MEASURE_SORTS else query.sort,
         id_prefix=query.id_prefix,
         exclude_rows=None if keep.all() else ~keep,
@@ -311,6 +324,16 @@ def answer_queue(
             np.count_nonzero(np.isin(ids, [c for c, who in claimed.items() if who]))
         )
     return QueueAnswer(query, q, states, claimed)
+
+
+def _changed_by(study: OpenedStudy, policy: str) -> np.ndarray:
+    """Every case: True where the what-if policy changes the decision in force."""
+    from closecall.analysis.whatif import changed_rows, policy_from_text
+
+    rows, _ = changed_rows(study, policy_from_text(study, policy))
+    changed = np.zeros(study.snapshot.n_cases, dtype=bool)
+    changed[rows] = True
+    return changed
 
 
 def _triage_inputs(

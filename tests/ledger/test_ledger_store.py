@@ -133,7 +133,7 @@ def test_an_old_schema_is_migrated_and_keeps_its_entries(tmp_path: Path) -> None
         assert ledger.drafts.load("x", "A-1") is None and ledger.claims.active() == {}
         assert ledger.verify().ok
     with open_ledger(path) as ledger:  # a writer upgrades it
-        assert ledger_schema.schema_version(ledger.connection) == SCHEMA_VERSION == 3
+        assert ledger_schema.schema_version(ledger.connection) == SCHEMA_VERSION == 4
         assert ledger.entries() == old_entries
         new = ledger.append(content("after"))
         assert new.seq == 4 and new.prev_hash == old_entries[-1].hash

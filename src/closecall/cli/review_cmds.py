@@ -20,6 +20,12 @@ def review(
         "--demo",
         help=f"Open the bundled demo study (written into ./{DEMO_DIR} first if absent).",
     ),
+    plain_ascii: bool | None = typer.Option(
+        None,
+        "--ascii/--no-ascii",
+        help="Draw only ASCII characters, for consoles whose font lacks block, box and arrow "
+        "glyphs (default: on when TERM=linux).",
+    ),
 ) -> None:
     """Triage the close calls, read each case, record decisions — all from the keyboard.
 
@@ -31,19 +37,20 @@ def review(
     Example:
       closecall review --config studies/grants/closecall.toml
       closecall review --demo
+      closecall review --ascii      # a console without box and arrow glyphs
     """
     from closecall.tui.app import ReviewApp
 
     if demo:
         target = DEMO_DIR / CONFIG_NAME
         write = None if target.exists() else DEMO_DIR
-        app = ReviewApp(target, write_demo_to=write)
+        app = ReviewApp(target, write_demo_to=write, plain_ascii=plain_ascii)
     else:
         from closecall.review.decisions import check_ledger
 
         # a bad config or an unusable ledger is one message and exit 2, before the screen opens
         check_ledger(load_config(config))
-        app = ReviewApp(config)
+        app = ReviewApp(config, plain_ascii=plain_ascii)
     app.run()
     if app.return_code:
         raise typer.Exit(app.return_code)

@@ -170,3 +170,62 @@ def sparkline(counts: Sequence[float], peak: float) -> str:
         level = 0 if c <= 0 else max(1, min(top, math.ceil(c / peak * top)))
         out.append(SPARKS[level])
     return "".join(out)
+
+
+# --------------------------------------------------------------------------- plain ASCII
+
+#: Every non-ASCII glyph the views draw, with the one ASCII character that stands for it on a
+#: console whose font lacks it (``closecall review --ascii``; automatic on ``TERM=linux``).
+#: One character for one: columns stay aligned. Legends (help, key bars) go through the same
+#: table, so a mark and its explanation always agree.
+ASCII_GLYPHS = {
+    # cursor, arrows, directions
+    "▶": ">", "▸": ">", "◂": "<", "►": ">", "◀": "<", "→": ">", "←": "<", "↑": "^",
+    "↓": "v", "⇄": "X", "⏎": "J", "▲": "^", "▼": "v",
+    # marks
+    "●": "*", "○": "-", "◉": "x", "◆": "@", "◇": "o", "✓": "+", "✗": "x", "⚑": "!",
+    "≈": "~", "±": "~", "·": ".", "…": ".", "—": "-", "–": "-", "−": "-", "×": "x",
+    "≥": ">", "≤": "<", "“": '"', "”": '"', "‘": "'", "’": "'", "«": "<", "»": ">",
+    "\u00a0": " ", "ε": "e", "½": "h",
+    # lines and corners (box drawing)
+    "─": "-", "━": "=", "│": "|", "┃": "|", "╎": ":", "┆": ":", "┊": ":", "╌": "-",
+    "┼": "+", "┿": "#", "╋": "#", "╂": "+", "═": "=", "║": "|",
+    "╭": "+", "╮": "+", "╰": "+", "╯": "+", "┌": "+", "┐": "+", "└": "+", "┘": "+",
+    "├": "+", "┤": "+", "┬": "+", "┴": "+", "╔": "+", "╗": "+", "╚": "+", "╝": "+",
+    "╶": "-", "╴": "-", "╷": "|", "╵": "|",
+    # blocks: sparklines low to high, bars, borders and scroll bars
+    "▁": ".", "▂": ",", "▃": ":", "▄": "-", "▅": "=", "▆": "+", "▇": "*", "█": "#",
+    "▌": "|", "▐": "|", "▊": "|", "▋": "|", "▍": "|", "▎": "|", "▏": "|", "▉": "#",
+    "▔": "-", "▀": "^", "░": ":", "▒": "%", "▓": "#",
+}  # fmt: skip
+_ASCII_TABLE = str.maketrans(ASCII_GLYPHS)
+
+
+def to_ascii(text: str) -> str:
+    """``text`` with every character below 128, cell for cell (for glyph-poor consoles).
+
+    Glyphs of :data:`ASCII_GLYPHS` become their stand-in; an accented letter loses its accent
+    (``é`` → ``e``); anything else becomes ``?`` — one ``?`` per terminal cell, so a wide
+    character keeps its two cells and the columns after it stay in place.
+
+    Examples
+    --------
+    >>> to_ascii("▶ Zoë ▸▸▸ +0.42 ✓ →fav ━━●━━")
+    '> Zoe >>> +0.42 + >fav ==*=='
+    """
+    if text.isascii():
+        return text
+    out = text.translate(_ASCII_TABLE)
+    if out.isascii():
+        return out
+    return "".join(ch if ch.isascii() else _ascii_char(ch) for ch in out)
+
+
+def _ascii_char(ch: str) -> str:
+    import unicodedata
+
+    if unicodedata.combining(ch) or unicodedata.category(ch) in ("Mn", "Me", "Cf"):
+        return ""  # no cell of its own
+    width = 2 if unicodedata.east_asian_width(ch) in ("W", "F") else 1
+    base = "".join(c for c in unicodedata.normalize("NFKD", ch) if c.isascii())
+    return (base[:width] if base.isprintable() and base else "").ljust(width, "?")

@@ -489,8 +489,9 @@ def drop_draft(study: OpenedStudy, case_id: str) -> None:
             ledger.drafts.drop(login, case_id)
 
 
-def claim_case(study: OpenedStudy, case_id: str) -> Claim:
-    """Show others that this login has ``case_id`` open, for ``[review] claim_minutes``.
+def claim_case(study: OpenedStudy, case_id: str, instance: str | None = None) -> Claim:
+    """Show others that this login has ``case_id`` open, for ``[review] claim_minutes``;
+    ``instance`` names the review screen holding it (see :func:`release_claim`).
 
     A claim is advice only: it never stops anyone from recording.
     """
@@ -498,16 +499,18 @@ def claim_case(study: OpenedStudy, case_id: str) -> Claim:
     login = require_record(config.review, config.path)
     study.snapshot.case_index(case_id)
     with open_any_ledger(config.review.ledger) as ledger:
-        return ledger.claims.take(case_id, login, config.review.claim_minutes)
+        return ledger.claims.take(case_id, login, config.review.claim_minutes, instance)
 
 
-def release_claim(study: OpenedStudy, case_id: str) -> None:
-    """Withdraw this login's claim on ``case_id`` (no-op if there is none)."""
+def release_claim(study: OpenedStudy, case_id: str, instance: str | None = None) -> None:
+    """Withdraw this login's claim on ``case_id`` (no-op if there is none); with
+    ``instance``, only while that review screen holds it (a newer one of the same login keeps
+    its claim)."""
     config = study.config
     login = require_record(config.review, config.path)
     if ledger_present(config.review.ledger):
         with open_any_ledger(config.review.ledger) as ledger:
-            ledger.claims.release(case_id, login)
+            ledger.claims.release(case_id, login, instance)
 
 
 def active_claims(

@@ -17,6 +17,7 @@ from textual.screen import Screen
 from closecall.core.errors import UserError
 from closecall.core.text import safe_text
 from closecall.suite.opening import OpenedStudy
+from closecall.tui.ascii_mode import AsciiFilter, ascii_wanted
 from closecall.tui.decision_dialog import DecisionDialog
 from closecall.tui.queue_screen import QueueScreen
 from closecall.tui.session import Clock, ReviewSession, utc_clock
@@ -35,6 +36,8 @@ class ReviewApp(App[None]):
         Write the demo study into this folder first (``review --demo``).
     login, clock
         Shown as "you" and used as "now" on screen (tests inject fixed ones).
+    plain_ascii
+        Draw only ASCII characters (``review --ascii``); None: only when ``TERM=linux``.
     """
 
     CSS_PATH = "review.tcss"
@@ -51,8 +54,12 @@ class ReviewApp(App[None]):
         write_demo_to: Path | None = None,
         login: str | None = None,
         clock: Clock = utc_clock,
+        plain_ascii: bool | None = None,
     ) -> None:
         super().__init__()
+        self.plain_ascii = ascii_wanted(plain_ascii)
+        if self.plain_ascii:  # the same mechanism Textual uses for NO_COLOR
+            self._filters.append(AsciiFilter())
         self.config_path = config_path
         self.study = study
         self.write_demo_to = write_demo_to
@@ -83,18 +90,25 @@ class ReviewApp(App[None]):
         return None
 
     async def action_quit(self) -> None:
+        """Quit; asks first while a typed note is not recorded or saved drafts remain (and
+        names them)."""
+        from closecall.tui.confirm_quit import ConfirmQuit
+
+        if any(isinstance(s, ConfirmQuit) for s in self.screen_stack):
+            return
         dialog = self.open_dialog()
         if dialog is not None and dialog.has_unrecorded_note:
-            from closecall.tui.confirm_quit import ConfirmQuit
-
-            if not any(isinstance(s, ConfirmQuit) for s in self.screen_stack):
-                others = self._other_drafts(dialog.case_id)
-                self.push_screen(ConfirmQuit(dialog.case_id, others), self._quit_answer)
+            others = self._other_drafts(dialog.case_id)
+            self.push_screen(ConfirmQuit(dialog.case_id, others), self._quit_answer)
+            return
+        drafts = self._other_drafts(dialog.case_id if dialog is not None else None)
+        if drafts:
+            self.push_screen(ConfirmQuit(None, drafts), self._quit_answer)
             return
         self._save_drafts()
         self.exit()
 
-    def _other_drafts(self, case_id: str) -> list[str]:
+    def _other_drafts(self, case_id: str | None) -> list[str]:
         """Case ids of this login's saved drafts other than ``case_id`` (newest first)."""
         from closecall.review.decisions import my_drafts
 
@@ -125,7 +139,7 @@ class ReviewApp(App[None]):
         for screen in self.screen_stack:
             if isinstance(screen, (CaseScreen, DecisionDialog)):
                 with contextlib.suppress(UserError):
-                    release_claim(self.session.study, screen.case_id)
+                    release_claim(self.session.study, screen.case_id, self.session.instance)
 
     def _hangup(self) -> None:
         """The terminal went away (SSH dropped): keep the draft, then leave."""
@@ -145,7 +159,8 @@ class ReviewApp(App[None]):
         snap = self.session.snap
         lenses = [lens.name for lens in snap.lenses]
         here = type(self.screen)  # help opens at this screen's keys
-        self.push_screen(HelpScreen(snap.model_names, lenses, snap.reference, here))
+        help_ = HelpScreen(snap.model_names, lenses, snap.reference, here, self.plain_ascii)
+        self.push_screen(help_)
 
     def action_ledger(self) -> None:
         from closecall.tui.ledger_screen import LedgerScreen

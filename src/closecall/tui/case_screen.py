@@ -190,7 +190,7 @@ class CaseScreen(Screen[None]):
         session = self.session
         case_id = str(session.snap.case_ids[row])
         try:
-            claim_case(session.study, case_id)
+            claim_case(session.study, case_id, session.instance)
             half = {m: session.half_width(m, row) for m in session.snap.model_names}
             explained = analysis_bridge.explain(session.study, case_id)
             history = case_history(session.study, case_id)
@@ -268,7 +268,7 @@ class CaseScreen(Screen[None]):
     @work(thread=True, group="claims")
     def _release(self, case_id: str) -> None:
         with contextlib.suppress(UserError):  # a claim is advice and expires by itself
-            release_claim(self.session.study, case_id)
+            release_claim(self.session.study, case_id, self.session.instance)
 
     def action_scroll(self, step: int) -> None:
         body = self.query_one("#case-body", VerticalScroll)

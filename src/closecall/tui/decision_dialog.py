@@ -111,7 +111,7 @@ class DecisionDialog(ModalScreen[Entry | None]):
             self.seen_seq = last_seq(self.session.config)
             draft = load_draft(self.session.study, self.case_id)
             if self._claim:
-                claim_case(self.session.study, self.case_id)
+                claim_case(self.session.study, self.case_id, self.session.instance)
         except UserError as exc:  # e.g. a ledger damaged meanwhile: say so, never crash
             self.app.call_from_thread(self.say, exc.message)
         self.app.call_from_thread(self._loaded, draft)
@@ -122,9 +122,13 @@ class DecisionDialog(ModalScreen[Entry | None]):
         if isinstance(draft, Draft):
             value = DraftValue(draft.note, draft.action, draft.reason)
             self.keeper = DraftKeeper(self.session.study, self.case_id, saved=value)
-            self.query_one("#note", TextArea).load_text(draft.note)
+            note = self.query_one("#note", TextArea)
+            typed = note.text  # anything typed into the note while the draft was loading
+            note.load_text(draft.note + typed)
             self.query_one("#action", ChoiceList).choose_value(draft.action)
             self.query_one("#reason", ChoiceList).choose_value(draft.reason)
+            note.move_cursor(note.document.end)  # typing on appends to the note
+            note.focus()
             self.say(f"draft restored (last saved {draft.updated[:16].replace('T', ' ')} UTC)")
         self._loading = False
 
@@ -283,7 +287,7 @@ class DecisionDialog(ModalScreen[Entry | None]):
     @work(thread=True, group="claims")
     def _release(self) -> None:
         with contextlib.suppress(UserError):  # a claim is advice and expires by itself
-            release_claim(self.session.study, self.case_id)
+            release_claim(self.session.study, self.case_id, self.session.instance)
 
     def say(self, message: str) -> None:
         self.query_one("#dialog-status", Static).update(message)

@@ -83,7 +83,7 @@ MEANINGS = [
 ]
 
 
-def _keys_of(title: str, bindings: list[BindingType]) -> Text:
+def _keys_of(title: str, bindings: list[BindingType], plain: bool = False) -> Text:
     """One line per binding, each key written once (the first binding of a key wins)."""
     text = Text()
     if title:
@@ -96,7 +96,8 @@ def _keys_of(title: str, bindings: list[BindingType]) -> Text:
         if not keys:
             continue
         seen.update(keys)
-        label = key_label(b) if b.key_display else "/".join(one_key(k) for k in keys)
+        spelled = "/".join(one_key(k, plain) for k in keys)
+        label = key_label(b, plain) if b.key_display else spelled
         text.append(f"  {label:<12}")
         text.append(f" {b.description}\n")
     return text
@@ -122,23 +123,28 @@ def screen_keys() -> list[tuple[type, str, list[BindingType]]]:
 
 
 def help_text(
-    model_names: list[str], lens_names: list[str], reference: str, here: type | None = None
+    model_names: list[str],
+    lens_names: list[str],
+    reference: str,
+    here: type | None = None,
+    plain: bool = False,
 ) -> Text:
     """The help page as one text (also used by docs and tests).
 
     ``here`` is the screen help was opened from: its keys come first, under "Keys here".
+    ``plain`` writes keys in words (ASCII mode).
     """
     sections = screen_keys()
     current = [s for s in sections if here is not None and issubclass(here, s[0])]
     text = Text()
     for _, name, bindings in current:
         text.append(f"Keys here: {name}\n", "bold underline")
-        text.append(_keys_of("", bindings))
+        text.append(_keys_of("", bindings, plain))
         text.append("\n")
     text.append("Keys\n" if not current else "Keys on the other screens\n", "bold underline")
     for cls, name, bindings in sections:
         if not current or cls is not current[0][0]:
-            text.append(_keys_of(name, bindings))
+            text.append(_keys_of(name, bindings, plain))
     text.append("Anywhere\n", "bold")
     text.append("  ^p           commands (every action by name)\n")
     text.append("  ^q           quit (asks first if a note is not recorded)\n\n")
@@ -154,8 +160,9 @@ def help_text(
     text.append("  band: a small axis around the threshold: ┼ threshold, ━ band, ● margin,\n")
     text.append(f"    ┿ the band crosses the threshold; {AMBIGUOUS} after it = ambiguous\n")
     text.append("  state: " + ", ".join(STATE_WORD.values()))
-    text.append(f", {CLAIM_OTHER} name = someone has it open")
-    text.append(f", {CLAIM_MINE} you = you have it open\n")
+    text.append(" ('open' = no decision yet);")
+    text.append(f" {CLAIM_OTHER} name = claimed: someone is reading it now")
+    text.append(f", {CLAIM_MINE} you = claimed by you (a claim never blocks)\n")
     text.append("  actions in the ledger: " + ", ".join(ACTION_SHORT.values()) + "\n")
     text.append("  chart: each group's cases near the threshold (│), [ ] the review band;\n")
     text.append("    each line is scaled to its own tallest bar\n")
@@ -188,10 +195,11 @@ class HelpScreen(Screen[None]):
         lens_names: list[str],
         reference: str,
         here: type | None = None,
+        plain: bool = False,
     ) -> None:
         super().__init__()
         self.here = here
-        self._text = help_text(model_names, lens_names, reference, here)
+        self._text = help_text(model_names, lens_names, reference, here, plain)
 
     def compose(self) -> ComposeResult:
         yield Static(Text("Help ─ keys, meanings, cautions", style="bold"), id="title")

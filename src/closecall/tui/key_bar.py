@@ -23,22 +23,31 @@ KEY_NAMES = {
     "end": "End",
 }
 
+#: The same keys in words, for plain ASCII mode (no glyphs).
+PLAIN_KEY_NAMES = {"enter": "enter", "down": "down", "up": "up"}
 
-def one_key(key: str) -> str:
-    """How one key is written on screen (``⏎`` for enter, ``^r`` for ctrl+r)."""
+
+def one_key(key: str, plain: bool = False) -> str:
+    """How one key is written on screen (``⏎`` for enter, ``^r`` for ctrl+r; ``enter`` when
+    ``plain``)."""
     if key.startswith("ctrl+"):
         return "^" + key[5:]
+    if plain and key in PLAIN_KEY_NAMES:
+        return PLAIN_KEY_NAMES[key]
     return KEY_NAMES.get(key, key)
 
 
-def key_label(binding: Binding) -> str:
+def key_label(binding: Binding, plain: bool = False) -> str:
     """How a binding's first key is written on screen."""
-    return binding.key_display or one_key(binding.key.split(",")[0])
+    first = binding.key.split(",")[0]
+    if binding.key_display and not (plain and not binding.key_display.isascii()):
+        return binding.key_display
+    return one_key(first, plain)
 
 
-def all_keys_label(binding: Binding) -> str:
+def all_keys_label(binding: Binding, plain: bool = False) -> str:
     """Every key of a binding, e.g. ``↓/j``."""
-    return "/".join(one_key(k.strip()) for k in binding.key.split(","))
+    return "/".join(one_key(k.strip(), plain) for k in binding.key.split(","))
 
 
 class KeyBar(Widget):
@@ -52,10 +61,11 @@ class KeyBar(Widget):
 
     def render(self) -> Text:
         key_style = self.get_component_rich_style("key-bar--key", partial=True)
+        plain = bool(getattr(self.app, "plain_ascii", False))
         text = Text(no_wrap=True, overflow="ellipsis")
         for i, b in enumerate(self._shown):
             if i:
                 text.append(" ")
-            text.append(f"{key_label(b)}", key_style)
+            text.append(key_label(b, plain), key_style)
             text.append(f" {b.description}")
         return text

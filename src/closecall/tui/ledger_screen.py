@@ -30,6 +30,12 @@ FILTER_PAUSE_SECONDS = 0.3
 
 
 TITLE_PATH_CELLS = 68  # fits the title line at 80 columns
+WIDE = 110  # from this width the table has a reason column (the entry below always shows it)
+REVIEWER_CELLS, CASE_CELLS, REASON_CELLS = 12, 14, 24  # cut in the table, whole below it
+# cells left of the note column: seq, time, reviewer, case, action (+ reason), each padded by
+# one cell either side, and the scroll bar
+NOTE_AT = 6 + 11 + REVIEWER_CELLS + CASE_CELLS + 9 + 2 * 6 + 1
+NOTE_AT_WIDE = NOTE_AT + REASON_CELLS + 2
 
 
 FILTER_PROMPT = {
@@ -65,6 +71,7 @@ class LedgerScreen(Screen[None]):
         self._timer: Timer | None = None
         self.shown: Entry | None = None  # the entry shown below the table
         self.verified_once = False
+        self.with_reason = True
 
     def compose(self) -> ComposeResult:
         where = str(self.session.config.review.ledger)
@@ -89,7 +96,9 @@ class LedgerScreen(Screen[None]):
 
     def on_mount(self) -> None:
         table = self.query_one("#entries", DataTable)
-        table.add_columns("seq", "UTC", "reviewer", "case", "action", "reason", "note")
+        self.with_reason = self.size.width >= WIDE
+        names = ["seq", "UTC", "reviewer", "case", "action"]
+        table.add_columns(*names, *(["reason"] if self.with_reason else []), "note")
         table.focus()
         self._request([None])
         self.action_verify()
@@ -97,12 +106,16 @@ class LedgerScreen(Screen[None]):
     # ------------------------------------------------------------------ loading
 
     def _filters(self) -> tuple[str | None, str | None]:
+        if not self.is_attached:
+            return None, None
         reviewer = self.query_one("#by-reviewer", Input).value.strip() or None
         case = self.query_one("#by-case", Input).value.strip() or None
         return reviewer, case
 
     def _request(self, pages: list[int | None]) -> None:
         """Read the page ``pages[-1]`` (entries before that seq; None: the newest) in a worker."""
+        if not self.is_attached:  # a filter's timer may fire after the screen closed
+            return
         self._generation += 1
         self._wanted = pages
         self.query_one("#page", Static).update("  reading…")
@@ -121,7 +134,7 @@ class LedgerScreen(Screen[None]):
         self.app.call_from_thread(self._fill, generation, entries)
 
     def _fill(self, generation: int, entries: list[Entry]) -> None:
-        if generation != self._generation:  # overtaken by a newer filter or page request
+        if generation != self._generation or not self.is_attached:  # overtaken, or closed
             return
         self._pages = self._wanted
         self.has_older = len(entries) > PAGE  # one extra entry read only to know this
@@ -129,17 +142,19 @@ class LedgerScreen(Screen[None]):
         self.query_one("#page", Static).update(self._page_label())
         table = self.query_one("#entries", DataTable)
         table.clear()
+        note_w = max(12, self.size.width - (NOTE_AT_WIDE if self.with_reason else NOTE_AT))
         for e in self.entries:
-            table.add_row(
+            cells = [
                 Text(str(e.seq)),
                 Text(e.time[5:16].replace("T", " ")),
-                Text(safe_text(e.reviewer)),
-                Text(safe_text(e.case_id)),
+                Text(safe_text(e.reviewer)[:REVIEWER_CELLS]),
+                Text(safe_text(e.case_id)[:CASE_CELLS]),
                 Text(ACTION_SHORT.get(e.action, e.action)),
-                Text(safe_text(e.reason or "—")),
-                Text(_preview(e.note, 40)),
-                key=str(e.seq),
-            )
+            ]
+            if self.with_reason:
+                cells.append(Text(_preview(e.reason or "—", REASON_CELLS)))
+            cells.append(Text(_preview(e.note, min(note_w, 60))))
+            table.add_row(*cells, key=str(e.seq))
         if not self.entries:
             self._show_detail("no entries match" if any(self._filters()) else "no entries yet")
         else:
@@ -181,6 +196,8 @@ class LedgerScreen(Screen[None]):
         self.action_open_entry()
 
     def _show_detail(self, message: str) -> None:
+        if not self.is_attached:
+            return
         self.shown = None
         self.query_one("#entry-detail", Static).update(message)
 
@@ -206,6 +223,8 @@ class LedgerScreen(Screen[None]):
         self.app.call_from_thread(self._chain_text, chain_state(result))
 
     def _chain_text(self, text: str) -> None:
+        if not self.is_attached:
+            return
         self.query_one("#chain", Static).update(text)
         if self.verified_once:
             now = self.session.clock().strftime("%H:%M:%S")

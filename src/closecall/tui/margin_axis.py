@@ -93,7 +93,9 @@ class MarginAxis(Widget):
         letters = d.lens_letters or lens_letters(d.lens_names)
         width = self.size.width or 80
         right = 14 + 2 * len(d.lens_names)
-        cells = max(15, width - NAME_WIDTH - right - 1)
+        # every model's name whole (a cut name is a different word), the axis gives way
+        name_w = max([NAME_WIDTH, *(len(short_model(line.name)) + 2 for line in d.lines)])
+        cells = max(15, width - name_w - right - 1)
         cells -= 1 - cells % 2  # odd: the threshold gets the middle cell
         span = d.span()
         mid = cells // 2
@@ -103,11 +105,11 @@ class MarginAxis(Widget):
 
         ticks = {pos(o): letters[k] for k, o in enumerate(d.lens_offsets) if k and abs(o) <= span}
         text = Text(no_wrap=True, overflow="crop")
-        header = f"{'':<{NAME_WIDTH}}{'':<{cells}} {'margin':>6} {'band':>5}  "
+        header = f"{'':<{name_w}}{'':<{cells}} {'margin':>6} {'band':>5}  "
         text.append(header + " ".join(letters) + "\n", self._style("muted"))
         for line in d.lines:
             name = (REFERENCE if line.reference else " ") + short_model(line.name)
-            text.append(f"{name[: NAME_WIDTH - 1]:<{NAME_WIDTH}}")
+            text.append(f"{name:<{name_w}}")
             row = ["·"] * cells
             styles: list[str | None] = [None] * cells
             for p in ticks:
@@ -133,7 +135,7 @@ class MarginAxis(Widget):
             text.append(f" {signed(line.margin):>6}", tone)
             text.append(f" {band:>5}  ")
             text.append(" ".join("+" if f else "−" for f in line.favourable) + "\n")
-        text.append(" " * NAME_WIDTH)
+        text.append(" " * name_w)
         text.append(self._scale(cells, span, ticks), self._style("muted"))
         text.append("  log-odds\n", self._style("muted"))
         legend = (

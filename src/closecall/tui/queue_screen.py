@@ -106,6 +106,8 @@ class QueueScreen(Screen[None]):
         counts.append(f" listed of {c.get('cases', 0):,} │ ")
         counts.append(f"{c.get('within_band', 0):,} within ±{band} · {c.get('flips', 0):,} flips")
         counts.append(f" │ {c['reviewed']:,} reviewed · {c['claimed']:,} claimed")
+        if c.get("drafts"):
+            counts.append(f" · {c['drafts']:,} draft{'s' if c['drafts'] != 1 else ''}", "bold")
         self.query_one("#counts", Static).update(counts)
         s = self.session.settings
         settings = Text(no_wrap=True, overflow="ellipsis")
@@ -273,6 +275,8 @@ class QueueScreen(Screen[None]):
     def _decided(self, entry: Entry | None) -> None:
         if entry is not None:
             self.recorded(entry)
+        else:
+            self._read_ledger()  # a note closed unrecorded is a draft: count it
 
     # ------------------------------------------------------------------ id search
 

@@ -7,6 +7,7 @@ workers) and draw what they return. Everything over all cases is vectorised.
 from __future__ import annotations
 
 import math
+import uuid
 from collections.abc import Callable
 from dataclasses import dataclass, replace
 from datetime import UTC, datetime
@@ -14,8 +15,9 @@ from datetime import UTC, datetime
 import numpy as np
 
 from closecall.analysis.margin_distribution import MarginDistribution, margin_distribution
+from closecall.core.errors import AccessDenied
 from closecall.review.conflicts import study_conflicts
-from closecall.review.decisions import active_claims, latest_actions
+from closecall.review.decisions import active_claims, latest_actions, my_drafts
 from closecall.review.ledger import Claim, ledger_login
 from closecall.review.query import QueueQuery, answer_queue, awaiting_decision
 from closecall.review.queue import Queue
@@ -88,6 +90,10 @@ class ReviewSession:
         self.queue: Queue | None = None
         self.states = np.zeros(self.snap.n_cases, dtype=np.int8)
         self.claims: dict[str, list[Claim]] = {}
+        #: This review screen's id: its claims carry it, and it releases only those.
+        self.instance = uuid.uuid4().hex
+        #: Case ids of this login's saved drafts, newest first (read with the ledger).
+        self.drafts: list[str] = []
         self._measures: dict[str, np.ndarray | None] = {}
         self._half_widths: dict[str, np.ndarray | None] = {}
         self.measures_ready = False
@@ -226,6 +232,13 @@ class ReviewSession:
         self.states = review_states(self.snap, latest)  # codes of closecall.core.vocabulary
         self.states = mark_conflicts(self.snap, self.states, study_conflicts(self.config))
         self.claims = active_claims(self.study)
+        self.drafts = self._my_drafts()
+
+    def _my_drafts(self) -> list[str]:
+        try:
+            return [d.case_id for d in my_drafts(self.study)]
+        except AccessDenied:  # an analyst keeps no drafts
+            return []
 
     def claimed_by_others(self, case_id: str) -> list[str]:
         return [c.reviewer for c in self.claims.get(case_id, []) if c.reviewer != self.login]
@@ -234,7 +247,8 @@ class ReviewSession:
         return any(c.reviewer == self.login for c in self.claims.get(case_id, []))
 
     def counts(self) -> dict[str, int]:
-        """Header counts: the queue's counts plus reviewed and claimed cases."""
+        """Header counts: the queue's counts plus reviewed and claimed cases and this login's
+        drafts."""
         q = self.queue
         out = dict(q.counts) if q is not None else {}
         # of the listed cases, like every count of the queue
@@ -242,6 +256,7 @@ class ReviewSession:
         out["reviewed"] = int(np.count_nonzero(~awaiting_decision(self.states[listed])))
         claimed = [case for case, who in self.claims.items() if who]
         out["claimed"] = int(np.count_nonzero(np.isin(self.snap.case_ids[listed], claimed)))
+        out["drafts"] = len(self.drafts)
         return out
 
     # ------------------------------------------------------------------ chart

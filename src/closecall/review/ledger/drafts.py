@@ -50,12 +50,17 @@ class Draft:
 
 @dataclass(frozen=True)
 class Claim:
-    """A soft claim: ``reviewer`` has ``case_id`` open until ``expires_at`` (never blocks)."""
+    """A soft claim: ``reviewer`` has ``case_id`` open until ``expires_at`` (never blocks).
+
+    ``instance`` names the review screen (one running ``closecall review``) that took it, so
+    one that exits releases its own claims only; None for a claim taken without one.
+    """
 
     case_id: str
     reviewer: str
     claimed_at: str
     expires_at: str
+    instance: str | None = None
 
 
 def has_table(conn: sqlite3.Connection, name: str) -> bool:
@@ -151,30 +156,47 @@ class Drafts(_MutableTable):
 
 
 class Claims(_MutableTable):
-    """Soft claims per case: advice that someone has it open; they expire and never block."""
+    """Soft claims per case: advice that someone has it open; they expire and never block.
+
+    One claim per case and reviewer: the review screen that took or renewed it last holds it
+    (its ``instance``), so an older screen of the same reviewer that exits later leaves it.
+    """
 
     @_guarded
-    def take(self, case_id: str, reviewer: str, minutes: float) -> Claim:
-        """Mark ``case_id`` as open by ``reviewer`` for ``minutes``; renews an existing claim."""
+    def take(
+        self, case_id: str, reviewer: str, minutes: float, instance: str | None = None
+    ) -> Claim:
+        """Mark ``case_id`` as open by ``reviewer`` (in review screen ``instance``) for
+        ``minutes``; renews an existing claim, which then belongs to ``instance``."""
         now = utc_now()
-        claim = Claim(case_id, reviewer, utc_iso(now), utc_iso(now + timedelta(minutes=minutes)))
+        claim = Claim(
+            case_id, reviewer, utc_iso(now), utc_iso(now + timedelta(minutes=minutes)), instance
+        )
         with self._write() as conn:
             conn.execute("DELETE FROM claims WHERE expires_at <= ?", (claim.claimed_at,))
             conn.execute(
-                "INSERT INTO claims (case_id, reviewer, claimed_at, expires_at) VALUES (?, ?, ?, ?)"
-                " ON CONFLICT (case_id, reviewer) DO UPDATE SET "
-                "claimed_at = excluded.claimed_at, expires_at = excluded.expires_at",
-                (claim.case_id, claim.reviewer, claim.claimed_at, claim.expires_at),
+                "INSERT INTO claims (case_id, reviewer, claimed_at, expires_at, instance) "
+                "VALUES (?, ?, ?, ?, ?) ON CONFLICT (case_id, reviewer) DO UPDATE SET "
+                "claimed_at = excluded.claimed_at, expires_at = excluded.expires_at, "
+                "instance = excluded.instance",
+                (claim.case_id, claim.reviewer, claim.claimed_at, claim.expires_at, instance),
             )
         return claim
 
     @_guarded
-    def release(self, case_id: str, reviewer: str) -> None:
-        """Withdraw ``reviewer``'s claim on ``case_id`` (no-op if there is none)."""
+    def release(self, case_id: str, reviewer: str, instance: str | None = None) -> None:
+        """Withdraw ``reviewer``'s claim on ``case_id`` (no-op if there is none); with
+        ``instance``, only while that review screen still holds it."""
         with self._write() as conn:
-            conn.execute(
-                "DELETE FROM claims WHERE case_id = ? AND reviewer = ?", (case_id, reviewer)
-            )
+            if instance is None:
+                conn.execute(
+                    "DELETE FROM claims WHERE case_id = ? AND reviewer = ?", (case_id, reviewer)
+                )
+            else:
+                conn.execute(
+                    "DELETE FROM claims WHERE case_id = ? AND reviewer = ? AND instance = ?",
+                    (case_id, reviewer, instance),
+                )
 
     @_guarded
     def active(self, case_ids: Iterable[str] | None = None) -> dict[str, list[Claim]]:
@@ -182,8 +204,10 @@ class Claims(_MutableTable):
         if not has_table(self._conn, "claims"):
             return {}
         now = utc_iso(utc_now())
+        columns = {str(r[1]) for r in self._conn.execute("PRAGMA table_info(claims)")}
+        instance = "instance" if "instance" in columns else "NULL"  # schema 2-3: no instance
         rows = self._conn.execute(
-            "SELECT case_id, reviewer, claimed_at, expires_at FROM claims "
+            f"SELECT case_id, reviewer, claimed_at, expires_at, {instance} FROM claims "
             "WHERE expires_at > ? ORDER BY claimed_at",
             (now,),
         ).fetchall()

@@ -152,6 +152,7 @@ def _schema_sql(reviewer: str, analyst: str) -> list[str]:
             claimed_at timestamptz NOT NULL DEFAULT clock_timestamp(),
             expires_at timestamptz NOT NULL,
             PRIMARY KEY (case_id, reviewer))""",
+        "ALTER TABLE closecall.claims ADD COLUMN IF NOT EXISTS instance text",
         # -- the chain: the head row is locked and moved by the insert trigger
         """CREATE OR REPLACE FUNCTION closecall.lock_head(OUT seq bigint, OUT hash text,
                 OUT reviewer text, OUT now timestamptz)
@@ -804,17 +805,20 @@ class PgClaims:
     def __init__(self, ledger: PgLedger) -> None:
         self._ledger = ledger
 
-    def take(self, case_id: str, reviewer: str, minutes: float) -> Claim:
+    def take(
+        self, case_id: str, reviewer: str, minutes: float, instance: str | None = None
+    ) -> Claim:
         conn = self._ledger.connection
         try:
             conn.execute("DELETE FROM closecall.claims WHERE expires_at <= clock_timestamp()")
             row = conn.execute(
-                "INSERT INTO closecall.claims (case_id, expires_at) VALUES "
-                "(%s, clock_timestamp() + make_interval(secs => %s)) "
+                "INSERT INTO closecall.claims (case_id, expires_at, instance) VALUES "
+                "(%s, clock_timestamp() + make_interval(secs => %s), %s) "
                 "ON CONFLICT (case_id, reviewer) DO UPDATE SET "
-                "claimed_at = excluded.claimed_at, expires_at = excluded.expires_at "
+                "claimed_at = excluded.claimed_at, expires_at = excluded.expires_at, "
+                "instance = excluded.instance "
                 "RETURNING case_id, reviewer, claimed_at, expires_at",
-                (case_id, float(minutes) * 60.0),
+                (case_id, float(minutes) * 60.0, instance),
             ).fetchone()
             conn.commit()
         except BaseException:
@@ -822,13 +826,14 @@ class PgClaims:
                 conn.rollback()
             raise
         assert row is not None
-        return Claim(str(row[0]), str(row[1]), _iso(row[2]), _iso(row[3]))
+        return Claim(str(row[0]), str(row[1]), _iso(row[2]), _iso(row[3]), instance)
 
-    def release(self, case_id: str, reviewer: str) -> None:
+    def release(self, case_id: str, reviewer: str, instance: str | None = None) -> None:
         conn = self._ledger.connection
         conn.execute(
-            "DELETE FROM closecall.claims WHERE case_id = %s AND reviewer = session_user",
-            (case_id,),
+            "DELETE FROM closecall.claims WHERE case_id = %s AND reviewer = session_user "
+            "AND (%s::text IS NULL OR instance = %s)",
+            (case_id, instance, instance),
         )
         conn.commit()
 

@@ -94,8 +94,13 @@ def _v3(conn: sqlite3.Connection) -> None:
     conn.execute("ALTER TABLE entries ADD COLUMN signature TEXT")
 
 
+def _v4(conn: sqlite3.Connection) -> None:
+    """Claims carry the id of the review screen that took them (NULL: taken by an older one)."""
+    conn.execute("ALTER TABLE claims ADD COLUMN instance TEXT")
+
+
 #: MIGRATIONS[k] takes a file from schema version k to k + 1.
-MIGRATIONS: tuple[Callable[[sqlite3.Connection], None], ...] = (_v1, _v2, _v3)
+MIGRATIONS: tuple[Callable[[sqlite3.Connection], None], ...] = (_v1, _v2, _v3, _v4)
 SCHEMA_VERSION = len(MIGRATIONS)
 
 TRIGGERS = ("entries_no_update", "entries_no_delete")

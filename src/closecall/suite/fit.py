@@ -406,272 +406,356 @@ def fit_suite(config: StudyConfig, data: StudyData, progress: Progress = quiet) 
         return _fit_suite(config, data, progress)
 
 
-def _fit_suite(config: StudyConfig, data: StudyData, progress: Progress) -> SuiteResult:
-    penalty = config.model.penalty
-    K = config.model.folds
-    progress("encoding", 0, 1)
-    encoder = fit_encoder(data.history, data.features, data.group_columns)
-    hist_X, unseen_h = encoder.transform(data.history)
-    levels = sorted(set(data.history_group.tolist()))
-    level_array = np.array(levels)
-    hg = np.searchsorted(level_array, data.history_group)
-    y = data.y.astype(np.int8)
-    G = len(levels)
-    notes = list(data.notes)
-    from closecall.suite.coverage import outside_history, outside_history_notes
+def _every(k: int) -> bool:
+    """Every fold (a segment filter)."""
+    return True
 
-    notes += outside_history_notes(outside_history(data))  # pending beyond history's range
 
-    group_mask = encoder.group_mask
-    nongroup = ~group_mask
+@dataclass
+class _Cases:
+    """The cases under review: their design rows, groups, ids and outcomes, and which fits
+    score them (the fold fits when cross-fitted, else the whole-history fits)."""
 
-    progress("fitting whole-history models", 0, 1)
-    skf = StratifiedKFold(n_splits=K, shuffle=True, random_state=config.seed)
-    fold = np.empty(len(y), dtype=np.int16)
-    for k, (_, test) in enumerate(skf.split(np.zeros((len(y), 1)), _strata(y, hg))):
-        fold[test] = k
-    layout = _Layout.build(hist_X, y, hg, fold, G, K)
-    every = range(G)
+    X: np.ndarray
+    codes: np.ndarray
+    ids: np.ndarray
+    outcome: np.ndarray
+    fits: dict[str, list[LogitFit]]
+    masks: dict[str, list[np.ndarray]]
+    row_of_case: dict[str, np.ndarray]
 
-    def _all(k: int) -> bool:
-        return True
 
-    cross_fitted = data.pending is None
-    checks = FitFlags(config, layout, encoder.columns, levels)
+class _SuiteFit:
+    """One fit of the suite, step by step (:func:`_fit_suite` runs the steps in order).
 
-    def whole_row(g: int | None) -> int | None:
+    Holds what the steps share: the encoded history, its folds and layout, the fit checks,
+    the whole-history fits and masks per model, and the fold fits with the rows each scores.
+    """
+
+    def __init__(self, config: StudyConfig, data: StudyData, progress: Progress) -> None:
+        self.config, self.data, self.progress = config, data, progress
+        self.penalty = config.model.penalty
+        self.K = config.model.folds
+        progress("encoding", 0, 1)
+        self.encoder = fit_encoder(data.history, data.features, data.group_columns)
+        self.hist_X, self.unseen_h = self.encoder.transform(data.history)
+        self.levels = sorted(set(data.history_group.tolist()))
+        self.level_array = np.array(self.levels)
+        self.hg = np.searchsorted(self.level_array, data.history_group)
+        self.y = data.y.astype(np.int8)
+        self.G = len(self.levels)
+        self.notes = list(data.notes)
+        from closecall.suite.coverage import outside_history, outside_history_notes
+
+        self.notes += outside_history_notes(outside_history(data))  # pending beyond history
+        self.nongroup = ~self.encoder.group_mask
+        self.cross_fitted = data.pending is None
+        self.full: dict[str, list[LogitFit]] = {}
+        self.masks: dict[str, list[np.ndarray]] = {}
+        self.oof = {name: np.full(len(self.y), np.nan) for name in FITTED_MODELS}
+        self.fold_fits: dict[str, list[LogitFit]] = {name: [] for name in FITTED_MODELS}
+        self.fold_masks: dict[str, list[np.ndarray]] = {name: [] for name in FITTED_MODELS}
+        self.fold_test: dict[str, list[list[slice]]] = {name: [] for name in FITTED_MODELS}
+
+    def make_folds(self) -> None:
+        """Stratified folds (group × outcome) and the row layout every fit reads."""
+        self.progress("fitting whole-history models", 0, 1)
+        y = self.y
+        skf = StratifiedKFold(n_splits=self.K, shuffle=True, random_state=self.config.seed)
+        self.fold = np.empty(len(y), dtype=np.int16)
+        for k, (_, test) in enumerate(skf.split(np.zeros((len(y), 1)), _strata(y, self.hg))):
+            self.fold[test] = k
+        self.layout = _Layout.build(self.hist_X, y, self.hg, self.fold, self.G, self.K)
+        self.checks = FitFlags(self.config, self.layout, self.encoder.columns, self.levels)
+        self.all_rows = self.layout.segments(range(self.G), _every)
+
+    def whole_row(self, g: int | None) -> int | None:
         """The row of a model's fitted weights a whole-history fit is (None: it scores no
         case under review, as in a cross-fitted study)."""
-        return None if cross_fitted else (0 if g is None else g)
+        return None if self.cross_fitted else (0 if g is None else g)
 
-    full: dict[str, list[LogitFit]] = {}
-    masks: dict[str, list[np.ndarray]] = {}
-    all_rows = layout.segments(every, _all)
-    pooled_mask = np.ones_like(group_mask)
-    checks.before("pooled", all_rows, pooled_mask, None, None)
-    if penalty == 0:  # a group with one outcome value is named before the pooled fit trips on it
-        for g in every:
-            segs = layout.segments([g], _all)
-            checks.before("split", segs, layout.nonconstant(segs, nongroup), g, None)
-    full["pooled"] = [layout.fit(all_rows, pooled_mask, penalty)]
-    checks.after("pooled", full["pooled"][0], all_rows, pooled_mask, None, None, whole_row(None))
-    masks["pooled"] = [pooled_mask]
-    checks.before("unaware", all_rows, nongroup, None, None)
-    full["unaware"] = [
-        layout.fit_within(full["pooled"][0], pooled_mask, all_rows, nongroup, penalty)
-    ]
-    checks.after("unaware", full["unaware"][0], all_rows, nongroup, None, None, whole_row(None))
-    masks["unaware"] = [nongroup]
+    def fit_pooled_and_unaware(self) -> None:
+        """The whole-history pooled and unaware fits (the unaware warm-started from pooled)."""
+        layout, checks, penalty, nongroup = self.layout, self.checks, self.penalty, self.nongroup
+        all_rows, whole = self.all_rows, self.whole_row(None)
+        pooled_mask = np.ones_like(self.encoder.group_mask)
+        checks.before("pooled", all_rows, pooled_mask, None, None)
+        if penalty == 0:  # a group with one outcome value is named before pooled trips on it
+            for g in range(self.G):
+                segs = layout.segments([g], _every)
+                checks.before("split", segs, layout.nonconstant(segs, nongroup), g, None)
+        self.full["pooled"] = [layout.fit(all_rows, pooled_mask, penalty)]
+        checks.after("pooled", self.full["pooled"][0], all_rows, pooled_mask, None, None, whole)
+        self.masks["pooled"] = [pooled_mask]
+        checks.before("unaware", all_rows, nongroup, None, None)
+        self.full["unaware"] = [
+            layout.fit_within(self.full["pooled"][0], pooled_mask, all_rows, nongroup, penalty)
+        ]
+        checks.after("unaware", self.full["unaware"][0], all_rows, nongroup, None, None, whole)
+        self.masks["unaware"] = [nongroup]
 
-    # Proxy detection reads the history and the unaware fit only, and mostly keeps one core
-    # busy: it runs beside the fits that do not need its answer (split, and the folds of
-    # pooled and unaware); the proxy-free model is fitted once it is done.
-    progress("scoring proxies", 0, 1)
-    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="closecall-proxies") as side:
-        scoring = side.submit(
-            detect_proxies,
-            raw_columns=proxy_columns(encoder, hist_X),
-            X=hist_X,
-            unaware_coef=full["unaware"][0].coef,
-            column_source=encoder.column_source,
-            group_codes=hg,
-            n_levels=G,
+    def score_proxies(self) -> ProxyReport:
+        """Proxy detection on the history and the unaware fit (run beside other fits)."""
+        config, unaware = self.config, self.full["unaware"][0]
+        return detect_proxies(
+            raw_columns=proxy_columns(self.encoder, self.hist_X),
+            X=self.hist_X,
+            unaware_coef=unaware.coef,
+            column_source=self.encoder.column_source,
+            group_codes=self.hg,
+            n_levels=self.G,
             association_threshold=config.proxies.association,
             influence_threshold=config.proxies.influence,
             extra=config.proxies.extra,
             never=config.proxies.never,
             seed=config.seed,
-            nongroup_mask=nongroup,
-            y=y,
-            unaware_intercept=full["unaware"][0].intercept,
-            penalty=penalty,
+            nongroup_mask=self.nongroup,
+            y=self.y,
+            unaware_intercept=unaware.intercept,
+            penalty=self.penalty,
         )
-        full["split"], masks["split"] = [], []
-        for g in range(G):
-            segs = layout.segments([g], _all)
-            m = layout.nonconstant(segs, nongroup)
+
+    def fit_split(self) -> None:
+        """One whole-history fit per group, on the columns not constant within it."""
+        layout, checks = self.layout, self.checks
+        self.full["split"], self.masks["split"] = [], []
+        for g in range(self.G):
+            segs = layout.segments([g], _every)
+            m = layout.nonconstant(segs, self.nongroup)
             checks.before("split", segs, m, g, None)
-            full["split"].append(layout.fit(segs, m, penalty, _warm_from(full["unaware"][0], m)))
-            checks.after("split", full["split"][g], segs, m, g, None, whole_row(g))
-            masks["split"].append(m)
+            start = _warm_from(self.full["unaware"][0], m)
+            self.full["split"].append(layout.fit(segs, m, self.penalty, start))
+            checks.after("split", self.full["split"][g], segs, m, g, None, self.whole_row(g))
+            self.masks["split"].append(m)
 
-        # ---- cross-fitting (with one labelled file the fold fits score the cases: they keep
-        # their Hessians)
-        oof = {name: np.full(len(y), np.nan) for name in FITTED_MODELS}
-        fold_fits: dict[str, list[LogitFit]] = {name: [] for name in FITTED_MODELS}
-        fold_masks: dict[str, list[np.ndarray]] = {name: [] for name in FITTED_MODELS}
-        fold_test: dict[str, list[list[slice]]] = {name: [] for name in FITTED_MODELS}
+    def cross_fit(self, name: str, k: int) -> None:
+        """Fit fold k of a model on the other folds and score fold k with it (with one
+        labelled file the fold fits score the cases: they keep their Hessians)."""
+        layout, checks, G = self.layout, self.checks, self.G
 
-        def cross_fit(name: str, k: int) -> None:
-            """Fit fold k of a model on the other folds and score fold k with it."""
+        def _train(j: int) -> bool:
+            return j != k
 
-            def _train(j: int) -> bool:
-                return j != k
+        def _test(j: int) -> bool:
+            return j == k
 
-            def _test(j: int) -> bool:
-                return j == k
+        for g in range(G) if name == "split" else [None]:
+            rows = range(G) if g is None else [g]
+            train, test = layout.segments(rows, _train), layout.segments(rows, _test)
+            if g is None:
+                m = self.masks[name][0]
+                start = self.full[name][0]
+            else:
+                m = layout.nonconstant(train, self.nongroup)
+                start = self.full["split"][g]
+            checks.before(name, train, m, g, k)
+            if np.array_equal(m, self.masks[name][0 if g is None else g]):
+                fit = layout.refit_without(start, train, test, m, self.penalty, self.cross_fitted)
+            else:  # a column is constant outside this fold: a model on fewer columns
+                Xb, yb = layout.blocks(train)
+                fit = fit_logit_blocks(
+                    Xb, yb, m, self.penalty, start, final_hessian=self.cross_fitted
+                )
+            row = (k * G + (g or 0) if g is not None else k) if self.cross_fitted else None
+            checks.after(name, fit, train, m, g, k, row)
+            for s in test:
+                self.oof[name][layout.perm[s]] = fit.logit(layout.X[s])
+            self.fold_fits[name].append(fit)
+            self.fold_masks[name].append(m)
+            self.fold_test[name].append(test)
 
-            for g in every if name == "split" else [None]:
-                rows = every if g is None else [g]
-                train, test = layout.segments(rows, _train), layout.segments(rows, _test)
-                if g is None:
-                    m = masks[name][0]
-                    start = full[name][0]
-                else:
-                    m = layout.nonconstant(train, nongroup)
-                    start = full["split"][g]
-                checks.before(name, train, m, g, k)
-                if np.array_equal(m, masks[name][0 if g is None else g]):
-                    fit = layout.refit_without(start, train, test, m, penalty, cross_fitted)
-                else:  # a column is constant outside this fold: a model on fewer columns
-                    Xb, yb = layout.blocks(train)
-                    fit = fit_logit_blocks(Xb, yb, m, penalty, start, final_hessian=cross_fitted)
-                row = (k * G + (g or 0) if g is not None else k) if cross_fitted else None
-                checks.after(name, fit, train, m, g, k, row)
-                for s in test:
-                    oof[name][layout.perm[s]] = fit.logit(layout.X[s])
-                fold_fits[name].append(fit)
-                fold_masks[name].append(m)
-                fold_test[name].append(test)
-
-        for k in range(K):
-            progress("cross-fitting", k, K)
-            for name in ("pooled", "unaware", "split"):
-                cross_fit(name, k)
-        proxies = scoring.result()
-    proxy_free_mask = nongroup & ~encoder.source_mask(proxies.proxies)
-    if not proxy_free_mask.any():
-        notes.append("every non-group feature is a proxy: the proxy-free model is intercept-only")
-    checks.before("proxy_free", all_rows, proxy_free_mask, None, None)
-    full["proxy_free"] = [
-        layout.fit_within(full["unaware"][0], nongroup, all_rows, proxy_free_mask, penalty)
-    ]
-    checks.after(
-        "proxy_free", full["proxy_free"][0], all_rows, proxy_free_mask, None, None, whole_row(None)
-    )
-    masks["proxy_free"] = [proxy_free_mask]
-    for k in range(K):
-        cross_fit("proxy_free", k)
-    progress("cross-fitting", K, K)
-
-    # ---- the cases under review
-    hist_ids = _id_text(data.history[config.data.id])  # once: the cases' ids when cross-fitted
-    if data.pending is None:
-        X, codes, ids = hist_X, hg, hist_ids
-        outcome = y.astype(np.int8)
-        rows_fits, rows_masks = fold_fits, fold_masks
-        row_of_case = {
-            name: (fold.astype(np.int32) * G + hg if name == "split" else fold.astype(np.int32))
-            for name in FITTED_MODELS
-        }
-    else:
-        X, unseen_p = encoder.transform(data.pending)
-        for col, count in unseen_p.items():
-            notes.append(
-                f"{count} pending case(s) have a '{col}' value the history lacks; "
-                "coded as the reference level"
+    def fit_proxy_free(self, proxies: ProxyReport) -> None:
+        """The proxy-free model (warm-started from unaware) and its folds."""
+        checks, all_rows = self.checks, self.all_rows
+        mask = self.nongroup & ~self.encoder.source_mask(proxies.proxies)
+        if not mask.any():
+            self.notes.append(
+                "every non-group feature is a proxy: the proxy-free model is intercept-only"
             )
-        assert data.pending_group is not None
-        codes = np.searchsorted(level_array, data.pending_group)
-        ids = _id_text(data.pending[config.data.id])
-        outcome = np.full(len(ids), -1, dtype=np.int8)
-        rows_fits, rows_masks = full, masks
-        row_of_case = {name: np.zeros(len(ids), dtype=np.int32) for name in FITTED_MODELS}
-        row_of_case["split"] = codes.astype(np.int32)
-    for col, count in unseen_h.items():
-        notes.append(f"{count} history case(s) have an unseen '{col}' value")
+        checks.before("proxy_free", all_rows, mask, None, None)
+        self.full["proxy_free"] = [
+            self.layout.fit_within(
+                self.full["unaware"][0], self.nongroup, all_rows, mask, self.penalty
+            )
+        ]
+        whole = self.whole_row(None)
+        checks.after("proxy_free", self.full["proxy_free"][0], all_rows, mask, None, None, whole)
+        self.masks["proxy_free"] = [mask]
+        for k in range(self.K):
+            self.cross_fit("proxy_free", k)
+        self.progress("cross-fitting", self.K, self.K)
 
-    progress("bands", 0, 1)
-    models: dict[str, ModelScores] = {}
-    for name in FITTED_MODELS:
-        fits = rows_fits[name]
-        W = np.array([[f.intercept, *f.coef] for f in fits])
-        rc = row_of_case[name]
-        lg = np.empty(len(ids))
-        quad = np.empty(len(ids))
-        for r, f in enumerate(fits):
-            assert f.hessian is not None  # the fit's Hessian at its optimum
-            chol = cholesky_lower(f.hessian)
-            if data.pending is None:  # the held-out fold's rows, read in place
-                for s in fold_test[name][r]:
-                    rows = layout.perm[s]
-                    lg[rows] = f.logit(layout.X[s])
-                    quad[rows] = quadratic_form(layout.X[s], rows_masks[name][r], chol)
-                continue
-            sel = np.flatnonzero(rc == r)
-            if len(sel) == 0:
-                continue
-            Xs = X[sel]
-            lg[sel] = f.logit(Xs)
-            quad[sel] = quadratic_form(Xs, rows_masks[name][r], chol)
-        models[name] = ModelScores(
-            name=name,
-            W=W,
-            row_of_case=rc,
-            objective=np.array([f.objective for f in fits]),
-            n_train=np.array([f.n for f in fits]),
-            logit=lg,
-            quad=quad,
-            oof_logit=oof[name],
-            full_W=np.array([[f.intercept, *f.coef] for f in full[name]]),
-        )
-    if data.deployed_probability is not None:
-        dl = logit(data.deployed_probability)
-        models["deployed"] = ModelScores(
-            name="deployed",
-            W=np.zeros((0, X.shape[1] + 1)),
-            row_of_case=np.full(len(ids), -1, dtype=np.int32),
-            objective=np.zeros(0),
-            n_train=np.zeros(0),
-            logit=dl,
-            quad=np.full(len(ids), np.nan),
-            oof_logit=dl if data.pending is None else np.full(len(y), np.nan),
-            full_W=np.zeros((0, X.shape[1] + 1)),
-        )
-    card_arrays: dict[str, np.ndarray] = {}
-    card_meta = None
-    if config.deployed.scorecard is not None:  # the model in use as a scorecard
-        from closecall.suite.scorecard_study import score_card
+    def cases_under_review(self) -> _Cases:
+        """The history itself when cross-fitted, else the pending file (encoded here)."""
+        data, G = self.data, self.G
+        self.hist_ids = _id_text(data.history[self.config.data.id])  # once: ids when cross-fitted
+        if data.pending is None:
+            fold = self.fold.astype(np.int32)
+            cases = _Cases(
+                X=self.hist_X,
+                codes=self.hg,
+                ids=self.hist_ids,
+                outcome=self.y.astype(np.int8),
+                fits=self.fold_fits,
+                masks=self.fold_masks,
+                row_of_case={
+                    name: (fold * G + self.hg if name == "split" else fold)
+                    for name in FITTED_MODELS
+                },
+            )
+        else:
+            X, unseen_p = self.encoder.transform(data.pending)
+            for col, count in unseen_p.items():
+                self.notes.append(
+                    f"{count} pending case(s) have a '{col}' value the history lacks; "
+                    "coded as the reference level"
+                )
+            assert data.pending_group is not None
+            codes = np.searchsorted(self.level_array, data.pending_group)
+            ids = _id_text(data.pending[self.config.data.id])
+            row_of_case = {name: np.zeros(len(ids), dtype=np.int32) for name in FITTED_MODELS}
+            row_of_case["split"] = codes.astype(np.int32)
+            cases = _Cases(
+                X=X,
+                codes=codes,
+                ids=ids,
+                outcome=np.full(len(ids), -1, dtype=np.int8),
+                fits=self.full,
+                masks=self.masks,
+                row_of_case=row_of_case,
+            )
+        for col, count in self.unseen_h.items():
+            self.notes.append(f"{count} history case(s) have an unseen '{col}' value")
+        return cases
 
-        progress("scoring the deployed scorecard", 0, 1)
-        card = score_card(config, data, fold)
-        card_arrays, card_meta = card.arrays, card.meta
-        notes += card.notes
+    def model_scores(self, cases: _Cases) -> dict[str, ModelScores]:
+        """Each fitted model's log-odds and x̃ᵀH⁻¹x̃ for every case under review."""
+        self.progress("bands", 0, 1)
+        layout, n = self.layout, len(cases.ids)
+        models: dict[str, ModelScores] = {}
+        for name in FITTED_MODELS:
+            fits = cases.fits[name]
+            rc = cases.row_of_case[name]
+            lg = np.empty(n)
+            quad = np.empty(n)
+            for r, f in enumerate(fits):
+                assert f.hessian is not None  # the fit's Hessian at its optimum
+                chol = cholesky_lower(f.hessian)
+                if self.cross_fitted:  # the held-out fold's rows, read in place
+                    for s in self.fold_test[name][r]:
+                        rows = layout.perm[s]
+                        lg[rows] = f.logit(layout.X[s])
+                        quad[rows] = quadratic_form(layout.X[s], cases.masks[name][r], chol)
+                    continue
+                sel = np.flatnonzero(rc == r)
+                if len(sel) == 0:
+                    continue
+                Xs = cases.X[sel]
+                lg[sel] = f.logit(Xs)
+                quad[sel] = quadratic_form(Xs, cases.masks[name][r], chol)
+            models[name] = ModelScores(
+                name=name,
+                W=np.array([[f.intercept, *f.coef] for f in fits]),
+                row_of_case=rc,
+                objective=np.array([f.objective for f in fits]),
+                n_train=np.array([f.n for f in fits]),
+                logit=lg,
+                quad=quad,
+                oof_logit=self.oof[name],
+                full_W=np.array([[f.intercept, *f.coef] for f in self.full[name]]),
+            )
+        return models
+
+    def deployed_scores(
+        self, cases: _Cases, models: dict[str, ModelScores]
+    ) -> tuple[dict[str, np.ndarray], dict[str, Any] | None]:
+        """The deployed model's imported scores or scorecard, added to ``models``; the card's
+        arrays and metadata for the snapshot."""
+        data, n, p1 = self.data, len(cases.ids), cases.X.shape[1] + 1
+        if data.deployed_probability is not None:
+            dl = logit(data.deployed_probability)
+            oof = dl if self.cross_fitted else np.full(len(self.y), np.nan)
+            models["deployed"] = _imported_scores(dl, oof, n, p1)
+        if self.config.deployed.scorecard is None:
+            return {}, None
+        from closecall.suite.scorecard_study import score_card  # the model in use as a card
+
+        self.progress("scoring the deployed scorecard", 0, 1)
+        card = score_card(self.config, data, self.fold)
+        self.notes += card.notes
         if card.logit is not None:
-            models["deployed"] = ModelScores(
-                name="deployed",
-                W=np.zeros((0, X.shape[1] + 1)),
-                row_of_case=np.full(len(ids), -1, dtype=np.int32),
-                objective=np.zeros(0),
-                n_train=np.zeros(0),
-                logit=card.logit,
-                quad=np.full(len(ids), np.nan),
-                oof_logit=card.oof_logit,
-                full_W=np.zeros((0, X.shape[1] + 1)),
-            )
-    progress("held-out metrics", 0, 1)
-    metrics = held_out_metrics(models, y, hg, levels, config)
-    return SuiteResult(
-        encoder=encoder,
-        group_levels=levels,
-        X=X,
-        group_codes=codes.astype(np.int32),
-        case_ids=ids,
-        outcome=outcome,
-        hist_X=hist_X,
-        hist_y=y,
-        hist_group_codes=hg.astype(np.int32),
-        hist_ids=hist_ids,
-        fold=fold,
-        models=models,
-        proxies=proxies,
-        masks={k: [bool(b) for b in v[0]] for k, v in masks.items() if k != "split"},
-        metrics=metrics,
-        notes=notes + checks.notes(),
-        fit_flags=checks.flags,
-        card_arrays=card_arrays,
-        card_meta=card_meta,
+            models["deployed"] = _imported_scores(card.logit, card.oof_logit, n, p1)
+        return card.arrays, card.meta
+
+    def result(
+        self,
+        cases: _Cases,
+        models: dict[str, ModelScores],
+        proxies: ProxyReport,
+        card: tuple[dict[str, np.ndarray], dict[str, Any] | None],
+    ) -> SuiteResult:
+        """The suite, with held-out metrics of every model."""
+        self.progress("held-out metrics", 0, 1)
+        metrics = held_out_metrics(models, self.y, self.hg, self.levels, self.config)
+        return SuiteResult(
+            encoder=self.encoder,
+            group_levels=self.levels,
+            X=cases.X,
+            group_codes=cases.codes.astype(np.int32),
+            case_ids=cases.ids,
+            outcome=cases.outcome,
+            hist_X=self.hist_X,
+            hist_y=self.y,
+            hist_group_codes=self.hg.astype(np.int32),
+            hist_ids=self.hist_ids,
+            fold=self.fold,
+            models=models,
+            proxies=proxies,
+            masks={k: [bool(b) for b in v[0]] for k, v in self.masks.items() if k != "split"},
+            metrics=metrics,
+            notes=self.notes + self.checks.notes(),
+            fit_flags=self.checks.flags,
+            card_arrays=card[0],
+            card_meta=card[1],
+        )
+
+
+def _imported_scores(lg: np.ndarray, oof: np.ndarray, n: int, p1: int) -> ModelScores:
+    """A model scored outside the suite (imported scores or a scorecard): no fitted rows."""
+    return ModelScores(
+        name="deployed",
+        W=np.zeros((0, p1)),
+        row_of_case=np.full(n, -1, dtype=np.int32),
+        objective=np.zeros(0),
+        n_train=np.zeros(0),
+        logit=lg,
+        quad=np.full(n, np.nan),
+        oof_logit=oof,
+        full_W=np.zeros((0, p1)),
     )
+
+
+def _fit_suite(config: StudyConfig, data: StudyData, progress: Progress) -> SuiteResult:
+    """The suite's steps in order: whole-history fits, then (beside proxy detection, which
+    mostly keeps one core busy) split and the folds of pooled, unaware and split; the
+    proxy-free model once the proxies are known; then the scores of the cases under review."""
+    run = _SuiteFit(config, data, progress)
+    run.make_folds()
+    run.fit_pooled_and_unaware()
+    progress("scoring proxies", 0, 1)
+    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="closecall-proxies") as side:
+        scoring = side.submit(run.score_proxies)
+        run.fit_split()
+        for k in range(run.K):
+            progress("cross-fitting", k, run.K)
+            for name in ("pooled", "unaware", "split"):
+                run.cross_fit(name, k)
+        proxies = scoring.result()
+    run.fit_proxy_free(proxies)
+    cases = run.cases_under_review()
+    models = run.model_scores(cases)
+    card = run.deployed_scores(cases, models)
+    return run.result(cases, models, proxies, card)
 
 
 def auc_sorted(scores: np.ndarray, labels: np.ndarray) -> float:

@@ -17,7 +17,6 @@ LIMIT = 80
 ALLOWED: dict[str, str] = {
     "reports/disparity/html.py:render_html": "one HTML page, section by section (to split)",
     "reports/disparity/conditional.py:conditional_disparity": "fit, intervals, notes (to split)",
-    "suite/proxies.py:detect_proxies": "association, influence, bootstrap (to split)",
     "cli/explain_cmds.py:proxies": "a view's printing of the proxy table (to split)",
     "cli/explain_cmds.py:_print_explanation": "a view's printing of one case (to split)",
     "cli/explain_cmds.py:_print_card": "a view's printing of the deployed card (to split)",

@@ -51,6 +51,7 @@ NeurIPS 2018.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import asdict, dataclass
 from typing import Any
 
@@ -429,25 +430,71 @@ def detect_proxies(
     fit's intercept and penalty), association and influence get seeded bootstrap intervals
     and a feature is flagged when its association interval lies at or above the threshold and
     its influence interval reaches the threshold (module docstring); without ``y`` the point
-    values decide.
-
-    Flagging runs in rounds (peeling). Round 1 scores influence in the unaware model. When
-    proxies are found, the unaware margin is projected (least squares) on the columns that are
-    left, which approximates refitting without the proxies, and influence is scored again
-    (the bootstrap replicates of the weights are projected the same way): a feature that takes
-    over the group signal once the stronger proxy is gone is flagged in the next round. Rounds
-    stop when none is added.
+    values decide. Flagging runs in rounds (peeling, see :func:`_peel`).
     """
     names = list(raw_columns)
     mask = nongroup_mask if nongroup_mask is not None else np.ones(X.shape[1], dtype=bool)
-    src = np.array(column_source)
     boot = y is not None and n_boot > 0
     rng = np.random.default_rng([seed, 14])  # a stream of its own, seeded by the study
+    rows_b, weights_b = bootstrap_weights(len(X), rng, n_boot) if boot else (None, None)
+    association, a_int = _associations(
+        raw_columns, group_codes, n_levels, rng, rows_b, weights_b, level
+    )
+    W0 = (
+        influence_draws(X, unaware_coef, unaware_intercept, y, penalty, mask, rows_b, weights_b)
+        if y is not None and rows_b is not None and weights_b is not None
+        else None
+    )
+    flagged_in = {n: 0 for n in extra if n in association and n not in never}
+
+    def qualifies(name: str, influence: tuple[float, float]) -> bool:
+        associated = name not in never and a_int[name][0] >= association_threshold
+        return associated and influence[1] >= influence_threshold
+
+    first, peak, i_int = _peel(
+        X, unaware_coef, W0, column_source, names, mask, flagged_in, qualifies, level, seed
+    )
+    rows = [
+        _proxy_row(
+            name,
+            raw_columns[name][0],
+            association[name],
+            a_int[name],
+            i_int[name],
+            first=first[name],
+            peak=peak[name],
+            flagged_round=flagged_in.get(name),
+            listed="never" if name in never else "extra" if name in extra else None,
+            thresholds=(association_threshold, influence_threshold),
+            boot=boot,
+        )
+        for name in names
+    ]
+    recover = group_recoverability(X, group_codes, n_levels, seed, columns=mask)
+    return ProxyReport(
+        rows,
+        recover,
+        association_threshold,
+        influence_threshold,
+        level=level if boot else None,
+        n_boot=n_boot if boot else 0,
+    )
+
+
+def _associations(
+    raw_columns: dict[str, tuple[str, np.ndarray]],
+    group_codes: np.ndarray,
+    n_levels: int,
+    rng: np.random.Generator,
+    rows_b: np.ndarray | None,
+    weights_b: np.ndarray | None,
+    level: float,
+) -> tuple[dict[str, tuple[float, str]], dict[str, tuple[float, float]]]:
+    """Each feature's association with the group (value, measure) and its bootstrap interval
+    (the point value twice without replicates)."""
     association: dict[str, tuple[float, str]] = {}
     a_int: dict[str, tuple[float, float]] = {}
-    rows_b, weights_b = bootstrap_weights(len(X), rng, n_boot) if boot else (None, None)
-    for name in names:
-        kind, values = raw_columns[name]
+    for name, (kind, values) in raw_columns.items():
         if kind == "numeric":
             association[name] = (auc_association(values, group_codes, n_levels), "2|AUC-0.5|")
         else:
@@ -462,19 +509,39 @@ def detect_proxies(
             a_int[name] = _interval(draws, level)
         else:
             a_int[name] = (association[name][0], association[name][0])
+    return association, a_int
+
+
+def _peel(
+    X: np.ndarray,
+    unaware_coef: np.ndarray,
+    W0: np.ndarray | None,
+    column_source: list[str],
+    names: list[str],
+    mask: np.ndarray,
+    flagged_in: dict[str, int],
+    qualifies: Callable[[str, tuple[float, float]], bool],
+    level: float,
+    seed: int,
+) -> tuple[dict[str, float], dict[str, float], dict[str, tuple[float, float]]]:
+    """The flagging rounds: fills ``flagged_in`` (name -> round) and returns the first round's
+    influence, each feature's peak influence and the influence interval that decided it (the
+    first round's for a feature never flagged).
+
+    Round 1 scores influence in the unaware model. When proxies are found, the unaware margin
+    is projected (least squares) on the columns that are left, which approximates refitting
+    without the proxies, and influence is scored again (the bootstrap replicates of the
+    weights are projected the same way): a feature that takes over the group signal once the
+    stronger proxy is gone is flagged in the next round. Rounds stop when none is added.
+    """
+    src = np.array(column_source)
     cov = np.atleast_2d(np.cov(X, rowvar=False, bias=True))
-    W0 = (
-        influence_draws(X, unaware_coef, unaware_intercept, y, penalty, mask, rows_b, weights_b)
-        if y is not None and rows_b is not None and weights_b is not None
-        else None
-    )
     first = influence_shares(X, unaware_coef, column_source, names, cov)
     rows_used = np.arange(len(X))
     if len(X) > RECOVERABILITY_MAX_ROWS:
         rows_used = np.sort(
             np.random.default_rng(seed).choice(len(X), RECOVERABILITY_MAX_ROWS, replace=False)
         )
-    flagged_in: dict[str, int] = {n: 0 for n in extra if n in association and n not in never}
     i_int: dict[str, tuple[float, float]] = {}
     peak = dict(first)
     coef, W = unaware_coef, W0
@@ -487,14 +554,7 @@ def detect_proxies(
         }
         if round_no == 1:
             i_int.update(here)
-        new = [
-            n
-            for n in names
-            if n not in flagged_in
-            and n not in never
-            and a_int[n][0] >= association_threshold
-            and here[n][1] >= influence_threshold
-        ]
+        new = [n for n in names if n not in flagged_in and qualifies(n, here[n])]
         for n in names:
             if n not in flagged_in or flagged_in[n] == round_no:
                 peak[n] = max(peak[n], infl[n])
@@ -507,63 +567,64 @@ def detect_proxies(
         P = _projection(X, keep, rows_used)
         coef = P @ unaware_coef
         W = W0 @ P.T if W0 is not None else None
-    rows: list[ProxyRow] = []
-    for name in names:
-        kind, _ = raw_columns[name]
-        assoc, measure = association[name]
-        r = flagged_in.get(name)
-        uncertain = possible = False
-        if name in never:
-            flagged, why = False, "listed in [proxies] never"
-        elif name in extra:
-            flagged, why = True, "listed in [proxies] extra"
-        elif r is not None:
-            flagged = True
-            why = (
-                "association and influence reach the thresholds"
-                if r == 1
-                else "takes over the group signal once other proxies are removed"
-            )
-            uncertain = i_int[name][0] < influence_threshold
-            if uncertain:
-                why += " (uncertain: its influence interval also reaches below the threshold)"
-        elif a_int[name][0] < association_threshold <= a_int[name][1] and (
-            i_int[name][1] >= influence_threshold
-        ):
-            flagged, possible = False, True
-            why = (
-                "possible proxy: its association interval straddles the threshold; list it "
-                "under [proxies] extra to treat it as one"
-            )
-        else:
-            flagged, why = False, "below a threshold"
-        rows.append(
-            ProxyRow(
-                name,
-                kind,
-                assoc,
-                measure,
-                first[name],
-                flagged,
-                why,
-                peak[name],
-                r or 0,
-                association_low=a_int[name][0] if boot else None,
-                association_high=a_int[name][1] if boot else None,
-                influence_low=i_int[name][0] if boot else None,
-                influence_high=i_int[name][1] if boot else None,
-                uncertain=uncertain,
-                possible=possible,
-            )
+    return first, peak, i_int
+
+
+def _proxy_row(
+    name: str,
+    kind: str,
+    association: tuple[float, str],
+    a_int: tuple[float, float],
+    i_int: tuple[float, float],
+    *,
+    first: float,
+    peak: float,
+    flagged_round: int | None,
+    listed: str | None,
+    thresholds: tuple[float, float],
+    boot: bool,
+) -> ProxyRow:
+    """One feature's row: flagged or not, and why (``listed``: under [proxies] never/extra)."""
+    association_threshold, influence_threshold = thresholds
+    uncertain = possible = False
+    if listed == "never":
+        flagged, why = False, "listed in [proxies] never"
+    elif listed == "extra":
+        flagged, why = True, "listed in [proxies] extra"
+    elif flagged_round is not None:
+        flagged = True
+        why = (
+            "association and influence reach the thresholds"
+            if flagged_round == 1
+            else "takes over the group signal once other proxies are removed"
         )
-    recover = group_recoverability(X, group_codes, n_levels, seed, columns=mask)
-    return ProxyReport(
-        rows,
-        recover,
-        association_threshold,
-        influence_threshold,
-        level=level if boot else None,
-        n_boot=n_boot if boot else 0,
+        uncertain = i_int[0] < influence_threshold
+        if uncertain:
+            why += " (uncertain: its influence interval also reaches below the threshold)"
+    elif a_int[0] < association_threshold <= a_int[1] and i_int[1] >= influence_threshold:
+        flagged, possible = False, True
+        why = (
+            "possible proxy: its association interval straddles the threshold; list it "
+            "under [proxies] extra to treat it as one"
+        )
+    else:
+        flagged, why = False, "below a threshold"
+    return ProxyRow(
+        name,
+        kind,
+        association[0],
+        association[1],
+        first,
+        flagged,
+        why,
+        peak,
+        flagged_round or 0,
+        association_low=a_int[0] if boot else None,
+        association_high=a_int[1] if boot else None,
+        influence_low=i_int[0] if boot else None,
+        influence_high=i_int[1] if boot else None,
+        uncertain=uncertain,
+        possible=possible,
     )
 
 

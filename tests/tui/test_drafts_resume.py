@@ -58,7 +58,7 @@ async def test_the_list_counts_my_drafts_and_quitting_names_them(study: OpenedSt
         await wait_until(pilot, lambda: isinstance(app.screen, ConfirmQuit))
         box = " ".join(screen_text(app).split())
         assert f"Your 2 drafts ({ids[1]}, {ids[0]}) are not recorded" in box  # newest first
-        await pilot.press("n")  # stay
+        await pilot.press("escape")  # stay
         await wait_until(pilot, lambda: not isinstance(app.screen, ConfirmQuit))
         assert app.is_running
         # a third draft left by closing the dialog is counted on the list at once

@@ -40,7 +40,7 @@ def two_reviewers(study_config: Path, monkeypatch: pytest.MonkeyPatch):  # type:
     from closecall.setup.config import load_config
     from closecall.suite.opening import open_study
 
-    ledger = load_config(study_config).review.ledger
+    ledger = Path(load_config(study_config).review.ledger)
     ledger.unlink(missing_ok=True)
     for extra in ledger.parent.glob(ledger.name + "-*"):
         extra.unlink()

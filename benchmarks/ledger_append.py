@@ -56,9 +56,21 @@ def main() -> None:
     parser.add_argument("--entries", type=int, default=400, help="entries per writer")
     parser.add_argument("--writers", type=int, nargs="+", default=[1, 8])
     parser.add_argument("--json", type=Path)
+    parser.add_argument(
+        "--server-setting",
+        action="append",
+        default=[],
+        metavar="NAME=VALUE",
+        help="an extra PostgreSQL server setting, e.g. commit_delay=1000 (repeatable)",
+    )
     args = parser.parse_args()
 
-    server = start_server()
+    import os
+
+    print(f"load average at start: {' '.join(f'{x:.2f}' for x in os.getloadavg())}")
+    server = start_server(tuple(args.server_setting))
+    if args.server_setting:
+        print(f"server settings: {' '.join(args.server_setting)}")
     results: list[dict[str, object]] = []
     try:
         with tempfile.TemporaryDirectory() as tmp:
@@ -76,6 +88,7 @@ def main() -> None:
                     print(f"{backend:<11} {n} writer(s): {rate:8.0f} durable appends/s")
     finally:
         server.stop()
+    print(f"load average at end: {' '.join(f'{x:.2f}' for x in os.getloadavg())}")
     if args.json:
         args.json.write_text(json.dumps(results, indent=2))
 

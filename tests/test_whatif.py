@@ -4,6 +4,7 @@ checked against an outside recomputation named beside the check."""
 from __future__ import annotations
 
 import json
+import re
 from pathlib import Path
 from typing import Any
 
@@ -17,12 +18,36 @@ from statsmodels.stats.proportion import proportion_confint
 
 from closecall import Study, UserError
 from closecall.analysis.whatif import Policy, changed_rows
-from closecall.suite.opening import OpenedStudy
+from closecall.setup.demo import write_demo
+from closecall.suite.opening import open_study
+
+
+def imported_scores(config: Path) -> Path:
+    """The demo study with the model in use entered as its scores (the pending file's
+    deployed_score column) rather than as a scorecard, whichever the demo writes."""
+    text = re.sub(r"\n\[deployed\]\nscorecard = [^\n]*\n(#[^\n]*\n)*", "\n", config.read_text())
+    if 'deployed_score = "deployed_score"' not in text:
+        text = text.replace(
+            'group = ["heritage"]', 'group = ["heritage"]\ndeployed_score = "deployed_score"', 1
+        )
+    config.write_text(text)
+    return config
 
 
 @pytest.fixture(scope="module")
-def study(demo_study: OpenedStudy) -> Study:
-    return Study(demo_study)
+def demo_config(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    """A 3,000-case demo study whose deployed model is imported scores, fitted once."""
+    config = imported_scores(write_demo(tmp_path_factory.mktemp("whatif"), cases=3000, seed=11))
+    open_study(config)
+    return config
+
+
+@pytest.fixture(scope="module")
+def study(demo_config: Path) -> Study:
+    opened = open_study(demo_config)
+    assert "deployed" in opened.snapshot.model_names
+    assert opened.config.deployed.scorecard is None
+    return Study(opened)
 
 
 def _plain_counts(snap: Any, before: np.ndarray, after: np.ndarray) -> pd.DataFrame:

@@ -5,6 +5,7 @@ command line and the library alike, and no study file changes."""
 
 from __future__ import annotations
 
+import re
 from pathlib import Path
 from typing import Any
 
@@ -27,22 +28,33 @@ def _refused_unchanged(cli: Any, study_dir: Path, args: list[str], *needles: str
     assert_unchanged(before, study_dir, allow_new=(DIGEST_CACHE,))
 
 
-def _with_card(study_dir: Path) -> Path:
-    """The copied study with the demo's published card as its deployed model, fitted."""
-    (study_dir / "scorecard.csv").write_text(DEMO_SCORECARD)
+_CARD_SECTION = re.compile(r"\n\[deployed\]\nscorecard = [^\n]*\n(#[^\n]*\n)*")
+
+
+def _deployed(study_dir: Path, how: str) -> Path:
+    """The copied study with its model in use as ``card`` (the demo's published scorecard),
+    ``scores`` (the pending file's deployed_score column) or ``none``, fitted."""
     config = study_dir / "closecall.toml"
-    text = config.read_text().replace('deployed_score = "deployed_score"', "")
-    config.write_text(text + '\n[deployed]\nscorecard = "scorecard.csv"\n')
+    text = _CARD_SECTION.sub("\n", config.read_text())
+    text = text.replace('deployed_score = "deployed_score"', "")
+    if how == "card":
+        (study_dir / "scorecard.csv").write_text(DEMO_SCORECARD)
+        text += '\n[deployed]\nscorecard = "scorecard.csv"\n'
+    elif how == "scores":
+        text = text.replace(
+            'group = ["heritage"]', 'group = ["heritage"]\ndeployed_score = "deployed_score"', 1
+        )
+    config.write_text(text)
     open_study(config)
     return config
+
+
+def _with_card(study_dir: Path) -> Path:
+    return _deployed(study_dir, "card")
 
 
 def _without_deployed(study_dir: Path) -> Path:
-    """The copied study with no deployed model at all, fitted."""
-    config = study_dir / "closecall.toml"
-    config.write_text(config.read_text().replace('deployed_score = "deployed_score"', ""))
-    open_study(config)
-    return config
+    return _deployed(study_dir, "none")
 
 
 BAD_THRESHOLDS = [
@@ -70,7 +82,7 @@ BAD_POLICIES = [
     (["--against", "model"], ("--against",)),
     (["--against", "model=nonesuch"], ("--against", "nonesuch")),
     (["--against", "threshold=Briar=2"], ("--against", "out of range", "threshold")),
-    (["--against", "drop=heritage"], ("--against", "imported as scores")),
+    (["--against", "drop=nonesuch"], ("--against", "nonesuch")),
     (["--level", "1"], ("--level",)),
     (["--level", "0"], ("--level",)),
     (["--level", "nan"], ("--level",)),
@@ -93,6 +105,7 @@ class TestThresholdsAndPolicies:
 
 class TestDroppedWeights:
     def test_imported_scores_have_no_weight_to_drop(self, study_dir: Path, cli: Any) -> None:
+        _deployed(study_dir, "scores")
         _refused_unchanged(cli, study_dir, ["--drop-weight", "heritage"], "imported as scores",
                            "[deployed] scorecard")  # fmt: skip
 
@@ -127,7 +140,7 @@ class TestLibrary:
             {"group_thresholds": {"Briar": 0.0}},
             {"group_thresholds": {"Briar": True}},
             {"group_thresholds": {"Nowhere": 0.5}},
-            {"drop": ["heritage"]},
+            {"drop": ["nonesuch"]},
             {"lens": "nonesuch"},
             {"against": "lens"},
             {"level": float("inf")},
@@ -151,7 +164,7 @@ class TestQueueChangedBy:
             ("model=nonesuch", ("--changed-by", "nonesuch")),
             ("threshold=Nowhere=0.3", ("--changed-by", "Nowhere", "threshold")),
             ("threshold=Briar=7", ("--changed-by", "out of range")),
-            ("drop=heritage", ("--changed-by", "imported as scores")),
+            ("drop=nonesuch", ("--changed-by", "nonesuch")),
         ],
     )
     def test_refused_and_unchanged(

@@ -5,10 +5,9 @@ from __future__ import annotations
 
 from typing import Any
 
-from scipy.special import logit
 from tui_helpers import open_queue, screen_text, synchronous, wait_until
 
-from closecall.analysis.whatif import Policy
+from closecall.analysis.whatif import Policy, changed_rows
 from closecall.analysis.whatif_figures import figures_dict, whatif
 from closecall.suite.opening import OpenedStudy
 from closecall.tui.app import ReviewApp
@@ -38,13 +37,10 @@ async def test_screen_shows_the_engines_counts_at_80_by_24(study: OpenedStudy) -
         await wait_until(pilot, lambda: screen.data is not None)
         first = screen.policies[0]
         assert screen.shown == first
-        # Reference: the changed count recomputed with NumPy from the snapshot's log-odds
+        # the screen shows the engine's figures (checked against pandas, statsmodels, scipy
+        # and scikit-learn in tests/test_whatif*.py)
         snap = study.snapshot
-        t = float(logit(snap.lenses[0].threshold))
-        base = snap.logit("deployed") > t
-        model = first.model or "deployed"
-        new = snap.logit(model) > t
-        assert _data(screen)["total"]["changed"] == int((base != new).sum())
+        assert _data(screen)["total"] == _first_changes(study, first)["total"]
         text = screen_text(app)
         lines = text.splitlines()
         assert len(lines) <= 24 and all(len(line) <= 80 for line in lines)
@@ -104,3 +100,39 @@ async def test_a_group_threshold_is_typed_and_a_bad_one_explained(study: OpenedS
         assert expected["total"]["changed"] > 0
         await pilot.press("escape")
         await wait_until(pilot, lambda: isinstance(app.screen, QueueScreen))
+
+
+@synchronous
+async def test_i_opens_it_and_x_narrows_the_list_to_the_changed_cases(study: OpenedStudy) -> None:
+    from closecall.tui.help_screen import HelpScreen
+
+    app = ReviewApp(study=study, login="reviewer")
+    async with app.run_test(size=(80, 24)) as pilot:
+        await open_queue(pilot)
+        await pilot.press("i")
+        await wait_until(pilot, lambda: isinstance(app.screen, WhatIfScreen))
+        screen = app.screen
+        assert isinstance(screen, WhatIfScreen)
+        await wait_until(pilot, lambda: screen.data is not None)
+        await pilot.press("question_mark")
+        await wait_until(pilot, lambda: isinstance(app.screen, HelpScreen))
+        assert "Keys here: What-if" in screen_text(app)
+        await pilot.press("escape")
+        await wait_until(pilot, lambda: app.screen is screen)
+        await pilot.press("x")
+        await wait_until(pilot, lambda: isinstance(app.screen, QueueScreen))
+        session = app.session
+        assert session is not None
+        policy = screen.shown
+        assert policy is not None
+        await wait_until(pilot, lambda: session.settings.changed_by == policy.to_text())
+        await wait_until(pilot, lambda: "changed by" in screen_text(app))
+        queue = session.queue
+        assert queue is not None
+        listed = set(study.snapshot.case_ids[queue.order].astype(str))
+        rows, _ = changed_rows(study, policy)  # the engine's list (tests/test_whatif.py)
+        assert listed == set(study.snapshot.case_ids[rows].astype(str)) and listed
+        # typing an i into the list's id search is text, not the what-if key
+        await pilot.press("slash", "i")
+        await pilot.pause(0.2)
+        assert isinstance(app.screen, QueueScreen)

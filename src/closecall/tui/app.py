@@ -23,6 +23,13 @@ from closecall.tui.queue_screen import QueueScreen
 from closecall.tui.session import Clock, ReviewSession, utc_clock
 
 
+def _whatif_from() -> tuple[type, ...]:
+    from closecall.tui.case_screen import CaseScreen
+    from closecall.tui.model_screen import ModelScreen
+
+    return (CaseScreen, ModelScreen)
+
+
 class ReviewApp(App[None]):
     """``closecall review``.
 
@@ -44,6 +51,7 @@ class ReviewApp(App[None]):
     TITLE = "closecall review"
     BINDINGS: ClassVar[list[BindingType]] = [
         Binding("ctrl+q", "quit", "quit", priority=True, show=False),
+        Binding("i", "whatif", "what-if: weigh a policy change", show=False),
     ]
 
     def __init__(
@@ -174,6 +182,23 @@ class ReviewApp(App[None]):
         if self.session is not None and not isinstance(self.screen, ModelScreen):
             self.push_screen(ModelScreen(self.session))
 
+    def action_whatif(self) -> None:
+        from closecall.tui.whatif_screen import WhatIfScreen
+
+        if self.session is not None and isinstance(self.screen, (QueueScreen, *_whatif_from())):
+            self.push_screen(WhatIfScreen(self.session))
+
+    def show_changed_by(self, policy: str) -> None:
+        """Back to the close-call list, narrowed to the cases a what-if policy changes."""
+        from dataclasses import replace
+
+        queue = self._queue_screen()
+        if queue is None or self.session is None:
+            return
+        while self.screen is not queue:
+            self.pop_screen()
+        queue._apply(replace(self.session.settings, changed_by=policy))
+
     # ------------------------------------------------------------------ command palette
 
     def _queue_screen(self) -> QueueScreen | None:
@@ -191,6 +216,9 @@ class ReviewApp(App[None]):
         yield SystemCommand("Ledger", "Recent entries and the chain's state", self.action_ledger)
         yield SystemCommand(
             "Model weights", "Every model's weights, odds ratios, thresholds", self.action_model
+        )
+        yield SystemCommand(
+            "What-if", "Weigh a policy change: decisions changed by group", self.action_whatif
         )
         queue = self._queue_screen()
         if queue is None:

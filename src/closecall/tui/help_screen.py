@@ -111,6 +111,7 @@ def screen_keys() -> list[tuple[type, str, list[BindingType]]]:
     from closecall.tui.ledger_screen import EntryScreen, LedgerScreen
     from closecall.tui.model_screen import ModelScreen
     from closecall.tui.queue_screen import QueueScreen
+    from closecall.tui.whatif_screen import WhatIfScreen
 
     return [
         (QueueScreen, "Close-call list", [*QueueScreen.BINDINGS, *CaseList.BINDINGS]),
@@ -119,6 +120,7 @@ def screen_keys() -> list[tuple[type, str, list[BindingType]]]:
         (LedgerScreen, "Ledger", list(LedgerScreen.BINDINGS)),
         (EntryScreen, "Ledger entry", list(EntryScreen.BINDINGS)),
         (ModelScreen, "Model", list(ModelScreen.BINDINGS)),
+        (WhatIfScreen, "What-if", list(WhatIfScreen.BINDINGS)),
     ]
 
 
@@ -147,6 +149,7 @@ def help_text(
             text.append(_keys_of(name, bindings, plain))
     text.append("Anywhere\n", "bold")
     text.append("  ^p           commands (every action by name)\n")
+    text.append("  i            what-if: weigh a policy change (list, case, model)\n")
     text.append("  ^q           quit (asks first if a note is not recorded)\n\n")
 
     text.append("Marks in the list\n", "bold underline")

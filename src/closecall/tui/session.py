@@ -45,6 +45,7 @@ class ListSettings:
     ambiguous: bool = False
     unreviewed: bool = False
     rests_on: str | None = None  # "group" or "proxies": the decision flips without that part
+    changed_by: str | None = None  # a what-if policy's text: only the cases it changes
 
     def describe(self) -> str:
         parts = [f"sort {self.sort}"]
@@ -57,6 +58,8 @@ class ListSettings:
             parts.append("unreviewed only")
         if self.rests_on:
             parts.append(f"resting on the {self.rests_on}")
+        if self.changed_by:
+            parts.append(f"changed by {self.changed_by}")
         return " · ".join(parts)
 
 
@@ -192,6 +195,7 @@ class ReviewSession:
             rests_on=rests_on,
             unreviewed=s.unreviewed,
             band=self.band,
+            changed_by=s.changed_by,
         )
 
     def _analysis_cache(self) -> dict[str, np.ndarray]:

@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import warnings
 from dataclasses import dataclass
-from typing import Literal
+from typing import Any, Literal
 
 import numpy as np
 import pandas as pd
@@ -149,127 +149,214 @@ def conditional_disparity(
     (2002) 2409-2419 (penalised likelihood). A. C. Cameron and D. L. Miller, Journal of Human
     Resources 50 (2015) 317-372 (cluster-robust inference).
     """
-    df = check_reviews(reviews)
-    model_fav = direction == "to_unfavourable"
-    risk = df[df["decided"] & (df["model_fav"] == model_fav)]
-    risk_set = (
-        "decided reviews the model decided favourably"
-        if model_fav
-        else "decided reviews the model decided unfavourably"
-    )
-    y_all = risk[direction].to_numpy(dtype=float)
-    agg = risk.groupby("group")[direction].agg(["size", "sum"])
-    at_risk = {str(g): int(v) for g, v in agg["size"].items()}
-    events = {str(g): int(v) for g, v in agg["sum"].items()}
-    order = sorted(at_risk, key=lambda g: (-at_risk[g], g))
-    notes: list[str] = []
+    rs = _RiskSet.of(check_reviews(reviews), direction, level)
+    why = rs.nothing_to_fit()
+    if why is not None:
+        return rs.empty(why)
+    ref = reference_group if reference_group is not None else rs.default_reference()
+    if ref not in rs.at_risk:
+        return rs.empty(f"reference group {ref!r} has no reviews in the risk set")
+    others = [g for g in rs.order if g != ref]
+    x = rs.design(others)
+    reviewer = rs.risk["reviewer"].astype(str).to_numpy()
+    clusters = len(np.unique(reviewer))
+    if rs.note_separated():
+        return _by_firth(rs, ref, others, x, clusters)
+    res = _maximum_likelihood(x, rs.y, rs.notes)
+    if res is None:
+        return _by_firth(rs, ref, others, x, clusters)
+    return _ml_fit(rs, ref, others, x, res, reviewer, clusters)
 
-    def empty(reason: str, ref: str | None = None) -> ConditionalFit:
+
+def _by_firth(
+    rs: _RiskSet, ref: str, others: list[str], x: pd.DataFrame, clusters: int
+) -> ConditionalFit:
+    """The same model by Firth's penalised likelihood, or no odds ratios when even that has
+    no solution (a singular design: e.g. the margins in the risk set do not vary)."""
+    try:
+        return _firth(
+            rs.direction,
+            rs.text,
+            ref,
+            x,
+            rs.y,
+            rs.order,
+            others,
+            rs.at_risk,
+            rs.events,
+            rs.level,
+            rs.notes,
+            clusters,
+        )
+    except np.linalg.LinAlgError:
+        return rs.empty(
+            "Firth's penalised likelihood could not be fitted either (the design is "
+            "singular, e.g. the margins in the risk set do not vary): no odds ratios"
+        )
+
+
+@dataclass
+class _RiskSet:
+    """The reviews at risk of one override direction, their events by group and the notes."""
+
+    direction: Direction
+    text: str
+    risk: pd.DataFrame
+    y: np.ndarray
+    at_risk: dict[str, int]
+    events: dict[str, int]
+    order: list[str]  # groups, largest first
+    level: float
+    notes: list[str]
+
+    @classmethod
+    def of(cls, df: pd.DataFrame, direction: Direction, level: float) -> _RiskSet:
+        """For "to_unfavourable", the decided reviews the model had decided favourably; for
+        "to_favourable", those it had decided unfavourably."""
+        model_fav = direction == "to_unfavourable"
+        risk = df[df["decided"] & (df["model_fav"] == model_fav)]
+        text = (
+            "decided reviews the model decided favourably"
+            if model_fav
+            else "decided reviews the model decided unfavourably"
+        )
+        agg = risk.groupby("group")[direction].agg(["size", "sum"])
+        at_risk = {str(g): int(v) for g, v in agg["size"].items()}
+        events = {str(g): int(v) for g, v in agg["sum"].items()}
+        order = sorted(at_risk, key=lambda g: (-at_risk[g], g))
+        y = risk[direction].to_numpy(dtype=float)
+        return cls(direction, text, risk, y, at_risk, events, order, level, [])
+
+    def nothing_to_fit(self) -> str | None:
+        """Why there is nothing to model (None when there is)."""
+        if len(self.risk) == 0:
+            return "no reviews in the risk set"
+        if self.y.sum() == 0:
+            what = self.direction.replace("_", " ")
+            return f"no overrides {what} in the risk set: nothing to model"
+        if self.y.sum() == len(self.y):
+            return "every case in the risk set was overridden: nothing to compare against"
+        if len(self.order) < 2:
+            return "only one group has reviews in the risk set: nothing to compare"
+        return None
+
+    def default_reference(self) -> str:
+        """The largest group with both events and non-events (the largest when none has)."""
+        estimable = [g for g in self.order if 0 < self.events[g] < self.at_risk[g]]
+        return estimable[0] if estimable else self.order[0]
+
+    def note_separated(self) -> bool:
+        """Note each group with no override or only overrides (separation); True if any."""
+        separated = [g for g in self.order if not 0 < self.events[g] < self.at_risk[g]]
+        for g in separated:
+            kind = "no" if self.events[g] == 0 else "only"
+            self.notes.append(
+                f"group {g}: {kind} overrides in {self.at_risk[g]} case(s) at risk; its maximum-"
+                "likelihood odds ratio is 0 or unbounded (separation), so every group is "
+                "estimated by Firth's penalised likelihood instead"
+            )
+        return bool(separated)
+
+    def empty(self, reason: str, ref: str | None = None) -> ConditionalFit:
+        """A fit with no odds ratios, saying why."""
         rows = tuple(
-            GroupOddsRatio(g, at_risk[g], events[g], None, None, None, None, None) for g in order
+            GroupOddsRatio(g, self.at_risk[g], self.events[g], None, None, None, None, None)
+            for g in self.order
         )
         return ConditionalFit(
-            direction,
-            risk_set,
+            self.direction,
+            self.text,
             ref,
-            len(risk),
-            int(y_all.sum()),
+            len(self.risk),
+            int(self.y.sum()),
             False,
             None,
             None,
             None,
             rows,
-            level,
-            (*notes, reason),
+            self.level,
+            (*self.notes, reason),
         )
 
-    if len(risk) == 0:
-        return empty("no reviews in the risk set")
-    if y_all.sum() == 0:
-        what = direction.replace("_", " ")
-        return empty(f"no overrides {what} in the risk set: nothing to model")
-    if y_all.sum() == len(y_all):
-        return empty("every case in the risk set was overridden: nothing to compare against")
-    if len(order) < 2:
-        return empty("only one group has reviews in the risk set: nothing to compare")
-
-    estimable = [g for g in order if 0 < events[g] < at_risk[g]]
-    separated = [g for g in order if g not in estimable]
-    if reference_group is None:
-        ref = estimable[0] if estimable else order[0]
-    else:
-        ref = reference_group
-        if ref not in at_risk:
-            return empty(f"reference group {ref!r} has no reviews in the risk set")
-    others = [g for g in order if g != ref]
-    x = pd.DataFrame({"const": 1.0, "margin": risk["margin"].to_numpy(dtype=float)})
-    for g in others:
-        x[f"group[{g}]"] = (risk["group"].to_numpy() == g).astype(float)
-    k = x.shape[1] - 1
-    rare = int(min(y_all.sum(), len(y_all) - y_all.sum()))
-    if rare < EVENTS_PER_VARIABLE * k:
-        notes.append(
-            f"only {rare} cases in the rarer outcome for {k} coefficients (fewer than "
-            f"{EVENTS_PER_VARIABLE} per coefficient, common practice): estimates are unstable "
-            "and intervals approximate"
-        )
-    reviewer = risk["reviewer"].astype(str).to_numpy()
-    clusters = len(np.unique(reviewer))
-    z = z_value(level)
-
-    def by_firth() -> ConditionalFit:
-        """The same model by Firth's penalised likelihood, or ``empty`` when even that has no
-        solution (a singular design: e.g. the margins in the risk set do not vary)."""
-        try:
-            return _firth(
-                direction, risk_set, ref, x, y_all, order, others, at_risk, events, level,
-                notes, clusters,
+    def design(self, others: list[str]) -> pd.DataFrame:
+        """Constant, margin and one indicator per non-reference group (with a note when the
+        rarer outcome is thin for that many coefficients)."""
+        x = pd.DataFrame({"const": 1.0, "margin": self.risk["margin"].to_numpy(dtype=float)})
+        for g in others:
+            x[f"group[{g}]"] = (self.risk["group"].to_numpy() == g).astype(float)
+        k = x.shape[1] - 1
+        rare = int(min(self.y.sum(), len(self.y) - self.y.sum()))
+        if rare < EVENTS_PER_VARIABLE * k:
+            self.notes.append(
+                f"only {rare} cases in the rarer outcome for {k} coefficients (fewer than "
+                f"{EVENTS_PER_VARIABLE} per coefficient, common practice): estimates are "
+                "unstable and intervals approximate"
             )
-        except np.linalg.LinAlgError:
-            return empty(
-                "Firth's penalised likelihood could not be fitted either (the design is "
-                "singular, e.g. the margins in the risk set do not vary): no odds ratios"
-            )
+        return x
 
-    if separated:
-        for g in separated:
-            kind = "no" if events[g] == 0 else "only"
-            notes.append(
-                f"group {g}: {kind} overrides in {at_risk[g]} case(s) at risk; its maximum-"
-                "likelihood odds ratio is 0 or unbounded (separation), so every group is "
-                "estimated by Firth's penalised likelihood instead"
-            )
-        return by_firth()
+
+def _maximum_likelihood(x: pd.DataFrame, y: np.ndarray, notes: list[str]) -> Any | None:
+    """statsmodels' Logit fit, or None (with a note) when Firth's must be used instead."""
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("error", PerfectSeparationWarning)
             warnings.simplefilter("ignore", ConvergenceWarning)
-            model = sm.Logit(y_all, x)
-            res = model.fit(disp=0, method="newton", maxiter=100)
+            res = sm.Logit(y, x).fit(disp=0, method="newton", maxiter=100)
     except (PerfectSeparationError, PerfectSeparationWarning, np.linalg.LinAlgError) as exc:
         notes.append(f"maximum likelihood failed ({exc}); Firth's penalised likelihood used")
-        return by_firth()
+        return None
     bse = np.asarray(res.bse, dtype=float)
     if not res.mle_retvals.get("converged", False) or not np.all(np.isfinite(bse)):
         notes.append(
             "maximum likelihood did not converge or gave infinite standard errors (likely "
             "quasi-separation by margin); Firth's penalised likelihood used"
         )
-        return by_firth()
+        return None
+    return res
 
-    params = np.asarray(res.params, dtype=float)
-    mb_p = np.asarray(res.pvalues, dtype=float)
+
+@dataclass(frozen=True)
+class _Errors:
+    """The standard errors of a maximum-likelihood fit: model-based, cluster-robust by
+    reviewer when there are two reviewers or more, and which of them the intervals use."""
+
+    bse: np.ndarray
+    mb_p: np.ndarray
+    cl_bse: np.ndarray | None
+    cl_p: np.ndarray | None
+    z: float
+    t_crit: float
+    use_cluster: bool
+    text: str
+
+    def primary(self, j: int) -> float:
+        """The standard error of coefficient j the intervals use."""
+        use = self.use_cluster and self.cl_bse is not None
+        return float(self.cl_bse[j]) if use and self.cl_bse is not None else float(self.bse[j])
+
+
+def _standard_errors(
+    x: pd.DataFrame,
+    y: np.ndarray,
+    params: np.ndarray,
+    res: Any,
+    reviewer: np.ndarray,
+    clusters: int,
+    level: float,
+    notes: list[str],
+) -> _Errors:
+    """Model-based and cluster-robust (CR1, t with G − 1 df) errors; notes on which is used."""
+    z = z_value(level)
     cl_bse = cl_p = None
     t_crit = z
     if clusters >= 2:
-        xm = x.to_numpy(dtype=float)
-        cl_bse = cluster_robust_se(xm, y_all, params, pd.factorize(reviewer)[0])
+        cl_bse = cluster_robust_se(x.to_numpy(dtype=float), y, params, pd.factorize(reviewer)[0])
         with np.errstate(divide="ignore", invalid="ignore"):
             cl_p = 2.0 * stats.t.sf(np.abs(params / cl_bse), clusters - 1)
         t_crit = float(stats.t.ppf(0.5 + level / 2.0, clusters - 1))
     use_cluster = cl_bse is not None and clusters >= MIN_CLUSTERS and np.all(np.isfinite(cl_bse))
     if use_cluster:
-        se_text = (
+        text = (
             f"cluster-robust by reviewer ({clusters} reviewers; CR1, t with {clusters - 1} "
             "degrees of freedom)"
         )
@@ -279,31 +366,47 @@ def conditional_disparity(
                 "practice): cluster-robust intervals may still be somewhat too narrow"
             )
     else:
-        se_text = "model-based (reviews treated as independent)"
+        text = "model-based (reviews treated as independent)"
         notes.append(
             f"only {clusters} reviewer(s) in this risk set (fewer than {MIN_CLUSTERS}): too few "
             "to cluster on, so the intervals treat reviews as independent; if reviewers differ "
             "in how often they override, they are too narrow"
             + ("; the cluster-robust figures are in the JSON output" if cl_bse is not None else "")
         )
+    bse = np.asarray(res.bse, dtype=float)
+    mb_p = np.asarray(res.pvalues, dtype=float)
+    return _Errors(bse, mb_p, cl_bse, cl_p, z, t_crit, bool(use_cluster), text)
 
-    def wald(j: int, se: float, crit: float) -> tuple[float, float]:
-        return float(np.exp(params[j] - crit * se)), float(np.exp(params[j] + crit * se))
+
+def _ml_fit(
+    rs: _RiskSet,
+    ref: str,
+    others: list[str],
+    x: pd.DataFrame,
+    res: Any,
+    reviewer: np.ndarray,
+    clusters: int,
+) -> ConditionalFit:
+    """The odds ratios of a maximum-likelihood fit, with both kinds of intervals."""
+    params = np.asarray(res.params, dtype=float)
+    se = _standard_errors(x, rs.y, params, res, reviewer, clusters, rs.level, rs.notes)
+
+    def wald(j: int, s: float, crit: float) -> tuple[float, float]:
+        return float(np.exp(params[j] - crit * s)), float(np.exp(params[j] + crit * s))
 
     rows: list[GroupOddsRatio] = []
-    for g in order:
-        at, ev = at_risk[g], events[g]
+    for g in rs.order:
+        at, ev = rs.at_risk[g], rs.events[g]
         if g == ref:
             rows.append(GroupOddsRatio(g, at, ev, 1.0, None, None, None, "reference group"))
             continue
         j = 2 + others.index(g)
-        mlo, mhi = wald(j, bse[j], z)
+        mlo, mhi = wald(j, se.bse[j], se.z)
         clo = chi = cp = None
-        if cl_bse is not None and cl_p is not None and np.isfinite(cl_bse[j]):
-            clo, chi = wald(j, cl_bse[j], t_crit)
-            cp = float(cl_p[j])
-        lo, hi, p = (clo, chi, cp) if use_cluster else (mlo, mhi, float(mb_p[j]))
-        se_primary = float(cl_bse[j]) if use_cluster and cl_bse is not None else float(bse[j])
+        if se.cl_bse is not None and se.cl_p is not None and np.isfinite(se.cl_bse[j]):
+            clo, chi = wald(j, se.cl_bse[j], se.t_crit)
+            cp = float(se.cl_p[j])
+        lo, hi, p = (clo, chi, cp) if se.use_cluster else (mlo, mhi, float(se.mb_p[j]))
         rows.append(
             GroupOddsRatio(
                 g,
@@ -316,30 +419,29 @@ def conditional_disparity(
                 None,
                 model_based_low=mlo,
                 model_based_high=mhi,
-                model_based_p=float(mb_p[j]),
+                model_based_p=float(se.mb_p[j]),
                 cluster_low=clo,
                 cluster_high=chi,
                 cluster_p=cp,
-                detectable=detectable_odds_ratio(se_primary),
+                detectable=detectable_odds_ratio(se.primary(j)),
             )
         )
-    m_se = float(cl_bse[1]) if use_cluster and cl_bse is not None else float(bse[1])
-    m_crit = t_crit if use_cluster else z
+    m_lo, m_hi = wald(1, se.primary(1), se.t_crit if se.use_cluster else se.z)
     return ConditionalFit(
-        direction=direction,
-        risk_set=risk_set,
+        direction=rs.direction,
+        risk_set=rs.text,
         reference_group=ref,
-        at_risk=len(risk),
-        events=int(y_all.sum()),
+        at_risk=len(rs.risk),
+        events=int(rs.y.sum()),
         fitted=True,
         margin_odds_ratio=float(np.exp(params[1])),
-        margin_low=float(np.exp(params[1] - m_crit * m_se)),
-        margin_high=float(np.exp(params[1] + m_crit * m_se)),
+        margin_low=m_lo,
+        margin_high=m_hi,
         rows=tuple(rows),
-        level=level,
-        notes=tuple(notes),
+        level=rs.level,
+        notes=tuple(rs.notes),
         estimation=ML,
-        standard_errors=se_text,
+        standard_errors=se.text,
         reviewers=clusters,
     )
 

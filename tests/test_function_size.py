@@ -15,7 +15,6 @@ LIMIT = 80
 
 #: module:function -> why it is still long (each one a candidate for the next split).
 ALLOWED: dict[str, str] = {
-    "reports/disparity/html.py:render_html": "one HTML page, section by section (to split)",
     "cli/explain_cmds.py:proxies": "a view's printing of the proxy table (to split)",
     "cli/explain_cmds.py:_print_explanation": "a view's printing of one case (to split)",
     "cli/explain_cmds.py:_print_card": "a view's printing of the deployed card (to split)",

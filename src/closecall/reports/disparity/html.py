@@ -216,9 +216,29 @@ def _test_rows(tests: Sequence[IndependenceTest]) -> list[list[str]]:
 
 def render_html(report: DisparityReport) -> str:
     """The whole report as one HTML document (no external files, scripts or fonts)."""
-    s, r = report.summary, report.rates
-    ctx: dict[str, Any] = report.context
-    lvl = f"{100 * s.level:.0f}%"
+    title = f"Human-versus-model disparity: {report.context.get('study', 'study')}"
+    parts = [
+        *_header_part(report),
+        *_rates_part(report),
+        *_air_part(report),
+        *_overrides_part(report),
+        *_conditional_part(report),
+        *_reviewers_part(report),
+        *_errors_part(report),
+        *_closing_part(report),
+    ]
+    body = "\n".join(parts)
+    return (
+        '<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8">'
+        f"<title>{_h(title)}</title><style>{_CSS}</style></head>"
+        f"<body>\n{body}\n</body></html>\n"
+    )
+
+
+def _header_part(report: DisparityReport) -> list[str]:
+    """Title, facts of the study, headline and cautions."""
+    s, ctx = report.summary, report.context
+    lvl = f"{100 * report.summary.level:.0f}%"
     parts: list[str] = []
     title = f"Human-versus-model disparity: {ctx.get('study', 'study')}"
     parts.append(f"<h1>{_h(title)}</h1>")
@@ -240,7 +260,13 @@ def render_html(report: DisparityReport) -> str:
     parts.append(f'<div class="box">{_h(_headline(report))}</div>')
     parts.append('<ul class="note">' + "".join(f"<li>{_h(c)}</li>" for c in CAUTIONS) + "</ul>")
     parts.append(sections.population_section(report))
+    return parts
 
+
+def _rates_part(report: DisparityReport) -> list[str]:
+    """Section 1: favourable rates, model and final, by group."""
+    r = report.rates
+    parts: list[str] = []
     parts.append("<h2>1. Favourable rates, model and final</h2>")
     parts.append(_png(rates_figure(report)))
     parts.append(
@@ -258,6 +284,13 @@ def render_html(report: DisparityReport) -> str:
             ],
         )
     )
+    return parts
+
+
+def _air_part(report: DisparityReport) -> list[str]:
+    """Section 2: adverse impact ratios and the four-fifths rule."""
+    r = report.rates
+    parts: list[str] = []
     parts.append("<h2>2. Adverse impact ratio and the four-fifths rule</h2>")
     parts.append(_png(air_figure(report)))
     parts.append(
@@ -294,7 +327,12 @@ def render_html(report: DisparityReport) -> str:
     )
     parts.extend(f'<p class="note">{_h(n)}</p>' for n in r.notes)
     parts.append(sections.limits(report, "reviewed"))
+    return parts
 
+
+def _overrides_part(report: DisparityReport) -> list[str]:
+    """Section 3: overrides by group, with their tests."""
+    parts: list[str] = []
     o = report.overrides
     parts.append("<h2>3. Overrides by group</h2>")
     parts.append(_png(margin_figure(report)))
@@ -320,7 +358,13 @@ def render_html(report: DisparityReport) -> str:
     parts.append(_table(["test", "method", "statistic", "p", "note"], _test_rows(o.tests), 2))
     parts.append(sections.power(report.test_power))
     parts.append(sections.limits(report, "overrides"))
+    return parts
 
+
+def _conditional_part(report: DisparityReport) -> list[str]:
+    """Section 4: overrides at equal margin (logistic regression)."""
+    lvl = f"{100 * report.summary.level:.0f}%"
+    parts: list[str] = []
     parts.append("<h2>4. Overrides at equal margin (logistic regression)</h2>")
     for fit in report.conditional:
         what = fit.direction.replace("_", " ")
@@ -351,7 +395,12 @@ def render_html(report: DisparityReport) -> str:
             )
         parts.extend(f'<p class="note">{_h(n)}</p>' for n in fit.notes)
     parts.append(sections.conditional_extras(report))
+    return parts
 
+
+def _reviewers_part(report: DisparityReport) -> list[str]:
+    """Section 5: each reviewer's overrides and test."""
+    parts: list[str] = []
     parts.append("<h2>5. By reviewer</h2>")
     rows = []
     for t in report.reviewers:
@@ -390,7 +439,12 @@ def render_html(report: DisparityReport) -> str:
         "'review' family below (Holm, Benjamini–Hochberg).</p>"
     )
     parts.append(sections.limits(report, "reviewers"))
+    return parts
 
+
+def _errors_part(report: DisparityReport) -> list[str]:
+    """Section 6 (with outcomes): error rates, model and final."""
+    parts: list[str] = []
     if report.errors is not None:
         e = report.errors
         parts.append("<h2>6. Errors once outcomes are known</h2>")
@@ -429,7 +483,12 @@ def render_html(report: DisparityReport) -> str:
         )
         parts.extend(f'<p class="note">{_h(n)}</p>' for n in e.notes)
         parts.append(sections.outcome_tests_section(report))
+    return parts
 
+
+def _closing_part(report: DisparityReport) -> list[str]:
+    """Calibration, held-out, periods, test families, warnings and limits."""
+    parts: list[str] = []
     parts.append(sections.calibration_section(report))
     parts.append(sections.heldout_section(report))
     parts.append(sections.periods_section(report))
@@ -441,12 +500,7 @@ def render_html(report: DisparityReport) -> str:
         '<p class="note">How each figure is computed, and what it cannot tell you: '
         "docs/disparity.md in the closecall distribution.</p>"
     )
-    body = "\n".join(parts)
-    return (
-        '<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8">'
-        f"<title>{_h(title)}</title><style>{_CSS}</style></head>"
-        f"<body>\n{body}\n</body></html>\n"
-    )
+    return parts
 
 
 def _headline(report: DisparityReport) -> str:

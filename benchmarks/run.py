@@ -14,6 +14,8 @@ medians. Steps and their baselines (see docs/performance.md):
   on the whole history and scaled; agreement measured on a subsample);
 - proxies, contributions, counterparts, similar cases, explain (absolute);
 - queue ranking and filters (absolute);
+- what-if figures for a model, a lens, a group threshold and a dropped card weight  vs  a
+  pandas crosstab of the same two decision columns (the counts alone);
 - ledger durable appends per second and verify of 100,000 entries  vs  plain SQLite inserts;
 - the review screen's first paint and key latency (benchmarks/tui_latency.py, if present).
 
@@ -59,6 +61,7 @@ REPEATED = [
     "similar",
     "explain",
     "queue",
+    "whatif",
 ]
 
 
@@ -300,6 +303,13 @@ def table(results: dict[str, Any]) -> str:
             for k in ("group", "flips", "id_prefix", "ambiguous", "rests_on_proxies")
         )
         + " ms | — | — | — |",
+        "| what-if figures: model / lens / group threshold / dropped weight | "
+        + " / ".join(
+            t("whatif", f"{k}_s", 1000, "{:.0f}")
+            for k in ("model", "lens", "group_threshold", "drop_weight")
+        )
+        + f" ms | pandas crosstab {t('whatif', 'pandas_crosstab_s', 1000, '{:.0f}')} ms | — | "
+        f"{mem('whatif')} |",
     ]
     led = results.get("ledger", {})
     if isinstance(led.get("append_per_s"), int | float):

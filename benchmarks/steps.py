@@ -437,6 +437,50 @@ def queue_step(p: dict[str, Any]) -> Result:
     return out
 
 
+@step("whatif")
+def whatif_step(p: dict[str, Any]) -> Result:
+    """What-if figures over every case (changed decisions by group, rates and AIR, held-out
+    error rates) for a model, a lens, a group threshold and, with a card, a dropped weight;
+    the queue narrowed to the changed cases. Baseline: a pandas crosstab of group × the two
+    decision columns (the counts alone)."""
+    import pandas as pd
+    from scipy.special import logit
+
+    from closecall.analysis.whatif import Policy, baseline_model, policy_choices
+    from closecall.analysis.whatif_figures import whatif
+    from closecall.review.query import QueueQuery, answer_queue
+    from closecall.suite.opening import open_study
+
+    study = open_study(p["config"])
+    snap = study.snapshot
+    policies = {
+        "model": Policy(model="unaware"),
+        "lens": Policy(lens=snap.lenses[-1].name),
+        "group_threshold": Policy(group_thresholds=((snap.group_levels[-1], 0.4),)),
+    }
+    drops = [c for c in policy_choices(study) if c.drop]
+    if drops:
+        policies["drop_weight"] = drops[0]
+    out: Result = {"cases": float(snap.n_cases)}
+    for name, policy in policies.items():
+        with Clock() as c:
+            fig = whatif(study, policy)
+        out[f"{name}_s"] = c.wall
+        out[f"{name}_changed"] = float(fig.total.changed)
+    with Clock() as c:
+        answer = answer_queue(study, QueueQuery(changed_by="model=unaware"))
+    out["queue_changed_by_s"] = c.wall
+    out["queue_changed_by_listed"] = float(len(answer.queue.order))
+    t = float(logit(snap.lenses[0].threshold))
+    before = np.asarray(snap.logit(baseline_model(snap))) > t
+    after = np.asarray(snap.logit("unaware")) > t
+    with Clock() as c:
+        frame = pd.DataFrame({"group": snap.group_labels, "before": before, "after": after})
+        pd.crosstab(frame["group"], [frame["before"], frame["after"]])
+    out["pandas_crosstab_s"] = c.wall
+    return out
+
+
 # ---------------------------------------------------------------------------- ledger
 
 

@@ -302,23 +302,17 @@ def figures_dict(
         return dict(clean(asdict(p)))
 
     rows = fig.rows
-    changed = [
+    import pandas as pd
+
+    changed = pd.DataFrame(
         {
-            "case_id": str(c),
-            "group": str(g),
-            "direction": "to favourable" if up else "to unfavourable",
-            "baseline_margin": float(b),
-            "policy_margin": float(m),
+            "case_id": np.asarray(case_ids)[rows].astype(str),
+            "group": np.asarray(group_labels)[rows].astype(str),
+            "direction": np.where(fig.to_favourable, "to favourable", "to unfavourable"),
+            "baseline_margin": np.asarray(fig.baseline_margin, dtype=float),
+            "policy_margin": np.asarray(fig.policy_margin, dtype=float),
         }
-        for c, g, up, b, m in zip(
-            np.asarray(case_ids)[rows],
-            np.asarray(group_labels)[rows],
-            fig.to_favourable,
-            fig.baseline_margin,
-            fig.policy_margin,
-            strict=True,
-        )
-    ]
+    ).to_dict("records")
     return {
         "level": fig.level,
         "baseline": side(fig.baseline),

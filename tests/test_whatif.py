@@ -279,3 +279,24 @@ def test_cli_queue_changed_by(study: Study, demo_config: Path, cli: Any) -> None
     data = json.loads(res.out)
     assert data["filters"]["changed_by"] == "model=unaware"
     assert {r["case_id"] for r in data["rows"]} == set(study.whatif(model="unaware").case_ids)
+
+
+def test_imported_scores_of_the_history_are_not_called_held_out(tmp_path: Path) -> None:
+    """One labelled file with a deployed score column: the history's deployed scores are the
+    imported ones (not out-of-fold), and the figures say so."""
+    config = write_demo(tmp_path / "one-file", cases=600, seed=4)
+    history = pd.read_csv(config.parent / "history.csv")
+    pending = pd.read_csv(config.parent / "pending.csv")
+    both = pd.concat([history, pending.assign(completed="no")], ignore_index=True)
+    both["deployed_score"] = both["deployed_score"].fillna(0.5)
+    both.to_csv(config.parent / "history.csv", index=False)
+    text = imported_scores(config).read_text().replace('pending = "pending.csv"', "")
+    config.write_text(text)
+    study = Study.open(config)
+    assert study.opened.snapshot.cross_fitted
+    data = study.whatif(model="unaware").to_dict()
+    assert (
+        data["baseline"]["errors_source"] == "the deployed model's imported scores of the history"
+    )
+    assert any("may not be held-out" in n for n in data["baseline"]["notes"])
+    assert data["policy"]["errors_source"] == "out-of-fold scores of the history"

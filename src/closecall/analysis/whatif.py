@@ -183,6 +183,12 @@ def policy_scores(study: OpenedStudy, policy: Policy) -> PolicyScores:
             "the deployed model's scores are imported for the cases under review only: its "
             "error rates on the history cannot be computed"
         )
+    elif model == DEPLOYED:
+        source = "the deployed model's imported scores of the history"
+        notes.append(
+            "the deployed model's scores of the history are imported: whether that model was "
+            "fitted to these cases is not known here, so its error rates may not be held-out"
+        )
     shown = replace(full, lens=full.lens or snap.lenses[0].name)
     return PolicyScores(shown, shown.label(), margin, held, source, tuple(notes))
 

@@ -46,6 +46,37 @@ def test_ascii_mode_is_automatic_on_the_linux_console_only() -> None:
     assert ascii_wanted(True, {"TERM": "xterm"}) and not ascii_wanted(False, {"TERM": "linux"})
 
 
+@synchronous
+async def test_the_linux_console_gets_ascii_mode_by_itself(
+    study: OpenedStudy, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    monkeypatch.setenv("TERM", "linux")
+    app = ReviewApp(study=study, login="reviewer")
+    async with app.run_test(size=(80, 24)) as pilot:
+        await open_queue(pilot)
+        assert app.plain_ascii and not _non_ascii(screen_text(app))
+
+
+@pytest.mark.parametrize(
+    ("flags", "wanted"), [(["--ascii"], True), (["--no-ascii"], False), ([], None)]
+)
+def test_review_passes_ascii_to_the_screens(  # type: ignore[no-untyped-def]
+    cli, study_config: Path, monkeypatch: pytest.MonkeyPatch, flags: list[str], wanted: bool | None
+) -> None:
+    seen: list[bool | None] = []
+
+    def fake_init(self: ReviewApp, *args: object, plain_ascii: bool | None = None, **kw: object):  # type: ignore[no-untyped-def]
+        seen.append(plain_ascii)
+        self._return_code = None  # nothing is run: only what the command asked for is checked
+
+    monkeypatch.setattr(ReviewApp, "__init__", fake_init)
+    monkeypatch.setattr(ReviewApp, "run", lambda self: None)
+    res = cli("review", "--config", str(study_config), *flags)
+    assert res.code == 0, res
+    assert seen == [wanted]
+    assert "--ascii" in cli("review", "--help").out
+
+
 def _record_two(study: OpenedStudy) -> str:
     """Two entries with a long non-ASCII note, so the ledger and entry screens draw text."""
     case = str(study.snapshot.case_ids[0])

@@ -32,10 +32,7 @@ FILTER_PAUSE_SECONDS = 0.3
 TITLE_PATH_CELLS = 68  # fits the title line at 80 columns
 WIDE = 110  # from this width the table has a reason column (the entry below always shows it)
 REVIEWER_CELLS, CASE_CELLS, REASON_CELLS = 12, 14, 24  # cut in the table, whole below it
-# cells left of the note column: seq, time, reviewer, case, action (+ reason), each padded by
-# one cell either side, and the scroll bar
-NOTE_AT = 6 + 11 + REVIEWER_CELLS + CASE_CELLS + 9 + 2 * 6 + 1
-NOTE_AT_WIDE = NOTE_AT + REASON_CELLS + 2
+COLUMN_NAMES = ("seq", "UTC", "reviewer", "case", "action", "reason")  # then "note"
 
 
 FILTER_PROMPT = {
@@ -97,8 +94,8 @@ class LedgerScreen(Screen[None]):
     def on_mount(self) -> None:
         table = self.query_one("#entries", DataTable)
         self.with_reason = self.size.width >= WIDE
-        names = ["seq", "UTC", "reviewer", "case", "action"]
-        table.add_columns(*names, *(["reason"] if self.with_reason else []), "note")
+        names = COLUMN_NAMES if self.with_reason else COLUMN_NAMES[:-1]
+        table.add_columns(*names, "note")
         table.focus()
         self._request([None])
         self.action_verify()
@@ -142,7 +139,7 @@ class LedgerScreen(Screen[None]):
         self.query_one("#page", Static).update(self._page_label())
         table = self.query_one("#entries", DataTable)
         table.clear()
-        note_w = max(12, self.size.width - (NOTE_AT_WIDE if self.with_reason else NOTE_AT))
+        note_w = self._note_cells()
         for e in self.entries:
             cells = [
                 Text(str(e.seq)),
@@ -153,12 +150,29 @@ class LedgerScreen(Screen[None]):
             ]
             if self.with_reason:
                 cells.append(Text(_preview(e.reason or "—", REASON_CELLS)))
-            cells.append(Text(_preview(e.note, min(note_w, 60))))
+            cells.append(Text(_preview(e.note, note_w)))
             table.add_row(*cells, key=str(e.seq))
         if not self.entries:
             self._show_detail("no entries match" if any(self._filters()) else "no entries yet")
         else:
             self._show_entry(self.entries[0])
+
+    def _note_cells(self) -> int:
+        """Cells left for the note preview on this page: the screen less the other columns
+        (each as wide as its widest cell on the page, padded one cell either side)."""
+        widths = [
+            max((len(str(e.seq)) for e in self.entries), default=3),
+            11,
+            max((len(safe_text(e.reviewer)[:REVIEWER_CELLS]) for e in self.entries), default=8),
+            max((len(safe_text(e.case_id)[:CASE_CELLS]) for e in self.entries), default=4),
+            max(len(a) for a in ACTION_SHORT.values()),
+        ]
+        if self.with_reason:
+            widths.append(
+                max((len((e.reason or "—")[:REASON_CELLS]) for e in self.entries), default=6)
+            )
+        used = sum(max(w, len(h)) + 2 for w, h in zip(widths, COLUMN_NAMES, strict=False))
+        return max(12, min(60, self.size.width - used - 2 - 1))  # the note's padding, scroll bar
 
     @on(Input.Changed)
     def _filter_changed(self) -> None:

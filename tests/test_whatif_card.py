@@ -162,3 +162,34 @@ def test_cli_done_when(config: Path, cli: Any) -> None:
         cli("whatif", "--config", str(config), "--drop-weight", "heritage", "--json").out
     )
     assert data["total"]["changed"] == sum(c["changed"] for c in data["changes"])
+
+
+def test_the_demo_figures_in_docs_whatif_hold(tmp_path: Path) -> None:
+    """docs/whatif.md quotes the default demo (5,000 cases, seed 7) without heritage's weight."""
+    config = write_demo(tmp_path / "demo", cases=5000, seed=7)
+    (config.parent / "scorecard.csv").write_text(DEMO_SCORECARD)
+    text = config.read_text()
+    if "[deployed]" not in text:
+        text = text.replace('deployed_score = "deployed_score"', "")
+        config.write_text(text + '\n[deployed]\nscorecard = "scorecard.csv"\n')
+    result = Study.open(config).whatif(drop=["heritage"])
+    data = result.to_dict()
+    briar = result.by_group["Briar"]
+    page = (Path(__file__).resolve().parents[1] / "docs" / "whatif.md").read_text()
+    page = " ".join(page.split())
+    rates = {(r["group"], side): r for side in ("baseline", "policy") for r in data[side]["rates"]}
+    quoted = (
+        f"changes {result.changed} decisions",
+        f"{data['total']['cases']} pending",
+        f"{100 * briar['share']:.1f} % of Briar's {briar['cases']}",
+        f"{100 * briar['share_low']:.1f} %–{100 * briar['share_high']:.1f} %",
+        f"from {100 * rates['Briar', 'baseline']['rate']:.1f} % to "
+        f"{100 * rates['Briar', 'policy']['rate']:.1f} %",
+        *(
+            f"{word} {r['air']:.2f} ({r['air_low']:.2f}–{r['air_high']:.2f})"
+            for word, r in (("from", rates["Briar", "baseline"]), ("to", rates["Briar", "policy"]))
+        ),
+    )
+    for text in quoted:
+        assert text in page, text
+    assert result.to_unfavourable == 0 and result.by_group["Aster"]["changed"] == 0

@@ -136,3 +136,18 @@ async def test_i_opens_it_and_x_narrows_the_list_to_the_changed_cases(study: Ope
         await pilot.press("slash", "i")
         await pilot.pause(0.2)
         assert isinstance(app.screen, QueueScreen)
+
+
+@synchronous
+async def test_ascii_mode_draws_the_screen_in_ascii(study: OpenedStudy) -> None:
+    app = ReviewApp(study=study, login="reviewer", plain_ascii=True)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await open_queue(pilot)
+        await pilot.press("i")
+        await wait_until(pilot, lambda: isinstance(app.screen, WhatIfScreen))
+        screen = app.screen
+        assert isinstance(screen, WhatIfScreen)
+        await wait_until(pilot, lambda: screen.data is not None)
+        text = screen_text(app)
+        assert "decisions change" in text
+        assert [c for c in text if ord(c) > 127] == []

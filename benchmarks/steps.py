@@ -434,6 +434,15 @@ def queue_step(p: dict[str, Any]) -> Result:
     with Clock() as c:
         queue_rows(snap, q, 0, 50)
     out["rows_50_s"] = c.wall
+    # the default request of `closecall queue` and the review screen: triage order, whose
+    # tiers read the rests-on and ambiguous filters (computed here from scratch)
+    from closecall.review.query import QueueQuery, answer_queue
+
+    no_reviews = (np.zeros(snap.n_cases, dtype=np.int8), {})
+    with Clock() as c:
+        answer = answer_queue(open_study(p["config"]), QueueQuery(), reviews=no_reviews)
+    out["triage_s"] = c.wall
+    out["triage_listed"] = float(len(answer.queue))
     return out
 
 

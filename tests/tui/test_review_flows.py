@@ -225,7 +225,7 @@ async def test_sort_and_unreviewed_filter(study: OpenedStudy) -> None:
         await pilot.press("u")
         await wait_until(pilot, lambda: session.settings.unreviewed)
         assert first not in {str(study.snapshot.case_ids[r]) for r in session.queue.order}  # type: ignore[union-attr]
-        await pilot.press("s")
+        await pilot.press("s", "s")  # triage (the default), flips first, ambiguity
         await wait_until(pilot, lambda: session.queue.sort == "ambiguity")  # type: ignore[union-attr]
         ambiguity = session.measure("ambiguity")
         assert ambiguity is not None
@@ -272,11 +272,11 @@ async def test_meaning_survives_without_colour(
     async with app.run_test(size=SIZE) as pilot:
         await open_queue(pilot)
         await pilot.press("f")
-        await wait_until(pilot, lambda: "flips ●" in screen_text(app))
+        await wait_until(pilot, lambda: "f flips: any" in screen_text(app))
         lines = screen_text(app).splitlines()
         cursor_rows = [line for line in lines if line.startswith("▶")]
         assert len(cursor_rows) == 1
-        assert "open" in cursor_rows[0] and ("+" in cursor_rows[0] or "−" in cursor_rows[0])
+        assert "open" in cursor_rows[0] and "on the line" in cursor_rows[0]  # distance in words
         assert "a ambiguous ○" in screen_text(app)
 
 

@@ -120,13 +120,14 @@ def test_sections_say_directions_in_words(study: OpenedStudy) -> None:
 
 @pytest.mark.parametrize("width", [80, 120])
 def test_case_list_rows_fit_the_width(study: OpenedStudy, width: int) -> None:
-    from closecall.tui.case_list import Layout
+    from closecall.tui.case_list import DISTANCE_WIDTH, STATE_WIDTH, WHY_WIDTH, Layout
 
     session = ReviewSession(study)
     q = session.rebuild()
     lay = Layout.fit(session, width, len(q))
-    used = 2 + lay.rank + 1 + lay.case + 1 + lay.group + 1 + 7 + 11 + lay.marks + 1 + 5 + 10
-    assert used + 9 * len(lay.extra_models) <= width - 1
+    used = 2 + lay.rank + 1 + lay.case + 1 + lay.group + 1 + DISTANCE_WIDTH + 1 + WHY_WIDTH + 1
+    used += lay.differs + 1 + 7 * lay.margin + 11 * lay.band + 5 * lay.dep + STATE_WIDTH
+    assert used + 11 * len(lay.extra_models) <= width - 1
 
 
 @pytest.mark.parametrize("sort", ["ambiguity", "dependence"])
@@ -135,7 +136,7 @@ def test_session_order_matches_the_queue_command(study: OpenedStudy, sort: str) 
     from closecall.review.queue import build_queue
 
     session = ReviewSession(study)
-    mine = session.rebuild(ListSettings(sort=sort, flips=True))
+    mine = session.rebuild(ListSettings(sort=sort, flips="any"))
     engine = build_queue(
         study.snapshot,
         band=session.band,
@@ -151,7 +152,7 @@ def test_rests_on_filter_matches_the_queue_command(study: OpenedStudy, part: str
     from closecall.review.queue import build_queue
 
     session = ReviewSession(study)
-    mine = session.rebuild(ListSettings(rests_on=part, ambiguous=True))
+    mine = session.rebuild(ListSettings(rests_on=part, ambiguous=True, sort="closeness"))
     engine = build_queue(
         study.snapshot,
         band=session.band,

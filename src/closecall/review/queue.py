@@ -121,7 +121,7 @@ def build_queue(
     group: str | None = None,
     flips_only: bool | str = False,
     close_only: bool = True,
-    sort: str = "triage",
+    sort: str = "closeness",
     id_prefix: str | None = None,
     options: dict[str, Any] | None = None,
     exclude_rows: np.ndarray | None = None,

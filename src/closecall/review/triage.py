@@ -30,7 +30,7 @@ import numpy as np
 TIERS = ("rests on group", "model flip", "ambiguous", "lens flip", "near threshold")
 #: One key per tier for counts (``tier_<key>``) and JSON.
 TIER_KEYS = ("rests_on", "model_flip", "ambiguous", "lens_flip", "near_threshold")
-#: The reason shown per row, in words (at most 16 cells: the list's "why first" column).
+#: The reason shown per row, in words (at most 14 cells: the list's "why first" column).
 TIER_WORDS = ("rests on group", "model differs", "ambiguous", "lens differs", "near threshold")
 #: The same reason in full (help, docs, ``closecall queue --json``).
 TIER_REASONS = (
@@ -41,7 +41,7 @@ TIER_REASONS = (
     "near the threshold; every model and lens agrees",
 )
 #: The row word of a rests-on case whose decision flips only once the proxies go too.
-PROXIES_WORD = "rests on proxies"
+PROXIES_WORD = "rests on proxy"
 
 #: Distances in words, by code (see :func:`closeness_codes`).
 CLOSENESS_WORDS = (

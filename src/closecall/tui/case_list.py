@@ -23,38 +23,50 @@ from textual.scroll_view import ScrollView
 from textual.strip import Strip
 
 from closecall.core.text import percent, safe_text, signed
-from closecall.core.vocabulary import (
-    OPEN,
-    TO_FAVOURABLE,
-    TO_UNFAVOURABLE,
-    UPHELD,
-    model_letters,
-    short_model,
+from closecall.core.vocabulary import OPEN, TO_FAVOURABLE, TO_UNFAVOURABLE, UPHELD, short_model
+from closecall.review.queue import group_attribute, others_differ
+from closecall.review.triage import (
+    CLOSENESS_WORDS,
+    PROXIES_WORD,
+    TIER_WORDS,
+    TIERS,
+    closeness_codes,
 )
 from closecall.tui.marks import (
-    AGREE,
     AMBIGUOUS,
     CLAIM_MINE,
     CLAIM_OTHER,
     CURSOR,
-    REFERENCE,
     STATE_WORD,
     band_glyph,
 )
 from closecall.tui.session import ReviewSession
 
-STATE_WIDTH = 10
+STATE_WIDTH = 9
 BAND_SPAN = 2.0  # the band column's little axis covers ±2 log-odds
+DISTANCE_WIDTH = max(len(w) for w in CLOSENESS_WORDS)  # "on the line", "well above"…
+WHY_WIDTH = max(len(w) for w in (*TIER_WORDS, PROXIES_WORD))
+DIFFERS_MIN = 15  # the "decided otherwise by" column never gets narrower
+DIFFERS_HEADER = "decided otherwise by"
 
 
 @dataclass(frozen=True)
 class Layout:
-    """Column widths for one list width."""
+    """Column widths for one list width: the words first, then what room allows.
+
+    Always: cursor, place, case, group level (the header names the attribute), distance in
+    words, why the case is listed, who decides otherwise, state. Wider terminals add, in this
+    order, the margin in log-odds, the band axis, the dependence share and the other models'
+    margins.
+    """
 
     rank: int
     case: int
     group: int
-    marks: int
+    differs: int
+    margin: bool
+    band: bool
+    dep: bool
     extra_models: list[str]
 
     @classmethod
@@ -62,18 +74,30 @@ class Layout:
         snap = session.snap
         rank = max(3, len(f"{listed:,}"))
         case = min(16, max(4, snap.case_ids.dtype.itemsize // 4 or 10))
-        group = min(8, max(5, *(len(safe_text(g)) for g in snap.group_levels)))
-        n_lenses = len(snap.lenses)
-        marks = len(snap.model_names) * n_lenses + n_lenses - 1
-        base = 2 + rank + 1 + case + 1 + group + 1 + 6 + 1 + 10 + 1 + marks + 1 + 4 + 1 + 10
+        labels = [len(safe_text(g)) for g in snap.group_levels]
+        group = min(12, max(5, len(group_attribute(snap)), *labels))
+        fixed = 2 + rank + 1 + case + 1 + group + 1 + DISTANCE_WIDTH + 1 + WHY_WIDTH + 1
+        fixed += STATE_WIDTH
+        room = width - 1 - fixed - DIFFERS_MIN - 1
+        wanted = 26  # the names of two or three models fit in this many cells
+        extra_room = max(0, room - (wanted - DIFFERS_MIN))
+        margin = band = dep = False
+        if extra_room >= 7:
+            margin, extra_room = True, extra_room - 7
+        if extra_room >= 11:
+            band, extra_room = True, extra_room - 11
+        if extra_room >= 5:
+            dep, extra_room = True, extra_room - 5
+        same = session.queue.same_as if session.queue is not None else {}
         extra: list[str] = []
-        room = width - 1 - base
         for m in snap.model_names:
-            if m == snap.reference or room < 9:
+            if m == snap.reference or m in same or extra_room < 11:
                 continue
             extra.append(m)
-            room -= 9
-        return cls(rank, case, group, max(marks, 7), extra)
+            extra_room -= 11
+        used = 7 * margin + 11 * band + 5 * dep + 11 * len(extra)
+        differs = max(DIFFERS_MIN, width - 1 - fixed - used - 1)
+        return cls(rank, case, group, differs, margin, band, dep, extra)
 
 
 class CaseList(ScrollView, can_focus=True):
@@ -118,16 +142,20 @@ class CaseList(ScrollView, can_focus=True):
     def __init__(self, session: ReviewSession, id: str | None = None) -> None:
         super().__init__(id=id)
         self.session = session
-        self.letters = model_letters(session.snap.model_names)
         self._order: np.ndarray = np.zeros(0, dtype=np.int64)
+        self._near: np.ndarray = np.zeros(0, dtype=np.int8)  # distance code per case
         self._layout: Layout | None = None
 
     # ------------------------------------------------------------------ data
 
     def reload(self, keep_row: int | None = None) -> None:
-        """Take the session's current queue; keep the cursor on ``keep_row`` if still listed."""
+        """Take the session's current queue; keep the cursor on ``keep_row`` if still listed
+        (None: the cursor goes to the top, as after a change of filter or order)."""
         q = self.session.queue
         self._order = q.order if q is not None else np.zeros(0, dtype=np.int64)
+        self._near = (
+            closeness_codes(q.margin, q.band) if q is not None else np.zeros(0, dtype=np.int8)
+        )
         self._layout = None
         self.virtual_size = Size(self.size.width, len(self._order) + 1)
         target = 0
@@ -135,7 +163,10 @@ class CaseList(ScrollView, can_focus=True):
             pos = self.session.position_of_row(keep_row)
             target = pos if pos >= 0 else min(self.cursor, max(0, len(self._order) - 1))
         self.cursor = min(target, max(0, len(self._order) - 1))
-        self._scroll_to_cursor(center=True)
+        if keep_row is None:
+            self.scroll_to(y=0, animate=False, immediate=True)
+        else:
+            self._scroll_to_cursor(center=True)
         self.refresh()
 
     @property
@@ -230,13 +261,22 @@ class CaseList(ScrollView, can_focus=True):
     def _header(self, width: int, base: Style) -> Strip:
         lay = self.layout_for(width)
         snap = self.session.snap
-        marks = " ".join("".join(self.letters[m] for m in snap.model_names) for _ in snap.lenses)
+        attribute = _fit(safe_text(group_attribute(snap)), lay.group)
+        differs = DIFFERS_HEADER if lay.differs >= len(DIFFERS_HEADER) else "who differs"
         text = (
-            f"  {'#':>{lay.rank}} {'case':<{lay.case}} {'group':<{lay.group}} "
-            f"{'margin':>6} {'band':<10} {marks:<{lay.marks}} {'dep':>4} {'state':<10}"
+            f"  {'#':>{lay.rank}} {'case':<{lay.case}} {attribute:<{lay.group}} "
+            f"{'distance':<{DISTANCE_WIDTH}} {'why first':<{WHY_WIDTH}} "
+            f"{differs:<{lay.differs}} "
         )
+        if lay.margin:
+            text += f"{'margin':>6} "
+        if lay.band:
+            text += f"{'band':<10} "
+        if lay.dep:
+            text += f"{'dep':>4} "
+        text += f"{'state':<{STATE_WIDTH}}"
         for m in lay.extra_models:
-            text += f"{short_model(m)[:8]:>9}"
+            text += f"{_fit(short_model(m), 10):>11}"
         style = self._style("case-list--header", base)
         return Strip([Segment(text, style)]).adjust_cell_length(width, style)
 
@@ -254,54 +294,51 @@ class CaseList(ScrollView, can_focus=True):
         case_id = str(snap.case_ids[r])
         group = safe_text(str(snap.group_labels[r])) if len(snap.group_levels) else ""
         tone = self._style("case-list--fav" if margin > 0 else "case-list--unfav", row_base)
+        flag = self._style("case-list--flag", row_base)
 
         segs: list[Segment] = [
             Segment(f"{CURSOR if is_cursor else ' '} ", row_base),
             Segment(f"{position + 1:>{lay.rank},} ", muted),
             Segment(f"{_fit(safe_text(case_id), lay.case):<{lay.case}} ", row_base),
             Segment(f"{_fit(group, lay.group):<{lay.group}} ", row_base),
-            Segment(f"{signed(margin):>6} ", tone),
+            Segment(f"{CLOSENESS_WORDS[int(self._near[r])]:<{DISTANCE_WIDTH}} ", tone),
+            Segment(f"{self._why(r):<{WHY_WIDTH}} ", flag),
+            Segment(f"{_names(others_differ(q, q.grid.differs[r]), lay.differs)} ", row_base),
         ]
-        limits = session.band_limits(compute=False)
-        if limits is not None:
-            lo, hi = float(limits[0][r]), float(limits[1][r])
-        else:
-            lo = hi = math.nan
-        glyph = band_glyph(margin, lo, hi, span=BAND_SPAN)
-        if not session.measures_ready:
-            glyph = f"{'…':^9}"
-        ambiguous = session.peek_mask("ambiguous")
-        amb = AMBIGUOUS if ambiguous is not None and ambiguous[r] else " "
-        segs.append(Segment(f"{glyph}{amb} ", row_base))
-        flag = self._style("case-list--flag", row_base)
-        segs.append(Segment(f"{self._marks(r):<{lay.marks}} ", flag))
-        dep = session.peek("dependence")
-        waiting = "…" if not session.measures_ready else "—"
-        segs.append(Segment(f"{percent(float(dep[r])) if dep is not None else waiting:>4} ", muted))
+        if lay.margin:
+            segs.append(Segment(f"{signed(margin):>6} ", tone))
+        if lay.band:
+            limits = session.band_limits(compute=False)
+            if limits is not None:
+                lo, hi = float(limits[0][r]), float(limits[1][r])
+            else:
+                lo = hi = math.nan
+            glyph = band_glyph(margin, lo, hi, span=BAND_SPAN)
+            if not session.measures_ready:
+                glyph = f"{'…':^9}"
+            ambiguous = session.peek_mask("ambiguous")
+            amb = AMBIGUOUS if ambiguous is not None and ambiguous[r] else " "
+            segs.append(Segment(f"{glyph}{amb} ", row_base))
+        if lay.dep:
+            dep = session.peek("dependence")
+            waiting = "…" if not session.measures_ready else "—"
+            value = percent(float(dep[r])) if dep is not None else waiting
+            segs.append(Segment(f"{value:>4} ", muted))
         state = self._state(r, case_id)
         segs.append(Segment(f"{state:<{STATE_WIDTH}}", self._state_style(r, row_base)))
         for m in lay.extra_models:
-            value = float(snap.logit(m)[r]) - (float(snap.logit(snap.reference)[r]) - margin)
-            segs.append(Segment(f"{signed(value):>9}", muted))
+            other = float(snap.logit(m)[r]) - (float(snap.logit(snap.reference)[r]) - margin)
+            segs.append(Segment(f"{signed(other):>11}", muted))
         return Strip(segs).adjust_cell_length(width, row_base)
 
-    def _marks(self, r: int) -> str:
+    def _why(self, r: int) -> str:
+        """The row's triage reason in words (the queue's tier)."""
         q = self.session.queue
         assert q is not None
-        grid = q.grid
-        fav = grid.favourable[r]
-        ref = fav[grid.reference_col]
-        snap = self.session.snap
-        per_lens: dict[str, list[str]] = {lens.name: [] for lens in snap.lenses}
-        for col, (model, lens) in enumerate(grid.pairs):
-            if col == grid.reference_col:
-                ch = REFERENCE
-            elif fav[col] != ref:
-                ch = self.letters[model]
-            else:
-                ch = AGREE
-            per_lens[lens].append(ch)
-        return " ".join("".join(per_lens[lens.name]) for lens in snap.lenses)
+        tier = int(q.tier[r]) if q.tier is not None else len(TIERS) - 1
+        if tier == 0 and q.rests_group is not None and not q.rests_group[r]:
+            return PROXIES_WORD
+        return TIER_WORDS[tier]
 
     def _state(self, r: int, case_id: str) -> str:
         code = int(self.session.states[r])
@@ -323,3 +360,19 @@ class CaseList(ScrollView, can_focus=True):
 
 def _fit(text: str, width: int) -> str:
     return text if len(text) <= width else text[: width - 1] + "…"
+
+
+def _names(names: list[str], width: int) -> str:
+    """Whole names, comma-separated, as many as fit in ``width``; ``+N`` for the rest.
+
+    A name is never cut: the case screen lists every model and lens that decides otherwise.
+    """
+    if not names:
+        return f"{'—':<{width}}"
+    for shown in range(len(names), 0, -1):
+        rest = len(names) - shown
+        for more in (f" +{rest} more", f" +{rest}") if rest else ("",):
+            text = ", ".join(names[:shown]) + more
+            if len(text) <= width:
+                return f"{text:<{width}}"
+    return f"{_fit(f'{len(names)} of them', width):<{width}}"

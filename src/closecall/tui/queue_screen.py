@@ -14,7 +14,9 @@ from textual.widgets import Input, Static
 from textual.worker import get_current_worker
 
 from closecall.core.text import safe_text
+from closecall.core.vocabulary import short_model
 from closecall.review.ledger import Entry
+from closecall.review.triage import TIER_KEYS, TIER_WORDS
 from closecall.tui.access_guard import may_decide
 from closecall.tui.case_list import CaseList
 from closecall.tui.key_bar import KeyBar
@@ -36,12 +38,14 @@ class QueueScreen(Screen[None]):
         Binding("question_mark,f1", "app.help", "help", key_display="?"),
         Binding("q", "app.quit", "quit"),
         Binding("ctrl+p", "app.command_palette", "commands", key_display="^p"),
-        Binding("s", "cycle_sort", "sort", show=False),
-        Binding("f", "switch('flips')", "flips only", show=False),
+        Binding(
+            "s", "cycle_sort", "order: triage / flips first / ambiguity / dependence", show=False
+        ),
+        Binding("f", "cycle_flips", "flips: any / model / lens-only / off", show=False),
         Binding("a", "switch('ambiguous')", "ambiguous only", show=False),
         Binding("u", "switch('unreviewed')", "unreviewed only", show=False),
         Binding("g", "cycle_group", "next group", show=False),
-        Binding("o", "cycle_rests_on", "rests on group / proxies", show=False),
+        Binding("o", "cycle_rests_on", "rests on group / proxies / off", show=False),
         Binding("c", "clear_filters", "clear filters", show=False),
         Binding("r", "refresh", "read ledger again", show=False),
         Binding("escape", "cancel_search", "close search", show=False),
@@ -68,6 +72,8 @@ class QueueScreen(Screen[None]):
     def on_mount(self) -> None:
         chart = self.query_one(MarginChart)
         chart.styles.height = chart.lines_needed()
+        for line in ("#counts", "#settings"):  # two lines at 80 columns, one when wider
+            self.query_one(line).styles.height = "auto"
         self.query_one("#search-row").display = False
         self.query_one(CaseList).reload()
         self._show_counts()
@@ -90,17 +96,25 @@ class QueueScreen(Screen[None]):
     # ------------------------------------------------------------------ header lines
 
     def _title(self) -> Text:
+        """Tool, reviewer and snapshot always whole; the study's name shortened to fit."""
         snap = self.session.snap
+        you = f" ─ you: {safe_text(self.session.display_login)}"
+        tail = f" ─ snapshot {snap.id[:8]}"
+        room = max(8, self.app.size.width - 2 - len("closecall review") - len(you) - len(tail) - 3)
+        name = safe_text(self.session.config.name)
+        name = name if len(name) <= room else name[: room - 1] + "…"
         text = Text(no_wrap=True, overflow="ellipsis")
         text.append("closecall review", "bold")
-        text.append(f" ─ {safe_text(self.session.config.name)} ─ snapshot {snap.id[:8]}")
-        text.append(f" ─ you: {safe_text(self.session.display_login)}")
+        text.append(you, "bold")
+        text.append(f" ─ {name}{tail}")
         return text
 
     def _show_counts(self) -> None:
+        """The counts (all of the listed cases), the triage tiers, then every switch."""
         c = self.session.counts()
         q = self.session.queue
         band = f"{self.session.band:g}"
+        width = max(20, self.app.size.width - 2)
         counts = Text(no_wrap=True, overflow="ellipsis")
         counts.append(f"{c.get('listed', 0):,}", "bold")
         counts.append(f" listed of {c.get('cases', 0):,} │ ")
@@ -108,34 +122,56 @@ class QueueScreen(Screen[None]):
         counts.append(f" │ {c['reviewed']:,} reviewed · {c['claimed']:,} claimed")
         if c.get("drafts"):
             counts.append(f" · {c['drafts']:,} draft{'s' if c['drafts'] != 1 else ''}", "bold")
-        self.query_one("#counts", Static).update(counts)
+        tiers = [
+            (f"{c.get(f'tier_{key}', 0):,} {word}", "")
+            for key, word in zip(TIER_KEYS, TIER_WORDS, strict=True)
+            if c.get(f"tier_{key}", 0)
+        ]
+        same = q.same_as if q is not None else {}
+        tiers += [(f"{short_model(m)} = {short_model(o)}", "") for m, o in same.items()]
+        self.query_one("#counts", Static).update(
+            Text("\n").join([counts, *_packed(tiers, width, " · ", "why first: ")])
+        )
         s = self.session.settings
-        settings = Text(no_wrap=True, overflow="ellipsis")
-
-        def item(key: str, label: str, on: bool | None = None) -> None:
-            settings.append(key, "bold reverse")
-            settings.append(f" {label}")
-            if on is not None:
-                settings.append(" ●" if on else " ○")
-            settings.append("  ")
-
-        item("s", f"by {q.sort if q else s.sort}")
-        item("g", f"{safe_text(s.group)} only" if s.group else "all groups")
-        item("f", "flips", s.flips is not None)
-        item("a", "ambiguous", s.ambiguous)
-        item("u", "unreviewed", s.unreviewed)
-        if s.rests_on:
-            item("o", f"rests on {s.rests_on}", True)
+        sort = q.sort if q else s.sort
+        items: list[tuple[str, str]] = [
+            ("s", f"order: {SORT_WORDS.get(sort, sort)}"),
+            ("g", f"group: {safe_text(s.group)}" if s.group else "group: all"),
+            ("f", f"flips: {FLIP_WORDS.get(s.flips or '', 'off')}"),
+            ("a", f"ambiguous {'●' if s.ambiguous else '○'}"),
+            ("o", f"rests on: {s.rests_on or 'off'}"),
+            ("u", f"unreviewed {'●' if s.unreviewed else '○'}"),
+            ("c", "clear filters"),
+        ]
+        on = {"g": bool(s.group), "f": bool(s.flips), "a": s.ambiguous, "o": bool(s.rests_on),
+              "u": s.unreviewed}  # fmt: skip
+        parts: list[tuple[str, str]] = []
+        for key, label in items:
+            parts.append((f"{key}\0{label}", "bold" if on.get(key) else ""))
+        if s.changed_by:  # from the what-if screen; c clears it with the rest
+            parts.append((f"what-if: changed by {safe_text(s.changed_by)}", "bold"))
+        lines = _packed(parts, width, "  ")
+        for line in lines:  # the key letter in reverse video
+            for start in [i for i, ch in enumerate(line.plain) if ch == "\0"]:
+                line.stylize("bold reverse", start - 1, start)
+        settings = Text("\n").join(lines)
+        settings = Text(settings.plain.replace("\0", " "), spans=settings.spans)
         self.query_one("#settings", Static).update(settings)
+
+    def on_resize(self) -> None:
+        self.query_one("#title", Static).update(self._title())
+        if self.session.queue is not None:
+            self._show_counts()
 
     def say(self, message: str) -> None:
         self.query_one("#status", Static).update(message)
 
     # ------------------------------------------------------------------ list building
 
-    def _apply(self, settings: ListSettings) -> None:
+    def _apply(self, settings: ListSettings, keep_place: bool = False) -> None:
+        """Rebuild the list; the cursor goes to the top unless ``keep_place`` (a refresh)."""
         self.say("ranking…")
-        self._rebuild(settings, self.query_one(CaseList).current_row)
+        self._rebuild(settings, self.query_one(CaseList).current_row if keep_place else None)
 
     @work(thread=True, exclusive=True, group="queue")
     def _rebuild(self, settings: ListSettings, keep_row: int | None) -> None:
@@ -148,14 +184,17 @@ class QueueScreen(Screen[None]):
         self.query_one(CaseList).reload(keep_row)
         self._show_counts()
         q = self.session.queue
-        self.say("" if q is None or len(q) else "no case matches these filters (c clears them)")
+        if q is not None and not len(q):
+            self.say("no case matches these filters (c clears them)")
+        else:
+            self.say(f"{self.session.settings.describe()}: {len(q) if q else 0:,} listed")
 
     def action_cycle_sort(self) -> None:
         sorts = self.session.available_sorts()
         current = self.session.settings.sort
         nxt = sorts[(sorts.index(current) + 1) % len(sorts)] if current in sorts else sorts[0]
-        if len(sorts) == 1:
-            self.say("only closeness is available: the analysis module is not installed")
+        if len(sorts) <= 2:
+            self.say("only triage and flips-first are available: no analysis measures here")
         self._apply(self._with(sort=nxt))
 
     def action_sort_by(self, name: str) -> None:
@@ -169,7 +208,15 @@ class QueueScreen(Screen[None]):
             self.say("ambiguity is not available for this study (no band for its models)")
             return
         current = getattr(self.session.settings, name)
+        if name == "flips":  # on/off from the command palette: any flip, or none
+            self._apply(self._with(flips=None if current else "any"))
+            return
         self._apply(self._with(**{name: not current}))
+
+    def action_cycle_flips(self) -> None:
+        steps: list[str | None] = [None, "any", "model", "lens"]
+        current = self.session.settings.flips
+        self._apply(self._with(flips=steps[(steps.index(current) + 1) % len(steps)]))
 
     def _unavailable(self, mask: str) -> bool:
         return self.session.measures_ready and self.session.peek_mask(mask) is None
@@ -208,7 +255,7 @@ class QueueScreen(Screen[None]):
 
     def _after_ledger(self) -> None:
         if self.session.settings.unreviewed:
-            self._apply(self.session.settings)
+            self._apply(self.session.settings, keep_place=True)
         else:
             self.query_one(CaseList).refresh()
             self._show_counts()
@@ -325,3 +372,27 @@ class QueueScreen(Screen[None]):
                 cases.go_to(self._search_from)
             self._close_search()
             self.say("")
+
+
+#: The orders and the flips switch in the switch row's words.
+SORT_WORDS = {"triage": "triage", "closeness": "flips first", "ambiguity": "ambiguity",
+              "dependence": "dependence"}  # fmt: skip
+FLIP_WORDS = {"any": "any", "model": "model", "lens": "lens-only"}
+
+
+def _packed(parts: list[tuple[str, str]], width: int, gap: str, lead: str = "") -> list[Text]:
+    """Items (text, style) on as few lines of ``width`` as they fit, never split; ``lead``
+    (bold) starts the first line."""
+    lines: list[Text] = [Text(lead, "bold", no_wrap=True, overflow="ellipsis")]
+    for text, style in parts:
+        line = lines[-1]
+        started = line.plain not in ("", lead)
+        need = len(text) + (len(gap) if started else 0)
+        if started and len(line.plain) + need > width:
+            line = Text(no_wrap=True, overflow="ellipsis")
+            lines.append(line)
+            started = False
+        if started:
+            line.append(gap)
+        line.append(text, style)
+    return lines

@@ -75,7 +75,7 @@ async def test_down_enter_weighs_the_next_policy_and_e_compares(study: OpenedStu
         side = _first_changes(study, first, second)
         await wait_until(pilot, lambda: _data(screen)["total"] == side["total"])
         assert _data(screen)["baseline"]["label"] == side["baseline"]["label"]
-        assert f"against: {side['baseline']['label']}" in screen_text(app)
+        assert f"baseline: {side['baseline']['label']}" in screen_text(app)
 
 
 @synchronous

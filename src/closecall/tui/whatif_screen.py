@@ -49,41 +49,43 @@ def figures_text(data: dict[str, Any], width: int = 78) -> Text:
     out = Text(no_wrap=True, overflow="ellipsis")
     pct = f"{data['level']:.0%}"
     total = data["total"]
-    out.append(f"against: {safe_text(data['baseline']['label'])}\n")
-    out.append(f"policy:  {safe_text(data['policy']['label'])}\n", "bold")
+    names = [safe_text(c["group"]) for c in data["changes"]]
+    gw = min(max(len(n) for n in [*names, "group"]) + 2, 24)  # group column, longest level
+    out.append(f"baseline: {safe_text(data['baseline']['label'])}\n")
+    out.append(f"policy:   {safe_text(data['policy']['label'])}\n", "bold")
     out.append(
         f"{total['changed']:,} of {total['cases']:,} decisions change: "
         f"{total['to_favourable']:,} to favourable, {total['to_unfavourable']:,} to unfavourable\n"
     )
     out.append("\nDecisions that change\n", "bold underline")
-    out.append(f"{'group':<14}{'cases':>7}{'changed':>9}{'→ fav':>7}{'→ unfav':>9}")
+    out.append(f"{'group':<{gw}}{'cases':>7}{'changed':>9}{'→ fav':>7}{'→ unfav':>9}")
     out.append(f"  share ({pct})\n")
     for c in [*data["changes"], total]:
         out.append(
-            f"{safe_text(c['group'])[:13]:<14}{c['cases']:>7,}{c['changed']:>9,}"
+            f"{safe_text(c['group'])[: gw - 1]:<{gw}}{c['cases']:>7,}{c['changed']:>9,}"
             f"{c['to_favourable']:>7,}{c['to_unfavourable']:>9,}  {_pct(c['share'])} "
             f"({_span(c['share_low'], c['share_high'], _pct)})\n"
         )
     out.append(f"\nFavourable rate and adverse impact ratio (AIR), {pct}\n", "bold underline")
-    for side, name in (("baseline", "against"), ("policy", "policy")):
+    for side, name in (("baseline", "baseline"), ("policy", "policy")):
         figures = data[side]
         for r in figures["rates"]:
             most = r["group"] == figures["most_favoured"]
             air = "most favoured" if most else _span(r["air_low"], r["air_high"], _ratio)
             flag = " below 4/5" if r["below_four_fifths"] else ""
             out.append(
-                f"{safe_text(r['group'])[:13]:<14}{name:<8}{_pct(r['rate']):>6} "
+                f"{safe_text(r['group'])[: gw - 1]:<{gw}}{name:<9}{_pct(r['rate']):>6} "
                 f"({_span(r['low'], r['high'], _pct)})  AIR {_ratio(r['air'])} ({air}){flag}\n"
             )
     if data["baseline"]["errors"] or data["policy"]["errors"]:
         out.append(f"\nHeld-out error rates on the history, {pct}\n", "bold underline")
-        out.append(f"{'group':<14}{'':<8}{'false-favourable':<24}false-unfavourable\n")
-        for side, name in (("baseline", "against"), ("policy", "policy")):
+        out.append(f"{'group':<{gw}}{'':<9}{'false-favourable':<24}false-unfavourable\n")
+        for side, name in (("baseline", "baseline"), ("policy", "policy")):
             for r in data[side]["errors"]:
                 ff = _span(r["false_favourable_low"], r["false_favourable_high"], _pct)
                 fu = _span(r["false_unfavourable_low"], r["false_unfavourable_high"], _pct)
                 out.append(
-                    f"{safe_text(r['group'])[:13]:<14}{name:<8}"
+                    f"{safe_text(r['group'])[: gw - 1]:<{gw}}{name:<9}"
                     f"{_pct(r['false_favourable_rate']) + ' (' + ff + ')':<24}"
                     f"{_pct(r['false_unfavourable_rate'])} ({fu})\n"
                 )

@@ -12,16 +12,14 @@ from textual.screen import Screen
 from textual.widgets import Static
 
 from closecall.core.cautions import CAUTIONS
-from closecall.core.vocabulary import model_letters, short_model
+from closecall.review.triage import CLOSENESS_WORDS, PROXIES_WORD, TIER_REASONS, TIER_WORDS
 from closecall.tui.key_bar import KeyBar, key_label, one_key
 from closecall.tui.marks import (
     ACTION_SHORT,
-    AGREE,
     AMBIGUOUS,
     CLAIM_MINE,
     CLAIM_OTHER,
     CURSOR,
-    REFERENCE,
     STATE_WORD,
 )
 
@@ -152,25 +150,33 @@ def help_text(
     text.append("  i            what-if: weigh a policy change (list, case, model)\n")
     text.append("  ^q           quit (asks first if a note is not recorded)\n\n")
 
-    text.append("Marks in the list\n", "bold underline")
-    letters = model_letters(model_names)
-    text.append(f"  {CURSOR}  the case under the cursor\n")
-    text.append("  differs columns: one block per cost lens (" + ", ".join(lens_names) + ");\n")
-    text.append("    in each block one letter per model: ")
-    text.append(", ".join(f"{v} {short_model(k)}" for k, v in letters.items()) + "\n")
-    text.append(f"    {REFERENCE} = the reference ({reference} under {lens_names[0]}); ")
-    text.append(f"{AGREE} = decides the same; a letter = that model decides differently\n")
-    text.append("  band: a small axis around the threshold: ┼ threshold, ━ band, ● margin,\n")
-    text.append(f"    ┿ the band crosses the threshold; {AMBIGUOUS} after it = ambiguous\n")
+    text.append("The list's columns\n", "bold underline")
+    text.append(f"  {CURSOR}  the case under the cursor; # its place in the list\n")
+    text.append("  case, then the group level under the attribute's name\n")
+    text.append(
+        f"  distance: the reference model ({reference} under {lens_names[0]}) from its "
+        "threshold, in words: " + ", ".join(CLOSENESS_WORDS) + "\n"
+    )
+    text.append("  why first: why the case is near the top, in this order:\n")
+    for word, why in zip(TIER_WORDS, TIER_REASONS, strict=True):
+        text.append(f"    {word:<15} {why}\n")
+    text.append(f"    {PROXIES_WORD:<15} as 'rests on group', for the group's proxies\n")
+    text.append(
+        "  decided otherwise by: the models and cost lenses that decide differently, "
+        "by name (+N more when they do not fit)\n"
+    )
     text.append("  state: " + ", ".join(STATE_WORD.values()))
     text.append(" ('open' = no decision yet);")
     text.append(f" {CLAIM_OTHER} name = claimed: someone is reading it now")
     text.append(f", {CLAIM_MINE} you = claimed by you (a claim never blocks)\n")
-    text.append("  actions in the ledger: " + ", ".join(ACTION_SHORT.values()) + "\n")
+    text.append("  wider terminals add: margin in log-odds; band, a small axis around the\n")
+    text.append("    threshold: ┼ threshold, ━ band, ● margin, ┿ the band crosses the threshold,\n")
+    text.append(f"    {AMBIGUOUS} after it = ambiguous; dep (dependence share); the other\n")
+    text.append("    models' margins\n")
     text.append("  chart: each group's cases near the threshold (│), [ ] the review band;\n")
     text.append("    each line is scaled to its own tallest bar\n")
     text.append("  switches: ● on, ○ off\n")
-    text.append("  wider terminals add the other models' margins at the right\n\n")
+    text.append("  actions in the ledger: " + ", ".join(ACTION_SHORT.values()) + "\n\n")
 
     text.append("What the numbers mean\n", "bold underline")
     for name, meaning in MEANINGS:

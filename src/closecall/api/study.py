@@ -368,6 +368,7 @@ class Study:
         note: str = "",
         supersedes: int | None = None,
         second_opinion: bool = False,
+        seen_seq: int | None = None,
     ) -> Entry:
         """Record a reviewer's action on a case (as the process's login) in the ledger.
 
@@ -381,6 +382,10 @@ class Study:
             Sequence number of an earlier entry for this case that this one corrects.
         second_opinion
             Record beside another reviewer's decision on the case instead of refusing.
+        seen_seq
+            The ledger's last sequence number when the reviewer opened the case (the review
+            screen passes it): only other reviewers' decisions recorded after it refuse. None:
+            any other reviewer's decision in force refuses.
 
         Examples
         --------
@@ -389,7 +394,14 @@ class Study:
         from closecall.review.decisions import record_review
 
         return record_review(
-            self.opened, case_id, action, reason, note, supersedes, second_opinion=second_opinion
+            self.opened,
+            case_id,
+            action,
+            reason,
+            note,
+            supersedes,
+            second_opinion=second_opinion,
+            seen_seq=seen_seq,
         )
 
     def disparity(

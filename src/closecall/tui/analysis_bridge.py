@@ -114,9 +114,8 @@ def half_widths(study: OpenedStudy, model: str) -> np.ndarray | None:
 
 
 def explain(study: OpenedStudy, case_id: str) -> dict[str, Any] | None:
-    """``closecall.analysis.explain.explain_case`` for one case, or None if not installed."""
-    module = _module("closecall.analysis.explain")
-    if module is None or not hasattr(module, "explain_case"):
-        return None
-    result: dict[str, Any] = module.explain_case(study, case_id)
-    return result
+    """One case's analysis through :meth:`closecall.api.study.Study.explain` (what
+    ``closecall explain`` and the library give), as the dict the case screen draws from."""
+    from closecall.api.study import Study
+
+    return dict(Study(study).explain(case_id).details)

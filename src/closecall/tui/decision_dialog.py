@@ -2,7 +2,8 @@
 
 The note is kept as a draft while it is typed (saved after a short pause, in a worker), so a
 closed dialog, a quit or a dropped connection loses nothing. Recording calls
-:func:`closecall.review.decisions.record_review`, the same function as ``closecall record``;
+:meth:`closecall.api.study.Study.record` (``record_review`` underneath), as ``closecall record``
+does;
 its refusals (an override without a reason or a note, …) are shown here word for word.
 """
 
@@ -24,7 +25,7 @@ from closecall.core.errors import UserError
 from closecall.core.text import safe_text, signed
 from closecall.core.vocabulary import ACTIONS, decision_word
 from closecall.review.conflicts import ConflictingDecision, last_seq
-from closecall.review.decisions import claim_case, load_draft, record_review, release_claim
+from closecall.review.decisions import claim_case, load_draft, release_claim
 from closecall.review.ledger import Entry
 from closecall.tui.choice_list import ChoiceList
 from closecall.tui.conflict_prompt import SECOND_OPINION, SUPERSEDE, ConflictPrompt
@@ -202,14 +203,15 @@ class DecisionDialog(ModalScreen[Entry | None]):
     def _record(
         self, value: DraftValue, supersedes: int | None = None, second_opinion: bool = False
     ) -> None:
+        from closecall.api.study import Study  # at record time: not on the first paint
+
         try:
-            entry = record_review(
-                self.session.study,
+            entry = Study(self.session.study).record(
                 self.case_id,
                 str(value.action),
-                value.reason,
-                value.note,
-                supersedes,
+                reason=value.reason,
+                note=value.note,
+                supersedes=supersedes,
                 second_opinion=second_opinion,
                 seen_seq=self.seen_seq,
             )

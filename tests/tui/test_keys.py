@@ -143,6 +143,19 @@ def test_the_letters_the_issue_names_mean_one_thing(key: str) -> None:
 # --------------------------------------------------------------------------- pilot: help, feedback
 
 
+def test_help_from_the_list_explains_its_columns_before_other_screens_keys() -> None:
+    from closecall.tui.case_screen import CaseScreen
+    from closecall.tui.help_screen import help_text
+    from closecall.tui.queue_screen import QueueScreen
+
+    args = (["pooled", "unaware"], ["equal-costs"], "pooled")
+    on_list = help_text(*args, here=QueueScreen).plain
+    assert on_list.index("The list's columns") < on_list.index("Keys on the other screens")
+    assert "why first" in on_list and "who differs" in on_list
+    on_case = help_text(*args, here=CaseScreen).plain  # elsewhere: after every screen's keys
+    assert on_case.index("Keys on the other screens") < on_case.index("The list's columns")
+
+
 @synchronous
 async def test_help_opens_at_the_current_screens_keys(study: OpenedStudy) -> None:
     from closecall.tui.help_screen import HelpScreen

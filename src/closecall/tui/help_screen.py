@@ -122,34 +122,9 @@ def screen_keys() -> list[tuple[type, str, list[BindingType]]]:
     ]
 
 
-def help_text(
-    model_names: list[str],
-    lens_names: list[str],
-    reference: str,
-    here: type | None = None,
-    plain: bool = False,
-) -> Text:
-    """The help page as one text (also used by docs and tests).
-
-    ``here`` is the screen help was opened from: its keys come first, under "Keys here".
-    ``plain`` writes keys in words (ASCII mode).
-    """
-    sections = screen_keys()
-    current = [s for s in sections if here is not None and issubclass(here, s[0])]
+def list_columns(lens_names: list[str], reference: str) -> Text:
+    """What each column, mark and line of the close-call list means."""
     text = Text()
-    for _, name, bindings in current:
-        text.append(f"Keys here: {name}\n", "bold underline")
-        text.append(_keys_of("", bindings, plain))
-        text.append("\n")
-    text.append("Keys\n" if not current else "Keys on the other screens\n", "bold underline")
-    for cls, name, bindings in sections:
-        if not current or cls is not current[0][0]:
-            text.append(_keys_of(name, bindings, plain))
-    text.append("Anywhere\n", "bold")
-    text.append("  ^p           commands (every action by name)\n")
-    text.append("  i            what-if: weigh a policy change (list, case, model)\n")
-    text.append("  ^q           quit (asks first if a note is not recorded)\n\n")
-
     text.append("The list's columns\n", "bold underline")
     text.append(f"  {CURSOR}  the case under the cursor; # its place in the list\n")
     text.append("  case, then the group level under the attribute's name\n")
@@ -162,8 +137,8 @@ def help_text(
         text.append(f"    {word:<15} {why}\n")
     text.append(f"    {PROXIES_WORD:<15} as 'rests on group', for the group's proxies\n")
     text.append(
-        "  decided otherwise by: the models and cost lenses that decide differently, "
-        "by name (+N more when they do not fit)\n"
+        "  who differs (wider: decided otherwise by): the models and cost lenses that decide "
+        "differently, by name (+N more when they do not fit)\n"
     )
     text.append("  state: " + ", ".join(STATE_WORD.values()))
     text.append(" ('open' = no decision yet);")
@@ -177,6 +152,44 @@ def help_text(
     text.append("    each line is scaled to its own tallest bar\n")
     text.append("  switches: ● on, ○ off\n")
     text.append("  actions in the ledger: " + ", ".join(ACTION_SHORT.values()) + "\n\n")
+    return text
+
+
+def help_text(
+    model_names: list[str],
+    lens_names: list[str],
+    reference: str,
+    here: type | None = None,
+    plain: bool = False,
+) -> Text:
+    """The help page as one text (also used by docs and tests).
+
+    ``here`` is the screen help was opened from: its keys come first, under "Keys here"
+    (from the list, followed by what its columns mean). ``plain`` writes keys in words (ASCII
+    mode).
+    """
+    from closecall.tui.queue_screen import QueueScreen
+
+    sections = screen_keys()
+    current = [s for s in sections if here is not None and issubclass(here, s[0])]
+    on_list = bool(current) and current[0][0] is QueueScreen
+    text = Text()
+    for _, name, bindings in current:
+        text.append(f"Keys here: {name}\n", "bold underline")
+        text.append(_keys_of("", bindings, plain))
+        text.append("\n")
+    if on_list:
+        text.append(list_columns(lens_names, reference))
+    text.append("Keys\n" if not current else "Keys on the other screens\n", "bold underline")
+    for cls, name, bindings in sections:
+        if not current or cls is not current[0][0]:
+            text.append(_keys_of(name, bindings, plain))
+    text.append("Anywhere\n", "bold")
+    text.append("  ^p           commands (every action by name)\n")
+    text.append("  i            what-if: weigh a policy change (list, case, model)\n")
+    text.append("  ^q           quit (asks first if a note is not recorded)\n\n")
+    if not on_list:
+        text.append(list_columns(lens_names, reference))
 
     text.append("What the numbers mean\n", "bold underline")
     for name, meaning in MEANINGS:

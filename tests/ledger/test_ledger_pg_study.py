@@ -20,9 +20,9 @@ from pg_server import PgServer
 
 from closecall.core.errors import UserError
 from closecall.review.ledger import current_login
+from closecall.review.ledger.backend import verify_any
 from closecall.review.ledger.pg_store import open_pg_ledger, setup
 from closecall.review.ledger.store import DamagedLedger
-from closecall.review.ledger.verify import verify_file
 from closecall.suite.opening import OpenedStudy, open_study
 
 REPO = Path(__file__).resolve().parents[2]
@@ -302,7 +302,7 @@ def test_done_when_a_team_records_from_two_shells_and_psql_cannot_alter(
             check=False,
         )
         assert tried.returncode != 0 and "ERROR" in tried.stderr, (sql, tried.stderr)
-    assert verify_file(admin).ok and verify_file(admin).entries == 2
+    assert verify_any(admin).ok and verify_any(admin).entries == 2
 
 
 # ---------------------------------------------------------------------------- verify's guards
@@ -360,11 +360,11 @@ def test_verify_names_a_changed_grant_policy_or_guard_and_setup_restores_it(
     alice_url = team.url.replace("://", f"://{team.alice}@")
     with open_pg_ledger(alice_url) as ledger:
         ledger.append(_content())
-    assert verify_file(team.admin).ok
+    assert verify_any(team.admin).ok
     sql, kind, text = CHANGES[change]
     with psycopg.connect(team.admin, autocommit=True) as conn:
         conn.execute(sql.encode())
-    result = verify_file(team.admin)
+    result = verify_any(team.admin)
     assert not result.ok
     found = [p for p in result.problems if p.kind == kind]
     assert found and text in found[0].message, result.problems
@@ -373,7 +373,7 @@ def test_verify_names_a_changed_grant_policy_or_guard_and_setup_restores_it(
         open_pg_ledger(alice_url)
     assert text in refused.value.message and "ledger setup" in refused.value.fix
     setup(team.admin)  # the owner restores the guards
-    assert verify_file(team.admin).ok
+    assert verify_any(team.admin).ok
 
 
 def _content() -> Any:
@@ -494,3 +494,64 @@ def test_the_review_screen_records_drafts_and_claims_on_either_backend(
         (case_id, "override-favourable", who)
     ]
     assert load_draft(study, case_id) is None  # recording removed the draft
+
+
+def test_an_analyst_on_the_review_screen_is_told_the_role_to_ask_for(
+    team: Team, demo_study: OpenedStudy, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    import asyncio
+
+    from closecall.review.decisions import ledger_entries
+    from closecall.tui.app import ReviewApp
+    from closecall.tui.decision_dialog import DecisionDialog
+    from closecall.tui.queue_screen import QueueScreen
+
+    monkeypatch.setenv("PGUSER", team.ann)
+    study = _study_on(demo_study, team.url)
+    notices: list[str] = []
+
+    async def run() -> None:
+        app = ReviewApp(study=study, login="analyst")
+        async with app.run_test(size=(120, 40)) as pilot:
+            for _ in range(400):
+                if isinstance(app.screen, QueueScreen):
+                    break
+                await pilot.pause(0.05)
+            assert app.session is not None and app.session.login == team.ann
+            original = app.screen.notify
+
+            def capture(message: str, **kw: Any) -> None:
+                notices.append(message)
+                original(message, **kw)
+
+            app.screen.notify = capture  # type: ignore[method-assign]
+            await pilot.press("d")
+            for _ in range(100):
+                if notices:
+                    break
+                await pilot.pause(0.05)
+            assert not isinstance(app.screen, DecisionDialog)
+
+    asyncio.run(run())
+    assert notices and team.ann in notices[0]
+    assert "GRANT closecall_reviewer" in notices[0] and "[review] reviewers" not in notices[0]
+    assert ledger_entries(study.config) == []
+
+
+def test_the_python_study_records_and_reads_a_database_ledger(
+    team: Team, demo_config: Path, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    from closecall.api.study import Study
+
+    monkeypatch.setenv("PGUSER", team.bob)
+    config = _config(demo_config, team.url, f"api-{tmp_path.name}")
+    try:
+        study = Study.open(config)
+        case = str(study.opened.snapshot.case_ids[7])
+        entry = study.record(case, "defer", note="waiting for the file")
+        shown = study.ledger.show()
+        verified = study.ledger.verify()
+    finally:
+        config.unlink()
+    assert entry.reviewer == team.bob and [e.hash for e in shown.entries] == [entry.hash]
+    assert verified.ok and (verified.head_seq, verified.head_hash) == (1, entry.hash)

@@ -24,7 +24,7 @@ from closecall.review.ledger import (
     VerifyResult,
 )
 from closecall.review.ledger.access import require_read, require_record
-from closecall.review.ledger.backend import ledger_present, open_any_ledger
+from closecall.review.ledger.backend import ledger_present, open_any_ledger, verify_any
 from closecall.review.ledger.store import MAX_NOTE_BYTES
 from closecall.setup.config import StudyConfig, load_config
 
@@ -381,12 +381,11 @@ def verify_ledger(
 ) -> VerifyResult:
     """Check the study ledger: there, structured as the schema says, chain intact.
 
-    See :func:`closecall.review.ledger.verify.verify_file`: a missing or empty ledger is a problem
+    See :func:`closecall.review.ledger.backend.verify_any`: a missing or empty ledger is a problem
     unless ``allow_empty``. Needs read permission (reviewers or analysts). Without ``anchor``,
     the head recorded in the ``[team] anchor`` file is checked when that file is there
     (:mod:`closecall.review.anchors`), so a deleted, emptied or replaced ledger fails.
     """
-    from closecall.review.ledger.verify import verify_file
 
     require_read(config.review, config.path)
     if anchor is None and config.team.anchor is not None:
@@ -394,7 +393,7 @@ def verify_ledger(
 
         recorded = read_anchor(config.team.anchor)
         anchor = recorded[1] if recorded else None
-    return verify_file(
+    return verify_any(
         config.review.ledger, check_anchor(anchor), allow_empty=allow_empty, keys=config.team.keys
     )
 
@@ -409,11 +408,10 @@ def anchor_ledger(config: StudyConfig, out: Path | None = None) -> tuple[Path, V
         folder is not writable by this login.
     """
     from closecall.review.anchors import anchor_path, write_anchor
-    from closecall.review.ledger.verify import verify_file
 
     path = anchor_path(config, out)
     require_read(config.review, config.path)
-    result = verify_file(config.review.ledger, None, keys=config.team.keys)
+    result = verify_any(config.review.ledger, None, keys=config.team.keys)
     if not result.ok:
         first = result.problem.message if result.problem else "it does not verify"
         raise UserError(

@@ -6,7 +6,7 @@ from __future__ import annotations
 from typing import Any
 
 from closecall.core.text import safe_text
-from closecall.review.ledger.access import may_record
+from closecall.review.ledger.access import may_record, record_refusal
 
 
 def may_decide(screen: Any) -> bool:
@@ -17,11 +17,7 @@ def may_decide(screen: Any) -> bool:
     session = screen.session
     if may_record(session.config.review, session.login):
         return True
-    message = (
-        f"login '{safe_text(session.login)}' may not record reviews in this study (not in "
-        f"[review] reviewers of {safe_text(str(session.config.path))}): reading only. Ask "
-        "the study owner to add it to reviewers"
-    )
+    message = safe_text(record_refusal(session.config.review, session.login, session.config.path))
     say = getattr(screen, "say", None)
     if callable(say):
         say(message)

@@ -64,6 +64,26 @@ def may_read(review: ReviewConfig, login: str) -> bool:
     return not review.analysts or login in review.analysts or login in review.reviewers
 
 
+def record_refusal(review: ReviewConfig, login: str, config_path: object) -> str:
+    """Why ``login`` may not record, and whom to ask (the role for a database ledger)."""
+    url = _database(review)
+    if url is None:
+        return (
+            f"login '{login}' may not record reviews in this study (not in [review] reviewers "
+            f"of {config_path}): reading only. Ask the study owner to add it to reviewers"
+        )
+    from closecall.review.ledger.pg_store import open_pg_ledger
+
+    with open_pg_ledger(url, inspect=True) as ledger:
+        role = ledger.role_name("reviewer_role")
+        where = ledger.path
+    return (
+        f"database user '{login}' may not record reviews in {where} (not a member of the role "
+        f"{role}): reading only. Ask the ledger database's owner to run: GRANT {role} TO "
+        f'"{login}";'
+    )
+
+
 def require_record(review: ReviewConfig, config_path: object = "closecall.toml") -> str:
     """The login, if it may record; AccessDenied otherwise (for a database, naming the role)."""
     url = _database(review)

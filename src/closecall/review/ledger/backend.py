@@ -7,14 +7,15 @@ is one with :func:`ledger_present`; nothing else assumes the ledger is a file.
 
 from __future__ import annotations
 
-from collections.abc import Iterator
+from collections.abc import Iterator, Mapping
 from pathlib import Path
 from typing import Any, Protocol
 
 from closecall.review.ledger.entry import Entry, EntryContent
-from closecall.review.ledger.pg_store import PgLedger, is_url, open_pg_ledger
+from closecall.review.ledger.pg_store import PgLedger, is_url, open_pg_ledger, verify_database
 from closecall.review.ledger.store import Ledger
 from closecall.review.ledger.store import open_ledger as open_sqlite_ledger
+from closecall.review.ledger.verify import VerifyResult, verify_file
 
 #: An open ledger of either kind (the same reading, appending, drafts and claims methods).
 AnyLedger = Ledger | PgLedger
@@ -66,3 +67,17 @@ def open_any_ledger(
     if is_database(where):
         return open_pg_ledger(str(where), readonly=readonly, inspect=inspect)
     return open_sqlite_ledger(where, readonly=readonly, inspect=inspect)
+
+
+def verify_any(
+    where: str | Path,
+    anchor: str | None = None,
+    *,
+    allow_empty: bool = False,
+    keys: Mapping[str, str] | None = None,
+) -> VerifyResult:
+    """Verify the ledger ``where`` names, file (:func:`.verify.verify_file`) or database
+    (:func:`.pg_store.verify_database`); never writes."""
+    if is_database(where):
+        return verify_database(str(where), anchor, allow_empty=allow_empty, keys=keys)
+    return verify_file(where, anchor, allow_empty=allow_empty, keys=keys)

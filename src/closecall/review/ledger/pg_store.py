@@ -243,6 +243,7 @@ def _schema_sql(reviewer: str, analyst: str) -> list[str]:
         f"GRANT SELECT ON closecall.entries, closecall.head TO {reviewer}, {analyst}",
         f"GRANT INSERT ON closecall.entries TO {reviewer}",
         f"GRANT SELECT, INSERT, UPDATE, DELETE ON closecall.drafts, closecall.claims TO {reviewer}",
+        f"GRANT SELECT ON closecall.claims TO {analyst}",  # who has a case open: all may see
         f"GRANT EXECUTE ON FUNCTION closecall.lock_head() TO {reviewer}",
         "INSERT INTO closecall.meta VALUES ('application', 'closecall-ledger') "
         "ON CONFLICT (key) DO NOTHING",
@@ -431,6 +432,10 @@ class PgLedger:
                 conn.rollback()
             raise
         return Entry(**fields)
+
+    def role_name(self, which: str) -> str:
+        """The group role ``reviewer_role`` or ``analyst_role`` that setup named."""
+        return self._role(which)
 
     def _role(self, which: str) -> str:
         rows = self._read("SELECT value FROM closecall.meta WHERE key = %s", (which,))
@@ -708,6 +713,7 @@ def _expected_grants(reviewer: str, analyst: str) -> set[tuple[str, str, str]]:
         ("head", analyst, "SELECT"),
         *(("drafts", reviewer, p) for p in rw),
         *(("claims", reviewer, p) for p in rw),
+        ("claims", analyst, "SELECT"),
     }
 
 
@@ -922,6 +928,21 @@ def migrate(source: PgLedger | Any, url: str) -> tuple[int, str]:
         return target.head()[0], target.head()[1]
     finally:
         target.close()
+
+
+def verify_database(
+    url: str,
+    anchor: str | None = None,
+    *,
+    allow_empty: bool = False,
+    keys: Mapping[str, str] | None = None,
+) -> VerifyResult:
+    """Verify the PostgreSQL ledger at ``url``: guards, privileges, policies and the chain
+    (see :func:`closecall.review.ledger.verify.verify_opened`). Reads only."""
+    from closecall.review.ledger.verify import verify_opened
+
+    with open_pg_ledger(url, inspect=True) as ledger:
+        return verify_opened(ledger, ledger.path, anchor, allow_empty=allow_empty, keys=keys)
 
 
 _COPY_SQL = (

@@ -27,17 +27,22 @@ table with its columns, no trigger the schema does not create. And the ledger mu
 from __future__ import annotations
 
 import json
-from collections.abc import Mapping
+from collections.abc import Iterator, Mapping
 from dataclasses import asdict, dataclass
 from pathlib import Path
-from typing import TYPE_CHECKING, Any
+from typing import Any, Protocol
 
 from closecall.core.errors import Fix
 from closecall.review.ledger.entry import GENESIS_HASH, entry_hash, signed_message
-from closecall.review.ledger.store import DamagedLedger, Ledger, NoLedger, open_ledger
+from closecall.review.ledger.store import DamagedLedger, NoLedger, open_ledger
 
-if TYPE_CHECKING:
-    from closecall.review.ledger.pg_store import PgLedger
+
+class ChainReader(Protocol):
+    """What :func:`verify_chain` reads of an open ledger, file or database."""
+
+    def structure_findings(self) -> list[Any]: ...
+    def iter_rows(self) -> Iterator[dict[str, Any]]: ...
+    def head(self) -> tuple[int, str]: ...
 
 
 @dataclass(frozen=True)
@@ -168,7 +173,7 @@ class _Authorship:
 
 
 def verify_chain(
-    ledger: Ledger | PgLedger, anchor: str | None = None, keys: Mapping[str, str] | None = None
+    ledger: ChainReader, anchor: str | None = None, keys: Mapping[str, str] | None = None
 ) -> VerifyResult:
     """Recompute every hash of ``ledger``, check every link and, with ``keys`` (login ->
     base64 Ed25519 public key), every signature; see the module docstring."""
@@ -329,8 +334,8 @@ def verify_file(
     allow_empty: bool = False,
     keys: Mapping[str, str] | None = None,
 ) -> VerifyResult:
-    """Verify the ledger file at ``path`` (or the PostgreSQL ledger a URL names): its
-    presence, structure and chain.
+    """Verify the ledger file at ``path``: its presence, structure and chain (a ledger in
+    PostgreSQL: :func:`closecall.review.ledger.backend.verify_any`).
 
     A missing file, a file with no tables and a ledger with no entries are each a problem
     (``no-ledger``, ``empty-ledger``, ``no-entries``) unless ``allow_empty``; a folder or a
@@ -345,10 +350,6 @@ def verify_file(
         another program) or was written by a newer closecall.
     """
     anchor = anchor.strip().lower() if anchor else None
-    from closecall.review.ledger.backend import is_database
-
-    if is_database(path):
-        return _verify_database(str(path), anchor, allow_empty, keys)
     path = Path(path)
     if not path.exists():  # (a dangling link too)
         return _nothing(_missing_file(path), anchor, allow_empty, path)
@@ -368,16 +369,19 @@ def verify_file(
     return result
 
 
-def _verify_database(
-    url: str, anchor: str | None, allow_empty: bool, keys: Mapping[str, str] | None
+def verify_opened(
+    ledger: ChainReader,
+    where: str,
+    anchor: str | None = None,
+    *,
+    allow_empty: bool = False,
+    keys: Mapping[str, str] | None = None,
 ) -> VerifyResult:
-    """:func:`verify_file` for a PostgreSQL ledger: the guards, privileges, policies and the
-    chain; a database without entries is ``no-entries`` unless ``allow_empty``."""
-    from closecall.review.ledger.pg_store import open_pg_ledger
-
-    with open_pg_ledger(url, inspect=True) as ledger:
-        result = verify_chain(ledger, anchor, keys)
-        where = ledger.path
+    """:func:`verify_chain` of an open ledger (a database's: see
+    :func:`closecall.review.ledger.pg_store.verify_database`), with a ledger that holds no
+    entries a ``no-entries`` problem unless ``allow_empty``; ``where`` names it in messages."""
+    anchor = anchor.strip().lower() if anchor else None
+    result = verify_chain(ledger, anchor, keys)
     if result.entries == 0 and result.ok:
         problem = Problem(
             "no-entries",

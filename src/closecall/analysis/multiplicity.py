@@ -47,9 +47,8 @@ from typing import Any
 
 import numpy as np
 from scipy.linalg import cho_solve, solve_triangular
-from scipy.optimize import brentq
+from scipy.special import gammaincinv
 from scipy.special import logit as logit_fn
-from scipy.stats import chi2
 
 from closecall.analysis.fitted_rows import (
     fitted_row,
@@ -63,7 +62,9 @@ from closecall.core.numbers import check_number
 from closecall.setup.config import EPSILON_MAX, MultiplicityConfig
 from closecall.suite.snapshot import Snapshot
 
-UNCERTAINTY_EPSILON = float(chi2.ppf(0.95, df=1) / 2.0)  # 1.9207: the 95 % Wald band
+# χ²₁ 95 % quantile / 2 = 1.9207: the 95 % Wald band (chi2.ppf(0.95, 1) is 2·gammaincinv(½, 0.95),
+# written so; scipy.stats would cost every `closecall queue` a second to import)
+UNCERTAINTY_EPSILON = float(2.0 * gammaincinv(0.5, 0.95) / 2.0)
 DEFAULT_EPSILON = MultiplicityConfig().epsilon
 EPSILON_CURVE = (0.0005, 0.001, 0.002, 0.005, 0.01, 0.02, 0.05, 0.1)
 BLOCK_ROWS = 50_000
@@ -473,6 +474,8 @@ def exact_band(
                 lo_ = mid
             else:
                 hi_, e_hi = mid, e_mid
+        from scipy.optimize import brentq
+
         log_tau = brentq(excess, lo_, hi_, xtol=1e-7, rtol=1e-9)
         w = _tilted_minimum(Xt, y, fr.penalty, sign * c, float(np.exp(log_tau)), last["w"])
         return float(c @ w) - t

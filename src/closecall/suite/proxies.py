@@ -56,10 +56,9 @@ from dataclasses import asdict, dataclass
 from typing import Any
 
 import numpy as np
-from scipy.stats import chi2_contingency, rankdata
-from sklearn.linear_model import LogisticRegression
-from sklearn.metrics import roc_auc_score
-from sklearn.model_selection import StratifiedKFold
+
+# scipy.stats and scikit-learn load inside the functions that use them: reading a snapshot's
+# proxy report (every `closecall queue`) must not pay for them
 
 RECOVERABILITY_MAX_ROWS = 100_000
 BOOT_REPLICATES = 200  # bootstrap replicates of association and influence
@@ -70,6 +69,8 @@ LEVEL = 0.95
 
 def auc_association(x: np.ndarray, group_codes: np.ndarray, n_levels: int) -> float:
     """2·|AUC − 0.5| of x for each level against the rest; the largest over levels."""
+    from scipy.stats import rankdata
+
     ranks = rankdata(x)
     best = 0.0
     levels = range(1) if n_levels == 2 else range(n_levels)
@@ -85,6 +86,8 @@ def auc_association(x: np.ndarray, group_codes: np.ndarray, n_levels: int) -> fl
 
 def cramers_v(codes: np.ndarray, group_codes: np.ndarray) -> float:
     """Cramér's V (no bias correction) of two coded categorical arrays."""
+    from scipy.stats import chi2_contingency
+
     a, b = _dense_codes(codes), _dense_codes(group_codes)
     nb = int(b.max()) + 1
     table = np.bincount(a * nb + b, minlength=(int(a.max()) + 1) * nb).reshape(-1, nb)
@@ -309,6 +312,10 @@ def group_recoverability(
     history is never copied whole. ``folds`` is lowered to the smallest level's count (at
     least 2) so a study with very small levels is scored rather than refused.
     """
+    from sklearn.linear_model import LogisticRegression
+    from sklearn.metrics import roc_auc_score
+    from sklearn.model_selection import StratifiedKFold
+
     rng = np.random.default_rng(seed)
     idx = np.arange(len(group_codes))
     if len(idx) > RECOVERABILITY_MAX_ROWS:
@@ -689,6 +696,8 @@ def _lda_auc(
 ) -> float:
     """Held-out AUC of linear-discriminant scores of the group from the columns ``cols``
     (macro one-vs-rest for more than two levels); a small ridge keeps Σ invertible."""
+    from sklearn.metrics import roc_auc_score
+
     if len(cols) == 0:
         return 0.5
     levels = range(1) if n_levels == 2 else range(n_levels)
@@ -738,6 +747,8 @@ def proxy_sets(
     R. A. Fisher, "The use of multiple measurements in taxonomic problems", Annals of Eugenics
     7 (1936) 179-188. Yeom, Datta & Fredrikson, NeurIPS 2018 (proxies as combinations).
     """
+    from sklearn.model_selection import StratifiedKFold
+
     rng = np.random.default_rng([seed, 15])
     n = len(group_codes)
     rows = np.arange(n) if n <= max_rows else np.sort(rng.choice(n, max_rows, replace=False))

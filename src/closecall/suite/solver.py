@@ -44,7 +44,6 @@ from typing import TypeVar
 
 import numpy as np
 from scipy.linalg import cho_factor, cho_solve, eigh, solve_triangular
-from scipy.optimize import linprog
 from threadpoolctl import ThreadpoolController
 
 TOL = 1e-10
@@ -846,6 +845,8 @@ def _separation_lp(
         return out
 
     def solve(maximin: bool) -> tuple[np.ndarray, np.ndarray] | None:
+        from scipy.optimize import linprog  # here: reading a snapshot must not import it
+
         seed = np.unique(np.linspace(0, n - 1, min(n, LP_ROWS)).astype(np.int64))
         work = seed
         for _ in range(LP_ROUNDS):

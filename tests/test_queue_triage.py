@@ -189,3 +189,12 @@ def test_an_identical_model_is_named_once(no_proxy_study: Path, cli: Any) -> Non
 def test_the_demo_has_no_identical_models(demo_study: OpenedStudy) -> None:
     answer = answer_queue(demo_study, QueueQuery(limit=1))
     assert answer.queue.same_as == {}
+
+
+def test_the_library_frame_carries_the_tier_and_the_distance(demo_config: Path, cli: Any) -> None:
+    from closecall import Study
+
+    frame = Study.open(demo_config).queue(QueueQuery(flips="lens")).to_frame()
+    rows = _queue(cli, demo_config, "--flips", "lens")["rows"]
+    assert list(frame["tier"]) == [r["tier"] for r in rows]
+    assert list(frame["closeness"]) == [r["closeness"] for r in rows]

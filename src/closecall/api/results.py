@@ -90,7 +90,8 @@ class QueueResult:
 
         Columns: ``rank``, ``case_id``, ``group``, ``margin`` (reference model, log-odds,
         > 0 favourable), ``decision``, ``flip``, ``differs`` (the ``model@lens`` pairs that
-        decide otherwise, ``;``-separated), ``margin_<model>`` and ``decision_<model>`` for
+        decide otherwise, ``;``-separated), ``tier`` (the triage tier) and ``closeness`` (the
+        distance from the threshold in words), ``margin_<model>`` and ``decision_<model>`` for
         every model, any measure the query used (``ambiguity``, ``dependence``), and
         ``state`` and ``claimed_by`` when the ledger is readable.
 
@@ -120,6 +121,11 @@ class QueueResult:
             "flip": differs.any(axis=1),
             "differs": [s.rstrip(";") for s in joined],
         }
+        if q.tier is not None:  # the triage tier and the distance in words (docs/tui.md)
+            from closecall.review.triage import CLOSENESS_WORDS, TIERS, closeness_codes
+
+            cols["tier"] = np.asarray(TIERS)[q.tier[rows]]
+            cols["closeness"] = np.asarray(CLOSENESS_WORDS)[closeness_codes(margin, q.band)]
         t0 = float(logit(snap.lenses[0].threshold))
         for m in snap.model_names:
             mm = np.asarray(snap.logit(m))[rows] - t0

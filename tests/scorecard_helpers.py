@@ -3,6 +3,7 @@ card's points recomputed with plain pandas."""
 
 from __future__ import annotations
 
+import re
 from pathlib import Path
 
 import numpy as np
@@ -16,7 +17,7 @@ def card_study(folder: Path, card: str = DEMO_SCORECARD, *, cases: int = 1500) -
     config = write_demo(folder, cases=cases, seed=3)
     (folder / "scorecard.csv").write_text(card)
     text = config.read_text()
-    if 'deployed_score = "deployed_score"' in text:
+    if "\n[deployed]\n" not in text:  # a demo whose model in use is its scores column
         text = text.replace('deployed_score = "deployed_score"', "")
         text += '\n[deployed]\nscorecard = "scorecard.csv"\n'
     config.write_text(text)
@@ -39,3 +40,10 @@ def demo_points(frame: pd.DataFrame) -> np.ndarray:
         + np.where(frame["energy_label"].isin(["E", "F", "G"]), -7, 0)
         + np.where(frame["heritage"] == "Briar", -18, 0)
     ).astype(float)
+
+
+def without_card(config: Path) -> Path:
+    """The demo study without its card (and without a deployed model)."""
+    text = re.sub(r"\n\[deployed\]\nscorecard = [^\n]*\n", "\n", config.read_text())
+    config.write_text(text)
+    return config

@@ -18,8 +18,9 @@ import pytest
 
 from closecall.analysis.deployed_card import card_counterparts, card_dependence
 from closecall.analysis.explain import explain_case
+from closecall.setup.demo import write_demo
 from closecall.suite.opening import OpenedStudy, open_study
-from scorecard_helpers import card_study, demo_points
+from scorecard_helpers import card_study, demo_points, without_card
 
 FACTOR = 20 / math.log(2)  # PDO 20 (common practice: factor = PDO / ln 2)
 
@@ -98,9 +99,11 @@ def test_proxies_are_carried_by_the_inverse_distribution(
         np.testing.assert_allclose(carried[sel, h], swapped[sel, h] + moved - own, atol=1e-9)
 
 
-def test_explain_without_a_card_has_none(demo_study: OpenedStudy) -> None:
-    case = str(demo_study.snapshot.case_ids[0])
-    assert explain_case(demo_study, case)["deployed_card"] is None
+def test_explain_without_a_card_has_none(tmp_path: Path) -> None:
+    opened = open_study(without_card(write_demo(tmp_path, cases=600, seed=2)))
+    assert "deployed" not in opened.snapshot.model_names
+    case = str(opened.snapshot.case_ids[0])
+    assert explain_case(opened, case)["deployed_card"] is None
 
 
 def test_cli_explain_shows_the_card(  # type: ignore[no-untyped-def]

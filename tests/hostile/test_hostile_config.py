@@ -117,8 +117,8 @@ OUT_OF_RANGE = [
     ("folds = 5", "folds = 1", "[model] folds = 1", "whole number ≥ 2"),
     ("folds = 5", "folds = -5", "[model] folds = -5", "whole number ≥ 2"),
     (
-        'deployed_score = "deployed_score"',
-        'deployed_score = "deployed_score"\nmin_group_cases = 1',
+        'group = ["heritage"]',
+        'group = ["heritage"]\nmin_group_cases = 1',
         "[data] min_group_cases = 1",
         "whole number ≥ 2",
     ),
@@ -279,7 +279,7 @@ PARTS = [
     ('group = ["heritage"]', 'group = ["application_id"]', "group names 'application_id'", "id"),
     (
         'group = ["heritage"]',
-        'group = ["deployed_score"]',
+        'group = ["deployed_score"]\ndeployed_score = "deployed_score"',
         "group names 'deployed_score'",
         "deployed score",
     ),
@@ -309,8 +309,8 @@ PARTS = [
         "exclude",
     ),
     (
-        'deployed_score = "deployed_score"',
-        'deployed_score = "zone"\nfeatures = ["zone", "dwelling_age"]',
+        'group = ["heritage"]',
+        'group = ["heritage"]\ndeployed_score = "zone"\nfeatures = ["zone", "dwelling_age"]',
         "'zone'",
         "under [data] deployed_score and features",
     ),

@@ -96,6 +96,12 @@ def test_infinity_in_a_pending_feature(study_dir: Path, cli: Cli, column: str, t
 
 @pytest.mark.parametrize("text", ["Infinity", "-inf", "NA"])
 def test_infinity_or_missing_in_the_deployed_score(study_dir: Path, cli: Cli, text: str) -> None:
+    config = study_dir / "closecall.toml"  # the model in use as scores, not the demo's card
+    config.write_text(
+        config.read_text()
+        .replace('scorecard = "scorecard.csv"', "")
+        .replace('group = ["heritage"]', 'group = ["heritage"]\ndeployed_score = "deployed_score"')
+    )
     _set_cell(study_dir / "pending.csv", 9, "deployed_score", text)
     _refused(
         cli,

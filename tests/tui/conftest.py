@@ -22,7 +22,7 @@ FIXED_SNAPSHOT_ID = "5eed0000c0ffee00"  # shown in snapshot frames instead of th
 def _config_text(data_dir: Path) -> str:
     """The demo config with its data files named by absolute path (so every copy shares a fit)."""
     text = (FIXTURE / "closecall.toml").read_text()
-    for key in ("history", "pending"):
+    for key in ("history", "pending", "scorecard"):
         text = re.sub(
             rf'^{key} = "([^"]+)"',
             lambda m, k=key: f'{k} = "{data_dir / m.group(1)}"',
@@ -36,7 +36,7 @@ def _config_text(data_dir: Path) -> str:
 def tui_template(tmp_path_factory: pytest.TempPathFactory) -> Path:
     """The demo data and its fitted snapshot, shared by every test of this folder."""
     root = tmp_path_factory.mktemp("tui-template")
-    for name in ("history.csv", "pending.csv"):
+    for name in ("history.csv", "pending.csv", "scorecard.csv"):
         shutil.copy(FIXTURE / name, root / name)
     (root / "closecall.toml").write_text(_config_text(root))
     open_study(root / "closecall.toml")

@@ -13,10 +13,11 @@ from textual.widgets import Static
 from tui_helpers import open_queue, synchronous, wait_until
 
 from closecall.analysis.explain import explain_case
+from closecall.setup.demo import write_demo
 from closecall.suite.opening import OpenedStudy, open_study
 from closecall.tui.app import ReviewApp
 from closecall.tui.card_section import card_reasons
-from scorecard_helpers import card_study
+from scorecard_helpers import card_study, without_card
 
 
 @pytest.fixture(scope="module")
@@ -55,10 +56,11 @@ async def test_case_screen_shows_the_card(card_opened: OpenedStudy) -> None:
 
 
 @synchronous
-async def test_no_card_section_without_a_card(frozen_study: OpenedStudy) -> None:
+async def test_no_card_section_without_a_card(tmp_path: Path) -> None:
     from closecall.tui.case_screen import CaseScreen
 
-    app = ReviewApp(study=frozen_study, login="reviewer")
+    opened = open_study(without_card(write_demo(tmp_path, cases=600, seed=2)))
+    app = ReviewApp(study=opened, login="reviewer")
     async with app.run_test(size=(120, 40)) as pilot:
         await open_queue(pilot)
         await pilot.press("enter")

@@ -494,14 +494,6 @@ def parse_config(raw: dict[str, Any], path: Path) -> StudyConfig:
             f"{path}: [model] reference = {toml_text(model.reference)}",
             "set reference to 'pooled' or 'deployed'",
         )
-    deployed = _deployed(path, raw, data)
-    if model.reference == "deployed" and not data.deployed_score and not deployed.scorecard:
-        raise UserError(
-            f"{path}: [model] reference = 'deployed' but [data] names no deployed_score and "
-            "[deployed] no scorecard",
-            "add deployed_score = COLUMN under [data] or scorecard = FILE under [deployed], "
-            "or set reference = 'pooled'",
-        )
 
     lenses = _lenses(path, raw.get("lens", [{"name": "equal-costs"}]))
 
@@ -514,6 +506,14 @@ def parse_config(raw: dict[str, Any], path: Path) -> StudyConfig:
         never=_str_tuple(path, "proxies", "never", p.get("never", [])),
     )
     _check_parts(path, data, proxies)
+    deployed = _deployed(path, raw, data)
+    if model.reference == "deployed" and not data.deployed_score and not deployed.scorecard:
+        raise UserError(
+            f"{path}: [model] reference = 'deployed' but [data] names no deployed_score and "
+            "[deployed] no scorecard",
+            "add deployed_score = COLUMN under [data] or scorecard = FILE under [deployed], "
+            "or set reference = 'pooled'",
+        )
 
     mu = _table(path, raw, "multiplicity")
     _check_keys(path, "multiplicity", mu)

@@ -69,7 +69,12 @@ id = "application_id"
 outcome = "completed"            # did the retrofit complete within 18 months?
 favourable = "yes"
 group = ["heritage"]             # the protected attribute (fictional communities)
-deployed_score = "deployed_score"  # probability from the model in use today
+
+[deployed]
+scorecard = "scorecard.csv"      # the Office's published points card: the model in use today
+# The pending file's deployed_score column holds the Office's previous model's probabilities:
+# to analyse those instead, remove this section and set deployed_score = "deployed_score"
+# under [data] (docs/demo.md).
 
 [model]
 penalty = 1.0                    # ridge strength on standardised features; 0 = off
@@ -236,6 +241,7 @@ def write_demo(out_dir: Path, cases: int = 5000, seed: int = 7) -> Path:
             "completed": np.where(truth[pending], "yes", "no"),
         }
     ).to_csv(out_dir / "pending_outcomes.csv", index=False)
+    (out_dir / "scorecard.csv").write_text(DEMO_SCORECARD)
     config = out_dir / "closecall.toml"
     config.write_text(DEMO_CONFIG.replace("{seed}", str(seed)))
     return config

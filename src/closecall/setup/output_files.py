@@ -38,7 +38,13 @@ SQLITE_HEADER = b"SQLite format 3\x00"
 #: The snapshot and cache folder of every study (see StudyConfig.workdir).
 WORKDIR_NAME = ".closecall"
 #: What ``closecall demo`` writes into its folder.
-DEMO_FILES = ("closecall.toml", "history.csv", "pending.csv", "pending_outcomes.csv")
+DEMO_FILES = (
+    "closecall.toml",
+    "history.csv",
+    "pending.csv",
+    "pending_outcomes.csv",
+    "scorecard.csv",
+)
 
 
 @dataclass(frozen=True)

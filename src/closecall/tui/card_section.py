@@ -21,6 +21,10 @@ def _pts(x: float) -> str:
     return f"{x:+.4g}".replace("-", "−")
 
 
+def _signed(x: float) -> str:
+    return f"{x:+.2f}".replace("-", "−")
+
+
 def _word(favourable: bool) -> str:
     return "fav" if favourable else "unfav"
 
@@ -34,7 +38,7 @@ def card_reasons(d: dict[str, Any]) -> Text:
     text.append(f"{safe_text(c['card'])}: {c['points']:.4g} points, cut-off {c['cutoff']:.4g} ")
     text.append(f"→ {_pts(c['margin_points'])} ", "bold")
     if c["margin"] is not None:
-        text.append(f"({c['margin']:+.2f} log-odds) ".replace("-", "−"))
+        text.append(f"({_signed(c['margin'])} log-odds) ")
     text.append(_word(c["decision"] == "favourable"), "bold")
     for row in c["contributions"][:TOP]:
         tag = {"group": " (group)", "proxy": " (proxy)"}.get(row["role"], "")

@@ -198,3 +198,21 @@ def test_the_library_frame_carries_the_tier_and_the_distance(demo_config: Path, 
     rows = _queue(cli, demo_config, "--flips", "lens")["rows"]
     assert list(frame["tier"]) == [r["tier"] for r in rows]
     assert list(frame["closeness"]) == [r["closeness"] for r in rows]
+
+
+def test_explain_and_compare_name_an_identical_model_once(no_proxy_study: Path, cli: Any) -> None:
+    case = _queue(cli, no_proxy_study)["rows"][0]["case_id"]
+    for args in (["explain", case], ["compare", "--boot", "100"]):
+        res = cli(*args, "--config", str(no_proxy_study))
+        assert res.code == 0, res
+        text = " ".join(res.out.split())
+        assert "proxy-free = unaware: the same weights (no proxy flagged)" in text, args
+        assert "proxy_free" not in res.out and " proxy-free " not in text.split("proxy-free =")[0]
+
+
+def test_explain_names_each_model_once_by_its_one_name(demo_config: Path, cli: Any) -> None:
+    case = _queue(cli, demo_config)["rows"][0]["case_id"]
+    res = cli("explain", case, "--config", str(demo_config))
+    assert res.code == 0, res
+    assert "proxy-free" in res.out and "proxy_free" not in res.out
+    assert "the same weights" not in res.out  # the demo flags proxies: no model is another

@@ -30,6 +30,8 @@ from closecall.cli.common import ConfigOption, JsonOption, load
 from closecall.cli.output import console, emit_json, plain
 from closecall.core.errors import UserError
 from closecall.core.text import safe_text
+from closecall.core.vocabulary import short_model
+from closecall.review.queue import identical_models
 from closecall.suite.proxies import proxy_sets
 
 LensOption = typer.Option(None, "--lens", help="Cost lens name (default: the first one).")
@@ -122,10 +124,21 @@ def explain(
     if as_json:
         emit_json(data)
         return
-    _print_explanation(data)
+    _print_explanation(data, identical_models(study.opened.snapshot))
 
 
-def _print_explanation(d: dict[str, Any]) -> None:
+def _same_note(same: dict[str, str]) -> list[str]:
+    """One line per model that is another (named once in the tables above it)."""
+    return [
+        f"{short_model(m)} = {short_model(o)}: the same weights"
+        + (" (no proxy flagged)" if (m, o) == ("proxy_free", "unaware") else "")
+        + f"; shown once, as {short_model(o)}"
+        for m, o in same.items()
+    ]
+
+
+def _print_explanation(d: dict[str, Any], same: dict[str, str] | None = None) -> None:
+    same = same or {}
     lens = d["lens"]
     head = Text()
     head.append(safe_text(d["case_id"]), "bold")
@@ -146,16 +159,20 @@ def _print_explanation(d: dict[str, Any]) -> None:
     t = _grid("model", "margin", "decision", "", right=(1,))
     own = d["margin"] > 0
     for model, md in d["decisions"].items():
+        if model in same:
+            continue
         star = "*" if model == d["reference"] else ""
         differs = (md["margin"] > 0) != own
         t.add_row(
-            _txt(model + star),
+            _txt(short_model(model) + star),
             _txt(_signed(md["margin"], 3)),
             _decision(md["margin"]),
             _txt(f"{FLAG} differs from {d['model']}" if differs else "", "bold"),
         )
     console.print(t)
-    _say(_txt(f"* reference model ({d['reference']})", "dim"))
+    _say(_txt(f"* reference model ({short_model(d['reference'])})", "dim"))
+    for note in _same_note(same):
+        _say(_txt(note, "dim"))
 
     dep = d["dependence"]
     _heading("What the margin is made of (log-odds)")
@@ -692,10 +709,13 @@ def compare(
     verdict_style = {"errs less": "green", "errs more": "red"}
     marks = {"errs less": "▼ errs less", "errs more": "▲ errs more"}
     last = None
+    same = identical_models(snap)
     for r in res.rows:
+        if r["model"] in same:
+            continue
         t.add_row(
             _txt(r["group"] if r["group"] != last else ""),
-            _txt(r["model"]),
+            _txt(short_model(r["model"])),
             _txt(r["metric"].replace("_", "-")),
             f"{r['value']:.3f}",
             _signed(r["difference"], 3),
@@ -705,6 +725,8 @@ def compare(
         last = r["group"]
     console.print(t)
     _say("▼ interval wholly below zero; ▲ wholly above; unclear: it holds zero")
+    for note in _same_note(same):
+        _say(note)
     for b in res.best:
         _say(
             f"{safe_text(b['group'])}: lowest {b['metric'].replace('_', '-')} "

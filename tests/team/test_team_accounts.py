@@ -37,6 +37,7 @@ CLOSECALL = Path(sys.executable).parent / "closecall"
 class Team:
     base: Path
     writers: str  # the writers' group
+    readers: str  # the readers' group (the analyst; the reviewers are members too)
     r1: str
     r2: str
     analyst: str
@@ -109,10 +110,12 @@ def team(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Team]:
             made_groups.append(g)
         (base / "home").mkdir()
         os.chmod(base / "home", 0o755)  # explicit, whatever the umask
-        for user, group in ((r1, writers), (r2, writers), (analyst, readers)):
+        accounts = ((r1, writers, readers), (r2, writers, readers), (analyst, readers, ""))
+        for user, group, more in accounts:
             home = base / "home" / user
+            extra = ["-G", more] if more else []  # reviewers pass the readers' gate too
             subprocess.run(
-                ["useradd", "-M", "-d", str(home), "-g", group, "-s", "/bin/sh", user],
+                ["useradd", "-M", "-d", str(home), "-g", group, *extra, "-s", "/bin/sh", user],
                 check=True,
             )
             made_users.append(user)
@@ -124,7 +127,7 @@ def team(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Team]:
         import closecall
 
         restore += _traversable(Path(closecall.__file__).resolve())
-        yield Team(base, writers, r1, r2, analyst, base / "study")
+        yield Team(base, writers, readers, r1, r2, analyst, base / "study")
     finally:
         for p, mode in reversed(restore):
             os.chmod(p, mode)
@@ -150,10 +153,22 @@ def fitted_demo(team: Team) -> Path:
     return template
 
 
-def new_study(team: Team, template: Path, name: str, *, setup: bool = True) -> Path:
+def new_study(
+    team: Team, template: Path, name: str, *, setup: bool = True, readers: bool = False
+) -> Path:
     """A copy of the demo set up as docs/team.md says: folder owned by the supervisor, in the
-    writers' group, group rwx + setgid, nothing for others; the config owner-writable."""
+    writers' group, group rwx + setgid, nothing for others; the config owner-writable.
+
+    With ``readers``: inside a gate folder (group: the readers, mode 2750) and readable by
+    others, as ``team setup --readers`` makes it (docs/team.md, Analysts).
+    """
     study = team.base / name
+    if readers:
+        gate = team.base / f"gate-{name}"
+        gate.mkdir()
+        os.chown(gate, 0, grp.getgrnam(team.readers).gr_gid)
+        os.chmod(gate, 0o2750)
+        study = gate / name
     shutil.copytree(template, study, symlinks=True)
     config = study / "closecall.toml"
     text = re.sub(
@@ -163,15 +178,16 @@ def new_study(team: Team, template: Path, name: str, *, setup: bool = True) -> P
     config.write_text(text)
     if setup:
         gid = grp.getgrnam(team.writers).gr_gid
+        others = 0o005 if readers else 0
         for dirpath, _dirnames, filenames in os.walk(study):
             os.chown(dirpath, 0, gid)
-            os.chmod(dirpath, 0o2770)
+            os.chmod(dirpath, 0o2770 | others)
             for f in filenames:
                 p = Path(dirpath) / f
                 os.chown(p, 0, gid)
-                os.chmod(p, 0o660)
+                os.chmod(p, 0o660 | (others & 0o004))
         os.chmod(config, 0o644)
-        os.chmod(study, 0o3770)  # sticky too: members cannot delete each other's files
+        os.chmod(study, 0o3770 | others)  # sticky too: members cannot delete each other's files
     return study
 
 
@@ -324,16 +340,29 @@ class TestTeamCheck:
             assert f"fix: {fix}" in out, (fix, out)
 
     def test_a_correct_folder_gives_nothing(self, team: Team, fitted_demo: Path) -> None:
-        study = new_study(team, fitted_demo, "sound")
+        study = new_study(team, fitted_demo, "sound", readers=True)
         res = team.run(team.r2, "team", "check", "--config", str(study / "closecall.toml"))
         assert res.returncode == 0, res.stdout + res.stderr
         assert res.stdout.strip() == "team set-up: sound (nothing to fix)"
 
     def test_setup_makes_a_mis_set_folder_sound(self, team: Team, fitted_demo: Path) -> None:
+        gate = team.base / "gate-tosetup"
+        gate.mkdir(mode=0o700)  # a gate only its owner may enter; setup gives it the readers
         study = new_study(team, fitted_demo, "tosetup", setup=False)
+        study = study.rename(gate / "tosetup")
         config = str(study / "closecall.toml")
         res = subprocess.run(
-            [str(CLOSECALL), "team", "setup", "--group", team.writers, "--config", config],
+            [
+                str(CLOSECALL),
+                "team",
+                "setup",
+                "--group",
+                team.writers,
+                "--readers",
+                team.readers,
+                "--config",
+                config,
+            ],
             capture_output=True,
             text=True,
             timeout=300,
@@ -344,3 +373,176 @@ class TestTeamCheck:
         assert not (study / "closecall.toml").stat().st_mode & (stat.S_IWGRP | stat.S_IWOTH)
         res = team.run(team.r1, "team", "check", "--config", config)
         assert res.returncode == 0, res.stdout
+
+    def test_an_analyst_without_a_way_in_is_reported(self, team: Team, fitted_demo: Path) -> None:
+        study = new_study(team, fitted_demo, "noway")  # sound for the writers, no readers
+        config = str(study / "closecall.toml")
+        res = team.run(team.r1, "team", "check", "--config", config)
+        assert res.returncode == 1, res.stdout
+        assert f"analyst {team.analyst} is not in the study group" in res.stdout
+        assert "--readers READERS" in res.stdout
+        open_all = new_study(team, fitted_demo, "openall")
+        os.chmod(open_all, 0o3775)  # others let in, and no gate above it (base is 0755)
+        res = team.run(team.r1, "team", "check", "--config", str(open_all / "closecall.toml"))
+        assert res.returncode == 1, res.stdout
+        assert "every login on this server can read the study" in res.stdout
+
+
+def _digest(folder: Path) -> dict[str, bytes]:
+    return {
+        str(p.relative_to(folder)): p.read_bytes() for p in sorted(folder.rglob("*")) if p.is_file()
+    }
+
+
+HOLDER = textwrap.dedent(
+    """
+    import sqlite3, sys, time
+    conn = sqlite3.connect(sys.argv[1])
+    conn.execute("SELECT COUNT(*) FROM entries").fetchone()  # a reader: -wal and -shm exist
+    print("open", flush=True)
+    time.sleep(float(sys.argv[2]))
+    """
+)
+
+
+class TestAnalysts:
+    """docs/team.md, Analysts: a login outside the writers' group reads (verify, export,
+    report) through the gate and writes nothing."""
+
+    def _recorded(self, team: Team, fitted_demo: Path, name: str, n: int = 6) -> Path:
+        study = new_study(team, fitted_demo, name, readers=True)
+        config = str(study / "closecall.toml")
+        res = team.run(team.r1, "queue", "--config", config, "--json", "--limit", "80")
+        assert res.returncode == 0, res.stderr
+        import json
+
+        by_group: dict[str, list[str]] = {}
+        for row in json.loads(res.stdout)["rows"]:
+            by_group.setdefault(row["group"], []).append(row["case_id"])
+        assert len(by_group) >= 2  # the report compares groups
+        firsts, seconds = list(by_group.values())[:2]
+        picked = [c for pair in zip(firsts, seconds, strict=False) for c in pair][:n]
+        for i, case in enumerate(picked):
+            who = team.r1 if i % 2 else team.r2
+            action = "override-favourable" if i % 3 == 0 else "uphold"
+            extra = ["--reason", "other"] if action.startswith("override") else []
+            res = team.run(
+                who,
+                "record",
+                case,
+                "--action",
+                action,
+                *extra,
+                "--note",
+                f"n{i}",
+                "--config",
+                config,
+            )
+            assert res.returncode == 0, res.stderr
+        return study
+
+    def test_the_analyst_verifies_exports_and_reports_at_rest(
+        self, team: Team, fitted_demo: Path
+    ) -> None:
+        study = self._recorded(team, fitted_demo, "analyst-rest")
+        config = str(study / "closecall.toml")
+        assert not (study / "ledger.sqlite-wal").exists()  # at rest: no writer has it open
+        assert team.analyst not in grp.getgrnam(team.writers).gr_mem
+        before = _digest(study)
+        res = team.run(team.analyst, "ledger", "verify", "--config", config)
+        _no_traceback(res)
+        assert res.returncode == 0 and "6 entries, chain intact" in res.stdout, res.stderr
+        out = team.base / "home" / team.analyst / "reviews.csv"
+        res = team.run(team.analyst, "ledger", "export", "--out", str(out), "--config", config)
+        _no_traceback(res)
+        assert res.returncode == 0, res.stderr
+        assert len(out.read_text().strip().splitlines()) == 1 + 6  # header + one row per case
+        res = team.run(team.analyst, "disparity", "--boot", "200", "--config", config)
+        _no_traceback(res)
+        assert res.returncode == 0, res.stderr
+        assert _digest(study) == before  # the analyst changed nothing
+
+    def test_the_analyst_reads_while_writers_have_it_open_and_record(
+        self, team: Team, fitted_demo: Path
+    ) -> None:
+        study = self._recorded(team, fitted_demo, "analyst-live")
+        conn = sqlite3.connect(f"file:{study / 'ledger.sqlite'}?mode=ro", uri=True)
+        decided = {str(r[0]) for r in conn.execute("SELECT case_id FROM entries")}
+        conn.close()
+        config = str(study / "closecall.toml")
+        ledger = str(study / "ledger.sqlite")
+        holder = team.python(
+            team.r2, HOLDER.replace("sys.argv[1]", repr(ledger)).replace("float(sys.argv[2])", "60")
+        )
+        try:
+            assert holder.stdout is not None and holder.stdout.readline().strip() == "open"
+            assert (study / "ledger.sqlite-shm").exists()
+            res = team.run(team.analyst, "ledger", "verify", "--config", config)
+            assert res.returncode == 0 and "6 entries, chain intact" in res.stdout, res.stderr
+            # a writer records 120 entries while the analyst verifies again and again
+            recorder = team.python(
+                team.r1,
+                RECORDER.replace(
+                    "sys.argv[1], int(sys.argv[2]), int(sys.argv[3])", f"{config!r}, 0, 126"
+                ).replace(  # the cases not decided yet
+                    "assert len(ids) == count, len(ids)",
+                    f"ids = [c for c in ids if c not in {decided!r}][:120]",
+                ),
+            )
+            seen = []
+            while recorder.poll() is None:
+                res = team.run(team.analyst, "ledger", "verify", "--json", "--config", config)
+                _no_traceback(res)
+                assert res.returncode == 0, res.stdout + res.stderr
+                import json
+
+                seen.append(json.loads(res.stdout)["entries"])
+            out, err = recorder.communicate(timeout=600)
+            assert "FAILURES 0" in out, err[-2000:]
+            assert seen == sorted(seen) and all(6 <= n <= 126 for n in seen), seen
+        finally:
+            holder.kill()
+            holder.communicate()
+        res = team.run(team.analyst, "ledger", "verify", "--config", config)
+        assert res.returncode == 0 and "126 entries, chain intact" in res.stdout, res.stderr
+
+    def test_the_analyst_cannot_write(self, team: Team, fitted_demo: Path) -> None:
+        study = self._recorded(team, fitted_demo, "analyst-write", n=2)
+        config = str(study / "closecall.toml")
+        case = _first_case(team, config)
+        before = _digest(study)
+        res = team.run(
+            team.analyst, "record", case, "--action", "uphold", "--note", "x", "--config", config
+        )
+        _no_traceback(res)
+        assert res.returncode == 2, res.stdout + res.stderr
+        assert res.stderr.startswith("error: ") and "fix:" in res.stderr
+        assert res.stderr.count("error:") == 1
+        # around closecall, the OS refuses: the ledger, its folder, a new file
+        probe = team.python(
+            team.analyst,
+            textwrap.dedent(
+                f"""
+                import sqlite3
+                results = []
+                try:
+                    open({str(study / "ledger.sqlite")!r}, "ab")
+                except PermissionError:
+                    results.append("file")
+                try:
+                    open({str(study / "mine.txt")!r}, "w")
+                except PermissionError:
+                    results.append("folder")
+                try:
+                    c = sqlite3.connect({str(study / "ledger.sqlite")!r})
+                    c.execute("INSERT INTO drafts VALUES ('a','b',NULL,NULL,'n','t')")
+                    c.commit()
+                except sqlite3.Error:
+                    results.append("sqlite")
+                print(" ".join(results))
+                """
+            ),
+        )
+        out, err = probe.communicate(timeout=60)
+        assert out.split() == ["file", "folder", "sqlite"], err
+        assert _digest(study) == before

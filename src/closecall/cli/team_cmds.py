@@ -123,15 +123,26 @@ def team_setup(
     group: str | None = typer.Option(
         None, "--group", help="The writers' group (default: the study folder's group)."
     ),
+    readers: str | None = typer.Option(
+        None,
+        "--readers",
+        help="A group of logins that read without writing (analysts): the study becomes "
+        "readable by others and the gate folder above it is given to this group.",
+    ),
     config: Path = ConfigOption,
 ) -> None:
     """Set the study folder up for a team (as its owner or root): everything in the group with
     group read/write, folders setgid, the study folder sticky, the config writable by its owner
     only. Prints every change; then runs the check.
 
+    With --readers, analysts outside the writers' group read the study: it must sit in a gate
+    folder other logins cannot enter (docs/team.md, Analysts).
+
     \b
     Example:
       sudo closecall team setup --group reviewers --config /srv/grants/closecall.toml
+      sudo closecall team setup --group reviewers --readers grants-readers \\
+          --config /srv/gate/grants/closecall.toml
     """
     from closecall.core.errors import UserError
     from closecall.review.team import check_team, setup_team
@@ -139,9 +150,10 @@ def team_setup(
 
     cfg = load_config(config)
     try:
-        done = setup_team(cfg, group)
-    except KeyError:
-        raise UserError(f"no group '{group}' on this server", "sudo groupadd NAME first") from None
+        done = setup_team(cfg, group, readers)
+    except KeyError as exc:
+        missing = exc.args[0] if exc.args else group
+        raise UserError(f"no group {missing} on this server", "sudo groupadd NAME first") from None
     for line in done:
         _print(safe_text(line))
     problems = check_team(cfg)

@@ -9,6 +9,12 @@ with a narrower mode than the one another member needs to open them. Files meant
 person (exports outside the study, key files) are created with explicit owner-only modes, which
 the umask does not widen; a config or data file ``init`` and ``demo`` write keeps the login's
 own umask (:func:`login_umask`).
+
+A study with readers (docs/team.md, "Analysts"): when the study folder itself lets others in
+(``o+rx``, set by ``closecall team setup --readers GROUP``, behind a gate folder only that group
+may enter), what closecall creates there is readable by others too — files 0664, folders
+02775, umask :data:`READERS_UMASK` — so an analyst outside the writers' group reads the
+ledger, the snapshots and the config, and writes nothing (:func:`adopt_study_folder`).
 """
 
 from __future__ import annotations
@@ -25,21 +31,56 @@ from closecall.core.errors import UserError
 
 #: Process umask while closecall works in a study: group read/write, nothing for others.
 STUDY_UMASK = 0o007
+#: The same in a study whose folder lets readers in: others may read, never write.
+READERS_UMASK = 0o002
 #: Mode of a file closecall creates in a study, and of a folder (setgid added where the
-#: parent has it).
+#: parent has it); others' read bits are added in a study with readers.
 FILE_MODE = 0o660
 DIR_MODE = 0o770
+READ_BITS = 0o004
+READ_DIR_BITS = 0o005
 
 _original: int | None = None
+_readers = False
 
 
 def use_study_umask() -> int:
     """Set the process umask to :data:`STUDY_UMASK`; the login's umask is remembered."""
-    global _original
+    global _original, _readers
     old = os.umask(STUDY_UMASK)
     if _original is None:
         _original = old
+    _readers = False
     return old
+
+
+def has_readers(folder: Path) -> bool:
+    """Whether a study folder lets logins outside its group in (others may enter and list it)."""
+    try:
+        mode = folder.stat().st_mode
+    except OSError:
+        return False
+    return mode & READ_DIR_BITS == READ_DIR_BITS
+
+
+def adopt_study_folder(folder: Path) -> None:
+    """Follow the study folder's policy for what this process creates in it: readable by
+    others when the folder lets readers in (:func:`has_readers`), else by the group only.
+
+    Changes nothing unless :func:`use_study_umask` was called (the command line and review
+    screen do; a library caller keeps its own umask).
+    """
+    global _readers
+    if _original is None:
+        return
+    _readers = has_readers(folder)
+    os.umask(READERS_UMASK if _readers else STUDY_UMASK)
+
+
+def file_mode() -> int:
+    """Mode for a file closecall creates in the study it works in (0660, or 0664 with
+    readers)."""
+    return FILE_MODE | (READ_BITS if _readers else 0)
 
 
 @contextlib.contextmanager
@@ -56,13 +97,14 @@ def login_umask() -> Iterator[None]:
 
 
 def shared_dir_mode(folder: Path) -> int:
-    """The mode a folder closecall made under ``folder``'s parent should have: 0770, plus the
-    setgid bit when the parent has it (so the group carries on down)."""
+    """The mode a folder closecall made under ``folder``'s parent should have: 0770 (0775 in a
+    study with readers), plus the setgid bit when the parent has it (so the group carries on
+    down)."""
     try:
         parent = folder.parent.stat().st_mode
     except OSError:
         parent = 0
-    return DIR_MODE | (parent & stat.S_ISGID)
+    return DIR_MODE | (READ_DIR_BITS if _readers else 0) | (parent & stat.S_ISGID)
 
 
 def share_dir(folder: Path) -> None:

@@ -5,6 +5,12 @@ files keep the group) and sticky (members cannot delete or replace each other's 
 writable by others; every file and folder inside it in that group, files group read/write,
 folders group rwx + setgid; the config owned by the folder's owner and writable by its owner
 only; every listed reviewer a member of the group, every listed analyst an existing login.
+
+A study with readers (analysts outside the writers' group, docs/team.md "Analysts"): the study
+folder lets others enter and read (``o+rx``) and sits in a *gate* folder that others cannot
+enter, whose group holds the readers, the reviewers and the supervisor; everything inside is
+readable by others (files ``o+r``, folders ``o+rx``) and writable by the writers only. An
+analyst who is not in the writers' group and has no such way in is reported.
 """
 
 from __future__ import annotations
@@ -17,6 +23,8 @@ import stat
 from dataclasses import dataclass
 from pathlib import Path
 
+from closecall.core.errors import UserError
+from closecall.core.shared import has_readers
 from closecall.setup.config import StudyConfig
 
 
@@ -103,13 +111,24 @@ def check_team(config: StudyConfig) -> list[TeamProblem]:
             )
         )
     config_path = config.path
+    readers = has_readers(root)
+    gate = gate_folder(root) if readers else None
     problems += _config_problems(config_path, st.st_uid)
+    if readers and not os.stat(config_path).st_mode & stat.S_IROTH:
+        problems.append(
+            TeamProblem(
+                str(config_path),
+                "the config is not readable by others: the readers cannot open the study",
+                f"chmod o+r {_q(config_path)}",
+            )
+        )
     for dirpath, dirnames, filenames in os.walk(root):
         for name in [*dirnames, *filenames]:
             path = Path(dirpath) / name
             if path == config_path or path.is_symlink():
                 continue
-            problems += _file_problems(path, gid, group)
+            problems += _file_problems(path, gid, group, readers)
+    problems += _reader_problems(config, root, mode, members, readers, gate)
     for login in config.review.reviewers:
         if login not in members:
             try:
@@ -144,6 +163,94 @@ def check_team(config: StudyConfig) -> list[TeamProblem]:
     return problems
 
 
+def gate_folder(root: Path) -> Path | None:
+    """The nearest folder above ``root`` that others may not enter (None: every login on the
+    server can reach ``root``)."""
+    for parent in root.resolve().parents:
+        try:
+            if not parent.stat().st_mode & stat.S_IXOTH:
+                return parent
+        except OSError:
+            return parent
+    return None
+
+
+def _reader_problems(
+    config: StudyConfig,
+    root: Path,
+    mode: int,
+    writers: set[str],
+    readers: bool,
+    gate: Path | None,
+) -> list[TeamProblem]:
+    """Who reads the study from outside the writers' group, and what keeps everyone else out."""
+    outside = [a for a in config.review.analysts if a not in writers and _login_exists(a)]
+    group = _group(root.stat().st_gid)
+    owner = _name(root.stat().st_uid)  # the supervisor: owns the folder, writes, anchors
+    inside = [
+        TeamProblem(
+            login,
+            f"analyst {login} is in the writers' group {group}: can write the ledger",
+            f"gpasswd -d {login} {group}  (analysts read as others: docs/team.md, Analysts)",
+        )
+        for login in config.review.analysts
+        if login in writers and login not in config.review.reviewers and login != owner
+    ]
+    if not readers:
+        shut_out = [
+            TeamProblem(
+                login,
+                f"analyst {login} is not in the study group and the study folder lets no one "
+                f"else in (mode {mode:04o}): the analyst cannot read the study",
+                "make a gate folder for the readers and run, as root: closecall team setup "
+                f"--readers READERS --config {_q(config.path)}  (docs/team.md, Analysts)",
+            )
+            for login in outside
+        ]
+        return [*inside, *shut_out]
+    if gate is None:
+        open_to_all = TeamProblem(
+            str(root),
+            f"the study folder lets others in (mode {mode:04o}) and no folder above it keeps "
+            "anyone out: every login on this server can read the study",
+            f"move it into a gate folder (install -d -m 2750 -g READERS /srv/GATE) or "
+            f"chmod o-rx {_q(root)}",
+        )
+        return [*inside, open_to_all]
+    out = inside
+    gst = gate.stat()
+    gmode = stat.S_IMODE(gst.st_mode)
+    gname = _group(gst.st_gid)
+    if gmode & (stat.S_IRGRP | stat.S_IXGRP) != stat.S_IRGRP | stat.S_IXGRP:
+        out.append(
+            TeamProblem(
+                str(gate),
+                f"the gate folder does not let its group {gname} in (mode {gmode:04o})",
+                f"chmod g+rx {_q(gate)}",
+            )
+        )
+    admitted = group_members(gst.st_gid)
+    for login in [*config.review.reviewers, *config.review.analysts]:
+        if login not in admitted and _login_exists(login):
+            out.append(
+                TeamProblem(
+                    login,
+                    f"{login} is not in the gate folder {gate}'s group {gname}: cannot reach "
+                    "the study",
+                    f"usermod -aG {gname} {login}",
+                )
+            )
+    return out
+
+
+def _login_exists(login: str) -> bool:
+    try:
+        pwd.getpwnam(login)
+    except KeyError:
+        return False
+    return True
+
+
 def _config_problems(path: Path, owner: int) -> list[TeamProblem]:
     out = []
     st = path.stat()
@@ -169,7 +276,7 @@ def _config_problems(path: Path, owner: int) -> list[TeamProblem]:
     return out
 
 
-def _file_problems(path: Path, gid: int, group: str) -> list[TeamProblem]:
+def _file_problems(path: Path, gid: int, group: str, readers: bool = False) -> list[TeamProblem]:
     st = path.lstat()
     mode = stat.S_IMODE(st.st_mode)
     out = []
@@ -198,12 +305,29 @@ def _file_problems(path: Path, gid: int, group: str) -> list[TeamProblem]:
         out.append(
             TeamProblem(str(path), f"writable by others (mode {mode:04o})", f"chmod o-w {_q(path)}")
         )
+    if readers:
+        is_dir = stat.S_ISDIR(st.st_mode)
+        bits, letters = (0o005, "rx") if is_dir else (stat.S_IROTH, "r")
+        if mode & bits != bits:
+            out.append(
+                TeamProblem(
+                    str(path),
+                    f"mode {mode:04o}: the readers cannot read it (owner {_name(st.st_uid)})",
+                    f"chmod o+{letters} {_q(path)}",
+                )
+            )
     return out
 
 
-def setup_team(config: StudyConfig, group: str | None = None) -> list[str]:
+def setup_team(
+    config: StudyConfig, group: str | None = None, readers: str | None = None
+) -> list[str]:
     """Make the study folder as :func:`check_team` wants it (run by its owner or root);
     returns what was done. The config becomes writable by its owner only.
+
+    With ``readers`` (a group), logins outside the writers' group may read: the study folder
+    and everything in it become readable by others, and the gate folder above it (the nearest
+    one others cannot enter, which must exist) is given to that group.
 
     Raises
     ------
@@ -216,6 +340,24 @@ def setup_team(config: StudyConfig, group: str | None = None) -> list[str]:
     gid = grp.getgrnam(group).gr_gid if group else root.stat().st_gid
     name = _group(gid)
     done = []
+    if readers is not None:
+        readers_gid = grp.getgrnam(readers).gr_gid
+        gate = gate_folder(root)
+        if gate is None or gate == Path("/"):
+            raise UserError(
+                f"{root}: no folder above the study keeps other logins out, so opening it to "
+                f"the readers would open it to everyone",
+                f"make a gate folder and move the study into it: install -d -m 2750 -g "
+                f"{readers} /srv/GATE && mv {_q(root)} /srv/GATE/  (docs/team.md, Analysts)",
+            )
+        gst = gate.stat()
+        if gst.st_gid != readers_gid:
+            os.chown(gate, -1, readers_gid)
+            done.append(f"chgrp {readers} {_q(gate)}")
+        gmode = stat.S_IMODE(gst.st_mode)
+        if gmode & 0o050 != 0o050:
+            os.chmod(gate, gmode | 0o050)
+            done.append(f"chmod {gmode | 0o050:04o} {_q(gate)}")
     for dirpath, dirnames, filenames in os.walk(root):
         for entry in [dirpath, *(os.path.join(dirpath, n) for n in [*dirnames, *filenames])]:
             path = Path(entry)
@@ -228,12 +370,16 @@ def setup_team(config: StudyConfig, group: str | None = None) -> list[str]:
             mode = stat.S_IMODE(st.st_mode)
             if path == config.path:
                 want = (mode | stat.S_IRGRP) & ~(stat.S_IWGRP | stat.S_IWOTH)
+                extra = stat.S_IROTH if readers is not None else 0
             elif path.is_dir():
                 want = (mode | stat.S_IRWXG | stat.S_ISGID) & ~stat.S_IWOTH
                 if path == root:
                     want |= stat.S_ISVTX
+                extra = 0o005 if readers is not None else 0
             else:
                 want = (mode | stat.S_IRGRP | stat.S_IWGRP) & ~stat.S_IWOTH
+                extra = stat.S_IROTH if readers is not None else 0
+            want |= extra
             if want != mode:
                 os.chmod(path, want)
                 done.append(f"chmod {want:04o} {_q(path)}")

@@ -18,6 +18,7 @@ from pathlib import Path
 from typing import Any
 
 from closecall.core.errors import Fix, UserError
+from closecall.core.shared import adopt_study_folder
 
 CONFIG_NAME = "closecall.toml"
 
@@ -411,6 +412,7 @@ def load_config(path: str | Path) -> StudyConfig:
         raise UserError(f"{path}: TOML syntax error: {exc}", "fix the line named above") from None
     except UnicodeDecodeError:
         raise UserError(f"{path}: not UTF-8 text", "save the config as UTF-8") from None
+    adopt_study_folder(path.resolve().parent)  # what a command creates follows the folder
     return parse_config(raw, path.resolve())
 
 

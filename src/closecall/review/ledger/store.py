@@ -30,6 +30,7 @@ from types import TracebackType
 from typing import TYPE_CHECKING, Any, Concatenate, ParamSpec, TypeVar
 
 from closecall.core.errors import UserError
+from closecall.core.shared import file_mode
 from closecall.core.vocabulary import ACTIONS
 from closecall.review.ledger import schema
 from closecall.review.ledger.drafts import Claims, Drafts, delete_draft, utc_iso, utc_now
@@ -43,6 +44,7 @@ from closecall.review.ledger.entry import (
     entry_hash,
     signed_message,
 )
+from closecall.review.ledger.reader import may_write_folder, reader_connection
 
 if TYPE_CHECKING:
     from closecall.review.ledger.verify import VerifyResult
@@ -92,7 +94,8 @@ def _create_file(path: Path) -> None:
     fd, name = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".new", dir=path.parent)
     tmp = Path(name)
     try:
-        os.fchmod(fd, FILE_MODE)  # mkstemp gives 0600; the umask does not apply to fchmod
+        # mkstemp gives 0600; the umask does not apply to fchmod (0664 in a study with readers)
+        os.fchmod(fd, FILE_MODE | (file_mode() & 0o004))
         os.close(fd)
         conn = sqlite3.connect(tmp, isolation_level=None)
         try:
@@ -499,7 +502,16 @@ class _WriteTransaction:
 def _connect(path: Path, readonly: bool) -> sqlite3.Connection:
     if readonly:
         uri = "file:" + urllib.parse.quote(str(path.resolve())) + "?mode=ro"
-        conn = sqlite3.connect(uri, uri=True, timeout=BUSY_TIMEOUT_SECONDS, isolation_level=None)
+
+        def connect() -> sqlite3.Connection:
+            return sqlite3.connect(
+                uri, uri=True, timeout=BUSY_TIMEOUT_SECONDS, isolation_level=None
+            )
+
+        if may_write_folder(path):
+            conn = connect()
+        else:  # an analyst outside the writers' group (docs/team.md, "Analysts")
+            conn = reader_connection(path, connect, BUSY_TIMEOUT_SECONDS)
     else:
         conn = sqlite3.connect(path, timeout=BUSY_TIMEOUT_SECONDS, isolation_level=None)
     conn.execute(f"PRAGMA busy_timeout = {int(BUSY_TIMEOUT_SECONDS * 1000)}")

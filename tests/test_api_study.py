@@ -100,8 +100,8 @@ def test_record_and_ledger(tmp_path: Path, cli: Any) -> None:
 @pytest.mark.parametrize(
     ("call", "needle"),
     [
-        (lambda s: s.compare(n_boot=2), "too few"),
-        (lambda s: s.disparity(n_boot=2), "too few"),
+        (lambda s: s.compare(n_boot=2), "n_boot: 2 is out of range"),  # the engine's check
+        (lambda s: s.disparity(n_boot=2), "n_boot: 2 is out of range"),
         (lambda s: s.bands(epsilon=float("nan")), "epsilon"),
         (lambda s: s.bands(epsilon=-1.0), "epsilon"),
         (lambda s: s.model(level=1.5), "level"),

@@ -116,11 +116,21 @@ def _message_strings(path: Path) -> list[tuple[int, str]]:
     ]
 
 
+#: Engine modules allowed a flag for now, each with its reason (the list only shrinks).
+WAIVED = {
+    # issue 16 (committed 03:31 UTC): the team check's fix is the command an administrator runs
+    # as root, checked word for word by tests/team; its owner moves it to a structured fix
+    "review/team.py": "team check: 'closecall team setup --readers' as root",
+}
+
+
 def test_engine_messages_name_no_flags() -> None:
     found = []
     for package in ("core", "setup", "suite", "analysis", "review", "reports"):
         for path in sorted((ENGINE / package).rglob("*.py")):
             rel = str(path.relative_to(ENGINE))
+            if rel in WAIVED:
+                continue
             for line, text in _message_strings(path):
                 if FLAG.search(text):
                     found.append(f"{rel}:{line}: {text[:60]!r}")
@@ -201,3 +211,10 @@ class TestFixesThatMovedIntoTheViews:
         assert fix_words(result.problem.remedy) == (
             "pass --allow-empty if the study has no reviews yet"
         )
+
+
+def test_the_waived_modules_still_need_their_waiver() -> None:
+    """A waived module that names no flag any more is taken off the list."""
+    for rel in WAIVED:
+        texts = [t for _, t in _message_strings(ENGINE / rel)]
+        assert any(FLAG.search(t) for t in texts), f"remove {rel} from WAIVED"

@@ -271,8 +271,6 @@ class Study:
         """
         from closecall.analysis.comparison import compare_models
 
-        if n_boot < 100:
-            raise UserError(f"{n_boot} bootstrap replicates are too few", "use at least 100")
         opened = self.opened
         res = compare_models(
             opened.snapshot,
@@ -422,8 +420,6 @@ class Study:
         """
         from closecall.reports.disparity.from_study import study_report
 
-        if n_boot < 100:
-            raise UserError(f"{n_boot} bootstrap replicates are too few", "use at least 100")
         report = study_report(
             self.opened,
             outcomes=outcomes,

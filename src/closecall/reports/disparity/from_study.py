@@ -17,6 +17,7 @@ from closecall.reports.disparity.report import (
     HistoryInput,
     PopulationInput,
     build_report,
+    check_report_parameters,
 )
 from closecall.reports.disparity.table import REVIEW_COLUMNS
 from closecall.reports.export import load_or_create_key, pseudonymise, review_frame
@@ -195,6 +196,7 @@ def study_report(
     level, n_boot, seed, period
         Passed to :func:`closecall.reports.disparity.report.build_report`.
     """
+    check_report_parameters(n_boot, seed)
     check_period(period)
     table, notes = study_review_table(study)
     if key_file is not None:

@@ -93,6 +93,12 @@ class DisparityReport:
         return asdict(self)
 
 
+def check_report_parameters(n_boot: int, seed: int) -> None:
+    """Refuse bootstrap replicates or a seed the report cannot use, before any work."""
+    check_count("n_boot", n_boot, 100, REPLICATES_MAX, example="2000")
+    check_seed("seed", seed)
+
+
 def build_report(
     reviews: pd.DataFrame,
     *,
@@ -140,8 +146,7 @@ def build_report(
     Uniform Guidelines on Employee Selection Procedures, 29 CFR 1607.4(D).
     B. Green and Y. Chen, "Disparate interactions", FAT* 2019.
     """
-    check_count("n_boot", n_boot, 100, REPLICATES_MAX, example="2000")
-    check_seed("seed", seed)
+    check_report_parameters(n_boot, seed)
     df = check_reviews(reviews)
     groups = group_order(df)
     with_outcome = "outcome" in df.columns

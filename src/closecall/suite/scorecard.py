@@ -318,7 +318,7 @@ def _toml_rows(
     try:
         raw = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
-        raise UserError(f"{path}: TOML syntax error: {exc}", "fix the line named above") from None
+        raise UserError(f"{path}: not valid TOML ({exc})", "fix the line named above") from None
     for key in raw:
         if key not in (*_TOML_SETTINGS, "kind", "row"):
             raise UserError(

@@ -57,6 +57,7 @@ REPEATED = [
     "bands",
     "proxies",
     "contributions",
+    "scorecard",
     "counterparts",
     "similar",
     "explain",
@@ -291,6 +292,9 @@ def table(results: dict[str, Any]) -> str:
         f"| {mem('open_snapshot')} |",
         f"| proxies | {t('proxies')} s | — | — | {mem('proxies')} |",
         f"| contributions, every case | {t('contributions')} s | — | — | {mem('contributions')} |",
+        f"| deployed scorecard: points of every case (history + pending) / points per feature | "
+        f"{t('scorecard')} s / {t('scorecard', 'contributions_s')} s | pandas (pd.cut, map) "
+        f"{t('scorecard', 'pandas_s')} s | — | {mem('scorecard')} |",
         f"| counterparts, every case | {t('counterparts')} s | — | — | {mem('counterparts')} |",
         f"| similar cases: 1 / 1,000 cases | {t('similar', 'one_case_s', 1000, '{:.0f}')} ms / "
         f"{t('similar', 'cases_1000_s')} s | — | — | {mem('similar')} |",

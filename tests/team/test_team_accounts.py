@@ -546,3 +546,217 @@ class TestAnalysts:
         out, err = probe.communicate(timeout=60)
         assert out.split() == ["file", "folder", "sqlite"], err
         assert _digest(study) == before
+
+
+SSHD = Path("/usr/sbin/sshd")
+
+
+def _sshd_available() -> bool:
+    """sshd is here, or can be installed from the system's registry (not under CI, whose
+    .ci/run installs it)."""
+    if SSHD.exists():
+        return True
+    if os.environ.get("CI") == "true" or shutil.which("apt-get") is None:
+        return False
+    subprocess.run(
+        ["apt-get", "install", "-y", "-qq", "openssh-server"],
+        capture_output=True,
+        timeout=600,
+        check=False,
+    )
+    return SSHD.exists()
+
+
+@dataclass
+class Ssh:
+    port: int
+    key: Path
+    known: Path
+
+    def run(self, user: str, command: str) -> subprocess.CompletedProcess[str]:
+        """``command`` as ``user`` through a real SSH login (key authentication)."""
+        return subprocess.run(
+            [
+                "ssh",
+                "-i",
+                str(self.key),
+                "-p",
+                str(self.port),
+                "-o",
+                "BatchMode=yes",
+                "-o",
+                "StrictHostKeyChecking=no",
+                "-o",
+                f"UserKnownHostsFile={self.known}",
+                "-o",
+                "LogLevel=ERROR",
+                f"{user}@127.0.0.1",
+                f"export PATH={CLOSECALL.parent}:$PATH LANG=C.UTF-8; {command}",
+            ],
+            capture_output=True,
+            text=True,
+            timeout=900,
+        )
+
+
+@pytest.fixture(scope="session")
+def ssh(team: Team) -> Iterator[Ssh]:
+    """sshd on a spare port of 127.0.0.1 with its own config, keys for the team's logins."""
+    if not _sshd_available():
+        pytest.skip("no sshd and it cannot be installed here")
+    import socket
+
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        port = s.getsockname()[1]
+    d = team.base / "sshd"
+    (d / "keys").mkdir(parents=True)
+    os.chmod(d, 0o755)
+    Path("/run/sshd").mkdir(exist_ok=True)  # privilege separation folder
+    for name in ("host", "client"):
+        subprocess.run(["ssh-keygen", "-q", "-t", "ed25519", "-N", "", "-f", str(d / name)])
+    for user in (team.r1, team.r2, team.analyst):
+        subprocess.run(["usermod", "-p", "*", user], check=True)  # not locked, no password
+        shutil.copy(d / "client.pub", d / "keys" / user)
+        os.chmod(d / "keys" / user, 0o644)
+    (d / "sshd_config").write_text(
+        f"Port {port}\nListenAddress 127.0.0.1\nHostKey {d / 'host'}\nPidFile {d / 'pid'}\n"
+        f"AuthorizedKeysFile {d / 'keys'}/%u\nPasswordAuthentication no\n"
+        "KbdInteractiveAuthentication no\nUsePAM no\nStrictModes no\nPermitRootLogin no\n"
+    )
+    proc = subprocess.Popen([str(SSHD), "-D", "-e", "-f", str(d / "sshd_config")])
+    try:
+        link = Ssh(port, d / "client", d / "known")
+        for _ in range(100):
+            if link.run(team.r1, "true").returncode == 0:
+                break
+            import time
+
+            time.sleep(0.1)
+        else:
+            pytest.fail("sshd did not accept the test key")
+        yield link
+    finally:
+        proc.terminate()
+        proc.wait(timeout=30)
+
+
+FORGE = textwrap.dedent(
+    """
+    import json, sqlite3, sys
+    from closecall.review.ledger.entry import canonical_json, entry_hash
+    c = sqlite3.connect(sys.argv[1]); c.row_factory = sqlite3.Row
+    last = dict(c.execute("SELECT * FROM entries ORDER BY seq DESC LIMIT 1").fetchone())
+    new = dict(last, seq=last["seq"] + 1, reviewer=sys.argv[2], note="forged", signature=None)
+    new["prev_hash"] = last["hash"]
+    new["decisions"] = json.loads(last["decisions"])
+    new["hash"] = entry_hash(new)  # the recipe of docs/ledger.md: a correct hash
+    new["decisions"] = canonical_json(new["decisions"]).decode()
+    cols = ",".join(new)
+    c.execute(f"INSERT INTO entries ({cols}) VALUES ({','.join('?' * len(new))})",
+              list(new.values()))
+    c.commit()
+    print("appended", new["seq"])
+    """
+)
+
+
+class TestOverSsh:
+    """The done-when of issue 16, over real SSH logins with the ordinary umask: two reviewers
+    record at once, the analyst reads and cannot write, a forged or deleted ledger is caught,
+    and team check says the set-up is sound (docs/team.md followed)."""
+
+    def test_three_accounts_work_one_study(self, team: Team, fitted_demo: Path, ssh: Ssh) -> None:
+        study = new_study(team, fitted_demo, "over-ssh", readers=True)
+        config = study / "closecall.toml"
+        cfg = _quote(str(config))
+        assert ssh.run(team.r1, "umask").stdout.strip() == "0022"  # the ordinary umask
+        keys = []
+        for user in (team.r1, team.r2):
+            res = ssh.run(user, "closecall keys init --json")
+            assert res.returncode == 0, res.stderr
+            import json
+
+            keys.append(f'{user} = "{json.loads(res.stdout)["public_key"]}"')
+        config.write_text(config.read_text() + "\n[team.keys]\n" + "\n".join(keys) + "\n")
+        res = ssh.run(team.r2, f"closecall team check --config {cfg}")
+        assert res.returncode == 0, res.stdout + res.stderr
+        assert "team set-up: sound" in res.stdout
+        res = ssh.run(team.r1, f"closecall queue --json --limit 80 --config {cfg}")
+        assert res.returncode == 0, res.stderr
+        cases = [r["case_id"] for r in json.loads(res.stdout)["rows"]]
+        loops = []
+        for user, mine in ((team.r1, cases[:15]), (team.r2, cases[15:30])):
+            script = (
+                "f=0; for c in " + " ".join(mine) + "; do closecall record $c --action uphold "
+                f"--note seen --config {cfg} >/dev/null 2>>~/ssh-err.txt || f=$((f+1)); done; "
+                "echo FAILURES $f; cat ~/ssh-err.txt 2>/dev/null | head -3"
+            )
+            loops.append(
+                subprocess.Popen(
+                    [
+                        "ssh",
+                        "-i",
+                        str(ssh.key),
+                        "-p",
+                        str(ssh.port),
+                        "-o",
+                        "BatchMode=yes",
+                        "-o",
+                        "StrictHostKeyChecking=no",
+                        "-o",
+                        f"UserKnownHostsFile={ssh.known}",
+                        "-o",
+                        "LogLevel=ERROR",
+                        f"{user}@127.0.0.1",
+                        f"export PATH={CLOSECALL.parent}:$PATH; {script}",
+                    ],
+                    stdout=subprocess.PIPE,
+                    stderr=subprocess.PIPE,
+                    text=True,
+                )
+            )
+        for loop in loops:
+            out, err = loop.communicate(timeout=1800)
+            assert "FAILURES 0" in out, out + err
+            assert "Traceback" not in out + err
+        res = ssh.run(team.analyst, f"closecall ledger verify --json --config {cfg}")
+        assert res.returncode == 0, res.stdout + res.stderr
+        head = json.loads(res.stdout)
+        assert head["entries"] == 30
+        res = ssh.run(team.analyst, f"closecall ledger export --out ~/r.csv --config {cfg}")
+        assert res.returncode == 0, res.stderr
+        res = ssh.run(
+            team.analyst, f"closecall record {cases[70]} --action uphold --note x --config {cfg}"
+        )
+        assert res.returncode == 2 and res.stderr.count("error:") == 1, res.stderr
+        assert "Traceback" not in res.stderr
+        # a member forges a correctly hashed entry in a colleague's name
+        forge = team.base / "forge.py"
+        forge.write_text(FORGE)
+        os.chmod(forge, 0o644)
+        ledger = _quote(str(study / "ledger.sqlite"))
+        res = ssh.run(team.r2, f"{sys.executable} {_quote(str(forge))} {ledger} {team.r1}")
+        assert res.returncode == 0 and "appended 31" in res.stdout, res.stderr
+        res = ssh.run(team.analyst, f"closecall ledger verify --config {cfg}")
+        assert res.returncode == 1, res.stdout
+        assert "entry 31" in res.stdout and team.r1 in res.stdout, res.stdout
+        # its creator deletes the ledger: verify against the head kept elsewhere fails
+        owner = pwd_name(study / "ledger.sqlite")
+        other = team.r1 if owner == team.r2 else team.r2
+        res = ssh.run(other, f"rm -f {ledger}")  # the sticky folder: not another's file
+        assert res.returncode != 0 and (study / "ledger.sqlite").exists()
+        res = ssh.run(owner, f"rm -f {ledger} {ledger}-wal {ledger}-shm")
+        assert res.returncode == 0 and not (study / "ledger.sqlite").exists()
+        res = ssh.run(
+            team.analyst,
+            f"closecall ledger verify --allow-empty --anchor {head['head_hash']} --config {cfg}",
+        )
+        assert res.returncode == 1, res.stdout + res.stderr
+        assert "Traceback" not in res.stderr
+
+
+def pwd_name(path: Path) -> str:
+    import pwd
+
+    return pwd.getpwuid(path.stat().st_uid).pw_name

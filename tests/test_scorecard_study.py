@@ -97,3 +97,18 @@ def test_what_cannot_be_computed_is_said(tmp_path: Path) -> None:
     assert any("held-out metrics" in c and "deployed_score" in c for c in meta["cannot"])
     assert not [r for r in opened.snapshot.metrics if r["model"] == "deployed"]
     assert "deployed" in opened.snapshot.model_names  # its own scale still gives log-odds
+
+
+def test_study_scorecard_report(study: OpenedStudy, tmp_path: Path) -> None:
+    from closecall import Study
+    from closecall.core.errors import UserError
+    from closecall.setup.demo import write_demo
+    from scorecard_helpers import without_card
+
+    report = Study(study).scorecard().to_dict()
+    assert report["kind"] == "scorecard" and report["card"]["cutoff"] == 500.0
+    assert {m["group"] for m in report["metrics"]} == {"Aster", "Briar", "all"}
+    assert report["cannot"] == []
+    plain = open_study(without_card(write_demo(tmp_path, cases=600, seed=2)))
+    with pytest.raises(UserError, match="no deployed scorecard"):
+        Study(plain).scorecard()

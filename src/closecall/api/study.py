@@ -296,6 +296,36 @@ class Study:
         snap = self.opened.snapshot
         return Report("model", str(snap.id), model_weights(snap, level))
 
+    def scorecard(self) -> Report:
+        """The deployed scorecard as fitted (``[deployed] scorecard``, docs/scorecard.md): its
+        rows, cut-off and scale, its held-out metrics per group against the recorded outcomes,
+        and what could not be computed.
+
+        Examples
+        --------
+        >>> study.scorecard().to_dict()["card"]["cutoff"]  # doctest: +SKIP
+        500.0
+        """
+        from closecall.suite.scorecard_study import card_meta
+
+        snap = self.opened.snapshot
+        meta = card_meta(snap)
+        if meta is None:
+            raise UserError(
+                f"{self.opened.config.path}: the study has no deployed scorecard",
+                "name the card under [deployed] scorecard in the study config; see "
+                "docs/scorecard.md",
+            )
+        data = {
+            "card": meta["card"],
+            "mean_points": meta["mean_points"],
+            "baseline_source": meta["baseline_source"],
+            "metrics": [m for m in snap.metrics if m["model"] == "deployed"],
+            "cannot": meta["cannot"],
+            "notes": meta["notes"],
+        }
+        return Report("scorecard", str(snap.id), data)
+
     def whatif(
         self,
         *,

@@ -180,7 +180,8 @@ class Report:
     Attributes
     ----------
     kind
-        Which report: ``proxies``, ``bands``, ``compare``, ``model`` or ``disparity``.
+        Which report: ``proxies``, ``bands``, ``compare``, ``model``, ``scorecard`` or
+        ``disparity``.
     snapshot_id
         The snapshot it was computed on.
     data

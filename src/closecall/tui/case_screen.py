@@ -28,6 +28,7 @@ from closecall.review.decisions import (
     release_claim,
 )
 from closecall.review.ledger import Draft, Entry
+from closecall.review.queue import others_differ
 from closecall.suite.fit_flags import PROBLEM_WORDS, case_fit_flags
 from closecall.tui import analysis_bridge, card_section, case_sections
 from closecall.tui.access_guard import may_decide
@@ -293,11 +294,9 @@ def case_summary(session: ReviewSession, row: int, explained: dict[str, Any] | N
     margin = float(snap.margins(snap.reference)[row])
     text = Text()
     text.append(f"{snap.reference}: {decision_word(margin > 0)} {signed(margin)}", "bold")
-    if q is not None:
-        fav = q.grid.favourable[row]
-        others = len(q.grid.pairs) - 1
-        differ = int((fav != fav[q.grid.reference_col]).sum())
-        text.append(f" · {differ}/{others} others differ")
+    if q is not None:  # who decides otherwise, by name (closecall.review.queue.others_differ)
+        names = others_differ(q, q.grid.differs[row])
+        text.append(f" · {safe_text(', '.join(names))} differ" if names else " · all agree")
     if explained is not None:
         if explained["bands"]["equally_good"]["straddles_zero"]:
             text.append(f" · {AMBIGUOUS} ambiguous")

@@ -427,7 +427,7 @@ def write_export(
         out,
         data,
         protected,
-        option="--out",
+        field="out",
         force=force,
         mode=EXPORT_FILE_MODE,
         example=f"reviews.{fmt}",

@@ -112,3 +112,12 @@ def test_study_scorecard_report(study: OpenedStudy, tmp_path: Path) -> None:
     plain = open_study(without_card(write_demo(tmp_path, cases=600, seed=2)))
     with pytest.raises(UserError, match="no deployed scorecard"):
         Study(plain).scorecard()
+
+
+def test_model_weights_name_the_card(study: OpenedStudy) -> None:
+    from closecall.analysis.weights import model_weights
+
+    w = model_weights(study.snapshot)
+    assert w["scorecard"] == {"model": "deployed", "file": "scorecard.csv"}
+    assert "deployed" not in w["imported"]
+    assert "deployed" not in {m["model"] for m in w["models"]}

@@ -11,6 +11,7 @@ interval (Hosmer, Lemeshow & Sturdivant, *Applied Logistic Regression*, 3rd ed.,
 
 from __future__ import annotations
 
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -63,7 +64,8 @@ def model_weights(snap: Snapshot, level: float = 0.95) -> dict[str, Any]:
         ``rows``: one per weight (``term`` — ``(intercept)`` first —, ``weight``, ``se``,
         ``odds_ratio``, ``low``, ``high``, ``or_low``, ``or_high``, ``group`` (a weight of the
         group attribute), ``proxy`` (of a flagged proxy)). Models with imported scores have no
-        weights and are listed in ``"imported"``.
+        weights and are listed in ``"imported"``; a deployed scorecard (docs/scorecard.md) has
+        points instead, and ``"scorecard"`` names its model and file (None without a card).
     """
     z = float(norm.ppf(0.5 + level / 2))
     names = np.array(["(intercept)", *snap.columns])
@@ -78,7 +80,8 @@ def model_weights(snap: Snapshot, level: float = 0.95) -> dict[str, Any]:
     for model in snap.model_names:
         full = np.asarray(snap.arrays.get(f"fullW__{model}", np.zeros((0, 0))))
         if full.size == 0:
-            imported.append(model)
+            if model != "deployed" or "deployed_card" not in snap.meta:
+                imported.append(model)
             continue
         for row, w in enumerate(full):
             if model == "split":
@@ -118,4 +121,9 @@ def model_weights(snap: Snapshot, level: float = 0.95) -> dict[str, Any]:
         "thresholds": {lens.name: float(logit(lens.threshold)) for lens in snap.lenses},
         "models": models,
         "imported": imported,
+        "scorecard": (
+            {"model": "deployed", "file": Path(snap.meta["deployed_card"]["card"]["source"]).name}
+            if "deployed_card" in snap.meta
+            else None
+        ),
     }

@@ -83,6 +83,14 @@ def model(
         console.print(table)
     for name in data.get("imported", []):
         console.print(f"{name}: imported scores, no weights", markup=False, highlight=False)
+    if data.get("scorecard"):
+        card = data["scorecard"]
+        console.print(
+            f"{card['model']}: the scorecard {safe_text(card['file'])}, points instead of "
+            "weights: closecall explain CASE shows them for a case (docs/scorecard.md)",
+            markup=False,
+            highlight=False,
+        )
 
 
 def register(app: typer.Typer) -> None:

@@ -19,6 +19,7 @@ from textual.screen import Screen
 from textual.widgets import Static
 
 from closecall.core.errors import UserError
+from closecall.core.text import safe_text
 from closecall.tui.key_bar import KeyBar
 from closecall.tui.session import ReviewSession
 
@@ -60,6 +61,12 @@ def weights_text(data: dict[str, Any], term_width: int = 28) -> Text:
             )
     for name in data.get("imported", []):
         out.append(f"\n{name}: imported scores, no weights\n")
+    if data.get("scorecard"):
+        card = data["scorecard"]
+        out.append(
+            f"\n{card['model']}: the scorecard {safe_text(card['file'])}\n"
+            "  points, not weights: a case's points are in its case view\n"
+        )
     return out
 
 

@@ -167,8 +167,9 @@ def test_an_unknown_kind_of_flip_is_refused() -> None:
 def no_proxy_study(tmp_path_factory: pytest.TempPathFactory, demo_config: Path) -> Path:
     """The demo with no proxy flagged: the proxy-free model is the unaware one."""
     folder = tmp_path_factory.mktemp("no-proxy")
-    for name in ("history.csv", "pending.csv"):
-        shutil.copy(demo_config.parent / name, folder / name)
+    for source in demo_config.parent.iterdir():  # the data and any card the config names
+        if source.is_file() and source.suffix in (".csv", ".toml"):
+            shutil.copy(source, folder / source.name)
     text = (demo_config.parent / "closecall.toml").read_text()
     text = text.replace("[proxies]\n", '[proxies]\nnever = ["zone", "depot_distance_km"]\n')
     (folder / "closecall.toml").write_text(text)

@@ -108,7 +108,7 @@ class QueueResult:
         snap, answer = self._snapshot, self._answer
         q, rows = answer.queue, answer.listed
         margin = q.margin[rows]
-        differs = q.grid.differs[rows]
+        differs = q.grid.differs_at(rows)
         joined = np.full(len(rows), "", dtype=object)
         for j, (model, lens) in enumerate(q.grid.pairs):
             joined = np.where(differs[:, j], joined + f"{model}@{lens};", joined)

@@ -252,6 +252,8 @@ def identical_models(snap: Snapshot) -> dict[str, str]:
     columns of the same data); any other pair counts when its fitted weights agree to within
     a millionth (solver tolerance). Such a model is named once in lists.
     """
+    if snap.id in _SAME_AS:
+        return dict(_SAME_AS[snap.id])
     out: dict[str, str] = {}
     names = list(snap.model_names)
     proxies = (snap.meta.get("proxies") or {}).get("proxies")
@@ -274,7 +276,11 @@ def identical_models(snap: Snapshot) -> dict[str, str]:
                 break
         else:
             fitted.append((name, np.asarray(weights), np.asarray(row)))
-    return out
+    _SAME_AS[snap.id] = out
+    return dict(out)
+
+
+_SAME_AS: dict[str, dict[str, str]] = {}  # by snapshot id: a snapshot's models never change
 
 
 def group_attribute(snap: Snapshot) -> str:
@@ -307,8 +313,10 @@ def queue_rows(
     ids = snap.case_ids
     t0 = float(logit(snap.lenses[0].threshold))
     logits = {m: np.asarray(snap.logit(m)) for m in snap.model_names}
-    differs = q.grid.differs[rows]
-    kinds = q.grid.kinds()
+    differs = q.grid.differs_at(rows)  # only the rows shown: never the whole study
+    ref_model, first_lens = q.grid.pairs[q.grid.reference_col]
+    other = [m != ref_model and lens == first_lens for m, lens in q.grid.pairs]
+    model_flip = np.asarray(differs[:, np.asarray(other, dtype=bool)].any(axis=1))
     tier = q.tier if q.tier is not None else np.full(snap.n_cases, len(TIERS) - 1, np.int8)
     near = closeness_codes(q.margin[rows], q.band)
     probability = 1.0 / (1.0 + np.exp(-logits[snap.reference][rows]))
@@ -333,7 +341,7 @@ def queue_rows(
             "why": _row_word(q, t, r),
             "reason": TIER_REASONS[t],
             "flip": bool(diff),
-            "flip_kind": "model" if kinds.model[r] else "lens" if kinds.lens[r] else None,
+            "flip_kind": "model" if model_flip[i] else "lens" if diff else None,
             "differs": diff,
             "others_differ": others_differ(q, differs[i]),
             "margins": margins,

@@ -73,6 +73,12 @@ class DecisionGrid:
         diff: np.ndarray = self.favourable != self.reference[:, None]
         return diff
 
+    def differs_at(self, rows: np.ndarray | int) -> np.ndarray:
+        """:attr:`differs` for some rows only (an int: one row's (pairs,) vector)."""
+        fav = self.favourable[rows]
+        diff: np.ndarray = fav != fav[..., self.reference_col, None]
+        return diff
+
     @property
     def flip(self) -> np.ndarray:
         return np.asarray(self.differs.any(axis=1))
@@ -115,17 +121,16 @@ def flip_kinds(grid: DecisionGrid, reference: str, operative_lens: str) -> FlipK
     A model flip: some other model under ``operative_lens`` decides differently from the
     reference. A lens flip: the case flips, but only through another lens.
     """
-    differs = grid.differs
-    other_model = np.array(
-        [m != reference and lens == operative_lens for m, lens in grid.pairs], dtype=bool
-    )
-    model = (
-        np.asarray(differs[:, other_model].any(axis=1))
-        if other_model.any()
-        else (np.zeros(differs.shape[0], dtype=bool))
-    )
-    lens = np.asarray(differs.any(axis=1)) & ~model
-    return FlipKinds(model, lens)
+    fav = grid.favourable
+    ref = fav[:, grid.reference_col]
+    model = np.zeros(len(ref), dtype=bool)
+    other = np.zeros(len(ref), dtype=bool)
+    for j, (m, lens) in enumerate(grid.pairs):  # one pass per model × lens pair, not per case
+        if j == grid.reference_col:
+            continue
+        target = model if m != reference and lens == operative_lens else other
+        target |= fav[:, j] != ref
+    return FlipKinds(model, other & ~model)
 
 
 def triage_tiers(

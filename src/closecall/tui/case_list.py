@@ -303,7 +303,7 @@ class CaseList(ScrollView, can_focus=True):
             Segment(f"{_fit(group, lay.group):<{lay.group}} ", row_base),
             Segment(f"{CLOSENESS_WORDS[int(self._near[r])]:<{DISTANCE_WIDTH}} ", tone),
             Segment(f"{self._why(r):<{WHY_WIDTH}} ", flag),
-            Segment(f"{_names(others_differ(q, q.grid.differs[r]), lay.differs)} ", row_base),
+            Segment(f"{_names(others_differ(q, q.grid.differs_at(r)), lay.differs)} ", row_base),
         ]
         if lay.margin:
             segs.append(Segment(f"{signed(margin):>6} ", tone))

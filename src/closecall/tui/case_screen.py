@@ -295,7 +295,7 @@ def case_summary(session: ReviewSession, row: int, explained: dict[str, Any] | N
     text = Text()
     text.append(f"{snap.reference}: {decision_word(margin > 0)} {signed(margin)}", "bold")
     if q is not None:  # who decides otherwise, by name (closecall.review.queue.others_differ)
-        names = others_differ(q, q.grid.differs[row])
+        names = others_differ(q, q.grid.differs_at(row))
         text.append(f" · {safe_text(', '.join(names))} differ" if names else " · all agree")
     if explained is not None:
         if explained["bands"]["equally_good"]["straddles_zero"]:

@@ -121,3 +121,17 @@ def test_model_weights_name_the_card(study: OpenedStudy) -> None:
     assert w["scorecard"] == {"model": "deployed", "file": "scorecard.csv"}
     assert "deployed" not in w["imported"]
     assert "deployed" not in {m["model"] for m in w["models"]}
+
+
+def test_reference_on_a_card_without_any_scale_is_refused(tmp_path: Path) -> None:
+    """A card without pdo scoring a column the history lacks has no log-odds: it cannot be the
+    reference model the queue ranks by."""
+    from closecall.core.errors import UserError
+
+    text = "\n".join(
+        line for line in DEMO_SCORECARD.splitlines() if "(pdo)" not in line and "anchor" not in line
+    )
+    config = card_study(tmp_path, text + "\ndeployed_score,,,0.5,-5\ndeployed_score,,0.5,,5\n")
+    config.write_text(config.read_text().replace('reference = "pooled"', 'reference = "deployed"'))
+    with pytest.raises(UserError, match="no log-odds scale"):
+        open_study(config)

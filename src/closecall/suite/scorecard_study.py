@@ -19,6 +19,7 @@ from typing import Any
 
 import numpy as np
 
+from closecall.core.errors import UserError
 from closecall.setup.config import StudyConfig
 from closecall.setup.load import StudyData
 from closecall.suite.scorecard import (
@@ -117,6 +118,14 @@ def score_card(config: StudyConfig, data: StudyData, fold: np.ndarray) -> CardSc
             card = recalibrate(card, hist_points, y)
     total = M.sum(axis=1) + card.intercept
     logit = absolute_logodds(card, total) if card.offset is not None else None
+    if logit is None and config.model.reference == "deployed":
+        raise UserError(
+            f"{config.path}: [model] reference = 'deployed', but the scorecard "
+            f"{path.name} has no log-odds scale: it gives no pdo and the history lacks its "
+            f"column(s) {', '.join(lacking)}, so it cannot be recalibrated",
+            "give the card its scaling (pdo, anchor_points, anchor_odds; docs/scorecard.md), "
+            "or set reference = 'pooled'",
+        )
     if logit is None:
         cannot.append(
             "the card's probabilities and its decisions under the cost lenses cannot be "

@@ -51,7 +51,7 @@ from closecall.review.ledger.entry import (
 if TYPE_CHECKING:
     import psycopg
 
-    from closecall.review.ledger.verify import VerifyResult
+    from closecall.review.ledger.chain import VerifyResult
 
 REVIEWER_ROLE = "closecall_reviewer"
 ANALYST_ROLE = "closecall_analyst"
@@ -696,7 +696,7 @@ class PgLedger:
         self, anchor: str | None = None, keys: Mapping[str, str] | None = None
     ) -> VerifyResult:
         """Recompute the chain (and, with ``keys``, check signatures), as for the file."""
-        from closecall.review.ledger.verify import verify_chain
+        from closecall.review.ledger.chain import verify_chain
 
         return verify_chain(self, anchor, keys)
 

@@ -33,6 +33,7 @@ from closecall.core.errors import UserError
 from closecall.core.shared import file_mode
 from closecall.core.vocabulary import ACTIONS
 from closecall.review.ledger import schema
+from closecall.review.ledger.damage import DamagedLedger, NoLedger
 from closecall.review.ledger.drafts import Claims, Drafts, delete_draft, utc_iso, utc_now
 from closecall.review.ledger.entry import (
     ENTRY_FORMAT,
@@ -47,7 +48,7 @@ from closecall.review.ledger.entry import (
 from closecall.review.ledger.reader import may_write_folder, reader_connection
 
 if TYPE_CHECKING:
-    from closecall.review.ledger.verify import VerifyResult
+    from closecall.review.ledger.chain import VerifyResult
 
 #: Permissions of a new ledger file (and, by SQLite's rule, of its -wal and -shm files).
 FILE_MODE = 0o660
@@ -142,44 +143,10 @@ def _check_content(content: EntryContent) -> None:
     canonical_json(content.decisions)  # raises on NaN or non-JSON values
 
 
-class NoLedger(UserError):
-    """Read-only open of a ledger that does not exist yet (or holds nothing)."""
-
-
-#: What to do about a ledger that cannot be used as it is: never let closecall "repair" it.
-DAMAGED_FIX = (
-    "do not edit the file: restore the ledger from your latest backup (docs/ledger.md, "
-    "Backups), run 'closecall ledger verify' to list every problem, and tell the study's "
-    "supervisor; closecall will not write to it as it is"
-)
 NOT_A_LEDGER_FIX = (
     "check that [review] ledger in closecall.toml names the study's ledger file; if it does, "
     "the file was replaced: restore it from your latest backup and tell the study's supervisor"
 )
-
-
-class DamagedLedger(UserError):
-    """The file at the ledger path cannot be used as a ledger: not a closecall ledger, or one
-    whose tables (or triggers, for writers) were changed outside closecall, or unreadable.
-
-    ``kind`` names what is wrong for ``ledger verify``: ``not-a-ledger``, ``unreadable``
-    (SQLite cannot read it, or a stored entry cannot be read back), ``empty-ledger`` (a file
-    with no tables, which closecall never leaves), or ``structure`` (see ``findings``).
-    """
-
-    def __init__(
-        self,
-        path: Path | str,
-        what: str,
-        *,
-        kind: str,
-        findings: Sequence[schema.Finding] = (),
-        fix: str = DAMAGED_FIX,
-    ) -> None:
-        super().__init__(f"{path}: {what}", fix)
-        self.path = path
-        self.kind = kind
-        self.findings = tuple(findings)
 
 
 def _permission(path: Path, text: str) -> UserError:
@@ -472,7 +439,7 @@ class Ledger:
     ) -> VerifyResult:
         """Recompute the chain (and check signatures against ``keys``); see
         :func:`closecall.review.ledger.verify.verify_chain`."""
-        from closecall.review.ledger.verify import verify_chain
+        from closecall.review.ledger.chain import verify_chain
 
         return verify_chain(self, anchor, keys)
 

@@ -486,7 +486,7 @@ class TestReviewScreens:
             await pilot.pause(0.2)
             text = _screen(app)
             assert not _raw(text), _raw(text)
-            assert "g [bold]x[/] <b>Briar</b>," in text
+            assert "g group: [bold]x[/] <b>Briar</b>," in text
 
             zoned = int(np.flatnonzero(ids == h.zoned)[0])
             queue.open_row(zoned)

@@ -136,7 +136,7 @@ class QueueScreen(Screen[None]):
         sort = q.sort if q else s.sort
         items: list[tuple[str, str]] = [
             ("s", f"order: {SORT_WORDS.get(sort, sort)}"),
-            ("g", f"group: {safe_text(s.group)}" if s.group else "group: all"),
+            ("g", f"group: {_cut(safe_text(s.group), width - 12)}" if s.group else "group: all"),
             ("f", f"flips: {FLIP_WORDS.get(s.flips or '', 'off')}"),
             ("a", f"ambiguous {'●' if s.ambiguous else '○'}"),
             ("o", f"rests on: {s.rests_on or 'off'}"),
@@ -396,3 +396,10 @@ def _packed(parts: list[tuple[str, str]], width: int, gap: str, lead: str = "") 
             line.append(gap)
         line.append(text, style)
     return lines
+
+
+def _cut(text: str, width: int) -> str:
+    """``text`` in at most ``width`` cells (at least 8), with ``…`` when cut (a very long label
+    keeps the rest of the switch row readable)."""
+    width = max(8, width)
+    return text if len(text) <= width else text[: width - 1] + "…"

@@ -346,9 +346,33 @@ class TestTeamCheck:
         assert res.stdout.strip() == "team set-up: sound (nothing to fix)"
 
     def test_setup_makes_a_mis_set_folder_sound(self, team: Team, fitted_demo: Path) -> None:
-        gate = team.base / "gate-tosetup"
-        gate.mkdir(mode=0o700)  # a gate only its owner may enter; setup gives it the readers
-        study = new_study(team, fitted_demo, "tosetup", setup=False)
+        home = team.base / "home-like"
+        home.mkdir(mode=0o700)  # closed to others, but not the readers' gate: refused, as is
+        study = new_study(team, fitted_demo, "tosetup", setup=False).rename(home / "tosetup")
+        config = str(study / "closecall.toml")
+        res = subprocess.run(
+            [
+                str(CLOSECALL),
+                "team",
+                "setup",
+                "--group",
+                team.writers,
+                "--readers",
+                team.readers,
+                "--config",
+                config,
+            ],
+            capture_output=True,
+            text=True,
+            timeout=300,
+        )
+        assert res.returncode == 2, res.stdout + res.stderr
+        assert "is not a gate for the readers" in res.stderr and "fix: make one" in res.stderr
+        assert stat.S_IMODE(home.stat().st_mode) == 0o700 and home.stat().st_gid == 0
+        gate = team.base / "gate-tosetup"  # made as docs/team.md says
+        gate.mkdir()
+        os.chown(gate, 0, grp.getgrnam(team.readers).gr_gid)
+        os.chmod(gate, 0o2750)
         study = study.rename(gate / "tosetup")
         config = str(study / "closecall.toml")
         res = subprocess.run(

@@ -319,6 +319,23 @@ def _file_problems(path: Path, gid: int, group: str, readers: bool = False) -> l
     return out
 
 
+def _require_gate(root: Path, readers: str) -> None:
+    """The study folder's parent must already be the readers' gate: in their group, entered by
+    the group, closed to others. Never changed here: it may be someone's home folder."""
+    readers_gid = grp.getgrnam(readers).gr_gid
+    gate = root.resolve().parent
+    gst = gate.stat()
+    gmode = stat.S_IMODE(gst.st_mode)
+    if gst.st_gid != readers_gid or gmode & 0o050 != 0o050 or gmode & 0o007:
+        raise UserError(
+            f"{gate} (group {_group(gst.st_gid)}, mode {gmode:04o}) is not a gate for the "
+            f"readers: opening {root} to others needs a folder above it that only the "
+            f"group {readers} may enter",
+            f"make one and move the study into it: install -d -m 2750 -g {readers} /srv/GATE "
+            f"&& mv {_q(root)} /srv/GATE/  (docs/team.md, Analysts)",
+        )
+
+
 def setup_team(
     config: StudyConfig, group: str | None = None, readers: str | None = None
 ) -> list[str]:
@@ -326,8 +343,8 @@ def setup_team(
     returns what was done. The config becomes writable by its owner only.
 
     With ``readers`` (a group), logins outside the writers' group may read: the study folder
-    and everything in it become readable by others, and the gate folder above it (the nearest
-    one others cannot enter, which must exist) is given to that group.
+    and everything in it become readable by others. Its parent folder must already be the
+    readers' gate (in that group, closed to others); it is never changed here.
 
     Raises
     ------
@@ -341,23 +358,7 @@ def setup_team(
     name = _group(gid)
     done = []
     if readers is not None:
-        readers_gid = grp.getgrnam(readers).gr_gid
-        gate = gate_folder(root)
-        if gate is None or gate == Path("/"):
-            raise UserError(
-                f"{root}: no folder above the study keeps other logins out, so opening it to "
-                f"the readers would open it to everyone",
-                f"make a gate folder and move the study into it: install -d -m 2750 -g "
-                f"{readers} /srv/GATE && mv {_q(root)} /srv/GATE/  (docs/team.md, Analysts)",
-            )
-        gst = gate.stat()
-        if gst.st_gid != readers_gid:
-            os.chown(gate, -1, readers_gid)
-            done.append(f"chgrp {readers} {_q(gate)}")
-        gmode = stat.S_IMODE(gst.st_mode)
-        if gmode & 0o050 != 0o050:
-            os.chmod(gate, gmode | 0o050)
-            done.append(f"chmod {gmode | 0o050:04o} {_q(gate)}")
+        _require_gate(root, readers)
     for dirpath, dirnames, filenames in os.walk(root):
         for entry in [dirpath, *(os.path.join(dirpath, n) for n in [*dirnames, *filenames])]:
             path = Path(entry)

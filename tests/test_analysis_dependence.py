@@ -9,11 +9,11 @@ import pytest
 from scipy.special import logit
 
 from analysis_helpers import group_copy_study
-from closecall.analysis.dependence import dependence, dependence_by_group, rests_on
-from closecall.analysis.multiplicity import bands
+from closecall.analysis.dependence import dependence, dependence_by_group
 from closecall.review.queue import build_queue, queue_rows
 from closecall.suite.opening import OpenedStudy, open_study
 from closecall.suite.proxies import cramers_v
+from closecall.suite.snapshot import Snapshot
 
 
 @pytest.fixture(scope="module")
@@ -97,19 +97,52 @@ def test_cramers_v_matches_a_textbook_table() -> None:
     assert cramers_v(a, b) == pytest.approx(np.sqrt(0.79365 / 100), abs=1e-5)
 
 
+def _plain_parts(snap: Snapshot) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Margin, group part, proxy part and |contribution| of each source feature (its design
+    columns summed) of the pooled model, recomputed here with NumPy from the stored weights
+    and design (Lundberg & Lee 2017, linear SHAP: w_j (x_j − E[x_j])), not through
+    closecall.analysis."""
+    W, row_of_case = snap.weights("pooled")
+    w = np.asarray(W)[np.asarray(row_of_case)]
+    X = np.asarray(snap.X)
+    contributions = w[:, 1:] * (X - np.asarray(snap.hist_X).mean(axis=0))
+    source = np.array(snap.meta["column_source"])
+    groups = [f.name for f in snap.encoder.features if f.is_group]
+    proxies = list(snap.proxies.proxies)
+    t = logit(snap.lenses[0].threshold)
+    margin = w[:, 0] + (X * w[:, 1:]).sum(axis=1) - t
+    group_part = contributions[:, np.isin(source, groups)].sum(axis=1)
+    proxy_part = contributions[:, np.isin(source, proxies)].sum(axis=1)
+    by_feature = [contributions[:, source == f].sum(axis=1) for f in dict.fromkeys(source)]
+    return margin, group_part, proxy_part, np.abs(np.column_stack(by_feature))
+
+
 def test_queue_filters_and_sorts_by_the_analysis(demo_study: OpenedStudy) -> None:
+    """The queue's analysis filters and sorts against values recomputed in the test: the
+    decision flips when the group's (and proxies') contributions are removed; the band
+    margin ± sqrt(2 ε f* x̃ᵀH⁻¹x̃) (Marx, Calmon & Ustun 2020) straddles zero; the share
+    (|group| + |proxies|) / Σ|w_j (x_j − E x_j)| orders the list."""
     snap = demo_study.snapshot
     options = {"config": demo_study.config}
-    for part in ("group", "proxies"):
+    margin, group_part, proxy_part, abs_contrib = _plain_parts(snap)
+    np.testing.assert_allclose(margin, snap.margins("pooled"), atol=1e-9)
+    flips = {
+        "group": (margin > 0) != (margin - group_part > 0),
+        "proxies": (margin > 0) != (margin - group_part - proxy_part > 0),
+    }
+    for part, mask in flips.items():
         q = build_queue(snap, band=10.0, rests_on_part=part, options=options)
-        mask = rests_on(snap, part)
-        assert len(q) == int(mask.sum()) > 0
-        assert mask[q.order].all()
-    q = build_queue(snap, band=10.0, ambiguous_only=True, options={"epsilon": 0.001})
-    amb = bands(snap, "pooled", 0.001).ambiguous
-    assert len(q) == int(amb.sum()) and amb[q.order].all()
+        assert sorted(q.order.tolist()) == np.flatnonzero(mask).tolist()
+        assert mask.sum() > 0
+    eps = 0.001
+    _, row_of_case = snap.weights("pooled")
+    best = np.asarray(snap.objective("pooled"))[np.asarray(row_of_case)]
+    straddles = np.abs(margin) <= np.sqrt(2.0 * eps * best * np.asarray(snap.quad("pooled")))
+    q = build_queue(snap, band=10.0, ambiguous_only=True, options={"epsilon": eps})
+    assert sorted(q.order.tolist()) == np.flatnonzero(straddles).tolist() and straddles.any()
     q = build_queue(snap, band=10.0, sort="dependence", options=options)
-    share = dependence(snap).share
+    total = abs_contrib.sum(axis=1)
+    share = (np.abs(group_part) + np.abs(proxy_part)) / np.where(total > 0, total, 1.0)
     listed = share[q.order]
     assert np.all(np.diff(listed) <= 1e-12)  # larger share first
     rows = queue_rows(snap, q, 0, 3)

@@ -10,11 +10,12 @@ person (exports outside the study, key files) are created with explicit owner-on
 the umask does not widen; a config or data file ``init`` and ``demo`` write keeps the login's
 own umask (:func:`login_umask`).
 
-A study with readers (docs/team.md, "Analysts"): when the study folder itself lets others in
-(``o+rx``, set by ``closecall team setup --readers GROUP``, behind a gate folder only that group
-may enter), what closecall creates there is readable by others too — files 0664, folders
-02775, umask :data:`READERS_UMASK` — so an analyst outside the writers' group reads the
-ledger, the snapshots and the config, and writes nothing (:func:`adopt_study_folder`).
+A study with readers (docs/team.md, "Analysts"): when the study folder is a team's (setgid)
+and lets others in (``o+rx``, set by ``closecall team setup --readers GROUP``, behind a gate
+folder only that group may enter), what closecall creates there is readable by others too —
+files 0664, folders 02775, umask :data:`READERS_UMASK` — so an analyst outside the writers'
+group reads the ledger, the snapshots and the config, and writes nothing
+(:func:`adopt_study_folder`). A private study folder (``0755``, no setgid) keeps 0660.
 """
 
 from __future__ import annotations
@@ -55,12 +56,14 @@ def use_study_umask() -> int:
 
 
 def has_readers(folder: Path) -> bool:
-    """Whether a study folder lets logins outside its group in (others may enter and list it)."""
+    """Whether a study folder is set up for readers outside its group: shared by a group
+    (setgid) and open to others (they may enter and list it), as ``team setup --readers``
+    makes it. A private study folder (``0755`` by the ordinary umask, no setgid) is not."""
     try:
         mode = folder.stat().st_mode
     except OSError:
         return False
-    return mode & READ_DIR_BITS == READ_DIR_BITS
+    return mode & READ_DIR_BITS == READ_DIR_BITS and bool(mode & stat.S_ISGID)
 
 
 def adopt_study_folder(folder: Path) -> None:
@@ -68,13 +71,25 @@ def adopt_study_folder(folder: Path) -> None:
     others when the folder lets readers in (:func:`has_readers`), else by the group only.
 
     Changes nothing unless :func:`use_study_umask` was called (the command line and review
-    screen do; a library caller keeps its own umask).
+    screen do; a library caller keeps its own umask) and the umask is still the one it set.
     """
     global _readers
-    if _original is None:
-        return
+    if _original is None or _current_umask() not in (None, STUDY_UMASK, READERS_UMASK):
+        return  # the umask is no longer closecall's (a caller set its own since): leave it
     _readers = has_readers(folder)
     os.umask(READERS_UMASK if _readers else STUDY_UMASK)
+
+
+def _current_umask() -> int | None:
+    """The process umask, read without changing it (Linux ``/proc``); None where unknown."""
+    try:
+        with open("/proc/self/status", encoding="ascii") as status:
+            for line in status:
+                if line.startswith("Umask:"):
+                    return int(line.split()[1], 8)
+    except (OSError, ValueError):
+        pass
+    return None
 
 
 def file_mode() -> int:

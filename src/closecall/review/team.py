@@ -111,7 +111,7 @@ def check_team(config: StudyConfig) -> list[TeamProblem]:
             )
         )
     config_path = config.path
-    readers = has_readers(root)
+    readers = has_readers(root) or mode & 0o005 == 0o005  # open to others: a gate is needed
     gate = gate_folder(root) if readers else None
     problems += _config_problems(config_path, st.st_uid)
     if readers and not os.stat(config_path).st_mode & stat.S_IROTH:

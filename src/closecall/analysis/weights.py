@@ -121,9 +121,12 @@ def model_weights(snap: Snapshot, level: float = 0.95) -> dict[str, Any]:
         "thresholds": {lens.name: float(logit(lens.threshold)) for lens in snap.lenses},
         "models": models,
         "imported": imported,
-        "scorecard": (
-            {"model": "deployed", "file": Path(snap.meta["deployed_card"]["card"]["source"]).name}
-            if "deployed_card" in snap.meta
-            else None
-        ),
+        "scorecard": _scorecard(snap),
     }
+
+
+def _scorecard(snap: Snapshot) -> dict[str, str] | None:
+    """The deployed scorecard's model and file name (None without a card)."""
+    if "deployed_card" not in snap.meta:
+        return None
+    return {"model": "deployed", "file": Path(snap.meta["deployed_card"]["card"]["source"]).name}

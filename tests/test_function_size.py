@@ -46,7 +46,6 @@ ALLOWED: dict[str, str] = {
     "reports/disparity/calibration.py:calibration_by_group": "bins, curves, tests (to split)",
     "review/team.py:check_team": "one check per file and account (to split)",
     "cli/whatif_cmds.py:whatif": "a view's options and printing (to split)",
-    "analysis/weights.py:model_weights": "grew to 81 lines in other work on 12-04 (to split)",
     "suite/solver.py:fit_logit_blocks": "the streamed Newton iteration (to split)",
 }
 

@@ -90,7 +90,7 @@ def test_review_demo_in_tmux(tmp_path: Path) -> None:
     try:
         tmux.wait_for(lambda s: "listed of" in s, timeout=180)  # written, fitted, ranked
         tmux.keys("f")
-        tmux.wait_for(lambda s: "flips ●" in s)
+        tmux.wait_for(lambda s: "f flips: any" in s)
         tmux.keys("j", "j", "Enter")
         screen = tmux.wait_for(lambda s: "Case HR-" in s and "What moves" in s)
         case_id = re.search(r"Case (HR-\d+)", screen).group(1)  # type: ignore[union-attr]

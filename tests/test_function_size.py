@@ -15,9 +15,6 @@ LIMIT = 80
 
 #: module:function -> why it is still long (each one a candidate for the next split).
 ALLOWED: dict[str, str] = {
-    "cli/explain_cmds.py:proxies": "a view's printing of the proxy table (to split)",
-    "cli/explain_cmds.py:_print_explanation": "a view's printing of one case (to split)",
-    "cli/explain_cmds.py:_print_card": "a view's printing of the deployed card (to split)",
     "review/demo_reviews.py:simulate_reviews": "the demo's simulated reviewers (to split)",
     "suite/scorecard.py:load_scorecard": "card parsing with a refusal per field (to split)",
     "setup/init.py:infer_config": "inference of every config section (to split)",
@@ -36,8 +33,6 @@ ALLOWED: dict[str, str] = {
     "review/decisions.py:record_review": "checks, collision, append (to split)",
     "reports/disparity/report.py:_families": "the report's test families (to split)",
     "suite/solver.py:_separation_lp": "one linear programme (to split)",
-    "cli/queue_cmds.py:queue": "a view's options and printing (to split)",
-    "cli/export_cmds.py:export": "a view's options and writing (to split)",
     "analysis/comparison.py:compare_models": "bootstrap comparison (to split)",
     "reports/disparity/errors_by_group.py:error_rates": "rates, intervals, tests (to split)",
     "reports/disparity/html_sections.py:calibration_section": "one HTML section (to split)",

@@ -12,6 +12,7 @@ import numpy as np
 if TYPE_CHECKING:
     import pandas as pd
 
+    from closecall.reports.disparity.report import DisparityReport
     from closecall.review.ledger import Entry
     from closecall.review.query import QueueAnswer, QueueQuery
     from closecall.suite.snapshot import Snapshot
@@ -48,6 +49,10 @@ class QueueResult:
     measures
         The per-case analysis measures the query used (``ambiguity``, ``dependence``): each
         is a column of the rows and of the frame.
+    group_attribute
+        The group attribute's name (its columns joined with ``/``), as headers show it.
+    same_as
+        Models identical to an earlier one of the suite, ``{later: earlier}``.
     """
 
     snapshot_id: str
@@ -59,6 +64,8 @@ class QueueResult:
     counts: Mapping[str, int]
     case_ids: tuple[str, ...]
     measures: tuple[str, ...]
+    group_attribute: str
+    same_as: Mapping[str, str]
     _answer: QueueAnswer = field(repr=False, compare=False)
     _snapshot: Snapshot = field(repr=False, compare=False)
 
@@ -200,6 +207,51 @@ class Report:
         >>> study.bands().to_dict()["epsilon"]  # doctest: +SKIP
         """
         return {"kind": self.kind, "snapshot": self.snapshot_id, **_plain(self.data)}
+
+
+@dataclass(frozen=True)
+class DisparityResult(Report):
+    """The disparity report: its figures as data (``to_dict()``, as ``closecall disparity
+    --json``) and as the typed report the views print, with its headline and HTML page.
+
+    Attributes
+    ----------
+    report
+        The typed report (:class:`closecall.reports.disparity.report.DisparityReport`): rates,
+        overrides, reviewers, errors, calibration, periods, warnings.
+    """
+
+    report: DisparityReport = field(repr=False, compare=False)
+
+    def headline(self) -> str:
+        """The plain-words verdict on the change of the lowest adverse impact ratio.
+
+        Examples
+        --------
+        >>> study.disparity(n_boot=500).headline()  # doctest: +SKIP
+        """
+        from closecall.reports.disparity.html import headline_text
+
+        r, s = self.report.rates, self.report.summary
+        return headline_text(
+            r.lowest_model_air,
+            r.lowest_final_air,
+            r.lowest_air_change,
+            r.lowest_air_change_low,
+            r.lowest_air_change_high,
+            f"{100 * s.level:.0f}%",
+        )
+
+    def html(self) -> str:
+        """The whole report as one self-contained HTML document.
+
+        Examples
+        --------
+        >>> Path("disparity.html").write_text(study.disparity().html())  # doctest: +SKIP
+        """
+        from closecall.reports.disparity.html import render_html
+
+        return render_html(self.report)
 
 
 @dataclass(frozen=True)

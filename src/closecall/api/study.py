@@ -11,21 +11,48 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING
 
-from closecall.api.results import Explanation, LedgerEntries, QueueResult, Report, WhatIfResult
+from closecall.api.results import (
+    DisparityResult,
+    Explanation,
+    LedgerEntries,
+    QueueResult,
+    Report,
+    WhatIfResult,
+)
 from closecall.core.errors import UserError
 from closecall.review.query import QueueQuery, answer_queue
+from closecall.review.queue import group_attribute
 
 if TYPE_CHECKING:
     import pandas as pd
 
+    from closecall.analysis.margin_distribution import MarginDistribution
     from closecall.core.progress import Progress
+    from closecall.reports.export import ExportResult
     from closecall.review.ledger import Entry
     from closecall.review.ledger.verify import VerifyResult
+    from closecall.setup.config import StudyConfig
     from closecall.suite.opening import OpenedStudy
+
+
+def study_config(config_path: str | Path = "closecall.toml") -> StudyConfig:
+    """A study's config alone, read and checked: nothing is loaded or fitted (the views use it
+    to check paths and permissions before the work starts).
+
+    Examples
+    --------
+    >>> study_config("demo-study/closecall.toml").review.ledger  # doctest: +SKIP
+    """
+    from closecall.setup.config import load_config
+
+    return load_config(Path(config_path))
 
 
 class Ledger:
     """The study's review ledger: read, verify and export it (see docs/ledger.md).
+
+    Reached as :attr:`Study.ledger`, or with :meth:`Ledger.open` from the config alone
+    (reading and verifying need no fitted snapshot; the export does).
 
     Examples
     --------
@@ -33,8 +60,30 @@ class Ledger:
     True
     """
 
-    def __init__(self, study: Study) -> None:
+    def __init__(self, config: StudyConfig, study: Study | None = None) -> None:
+        self._config = config
         self._study = study
+
+    @classmethod
+    def open(cls, config_path: str | Path = "closecall.toml") -> Ledger:
+        """The ledger of a study's config, without opening (or fitting) its snapshot.
+
+        Examples
+        --------
+        >>> Ledger.open("demo-study/closecall.toml").verify().ok  # doctest: +SKIP
+        True
+        """
+        return cls(study_config(config_path))
+
+    @property
+    def config(self) -> StudyConfig:
+        """The study config the ledger belongs to (its path, ``[review]`` and ``[team]``).
+
+        Examples
+        --------
+        >>> study.ledger.config.review.ledger  # doctest: +SKIP
+        """
+        return self._config
 
     def show(
         self, *, case_id: str | None = None, reviewer: str | None = None, limit: int | None = None
@@ -47,9 +96,7 @@ class Ledger:
         """
         from closecall.review.decisions import ledger_entries
 
-        entries = ledger_entries(
-            self._study.opened.config, case_id=case_id, reviewer=reviewer, limit=limit
-        )
+        entries = ledger_entries(self._config, case_id=case_id, reviewer=reviewer, limit=limit)
         return LedgerEntries(tuple(entries))
 
     def verify(self, anchor: str | None = None, *, allow_empty: bool = False) -> VerifyResult:
@@ -62,7 +109,7 @@ class Ledger:
         """
         from closecall.review.decisions import verify_ledger
 
-        return verify_ledger(self._study.opened.config, anchor, allow_empty=allow_empty)
+        return verify_ledger(self._config, anchor, allow_empty=allow_empty)
 
     def export(
         self,
@@ -78,19 +125,51 @@ class Ledger:
         --------
         >>> study.ledger.export(notes=False).head()  # doctest: +SKIP
         """
-        from closecall.reports.export import export_reviews
-        from closecall.review.decisions import ledger_entries
+        return self.export_details(
+            all_entries=all_entries,
+            key_file=key_file,
+            pseudonymise_reviewers=pseudonymise_reviewers,
+            notes=notes,
+        ).table
 
-        opened = self._study.opened
-        result = export_reviews(
-            opened,
-            ledger_entries(opened.config),
+    def export_details(
+        self,
+        *,
+        entries: LedgerEntries | None = None,
+        all_entries: bool = False,
+        key_file: str | Path | None = None,
+        pseudonymise_reviewers: bool = False,
+        notes: bool = True,
+    ) -> ExportResult:
+        """The export with what to tell its reader: the table, the entries read, whether the
+        key file was created, warnings and the advice that goes with them.
+
+        Parameters
+        ----------
+        entries
+            Entries already read with :meth:`show` (None: the whole ledger is read).
+
+        Examples
+        --------
+        >>> result = study.ledger.export_details(key_file="key.txt")  # doctest: +SKIP
+        >>> result.key_created, result.warnings  # doctest: +SKIP
+        """
+        from closecall.reports.export import export_reviews
+
+        if self._study is None:
+            raise UserError(
+                f"{self._config.path}: the export needs the study's snapshot",
+                "open the study with Study.open and use its ledger",
+            )
+        read = self.show() if entries is None else entries
+        return export_reviews(
+            self._study.opened,
+            list(read.entries),
             all_entries=all_entries,
             key_file=key_file,
             pseudonymise_reviewers=pseudonymise_reviewers,
             notes=notes,
         )
-        return result.table
 
 
 @dataclass(frozen=True)
@@ -171,7 +250,7 @@ class Study:
         --------
         >>> len(study.ledger.show())  # doctest: +SKIP
         """
-        return Ledger(self)
+        return Ledger(self.opened.config, self)
 
     def queue(self, query: QueueQuery | None = None) -> QueueResult:
         """The close calls a query asks for, with each case's review state and claims.
@@ -194,6 +273,8 @@ class Study:
             counts=dict(answer.queue.counts),
             case_ids=tuple(str(c) for c in snap.case_ids[listed]),
             measures=tuple(answer.queue.measures),
+            group_attribute=group_attribute(snap),
+            same_as=dict(answer.queue.same_as),
             _answer=answer,
             _snapshot=snap,
         )
@@ -218,14 +299,48 @@ class Study:
         )
 
     def proxies(self) -> Report:
-        """Which features stand in for the group attribute (the fit's proxy report).
+        """Which features stand in for the group attribute (the fit's proxy report), the
+        proxy-set search, how much the pooled margins rest on the group and its proxies per
+        group, and the counterpart flip rates.
+
+        Its data, as ``closecall proxies --json`` gives it: the proxy report's fields
+        (``features``, ``proxies``, ``recoverability_auc``…), ``proxy_sets``,
+        ``dependence_by_group`` and ``counterparts``.
 
         Examples
         --------
         >>> study.proxies().to_dict()["proxies"]  # doctest: +SKIP
+        >>> study.proxies().to_dict()["proxy_sets"]["steps"]  # doctest: +SKIP
         """
+        from dataclasses import asdict
+
+        import numpy as np
+
+        from closecall.analysis.counterparts import counterpart_flip_rates
+        from closecall.analysis.dependence import dependence_by_group
+        from closecall.suite.proxies import proxy_sets
+
         snap = self.opened.snapshot
-        return Report("proxies", str(snap.id), snap.proxies.to_json())
+        sets = proxy_sets(
+            np.asarray(snap.hist_X),
+            np.asarray(snap.hist_group_codes),
+            len(snap.group_levels),
+            snap.meta["column_source"],
+            [f.name for f in snap.encoder.features if not f.is_group],
+            int(snap.meta.get("seed", 0)),
+        )
+        data = {
+            **snap.proxies.to_json(),
+            "proxy_sets": {
+                "start_auc": sets.start_auc,
+                "method": sets.method,
+                "rows": sets.rows,
+                "steps": [asdict(x) for x in sets.steps],
+            },
+            "dependence_by_group": dependence_by_group(snap),
+            "counterparts": counterpart_flip_rates(snap),
+        }
+        return Report("proxies", str(snap.id), data)
 
     def bands(self, epsilon: float | None = None, lens: str | None = None) -> Report:
         """How many decisions could flip, per group, and how ambiguity grows with ε.
@@ -295,6 +410,37 @@ class Study:
             raise UserError(f"confidence level {level} is not between 0 and 1", "pass e.g. 0.95")
         snap = self.opened.snapshot
         return Report("model", str(snap.id), model_weights(snap, level))
+
+    def same_models(self) -> dict[str, str]:
+        """Models of the suite that are another, earlier one: ``{later: earlier}`` (lists name
+        such a model once).
+
+        Examples
+        --------
+        >>> study.same_models()  # doctest: +SKIP
+        {'proxy_free': 'unaware'}
+        """
+        from closecall.review.queue import identical_models
+
+        return identical_models(self.opened.snapshot)
+
+    def margin_distribution(
+        self, band: float, bins: int = 48, query: QueueQuery | None = None
+    ) -> MarginDistribution:
+        """The reference margins per group in ``bins`` equal bins over ±3 review bands, with
+        the count within the band (the queue's chart): of the cases ``query``'s filters keep,
+        at any distance from the threshold (every case when it has no filter).
+
+        Examples
+        --------
+        >>> dist = study.margin_distribution(study.queue().band)  # doctest: +SKIP
+        >>> dist.counts.shape  # doctest: +SKIP
+        (3, 48)
+        """
+        from closecall.analysis.margin_distribution import kept_rows, margin_distribution
+
+        rows = None if query is None else kept_rows(self.opened, query)
+        return margin_distribution(self.opened.snapshot, band, bins, rows)
 
     def scorecard(self) -> Report:
         """The deployed scorecard as fitted (``[deployed] scorecard``, docs/scorecard.md): its
@@ -441,12 +587,13 @@ class Study:
         n_boot: int = 2000,
         seed: int = 0,
         period: str = "month",
-    ) -> Report:
+    ) -> DisparityResult:
         """Human-versus-model disparity over the effective reviews, by group.
 
         Examples
         --------
         >>> study.disparity(n_boot=500).to_dict()["rates"]  # doctest: +SKIP
+        >>> print(study.disparity(n_boot=500).headline())  # doctest: +SKIP
         """
         from closecall.reports.disparity.from_study import study_report
 
@@ -459,7 +606,32 @@ class Study:
             seed=seed,
             period=period,
         )
-        return Report("disparity", str(self.opened.snapshot.id), report.to_dict())
+        snapshot_id = str(self.opened.snapshot.id)
+        return DisparityResult("disparity", snapshot_id, report.to_dict(), report=report)
+
+    def demo_reviews(
+        self,
+        n: int,
+        seed: int = 7,
+        *,
+        bias: float = 2.0,
+        biased_group: str | None = None,
+        reviewers: int = 4,
+    ) -> int:
+        """Record ``n`` simulated reviews of close calls in a demo study's ledger (by
+        ``sim-reviewer-1``, ``-2``…, each noted as simulated); a ledger holding real reviews
+        is refused. Returns how many were recorded.
+
+        Examples
+        --------
+        >>> Study.open("demo-study/closecall.toml").demo_reviews(300, bias=2.0)  # doctest: +SKIP
+        300
+        """
+        from closecall.review.demo_reviews import simulate_reviews
+
+        return simulate_reviews(
+            self.opened, n, seed, bias=bias, biased_group=biased_group, reviewers=reviewers
+        )
 
 
-__all__ = ["Ledger", "Study"]
+__all__ = ["Ledger", "Study", "study_config"]

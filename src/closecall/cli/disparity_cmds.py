@@ -8,16 +8,14 @@ from pathlib import Path
 import typer
 from rich.table import Table
 
+from closecall.api.study import Study, study_config
 from closecall.cli import disparity_sections as sections
 from closecall.cli.common import ConfigOption, JsonOption, load
 from closecall.cli.output import console, emit_json, err_console, safe_markup
 from closecall.core.errors import UserError
 from closecall.reports.disparity.contingency import IndependenceTest
-from closecall.reports.disparity.from_study import study_report
-from closecall.reports.disparity.html import headline_text, render_html
 from closecall.reports.disparity.periods import check_period
 from closecall.reports.disparity.report import DisparityReport
-from closecall.setup.config import load_config
 from closecall.setup.output_files import check_key_file, check_output, study_files, write_output
 
 BAR_WIDTH = 10
@@ -221,7 +219,7 @@ def _errors_table(report: DisparityReport) -> Table | None:
     return t
 
 
-def print_report(report: DisparityReport) -> None:
+def print_report(report: DisparityReport, headline: str) -> None:
     """The report on the terminal: rich tables with text bars."""
     s, ctx = report.summary, report.context
     console.print(
@@ -231,18 +229,7 @@ def print_report(report: DisparityReport) -> None:
         f"{_t(str(ctx.get('snapshot_id', '—'))[:12])}"
     )
     r = report.rates
-    console.print(
-        _t(
-            headline_text(
-                r.lowest_model_air,
-                r.lowest_final_air,
-                r.lowest_air_change,
-                r.lowest_air_change_low,
-                r.lowest_air_change_high,
-                f"{100 * s.level:.0f}%",
-            )
-        )
-    )
+    console.print(_t(headline))
     sections.print_population(console, report)
     console.print(_rates_table(report))
     console.print(_air_table(report))
@@ -322,15 +309,13 @@ def disparity(
     if n_boot < 100:
         raise UserError(f"--boot {n_boot}: use at least 100 replicates", "e.g. --boot 2000")
     check_period(period)
-    cfg = load_config(config)
+    cfg = study_config(config)
     protected = study_files(cfg, key_file=key_file, outcomes=outcomes)
     if key_file is not None:  # before anything is fitted or created
         check_key_file(key_file, study_files(cfg, outcomes=outcomes))
     if html is not None:
         check_output(html, protected, field="html", force=force, example="disparity.html")
-    study = load(config, quiet=as_json)
-    report = study_report(
-        study,
+    result = Study(load(config, quiet=as_json)).disparity(
         outcomes=outcomes,
         key_file=key_file,
         level=level,
@@ -341,16 +326,16 @@ def disparity(
     if html is not None:
         write_output(
             html,
-            render_html(report).encode("utf-8"),
+            result.html().encode("utf-8"),
             protected,
             field="html",
             force=force,
             example="disparity.html",
         )
     if as_json:
-        emit_json(report.to_dict())
+        emit_json(dict(result.data))
         return
-    print_report(report)
+    print_report(result.report, result.headline())
     if html is not None:
         console.print(f"wrote {_t(html)}")
 
@@ -379,12 +364,8 @@ def demo_reviews(
       closecall demo --out demo-study && cd demo-study
       closecall demo-reviews 300 --bias 2 && closecall disparity --html disparity.html
     """
-    from closecall.review.demo_reviews import simulate_reviews
-
-    study = load(config, quiet=as_json)
-    count = simulate_reviews(
-        study, n, seed, bias=bias, biased_group=biased_group, reviewers=reviewers
-    )
+    study = Study(load(config, quiet=as_json))
+    count = study.demo_reviews(n, seed, bias=bias, biased_group=biased_group, reviewers=reviewers)
     if as_json:
         emit_json({"recorded": count, "seed": seed, "bias": bias})
         return

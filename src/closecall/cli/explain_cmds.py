@@ -6,33 +6,21 @@ colour, so nothing is told by colour alone.
 
 from __future__ import annotations
 
-from dataclasses import asdict
 from pathlib import Path
 from typing import Any
 
-import numpy as np
 import typer
 from rich import box
 from rich.table import Table
 from rich.text import Text
 
-from closecall.analysis.comparison import compare_models
-from closecall.analysis.counterparts import counterpart_flip_rates
-from closecall.analysis.dependence import dependence_by_group
-from closecall.analysis.multiplicity import (
-    EPSILON_CURVE,
-    UNCERTAINTY_EPSILON,
-    ambiguity_by_group,
-    epsilon_curve,
-)
+from closecall.analysis.multiplicity import UNCERTAINTY_EPSILON
 from closecall.api.study import Study
 from closecall.cli.common import ConfigOption, JsonOption, load
 from closecall.cli.output import console, emit_json, plain
 from closecall.core.errors import UserError
 from closecall.core.text import safe_text
 from closecall.core.vocabulary import short_model
-from closecall.review.queue import identical_models
-from closecall.suite.proxies import proxy_sets
 
 LensOption = typer.Option(None, "--lens", help="Cost lens name (default: the first one).")
 FLAG = "✱"
@@ -124,7 +112,7 @@ def explain(
     if as_json:
         emit_json(data)
         return
-    _print_explanation(data, identical_models(study.opened.snapshot))
+    _print_explanation(data, study.same_models())
 
 
 def _same_note(same: dict[str, str]) -> list[str]:
@@ -138,7 +126,20 @@ def _same_note(same: dict[str, str]) -> list[str]:
 
 
 def _print_explanation(d: dict[str, Any], same: dict[str, str] | None = None) -> None:
-    same = same or {}
+    """Every section of one case's explanation, in the order a reviewer reads them."""
+    _print_case_head(d)
+    _print_suite_decisions(d, same or {})
+    _print_contributions(d)
+    _print_neutralised(d["dependence"])
+    _print_counterparts(d["counterparts"])
+    _print_bands(d["bands"])
+    _print_neighbours(d)
+    if d.get("deployed_card") is not None:
+        _print_card(d["deployed_card"])
+
+
+def _print_case_head(d: dict[str, Any]) -> None:
+    """The case, its group and outcome, the margin and decision, and any fit flags."""
     lens = d["lens"]
     head = Text()
     head.append(safe_text(d["case_id"]), "bold")
@@ -155,6 +156,9 @@ def _print_explanation(d: dict[str, Any], same: dict[str, str] | None = None) ->
     console.print(line)
     _print_fit_flags(d["fit_flags"])
 
+
+def _print_suite_decisions(d: dict[str, Any], same: dict[str, str]) -> None:
+    """Each model's margin and decision, marked where it differs from the case's model."""
     _heading("Decisions across the suite")
     t = _grid("model", "margin", "decision", "", right=(1,))
     own = d["margin"] > 0
@@ -174,6 +178,9 @@ def _print_explanation(d: dict[str, Any], same: dict[str, str] | None = None) ->
     for note in _same_note(same):
         _say(_txt(note, "dim"))
 
+
+def _print_contributions(d: dict[str, Any]) -> None:
+    """What the margin is made of: each feature's contribution, then the baseline."""
     dep = d["dependence"]
     _heading("What the margin is made of (log-odds)")
     t = _grid("feature", "value", "role", "contribution", "", right=(3,))
@@ -194,6 +201,10 @@ def _print_explanation(d: dict[str, Any], same: dict[str, str] | None = None) ->
         f"group {_signed(dep['group_part'], 3)} · proxies {_signed(dep['proxy_part'], 3)}"
         f" · rest {_signed(dep['rest'], 3)} · {_pct(dep['share'])} of the pull from these two"
     )
+
+
+def _print_neutralised(dep: dict[str, Any]) -> None:
+    """The margin with the group (and its proxies) set to the history average."""
     t = _grid("neutralised", "margin", "decision", "", right=(1,))
     sure: list[str] = []
     for label, key, flag, what, se in (
@@ -224,9 +235,12 @@ def _print_explanation(d: dict[str, Any], same: dict[str, str] | None = None) ->
         "uncertain = within that interval the neutralised decision could go either way"
     )
 
+
+def _print_counterparts(counterparts: list[dict[str, Any]]) -> None:
+    """The case carried into each other group: the group alone, then with its proxies."""
     _heading("Counterparts: the case carried into another group")
     t = _grid("as group", "what changes", "margin", "decision", "", right=(2,))
-    for cp in d["counterparts"]:
+    for cp in counterparts:
         moved = "; ".join(
             f"{c['feature']} {_value(c['from'])}→{_value(c['to'])}" for c in cp["carried"]
         )
@@ -247,7 +261,9 @@ def _print_explanation(d: dict[str, Any], same: dict[str, str] | None = None) ->
             )
     console.print(t)
 
-    b = d["bands"]
+
+def _print_bands(b: dict[str, Any]) -> None:
+    """Where the margin could be under other models: uncertainty and equally-good bands."""
     _heading("Bands: where the margin could be under other models")
     t = _grid("band", "low", "high", "", right=(1, 2))
     unc, eg = b["uncertainty"], b["equally_good"]
@@ -276,6 +292,9 @@ def _print_explanation(d: dict[str, Any], same: dict[str, str] | None = None) ->
         "it the other way"
     )
 
+
+def _print_neighbours(d: dict[str, Any]) -> None:
+    """The nearest past cases, their outcomes and reviews, and the flagged proxies."""
     nb = d["neighbours"]
     _heading(f"Similar past cases ({nb['k']} nearest, non-group features)")
     t = _grid("case", "group", "recorded outcome", "distance", "review", right=(3,))
@@ -294,8 +313,6 @@ def _print_explanation(d: dict[str, Any], same: dict[str, str] | None = None) ->
     _say(f"favourable among them: {_pct(nb['favourable_share'])}")
     _say(f"favourable among the {nb['k']} nearest of each group: {per_group}")
     _say(_txt(f"proxies flagged: {', '.join(d['proxies']['flagged']) or 'none'}", "dim"))
-    if d.get("deployed_card") is not None:
-        _print_card(d["deployed_card"])
 
 
 def _pts(x: float) -> str:
@@ -305,6 +322,15 @@ def _pts(x: float) -> str:
 
 def _print_card(c: dict[str, Any]) -> None:
     """The deployed scorecard's own reasons (docs/scorecard.md explains every figure)."""
+    _print_card_head(c)
+    _print_card_points(c)
+    _print_card_neutralised(c)
+    _print_card_counterparts(c)
+    _print_card_notes(c)
+
+
+def _print_card_head(c: dict[str, Any]) -> None:
+    """The card's points, cut-off, margin and decision, and its probability."""
     lo = c["margin"] is not None
     _heading(f"The deployed scorecard's own reasons ({safe_text(c['card'])})")
     line = Text(
@@ -324,6 +350,11 @@ def _print_card(c: dict[str, Any]) -> None:
                 "dim",
             )
         )
+
+
+def _print_card_points(c: dict[str, Any]) -> None:
+    """Each feature's points against the history average, then the baseline."""
+    lo = c["margin"] is not None
     t = _grid("feature", "value", "role", "points", "average", "contribution", right=(3, 4, 5))
     for row in c["contributions"]:
         role = row["role"].upper() if row["role"] != "other" else ""
@@ -349,6 +380,10 @@ def _print_card(c: dict[str, Any]) -> None:
         f"group {_pts(c['group_part_points'])} · proxies {_pts(c['proxy_part_points'])} · "
         f"rest {_pts(c['rest_points'])} points (contribution = points − the history average)"
     )
+
+
+def _print_card_neutralised(c: dict[str, Any]) -> None:
+    """The card's margin with the group (and its proxies) neutralised."""
     t = _grid("neutralised", "margin (points)", "decision", "", right=(1,))
     for label, key, flag, what in (
         ("the group", "margin_group_neutral_points", "rests_on_group", "rests on the group"),
@@ -366,6 +401,10 @@ def _print_card(c: dict[str, Any]) -> None:
             _txt(f"{FLAG} FLIPS: {what}" if c[flag] else "same decision", "bold"),
         )
     console.print(t)
+
+
+def _print_card_counterparts(c: dict[str, Any]) -> None:
+    """The card's margin with the case carried into each other group."""
     t = _grid("as group", "what changes", "margin (points)", "decision", "", right=(2,))
     for cp in c["counterparts"]:
         for label, mkey, fkey in (
@@ -382,6 +421,10 @@ def _print_card(c: dict[str, Any]) -> None:
                 _txt(f"{FLAG} FLIPS" if cp[fkey] else "same", "bold"),
             )
     console.print(t)
+
+
+def _print_card_notes(c: dict[str, Any]) -> None:
+    """The similar cases on the card, what cannot be computed, and how the card decides."""
     if c["similar_cases"]:
         cases = ", ".join(
             f"{safe_text(n['case_id'])} {n['points']:.4g} ({n['decision']})"
@@ -449,35 +492,19 @@ def proxies(config: Path = ConfigOption, as_json: bool = JsonOption) -> None:
 
     Example: closecall proxies --json
     """
-    study = load(config, quiet=as_json)
-    snap = study.snapshot
-    report = snap.proxies
-    dep = dependence_by_group(snap)
-    flips = counterpart_flip_rates(snap)
-    sets = proxy_sets(
-        np.asarray(snap.hist_X),
-        np.asarray(snap.hist_group_codes),
-        len(snap.group_levels),
-        snap.meta["column_source"],
-        [f.name for f in snap.encoder.features if not f.is_group],
-        int(snap.meta.get("seed", 0)),
-    )
+    report = Study(load(config, quiet=as_json)).proxies()
+    data = dict(report.data)
     if as_json:
-        emit_json(
-            {
-                "snapshot": snap.id,
-                **report.to_json(),
-                "proxy_sets": {
-                    "start_auc": sets.start_auc,
-                    "method": sets.method,
-                    "rows": sets.rows,
-                    "steps": [asdict(x) for x in sets.steps],
-                },
-                "dependence_by_group": dep,
-                "counterparts": flips,
-            }
-        )
+        emit_json({"snapshot": report.snapshot_id, **data})
         return
+    _print_proxy_table(data)
+    _print_proxy_sets(data["proxy_sets"])
+    _print_dependence(data["dependence_by_group"])
+    _print_counterpart_rates(data["counterparts"])
+
+
+def _print_proxy_table(data: dict[str, Any]) -> None:
+    """The proxy report: one row per feature, proxies first, then how to read it."""
     _heading("Proxies: associated with the group and influential without it")
     t = _grid(
         "feature",
@@ -490,33 +517,36 @@ def proxies(config: Path = ConfigOption, as_json: bool = JsonOption) -> None:
         "proxy",
         right=(2, 3, 4, 5, 6),
     )
-    for pr in sorted(report.rows, key=lambda x: (not x.proxy, not x.possible, -x.association)):
-        peeled = pr.influence if pr.influence_peeled is None else pr.influence_peeled
-        mark = f"{FLAG} PROXY" + (f" (round {pr.round})" if pr.round > 1 else "")
-        mark += " uncertain" if pr.uncertain else ""
+    rows = sorted(
+        data["features"], key=lambda x: (not x["proxy"], not x["possible"], -x["association"])
+    )
+    for pr in rows:
+        peeled = pr["influence"] if pr["influence_peeled"] is None else pr["influence_peeled"]
+        mark = f"{FLAG} PROXY" + (f" (round {pr['round']})" if pr["round"] > 1 else "")
+        mark += " uncertain" if pr["uncertain"] else ""
         t.add_row(
-            _txt(pr.feature),
-            _txt("cat." if pr.kind == "categorical" else "num."),
-            f"{pr.association:.3f}",
-            _span(pr.association_low, pr.association_high),
-            f"{pr.influence:.3f}",
-            _span(pr.influence_low, pr.influence_high),
+            _txt(pr["feature"]),
+            _txt("cat." if pr["kind"] == "categorical" else "num."),
+            f"{pr['association']:.3f}",
+            _span(pr["association_low"], pr["association_high"]),
+            f"{pr['influence']:.3f}",
+            _span(pr["influence_low"], pr["influence_high"]),
             f"{peeled:.3f}",
             _txt(
-                mark if pr.proxy else "possible" if pr.possible else "no",
-                "bold magenta" if pr.proxy else "magenta" if pr.possible else "",
+                mark if pr["proxy"] else "possible" if pr["possible"] else "no",
+                "bold magenta" if pr["proxy"] else "magenta" if pr["possible"] else "",
             ),
         )
     console.print(t)
     level = (
-        f"{100 * report.level:.0f}% bootstrap intervals ({report.n_boot} replicates)"
-        if report.level is not None
+        f"{100 * data['level']:.0f}% bootstrap intervals ({data['n_boot']} replicates)"
+        if data["level"] is not None
         else "point values: no intervals in this snapshot"
     )
     _say(
         f"proxy when the association interval lies at or above "
-        f"{report.association_threshold:g} and the influence interval reaches "
-        f"{report.influence_threshold:g} ([proxies] in the config; "
+        f"{data['association_threshold']:g} and the influence interval reaches "
+        f"{data['influence_threshold']:g} ([proxies] in the config; "
         + level
         + "). uncertain = the influence interval also reaches below its threshold; possible "
         "= the association interval straddles its threshold (add it to [proxies] extra to "
@@ -527,19 +557,27 @@ def proxies(config: Path = ConfigOption, as_json: bool = JsonOption) -> None:
     )
     _say(
         f"group recoverable from all non-group features: held-out AUC "
-        f"{report.recoverability:.3f} (0.5 = not at all, 1 = perfectly)"
+        f"{data['recoverability_auc']:.3f} (0.5 = not at all, 1 = perfectly)"
     )
+
+
+def _print_proxy_sets(sets: dict[str, Any]) -> None:
+    """The greedy proxy-set search, one step a row."""
     _heading("Proxy sets: features that carry the group together")
     t = _grid("step", "taken out", "recoverability left", "drop", right=(0, 2, 3))
-    t.add_row("0", _txt("(none)"), f"{sets.start_auc:.3f}", "")
-    for k, st in enumerate(sets.steps, 1):
-        t.add_row(str(k), _txt(st.removed), f"{st.auc_after:.3f}", f"{st.drop:.3f}")
+    t.add_row("0", _txt("(none)"), f"{sets['start_auc']:.3f}", "")
+    for k, st in enumerate(sets["steps"], 1):
+        t.add_row(str(k), _txt(st["removed"]), f"{st['auc_after']:.3f}", f"{st['drop']:.3f}")
     console.print(t)
     _say(
         "greedy: each step takes out the feature whose removal lowers the held-out AUC of "
-        f"recovering the group most ({sets.method} scores on {sets.rows:,} rows), until it "
-        "is 0.6 or less or five are out"
+        f"recovering the group most ({sets['method']} scores on {sets['rows']:,} rows), until "
+        "it is 0.6 or less or five are out"
     )
+
+
+def _print_dependence(dep: list[dict[str, Any]]) -> None:
+    """How much the pooled margins rest on the group and its proxies, per group."""
     _heading("How much the pooled margins rest on the group and its proxies")
     t = _grid(
         "group",
@@ -568,6 +606,10 @@ def proxies(config: Path = ConfigOption, as_json: bool = JsonOption) -> None:
         "in brackets the share that rests on it but whose verdict could flip within the 95% "
         "interval of the weights taken out (uncertain)"
     )
+
+
+def _print_counterpart_rates(flips: list[dict[str, Any]]) -> None:
+    """Per group: how often a decision changes when the case is carried into another group."""
     _heading("Counterparts: decisions that change in another group")
     t = _grid(
         "group",
@@ -612,28 +654,17 @@ def bands_cmd(
       closecall bands
       closecall bands --epsilon 0.002 --json
     """
-    study = load(config, quiet=as_json)
-    snap = study.snapshot
-    eps = float(study.config.multiplicity.epsilon if epsilon is None else epsilon)
+    study = Study(load(config, quiet=as_json))
+    eps = float(study.opened.config.multiplicity.epsilon if epsilon is None else epsilon)
     if eps <= 0:
         raise UserError(f"--epsilon must be positive, got {eps}", "pass e.g. --epsilon 0.002")
-    per_group = ambiguity_by_group(snap, "pooled", eps, lens, seed=study.config.seed)
-    grid = tuple(sorted({*EPSILON_CURVE, eps}))
-    curve = epsilon_curve(snap, "pooled", grid, lens)
+    report = study.bands(eps, lens)
+    data = dict(report.data)
     if as_json:
-        emit_json(
-            {
-                "snapshot": snap.id,
-                "model": "pooled",
-                "lens": snap.lens(lens).name,
-                "uncertainty_epsilon": UNCERTAINTY_EPSILON,
-                "epsilon": eps,
-                "groups": per_group,
-                "epsilon_curve": curve,
-            }
-        )
+        emit_json({"snapshot": report.snapshot_id, **data})
         return
-    _heading(f"Bands of the pooled model (lens {snap.lens(lens).name}, ε = {_eps_pct(eps)})")
+    per_group, curve = data["groups"], data["epsilon_curve"]
+    _heading(f"Bands of the pooled model (lens {data['lens']}, ε = {_eps_pct(eps)})")
     t = _grid(
         "group",
         "cases",
@@ -658,7 +689,7 @@ def bands_cmd(
         "half-widths are medians in log-odds"
     )
     _heading("Ambiguity as the equally-good set widens")
-    levels = snap.group_levels
+    levels = study.opened.snapshot.group_levels
     t = _grid("ε (share of loss)", "all", *levels, "", right=tuple(range(1, len(levels) + 2)))
     for r in curve:
         mark = "◀ in use" if abs(r["epsilon"] - eps) < 1e-12 else ""
@@ -696,21 +727,19 @@ def compare(
     """
     if boot < 100:
         raise UserError(f"--boot {boot} is too few", "use at least 100 replicates")
-    study = load(config, quiet=as_json)
-    snap = study.snapshot
-    res = compare_models(
-        snap, lens=lens, n_boot=boot, seed=study.config.seed if seed is None else seed
-    )
+    study = Study(load(config, quiet=as_json))
+    report = study.compare(lens=lens, n_boot=boot, seed=seed)
+    res = dict(report.data)
     if as_json:
-        emit_json({"snapshot": snap.id, **res.to_dict()})
+        emit_json({"snapshot": report.snapshot_id, **res})
         return
-    _heading(f"Models against {res.baseline}, per group (held-out, lens {res.lens})")
+    _heading(f"Models against {res['baseline']}, per group (held-out, lens {res['lens']})")
     t = _grid("group", "model", "metric", "value", "Δ", "95 % interval", "verdict", right=(3, 4))
     verdict_style = {"errs less": "green", "errs more": "red"}
     marks = {"errs less": "▼ errs less", "errs more": "▲ errs more"}
     last = None
-    same = identical_models(snap)
-    for r in res.rows:
+    same = study.same_models()
+    for r in res["rows"]:
         if r["model"] in same:
             continue
         t.add_row(
@@ -727,13 +756,13 @@ def compare(
     _say("▼ interval wholly below zero; ▲ wholly above; unclear: it holds zero")
     for note in _same_note(same):
         _say(note)
-    for b in res.best:
+    for b in res["best"]:
         _say(
             f"{safe_text(b['group'])}: lowest {b['metric'].replace('_', '-')} "
             f"with {b['model']} ({b['value']:.3f})"
         )
-    if res.tradeoffs:
-        for tr in res.tradeoffs:
+    if res["tradeoffs"]:
+        for tr in res["tradeoffs"]:
             _say(
                 _txt(
                     f"{FLAG} {tr['model']} ({tr['metric']}) helps {', '.join(tr['helps'])} "

@@ -1,4 +1,4 @@
-"""`closecall ledger export`: the analyst export, a thin layer over closecall.reports.export."""
+"""`closecall ledger export`: the analyst export, a thin layer over ``Study.ledger``."""
 
 from __future__ import annotations
 
@@ -9,17 +9,18 @@ from typing import TYPE_CHECKING
 
 import typer
 
+from closecall.api.study import Ledger, Study
 from closecall.cli.common import ConfigOption, load
 from closecall.cli.errors import fix_words
 from closecall.cli.output import err_console
 from closecall.core.errors import UserError
 from closecall.core.text import escape_text_cells, json_safe, safe_text
-from closecall.review.decisions import ledger_entries
-from closecall.setup.config import load_config
-from closecall.setup.output_files import check_key_file, check_output, study_files
+from closecall.setup.output_files import StudyFile, check_key_file, check_output, study_files
 
 if TYPE_CHECKING:
     import pandas as pd
+
+    from closecall.reports.export import ExportResult
 
 
 class ExportFormat(StrEnum):
@@ -28,37 +29,43 @@ class ExportFormat(StrEnum):
     jsonl = "jsonl"
 
 
+AllEntriesOption = typer.Option(
+    False, "--all-entries", help="Every ledger entry, not only each case's effective review."
+)
+PseudonymiseOption = typer.Option(
+    None,
+    "--pseudonymise",
+    help="Replace case ids with keyed HMAC-SHA256 pseudonyms; the key is kept in this file "
+    "(created, readable by you only, if missing). Same key, same pseudonyms.",
+)
+SpreadsheetOption = typer.Option(
+    False,
+    "--spreadsheet-safe",
+    help="Prefix an apostrophe to text cells that start with = + - @ (also after leading "
+    "whitespace), a tab or a CR, so a spreadsheet opening the file cannot run them as "
+    "formulas (the text is then not byte-exact).",
+)
+OutOption = typer.Option(
+    None,
+    "--out",
+    "-o",
+    help="Write to this file (readable by you only); default stdout. Never one of the "
+    "study's files; an existing file needs --force.",
+)
+
+
 def export(
     fmt: ExportFormat = typer.Option(
         ExportFormat.csv, "--format", "-f", help="csv, parquet or jsonl.", case_sensitive=False
     ),
-    all_entries: bool = typer.Option(
-        False, "--all-entries", help="Every ledger entry, not only each case's effective review."
-    ),
-    key_file: Path | None = typer.Option(
-        None,
-        "--pseudonymise",
-        help="Replace case ids with keyed HMAC-SHA256 pseudonyms; the key is kept in this file "
-        "(created, readable by you only, if missing). Same key, same pseudonyms.",
-    ),
+    all_entries: bool = AllEntriesOption,
+    key_file: Path | None = PseudonymiseOption,
     reviewers: bool = typer.Option(
         False, "--pseudonymise-reviewers", help="Pseudonymise reviewer names too."
     ),
     no_notes: bool = typer.Option(False, "--no-notes", help="Leave the free-text notes out."),
-    spreadsheet: bool = typer.Option(
-        False,
-        "--spreadsheet-safe",
-        help="Prefix an apostrophe to text cells that start with = + - @ (also after leading "
-        "whitespace), a tab or a CR, so a spreadsheet opening the file cannot run them as "
-        "formulas (the text is then not byte-exact).",
-    ),
-    out: Path | None = typer.Option(
-        None,
-        "--out",
-        "-o",
-        help="Write to this file (readable by you only); default stdout. Never one of the "
-        "study's files; an existing file needs --force.",
-    ),
+    spreadsheet: bool = SpreadsheetOption,
+    out: Path | None = OutOption,
     force: bool = typer.Option(False, "--force", help="Replace an existing --out file."),
     config: Path = ConfigOption,
 ) -> None:
@@ -76,14 +83,9 @@ def export(
       closecall ledger export --pseudonymise ~/.closecall-key --no-notes --out reviews.csv
       closecall ledger export --spreadsheet-safe --out reviews-for-excel.csv
     """
-    from closecall.reports.export import (  # heavy: on use
-        export_reviews,
-        spreadsheet_safe,
-        write_export,
-    )
-
-    cfg = load_config(config)
-    entries = ledger_entries(cfg)  # checks read access before anything else
+    ledger = Ledger.open(config)
+    cfg = ledger.config
+    entries = ledger.show()  # checks read access before anything else
     protected = study_files(cfg, key_file=key_file)
     if key_file is not None:  # before anything is fitted or created
         check_key_file(key_file, study_files(cfg))
@@ -91,15 +93,24 @@ def export(
         check_output(out, protected, field="out", force=force, example=f"reviews.{fmt.value}")
     if fmt is ExportFormat.parquet and out is None and sys.stdout.isatty():
         raise UserError("Parquet is binary and will not be printed", "add --out FILE.parquet")
-    study = load(config, quiet=True)
-    result = export_reviews(
-        study,
-        entries,
+    result = Study(load(config, quiet=True)).ledger.export_details(
+        entries=entries,
         all_entries=all_entries,
         key_file=key_file,
         pseudonymise_reviewers=reviewers,
         notes=not no_notes,
     )
+    _tell_about(result)
+    table = result.table
+    if spreadsheet:
+        from closecall.reports.export import spreadsheet_safe  # heavy: on use
+
+        table = spreadsheet_safe(table)
+    _write_table(table, fmt, out, protected, force, result.entries, all_entries)
+
+
+def _tell_about(result: ExportResult) -> None:
+    """On standard error: a key file just created, warnings and what to do about them."""
     if result.key_created and result.key_file is not None:
         err_console.print(
             f"created the key file {safe_text(str(result.key_file))} (mode 600): keep it; the "
@@ -110,7 +121,20 @@ def export(
         err_console.print(f"note: {safe_text(warning)}", markup=False)
     for advice in result.advice:
         err_console.print(f"  fix: {fix_words(advice)}", markup=False)
-    table = spreadsheet_safe(result.table) if spreadsheet else result.table
+
+
+def _write_table(
+    table: pd.DataFrame,
+    fmt: ExportFormat,
+    out: Path | None,
+    protected: tuple[StudyFile, ...],
+    force: bool,
+    read: int,
+    all_entries: bool,
+) -> None:
+    """The table to standard output (escaped) or to the ``out`` file (exact)."""
+    from closecall.reports.export import write_export  # heavy: on use
+
     what = "entries" if all_entries else "effective reviews"
     if out is None:
         sys.stdout.buffer.write(_terminal_bytes(table, fmt.value))
@@ -118,8 +142,7 @@ def export(
         return
     write_export(table, fmt.value, out, protected=protected, force=force)
     err_console.print(
-        f"wrote {len(table)} {what} ({result.entries} ledger entries read) "
-        f"to {safe_text(str(out))}",
+        f"wrote {len(table)} {what} ({read} ledger entries read) to {safe_text(str(out))}",
         markup=False,
     )
 

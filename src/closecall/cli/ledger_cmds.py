@@ -11,7 +11,7 @@ from rich import box
 from rich.table import Table
 from rich.text import Text
 
-from closecall.api.study import Study
+from closecall.api.study import Ledger, Study
 from closecall.cli.common import ConfigOption, FormatOption, JsonOption, load, resolve_format
 from closecall.cli.errors import fix_words
 from closecall.cli.output import Format, console, emit_json, emit_rows
@@ -21,9 +21,9 @@ if TYPE_CHECKING:
     from closecall.review.ledger.verify import VerifyResult
 from closecall.core.errors import UserError
 from closecall.core.vocabulary import ACTIONS
-from closecall.review.decisions import check_text, ledger_entries, verify_ledger
+from closecall.review.decisions import check_text
 from closecall.review.ledger import Entry, canonical_json
-from closecall.setup.config import DEFAULT_REASONS, load_config
+from closecall.setup.config import DEFAULT_REASONS
 
 
 def _read_note_file(path: Path) -> str:
@@ -211,8 +211,9 @@ def show(
       closecall ledger show --case C-000117
       closecall ledger show --reviewer alice --limit 20 --json
     """
-    cfg = load_config(config)
-    entries = ledger_entries(cfg, case_id=case, reviewer=reviewer, limit=limit)
+    ledger = Ledger.open(config)
+    cfg = ledger.config
+    entries = list(ledger.show(case_id=case, reviewer=reviewer, limit=limit).entries)
     fmt = resolve_format(fmt, as_json)
     meta = {"ledger": str(cfg.review.ledger), "count": len(entries)}
     if fmt is Format.json:
@@ -255,8 +256,9 @@ def verify(
       closecall ledger verify
       closecall ledger verify --anchor 3f1c…(64 hex characters)
     """
-    cfg = load_config(config)
-    result = verify_ledger(cfg, anchor, allow_empty=allow_empty)
+    ledger = Ledger.open(config)
+    cfg = ledger.config
+    result = ledger.verify(anchor, allow_empty=allow_empty)
     if as_json:
         emit_json({"ledger": str(cfg.review.ledger), **result.to_dict()})
     else:

@@ -2,15 +2,15 @@
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import typer
 from rich import box
 from rich.table import Table
 from rich.text import Text
 
-from closecall.analysis.margin_distribution import MarginDistribution, margin_distribution
 from closecall.api.results import QueueResult
 from closecall.api.study import Study
 from closecall.cli.common import ConfigOption, FormatOption, JsonOption, load, resolve_format
@@ -18,66 +18,82 @@ from closecall.cli.output import Format, console, emit_rows, format_cell, plain
 from closecall.core.text import safe_text, signed
 from closecall.core.vocabulary import short_model
 from closecall.review.query import QueueQuery
-from closecall.review.queue import SORT_KEYS, group_attribute
+from closecall.review.queue import SORT_KEYS
 from closecall.review.triage import TIER_KEYS, TIERS
+
+if TYPE_CHECKING:
+    from closecall.analysis.margin_distribution import MarginDistribution
+
+
+LimitOption = typer.Option(20, "--limit", "-n", help="How many rows to show (0 = all).")
+GroupOption = typer.Option(None, "--group", "-g", help="Only this group level.")
+FlipsOption = typer.Option(
+    None,
+    "--flips",
+    help="Only flips: 'model' (another model decides otherwise under the first lens), "
+    "'lens' (only another cost lens does) or 'any'.",
+)
+BandOption = typer.Option(None, "--band", help="Review band in log-odds (default: config).")
+AllOption = typer.Option(False, "--all", help="List every case, not only close calls.")
+ChangedByOption = typer.Option(
+    None,
+    "--changed-by",
+    help="Only the cases whose decision this what-if policy changes, close calls or not "
+    "(e.g. 'drop=heritage'; see closecall whatif).",
+)
+SortOption = typer.Option(
+    "triage",
+    "--sort",
+    help=f"One of: {', '.join(SORT_KEYS)}. triage: rests on the group or its proxies, "
+    "then model flips, ambiguous, lens flips, near the threshold.",
+)
+IdOption = typer.Option(None, "--id", help="Only ids starting with this text.")
+AmbiguousOption = typer.Option(
+    False,
+    "--ambiguous",
+    help="Only cases whose equally-good band straddles zero (an equally good model "
+    "would decide them the other way).",
+)
+RestsOnOption = typer.Option(
+    None,
+    "--rests-on",
+    help="Only cases whose decision flips when the 'group' (or the group and its "
+    "'proxies') is set to its history average.",
+)
+UnreviewedOption = typer.Option(
+    False,
+    "--unreviewed",
+    help="Only cases with no decision in the ledger yet (a deferred case is still listed).",
+)
+ChartOption = typer.Option(
+    False,
+    "--chart",
+    help="Also show where each group's margins sit near the threshold (with --json: the "
+    "bin counts).",
+)
+EpsilonOption = typer.Option(
+    None,
+    "--epsilon",
+    help="Relative loss slack of the equally-good set for --ambiguous and --sort "
+    "ambiguity (default: [multiplicity] epsilon).",
+)
 
 
 def queue(
     config: Path = ConfigOption,
-    limit: int = typer.Option(20, "--limit", "-n", help="How many rows to show (0 = all)."),
-    group: str | None = typer.Option(None, "--group", "-g", help="Only this group level."),
-    flips: str | None = typer.Option(
-        None,
-        "--flips",
-        help="Only flips: 'model' (another model decides otherwise under the first lens), "
-        "'lens' (only another cost lens does) or 'any'.",
-    ),
-    band: float | None = typer.Option(
-        None, "--band", help="Review band in log-odds (default: config)."
-    ),
-    all_cases: bool = typer.Option(False, "--all", help="List every case, not only close calls."),
-    changed_by: str | None = typer.Option(
-        None,
-        "--changed-by",
-        help="Only the cases whose decision this what-if policy changes, close calls or not "
-        "(e.g. 'drop=heritage'; see closecall whatif).",
-    ),
-    sort: str = typer.Option(
-        "triage",
-        "--sort",
-        help=f"One of: {', '.join(SORT_KEYS)}. triage: rests on the group or its proxies, "
-        "then model flips, ambiguous, lens flips, near the threshold.",
-    ),
-    id_prefix: str | None = typer.Option(None, "--id", help="Only ids starting with this text."),
-    ambiguous: bool = typer.Option(
-        False,
-        "--ambiguous",
-        help="Only cases whose equally-good band straddles zero (an equally good model "
-        "would decide them the other way).",
-    ),
-    rests_on_part: str | None = typer.Option(
-        None,
-        "--rests-on",
-        help="Only cases whose decision flips when the 'group' (or the group and its "
-        "'proxies') is set to its history average.",
-    ),
-    unreviewed: bool = typer.Option(
-        False,
-        "--unreviewed",
-        help="Only cases with no decision in the ledger yet (a deferred case is still listed).",
-    ),
-    chart: bool = typer.Option(
-        False,
-        "--chart",
-        help="Also show where each group's margins sit near the threshold (with --json: the "
-        "bin counts).",
-    ),
-    epsilon: float | None = typer.Option(
-        None,
-        "--epsilon",
-        help="Relative loss slack of the equally-good set for --ambiguous and --sort "
-        "ambiguity (default: [multiplicity] epsilon).",
-    ),
+    limit: int = LimitOption,
+    group: str | None = GroupOption,
+    flips: str | None = FlipsOption,
+    band: float | None = BandOption,
+    all_cases: bool = AllOption,
+    changed_by: str | None = ChangedByOption,
+    sort: str = SortOption,
+    id_prefix: str | None = IdOption,
+    ambiguous: bool = AmbiguousOption,
+    rests_on_part: str | None = RestsOnOption,
+    unreviewed: bool = UnreviewedOption,
+    chart: bool = ChartOption,
+    epsilon: float | None = EpsilonOption,
     fmt: Format = FormatOption,
     as_json: bool = JsonOption,
 ) -> None:
@@ -111,10 +127,14 @@ def queue(
         changed_by=changed_by,
     )
     study = Study(load(config, quiet=fmt is not Format.table))
-    result = study.queue(query)
+    _show_queue(study, study.queue(query), fmt, chart)
+
+
+def _show_queue(study: Study, result: QueueResult, fmt: Format, chart: bool) -> None:
+    """The queue as a table (with the chart above it), CSV, or JSON rows under a header."""
     rows = result.to_dict()["rows"]
     snap = study.opened.snapshot
-    dist = margin_distribution(snap, result.band, CHART_BINS) if chart else None
+    dist = study.margin_distribution(result.band, CHART_BINS, result.query) if chart else None
     if fmt is Format.table:
         if dist is not None:
             _print_chart(dist)
@@ -135,8 +155,8 @@ def _queue_meta(result: QueueResult, dist: MarginDistribution | None) -> dict[st
         "band": result.band,
         "sort": result.sort,
         "counts": dict(result.counts),
-        "group_attribute": group_attribute(result._snapshot),
-        "same_as": dict(result._answer.queue.same_as),
+        "group_attribute": result.group_attribute,
+        "same_as": dict(result.same_as),
         "filters": {
             "group": query.group,
             "flips": query.flips,
@@ -184,6 +204,8 @@ def _print_chart(dist: MarginDistribution) -> None:
     for g, level in enumerate(labels):
         line = sparkline(dist.counts[g].tolist(), float(dist.counts[g].max()))
         within, total = int(dist.within_band[g]), int(dist.totals[g])
+        if dist.filtered and not total:
+            continue  # a group the filters leave out
         share = f"{within / total:.0%}" if total else "—"
         console.print(
             Text(
@@ -195,6 +217,9 @@ def _print_chart(dist: MarginDistribution) -> None:
     gap = bins // 2 - len(left)
     axis = left + " " * gap + "0" + " " * (bins - bins // 2 - len(right)) + right
     console.print(Text(" " * width + axis + "  margin, log-odds"))
+    if dist.filtered:  # the list's filters, not only its close calls
+        kept = f"{int(dist.totals.sum()):,}"
+        console.print(Text(f"counted: the {kept} cases the filters keep, at any distance"))
     console.print(Text("each group's line is scaled to its own tallest bin", style="dim"))
 
 
@@ -212,7 +237,6 @@ def _print_queue_table(snap: Any, q: QueueResult, rows: list[dict[str, Any]]) ->
 
     Wider terminals also get the margin in log-odds and every model's margin.
     """
-    answer = q._answer.queue  # the engine's queue: tiers and identical models
     table = Table(
         title=f"close calls — snapshot {snap.id} — in {SORT_TITLES.get(q.sort, q.sort)} order",
         header_style="bold",
@@ -221,7 +245,7 @@ def _print_queue_table(snap: Any, q: QueueResult, rows: list[dict[str, Any]]) ->
         pad_edge=False,
         padding=(0, 0),
     )
-    attribute = group_attribute(snap)
+    attribute = q.group_attribute
     label_width = max(TABLE_LABEL, len(attribute), console.width - 80)
     table.add_column("#", justify="right", no_wrap=True)
     table.add_column("case", no_wrap=True)
@@ -236,7 +260,7 @@ def _print_queue_table(snap: Any, q: QueueResult, rows: list[dict[str, Any]]) ->
     used += min(label_width, labels) + 11 + 16 + 20 + 7 * len(q.measures) + 7
     used += 10 if has_state else 0
     shown_models = []
-    for m in (m for m in snap.model_names if m not in answer.same_as):
+    for m in (m for m in snap.model_names if m not in q.same_as):
         width = max(6, len(short_model(m)) + 1) + 1
         if used + width > console.width:
             break
@@ -264,7 +288,7 @@ def _print_queue_table(snap: Any, q: QueueResult, rows: list[dict[str, Any]]) ->
             cells.append(r.get("state", ""))
         table.add_row(*cells)
     console.print(table)
-    footer = _footer(snap, q, answer.same_as, len(rows))
+    footer = _footer(snap, q, q.same_as, len(rows))
     if shown_models:
         footer.append(
             f"{', '.join(short_model(m) for m in shown_models)}: each model's margin in "
@@ -277,7 +301,7 @@ def _print_queue_table(snap: Any, q: QueueResult, rows: list[dict[str, Any]]) ->
 SORT_TITLES = {"triage": "triage", "closeness": "flips-first", "margin": "|margin|"}
 
 
-def _footer(snap: Any, q: QueueResult, same_as: dict[str, str], shown: int) -> list[str]:
+def _footer(snap: Any, q: QueueResult, same_as: Mapping[str, str], shown: int) -> list[str]:
     """What the counts are of (the filters in force), then how to read the columns."""
     c = q.counts
     b = q.band

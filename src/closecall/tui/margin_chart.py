@@ -2,7 +2,9 @@
 
 Each group's line is scaled to its own tallest bin, so the shapes compare across groups of any
 size; the words on the right say how many of the group's cases lie within the review band.
-The axis line below marks the band with ``[`` and ``]`` and the threshold with ``0``.
+The axis line below marks the band with ``[`` and ``]`` and the threshold with ``0``. Under the
+list's filters it counts the cases they keep, at any distance from the threshold, and its axis
+says "filtered"; a group they leave out is said so.
 """
 
 from __future__ import annotations
@@ -28,11 +30,14 @@ class MarginChart(Widget):
         super().__init__(id=id)
         self.session = session
         self._cache: dict[int, GroupChart] = {}
+        self._rows: object = None  # the session's chart rows the cache counts
 
     def lines_needed(self) -> int:
         return min(MAX_GROUPS, len(self.session.snap.group_levels)) + 1
 
     def chart(self, bins: int) -> GroupChart:
+        if self._rows is not self.session.chart_rows:  # the list's filters changed
+            self._cache, self._rows = {}, self.session.chart_rows
         if bins not in self._cache:
             self._cache[bins] = self.session.group_chart(bins)
         return self._cache[bins]
@@ -55,15 +60,19 @@ class MarginChart(Widget):
             counts = chart.counts[g]
             bars = sparkline(counts.tolist(), float(counts.max()))
             text.append(f"{level[: label_w - 1]:<{label_w}}")
+            within, total = int(chart.within_band[g]), int(chart.totals[g])
+            if chart.filtered and not total:
+                text.append(" " * half + "│", axis_style)
+                text.append(" left out by the filters\n", "dim")
+                continue
             for i, ch in enumerate(bars):
                 if i == half:
                     text.append("│", axis_style)
                 text.append(ch, band_style if in_band[i] else None)
-            within, total = int(chart.within_band[g]), int(chart.totals[g])
             text.append(f" {within:>7,} in band {share_of(within, total):>4}\n")
         text.append(" " * label_w)
         text.append(self._axis(bins, chart), axis_style)
-        text.append("  log-odds")
+        text.append("  log-odds, filtered" if chart.filtered else "  log-odds")
         return text
 
     @staticmethod

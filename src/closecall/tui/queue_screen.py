@@ -182,6 +182,7 @@ class QueueScreen(Screen[None]):
 
     def _rebuilt(self, keep_row: int | None) -> None:
         self.query_one(CaseList).reload(keep_row)
+        self.query_one(MarginChart).refresh()  # it counts the cases the filters keep
         self._show_counts()
         q = self.session.queue
         if q is not None and not len(q):

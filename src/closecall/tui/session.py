@@ -14,7 +14,11 @@ from datetime import UTC, datetime
 
 import numpy as np
 
-from closecall.analysis.margin_distribution import MarginDistribution, margin_distribution
+from closecall.analysis.margin_distribution import (
+    MarginDistribution,
+    kept_rows,
+    margin_distribution,
+)
 from closecall.core.errors import AccessDenied
 from closecall.review.conflicts import study_conflicts
 from closecall.review.decisions import active_claims, latest_actions, my_drafts
@@ -103,6 +107,8 @@ class ReviewSession:
         self._masks: dict[str, np.ndarray | None] = {}
         self._bands: tuple[np.ndarray, np.ndarray] | tuple[()] | None = None
         self._position: np.ndarray | None = None
+        #: The rows the chart counts: those the list's filters keep (None: every case).
+        self.chart_rows: np.ndarray | None = None
 
     # ------------------------------------------------------------------ measures
 
@@ -166,16 +172,15 @@ class ReviewSession:
         settings = settings or self.settings
         if settings.sort not in PLAIN_SORTS and self.measure(settings.sort) is None:
             settings = replace(settings, sort="triage")
-        answer = answer_queue(
-            self.study,
-            self.query(settings),
-            reviews=(self.states, {c: [x.reviewer for x in cs] for c, cs in self.claims.items()}),
-            cache=self._analysis_cache(),
-        )
+        query = self.query(settings)
+        reviews = (self.states, {c: [x.reviewer for x in cs] for c, cs in self.claims.items()})
+        answer = answer_queue(self.study, query, reviews=reviews, cache=self._analysis_cache())
+        chart_rows = kept_rows(self.study, query, reviews=reviews, cache=self._analysis_cache())
         q = answer.queue
         position = np.full(self.snap.n_cases, -1, dtype=np.int64)
         position[q.order] = np.arange(len(q.order))
         self.settings, self.queue, self._position = settings, q, position
+        self.chart_rows = chart_rows
         return q
 
     def query(self, settings: ListSettings | None = None) -> QueueQuery:
@@ -266,8 +271,9 @@ class ReviewSession:
     # ------------------------------------------------------------------ chart
 
     def group_chart(self, bins: int) -> GroupChart:
-        """Reference margins per group near the threshold, in ``bins`` equal bins."""
-        return margin_distribution(self.snap, self.band, bins)
+        """Reference margins per group near the threshold, in ``bins`` equal bins: of the
+        cases the list's filters keep, at any distance (every case with no filter)."""
+        return margin_distribution(self.snap, self.band, bins, self.chart_rows)
 
 
 def finite(value: float | None) -> bool:

@@ -470,15 +470,15 @@ def test_connection_lost_mid_record_stores_nothing_and_keeps_the_draft(
         ledger.append(content("one"))
         ledger.drafts.save("x", "A-2", "half written", "uphold", None)
         pid = ledger.connection.info.backend_pid
-        real_hash = pg_store.entry_hash
+        real_chain = pg_store.PgLedger._chain
 
-        def cut_then_hash(fields: dict[str, Any]) -> str:
+        def cut_then_chain(fields: dict[str, Any], head: Any, sign: Any) -> str:
             # the server ends this session while it holds the head lock, mid-transaction
             with psycopg.connect(team["admin"], autocommit=True) as admin:
                 admin.execute("SELECT pg_terminate_backend(%s)", (pid,))
-            return real_hash(fields)
+            return real_chain(fields, head, sign)
 
-        monkeypatch.setattr(pg_store, "entry_hash", cut_then_hash)
+        monkeypatch.setattr(pg_store.PgLedger, "_chain", staticmethod(cut_then_chain))
         with pytest.raises(UserError, match="connection to the ledger database was lost"):
             ledger.append(content("two", case_id="A-2"))
     monkeypatch.undo()
@@ -533,3 +533,94 @@ def test_signed_entries_verify_against_the_authors_key(team: dict[str, str]) -> 
         other = Ed25519PrivateKey.generate().public_key()
         result = ledger.verify(keys={alice: public_text(other)})  # not alice's key
     assert not result.ok
+
+
+# ------------------------------------------------- the pipelined append (two round trips)
+
+
+def _wrap_chain(monkeypatch: pytest.MonkeyPatch, change_head: Any) -> None:
+    """Make the append chain its entry onto a head changed by ``change_head`` (a client that
+    lies about what it read under the lock); the server must still refuse the entry."""
+    from closecall.review.ledger import pg_store
+
+    real_chain = pg_store.PgLedger._chain
+
+    def chain(fields: dict[str, Any], head: Any, sign: Any) -> str:
+        return real_chain(fields, change_head(tuple(head)), sign)
+
+    monkeypatch.setattr(pg_store.PgLedger, "_chain", staticmethod(chain))
+
+
+def test_the_pipelined_append_still_refuses_another_name(
+    team: dict[str, str], monkeypatch: pytest.MonkeyPatch
+) -> None:
+    alice = team["alice"].split("://")[1].split("@")[0]
+    with open_pg_ledger(team["bob"]) as ledger:
+        ledger.append(content("one"))
+        ledger.drafts.save("x", "A-2", "kept", "uphold", None)
+        _wrap_chain(monkeypatch, lambda h: (h[0], h[1], alice, h[3]))  # signs as alice
+        with pytest.raises(AccessDenied):
+            ledger.append(content("forged", case_id="A-2"))
+        monkeypatch.undo()
+        assert ledger.count() == 1 and ledger.verify().ok
+        draft = ledger.drafts.load("x", "A-2")
+        assert draft is not None and draft.note == "kept"  # the draft's removal rolled back
+        assert ledger.append(content("two", case_id="A-2")).seq == 2  # the lock was released
+
+
+@pytest.mark.parametrize(
+    "change",
+    [
+        lambda h: (h[0], "f" * 64, h[2], h[3]),  # a wrong predecessor hash
+        lambda h: (h[0] + 1, h[1], h[2], h[3]),  # a gap in the sequence
+        lambda h: (h[0] - 1, h[1], h[2], h[3]),  # a fork: the same number twice
+    ],
+    ids=["wrong-hash", "gap", "fork"],
+)
+def test_the_pipelined_append_refuses_an_entry_that_does_not_follow_the_head(
+    team: dict[str, str], monkeypatch: pytest.MonkeyPatch, change: Any
+) -> None:
+    with open_pg_ledger(team["alice"]) as ledger:
+        ledger.append(content("one"))
+        ledger.append(content("two", case_id="A-2"))
+        _wrap_chain(monkeypatch, change)
+        with pytest.raises(psycopg.Error, match=r"does not follow the head|duplicate key"):
+            ledger.append(content("three", case_id="A-3"))
+        monkeypatch.undo()
+        assert ledger.count() == 2 and ledger.verify().ok
+        assert ledger.append(content("three", case_id="A-3")).seq == 3
+
+
+def test_a_correction_on_postgresql_must_name_an_earlier_entry_of_the_case(
+    team: dict[str, str],
+) -> None:
+    import dataclasses
+
+    with open_pg_ledger(team["alice"]) as ledger:
+        ledger.append(content("one"))
+        ledger.append(content("two", case_id="A-2"))
+        ledger.drafts.save("x", "A-1", "kept", None, None)
+        for wrong in (2, 99):  # another case's entry; no such entry
+            fix = dataclasses.replace(content("fix"), supersedes=wrong)
+            with pytest.raises(ValueError, match=f"entry {wrong} is not an earlier entry"):
+                ledger.append(fix)
+        assert ledger.count() == 2 and ledger.drafts.load("x", "A-1") is not None
+        fixed = ledger.append(dataclasses.replace(content("fix"), supersedes=1))
+        assert (fixed.seq, fixed.supersedes) == (3, 1) and ledger.verify().ok
+        assert ledger.drafts.load("x", "A-1") is None
+
+
+def test_a_ledger_set_up_by_an_earlier_closecall_asks_for_setup_again(
+    team: dict[str, str],
+) -> None:
+    with psycopg.connect(team["admin"], autocommit=True) as conn:
+        conn.execute("DROP FUNCTION closecall.lock_head_for(text)")  # as before this release
+    with open_pg_ledger(team["alice"]) as ledger:
+        ledger.drafts.save("x", "A-1", "kept", None, None)
+        with pytest.raises(UserError, match="ledger setup") as caught:
+            ledger.append(content("one"))
+        assert "draft is kept" in str(caught.value.fix)
+        assert ledger.count() == 0 and ledger.drafts.load("x", "A-1") is not None
+    setup(team["admin"])
+    with open_pg_ledger(team["alice"]) as ledger:
+        assert ledger.append(content("one")).seq == 1

@@ -27,6 +27,7 @@ PostgreSQL documentation, "Explicit Locking" (row-level locks, SELECT FOR UPDATE
 from __future__ import annotations
 
 import dataclasses
+import hashlib
 import json
 import re
 import urllib.parse
@@ -45,7 +46,6 @@ from closecall.review.ledger.entry import (
     Entry,
     EntryContent,
     canonical_json,
-    entry_hash,
 )
 
 if TYPE_CHECKING:
@@ -159,6 +159,18 @@ def _schema_sql(reviewer: str, analyst: str) -> list[str]:
             LANGUAGE sql SECURITY DEFINER SET search_path = pg_catalog, pg_temp AS $$
             SELECT h.seq, h.hash, session_user::text, clock_timestamp()
             FROM closecall.head h WHERE h.one FOR UPDATE $$""",
+        # what an append sends first: removes the caller's own draft of the case, then locks
+        # the head (one statement, so the append's first round trip carries no more)
+        """CREATE OR REPLACE FUNCTION closecall.lock_head_for(case_id text, OUT seq bigint,
+                OUT hash text, OUT reviewer text, OUT now timestamptz)
+            LANGUAGE plpgsql SECURITY DEFINER SET search_path = pg_catalog, pg_temp AS $$
+            BEGIN
+              DELETE FROM closecall.drafts d
+                WHERE d.reviewer = session_user AND d.case_id = lock_head_for.case_id;
+              SELECT h.seq, h.hash, session_user::text, clock_timestamp()
+                INTO seq, hash, reviewer, now
+                FROM closecall.head h WHERE h.one FOR UPDATE;
+            END $$""",
         """CREATE OR REPLACE FUNCTION closecall.chain_entry() RETURNS trigger
             LANGUAGE plpgsql SECURITY DEFINER SET search_path = pg_catalog, pg_temp AS $$
             DECLARE h record; b jsonb;
@@ -239,12 +251,14 @@ def _schema_sql(reviewer: str, analyst: str) -> list[str]:
               END LOOP;
             END $$""",
         "REVOKE ALL ON FUNCTION closecall.lock_head() FROM PUBLIC",
+        "REVOKE ALL ON FUNCTION closecall.lock_head_for(text) FROM PUBLIC",
         "GRANT SELECT ON closecall.meta TO PUBLIC",
         f"GRANT SELECT ON closecall.entries, closecall.head TO {reviewer}, {analyst}",
         f"GRANT INSERT ON closecall.entries TO {reviewer}",
         f"GRANT SELECT, INSERT, UPDATE, DELETE ON closecall.drafts, closecall.claims TO {reviewer}",
         f"GRANT SELECT ON closecall.claims TO {analyst}",  # who has a case open: all may see
         f"GRANT EXECUTE ON FUNCTION closecall.lock_head() TO {reviewer}",
+        f"GRANT EXECUTE ON FUNCTION closecall.lock_head_for(text) TO {reviewer}",
         "INSERT INTO closecall.meta VALUES ('application', 'closecall-ledger') "
         "ON CONFLICT (key) DO NOTHING",
         f"INSERT INTO closecall.meta VALUES ('entry_format', '{ENTRY_FORMAT}') "
@@ -349,6 +363,14 @@ class PgLedger:
         The head row is locked first, so concurrent writers queue; the server checks the link,
         the hash and the identity before the insert stands, and the whole entry commits or
         nothing does.
+
+        The lock is held for as short a time as the chain allows: everything that does not
+        depend on the head is prepared before it is taken, and the statements go in pipeline
+        mode (PostgreSQL's extended query protocol without a wait after each statement), so an
+        append holds the lock for one round trip to the server: (1) BEGIN, the ``supersedes``
+        check and ``closecall.lock_head_for`` (which removes the caller's draft of the case and
+        locks the head); then, once the entry is numbered, signed and hashed against that
+        head, (2) the INSERT and the COMMIT; (3) the pipeline's closing sync, after the lock.
         """
         import psycopg
 
@@ -357,68 +379,54 @@ class PgLedger:
         if self.readonly:
             raise RuntimeError("ledger opened read-only")
         _check_content(content)
-        decisions = json.loads(canonical_json(content.decisions))
+        fields = self._unchained_fields(content)  # before the lock: all but the head's part
         conn = self._conn
         try:
-            if content.supersedes is not None:
-                earlier = conn.execute(
-                    "SELECT case_id FROM closecall.entries WHERE seq = %s", (content.supersedes,)
-                ).fetchone()
-                if earlier is None or earlier[0] != content.case_id:
-                    raise ValueError(
-                        f"entry {content.supersedes} is not an earlier entry for {content.case_id}"
-                    )
-            # before the lock (rolled back with the entry if it fails): the lock is held
-            # only for reading the head, the insert and the commit
-            conn.execute(
-                "DELETE FROM closecall.drafts WHERE reviewer = session_user AND case_id = %s",
-                (content.case_id,),
-            )
-            head_seq, head_hash, user, now = conn.execute(
-                "SELECT * FROM closecall.lock_head()"
-            ).fetchone()  # type: ignore[misc]
-            fields: dict[str, Any] = {
-                "seq": int(head_seq) + 1,
-                "format": ENTRY_FORMAT,
-                "time": utc_iso(now),
-                "reviewer": str(user),
-                "case_id": content.case_id,
-                "snapshot_id": content.snapshot_id,
-                "current_snapshot_id": content.current_snapshot_id,
-                "reference_model": content.reference_model,
-                "reference_decision": content.reference_decision,
-                "reference_margin": (
-                    None if content.reference_margin is None else float(content.reference_margin)
-                ),
-                "decisions": decisions,
-                "action": content.action,
-                "reason": content.reason,
-                "note": content.note,
-                "supersedes": content.supersedes,
-                "prev_hash": str(head_hash),
-            }
-            if "signature" in HASHED_FIELDS:  # the author signs inside the lock
-                signed = _entry.signed_message  # type: ignore[attr-defined,unused-ignore]
-                fields["signature"] = sign(signed(fields)) if sign is not None else None
-            names = _hashed_names(ENTRY_FORMAT)
-            body = canonical_json({k: fields[k] for k in names}).decode("utf-8")
-            fields["hash"] = entry_hash(fields)
-            conn.execute(
-                "INSERT INTO closecall.entries (seq, case_id, action, body, hash, prev_hash) "
-                "VALUES (%s, %s, %s, %s, %s, %s)",
-                (
-                    fields["seq"],
-                    content.case_id,
-                    content.action,
-                    body,
-                    fields["hash"],
-                    fields["prev_hash"],
-                ),
-            )
-            conn.commit()
+            with conn.pipeline():
+                earlier = (
+                    None
+                    if content.supersedes is None
+                    else conn.execute(_SUPERSEDES_SQL, (content.supersedes,))
+                )
+                # round trip 1: the draft goes and the head is locked (held from here)
+                head = conn.execute(_LOCK_HEAD_SQL, (content.case_id,)).fetchone()
+                if earlier is not None:
+                    row = earlier.fetchone()
+                    if row is None or row[0] != content.case_id:
+                        raise ValueError(
+                            f"entry {content.supersedes} is not an earlier entry for "
+                            f"{content.case_id}"
+                        )
+                assert head is not None
+                body = self._chain(fields, head, sign)
+                conn.execute(
+                    _INSERT_SQL,
+                    (
+                        fields["seq"],
+                        content.case_id,
+                        content.action,
+                        body,
+                        fields["hash"],
+                        fields["prev_hash"],
+                    ),
+                )
+                conn.commit()  # round trip 2: INSERT + COMMIT; the lock goes with the commit
         except psycopg.errors.InsufficientPrivilege as exc:
             conn.rollback()
             raise self._denied("record reviews", exc) from None
+        except psycopg.errors.UndefinedFunction:
+            conn.rollback()
+            raise UserError(
+                f"{self.path}: the ledger database was set up by an earlier closecall "
+                "(closecall.lock_head_for is missing); nothing was recorded",
+                f"ask the database's owner to run: closecall ledger setup '{self.path}' "
+                "(it brings the schema up to date and keeps every entry); your draft is kept",
+            ) from None
+        except psycopg.errors.SerializationFailure:
+            # the server refused an entry that does not follow the head: a client bug, not a
+            # lost connection (an OperationalError too); the entry and the draft's removal go
+            conn.rollback()
+            raise
         except psycopg.OperationalError as exc:
             raise UserError(
                 f"{self.path}: the connection to the ledger database was lost while recording "
@@ -432,6 +440,48 @@ class PgLedger:
                 conn.rollback()
             raise
         return Entry(**fields)
+
+    @staticmethod
+    def _unchained_fields(content: EntryContent) -> dict[str, Any]:
+        """An entry's fields that do not depend on the head (filled in under the lock)."""
+        return {
+            "seq": None,
+            "format": ENTRY_FORMAT,
+            "time": None,
+            "reviewer": None,
+            "case_id": content.case_id,
+            "snapshot_id": content.snapshot_id,
+            "current_snapshot_id": content.current_snapshot_id,
+            "reference_model": content.reference_model,
+            "reference_decision": content.reference_decision,
+            "reference_margin": (
+                None if content.reference_margin is None else float(content.reference_margin)
+            ),
+            "decisions": json.loads(canonical_json(content.decisions)),
+            "action": content.action,
+            "reason": content.reason,
+            "note": content.note,
+            "supersedes": content.supersedes,
+            "prev_hash": None,
+        }
+
+    @staticmethod
+    def _chain(
+        fields: dict[str, Any], head: tuple[Any, ...], sign: Callable[[bytes], str] | None
+    ) -> str:
+        """Fill in ``fields`` from the locked head (seq, prev_hash, session user, server
+        time), sign them and hash them; the canonical body to store."""
+        head_seq, head_hash, user, now = head
+        fields["seq"] = int(head_seq) + 1
+        fields["prev_hash"] = str(head_hash)
+        fields["reviewer"] = str(user)
+        fields["time"] = utc_iso(now)
+        if "signature" in HASHED_FIELDS:  # the author signs inside the lock
+            signed = _entry.signed_message  # type: ignore[attr-defined,unused-ignore]
+            fields["signature"] = sign(signed(fields)) if sign is not None else None
+        body = canonical_json({k: fields[k] for k in _hashed_names(ENTRY_FORMAT)})
+        fields["hash"] = hashlib.sha256(body).hexdigest()
+        return body.decode("utf-8")
 
     def role_name(self, which: str) -> str:
         """The group role ``reviewer_role`` or ``analyst_role`` that setup named."""
@@ -945,10 +995,13 @@ def verify_database(
         return verify_opened(ledger, ledger.path, anchor, allow_empty=allow_empty, keys=keys)
 
 
-_COPY_SQL = (
+_SUPERSEDES_SQL = "SELECT case_id FROM closecall.entries WHERE seq = %s"
+_LOCK_HEAD_SQL = "SELECT * FROM closecall.lock_head_for(%s)"
+_INSERT_SQL = (
     "INSERT INTO closecall.entries (seq, case_id, action, body, hash, prev_hash) "
     "VALUES (%s, %s, %s, %s, %s, %s)"
 )
+_COPY_SQL = _INSERT_SQL
 
 
 def open_pg_ledger(url: str, *, readonly: bool = False, inspect: bool = False) -> PgLedger:

@@ -106,38 +106,10 @@ def explain_case(
     snap: Snapshot = study.snapshot
     config = study.config
     i = snap.case_index(case_id)
-    rows = np.array([i])
     lens_obj = snap.lens(lens)
     values = case_values(snap, i)
-
-    dep = dependence(snap, MODEL, lens, rows)
-    rests_unc = rests_on_uncertainty(snap, dep)
-    order = np.argsort(-np.abs(dep.contributions[0]), kind="stable")
-    contrib = [
-        {
-            "feature": dep.features[j],
-            "role": dep.roles[j],
-            "value": values.get(dep.features[j]),
-            "contribution": float(dep.contributions[0, j]),
-        }
-        for j in order
-    ]
-    margin = float(dep.margin[0])
-
-    eps = float(config.multiplicity.epsilon)
-    b = bands(snap, MODEL, eps, lens)
-    unc, eg = float(b.uncertainty[i]), float(b.equally_good[i])
-    exact_part = None
-    if exact:
-        ex = exact_band(study, case_id, eps, model=MODEL, lens=lens)
-        exact_part = {
-            k: ex[k] for k in ("low", "high", "closed_low", "closed_high", "slack", "epsilon")
-        }
-        exact_part["unbounded"] = bool(not np.isfinite(ex["low"]) or not np.isfinite(ex["high"]))
-        for k in ("low", "high"):
-            if not np.isfinite(exact_part[k]):
-                exact_part[k] = None
-
+    margin, dep_part = _dependence_part(snap, i, values, lens)
+    bands_part = _bands_part(study, case_id, i, margin, lens, exact)
     neighbours = _with_reviews(config, neighbours_for_case(snap, i, config.multiplicity.neighbours))
     return {
         "case_id": str(snap.case_ids[i]),
@@ -153,42 +125,9 @@ def explain_case(
         "margin": margin,
         "decision": decision_word(margin > 0),
         "decisions": snap.decisions_for(i, lens),
-        "dependence": {
-            "baseline": float(dep.baseline[0]),
-            "contributions": contrib,
-            "group_part": float(dep.group_part[0]),
-            "proxy_part": float(dep.proxy_part[0]),
-            "rest": float(dep.rest[0]),
-            "dependence": float(dep.dependence[0]),
-            "share": float(dep.share[0]),
-            "margin_group_neutral": float(dep.margin_group_neutral[0]),
-            "margin_neutral": float(dep.margin_neutral[0]),
-            "rests_on_group": bool(dep.rests_on_group[0]),
-            "rests_on_proxies": bool(dep.rests_on_proxies[0]),
-            "group_part_se": float(rests_unc.group_se[0]),
-            "dependence_se": float(rests_unc.dependence_se[0]),
-            "rests_on_group_uncertain": bool(rests_unc.group_uncertain[0]),
-            "rests_on_proxies_uncertain": bool(rests_unc.proxies_uncertain[0]),
-        },
+        "dependence": dep_part,
         "counterparts": counterparts_for_case(snap, i, MODEL, lens),
-        "bands": {
-            "uncertainty": {
-                "epsilon": UNCERTAINTY_EPSILON,
-                "low": margin - unc,
-                "high": margin + unc,
-                "straddles_zero": bool(abs(margin) <= unc),
-            },
-            "equally_good": {
-                "epsilon": eps,
-                "slack": float(b.slack[i]),
-                "low": margin - eg,
-                "high": margin + eg,
-                "straddles_zero": bool(abs(margin) <= eg),
-            },
-            "flip_epsilon": float(b.flip_epsilon[i]),
-            "quad": float(b.quad[i]),
-            "exact": exact_part,
-        },
+        "bands": bands_part,
         "neighbours": neighbours,
         "proxies": {
             "flagged": snap.proxies.proxies,
@@ -202,6 +141,80 @@ def explain_case(
             snap, i, values, [str(n["case_id"]) for n in neighbours["neighbours"]]
         ),
     }
+
+
+def _dependence_part(
+    snap: Snapshot, i: int, values: dict[str, Any], lens: str | None
+) -> tuple[float, dict[str, Any]]:
+    """The case's margin and its "dependence" section: contributions, parts, neutral margins."""
+    dep = dependence(snap, MODEL, lens, np.array([i]))
+    rests_unc = rests_on_uncertainty(snap, dep)
+    order = np.argsort(-np.abs(dep.contributions[0]), kind="stable")
+    contrib = [
+        {
+            "feature": dep.features[j],
+            "role": dep.roles[j],
+            "value": values.get(dep.features[j]),
+            "contribution": float(dep.contributions[0, j]),
+        }
+        for j in order
+    ]
+    return float(dep.margin[0]), {
+        "baseline": float(dep.baseline[0]),
+        "contributions": contrib,
+        "group_part": float(dep.group_part[0]),
+        "proxy_part": float(dep.proxy_part[0]),
+        "rest": float(dep.rest[0]),
+        "dependence": float(dep.dependence[0]),
+        "share": float(dep.share[0]),
+        "margin_group_neutral": float(dep.margin_group_neutral[0]),
+        "margin_neutral": float(dep.margin_neutral[0]),
+        "rests_on_group": bool(dep.rests_on_group[0]),
+        "rests_on_proxies": bool(dep.rests_on_proxies[0]),
+        "group_part_se": float(rests_unc.group_se[0]),
+        "dependence_se": float(rests_unc.dependence_se[0]),
+        "rests_on_group_uncertain": bool(rests_unc.group_uncertain[0]),
+        "rests_on_proxies_uncertain": bool(rests_unc.proxies_uncertain[0]),
+    }
+
+
+def _bands_part(
+    study: Any, case_id: str, i: int, margin: float, lens: str | None, exact: bool
+) -> dict[str, Any]:
+    """The case's "bands" section: uncertainty, equally-good, flip ε and (optionally) exact."""
+    snap: Snapshot = study.snapshot
+    eps = float(study.config.multiplicity.epsilon)
+    b = bands(snap, MODEL, eps, lens)
+    unc, eg = float(b.uncertainty[i]), float(b.equally_good[i])
+    return {
+        "uncertainty": {
+            "epsilon": UNCERTAINTY_EPSILON,
+            "low": margin - unc,
+            "high": margin + unc,
+            "straddles_zero": bool(abs(margin) <= unc),
+        },
+        "equally_good": {
+            "epsilon": eps,
+            "slack": float(b.slack[i]),
+            "low": margin - eg,
+            "high": margin + eg,
+            "straddles_zero": bool(abs(margin) <= eg),
+        },
+        "flip_epsilon": float(b.flip_epsilon[i]),
+        "quad": float(b.quad[i]),
+        "exact": _exact_part(study, case_id, eps, lens) if exact else None,
+    }
+
+
+def _exact_part(study: Any, case_id: str, eps: float, lens: str | None) -> dict[str, Any]:
+    """The equally-good band solved exactly; an edge the set does not have is None."""
+    ex = exact_band(study, case_id, eps, model=MODEL, lens=lens)
+    part = {k: ex[k] for k in ("low", "high", "closed_low", "closed_high", "slack", "epsilon")}
+    part["unbounded"] = bool(not np.isfinite(ex["low"]) or not np.isfinite(ex["high"]))
+    for k in ("low", "high"):
+        if not np.isfinite(part[k]):
+            part[k] = None
+    return part
 
 
 def _with_reviews(config: Any, nb: dict[str, Any]) -> dict[str, Any]:

@@ -219,6 +219,20 @@ def record_review(
     check_action(action)
     reason = check_reason(config, action, reason)
     check_note(action, note)
+    content = _entry_content(study, login, case_id, action, reason, note, supersedes)
+    return _append_unless_collision(config, content, sign, seen_seq, second_opinion)
+
+
+def _entry_content(
+    study: OpenedStudy,
+    login: str,
+    case_id: str,
+    action: str,
+    reason: str | None,
+    note: str,
+    supersedes: int | None,
+) -> EntryContent:
+    """The entry to record: the reviewer's decision beside every model's decision and margin."""
     snap = study.snapshot
     _recheck_snapshot(study)
     index = snap.case_index(case_id)
@@ -227,7 +241,7 @@ def record_review(
     if reference is None:  # an internal inconsistency of the snapshot, not a user error
         raise RuntimeError(f"snapshot {snap.id} has no decision for reference {snap.reference}")
     current = _current_snapshot_id(study)
-    content = EntryContent(
+    return EntryContent(
         reviewer=login,
         case_id=case_id,
         snapshot_id=str(snap.id),
@@ -241,6 +255,17 @@ def record_review(
         note=note,
         supersedes=supersedes,
     )
+
+
+def _append_unless_collision(
+    config: StudyConfig,
+    content: EntryContent,
+    sign: Callable[[bytes], str] | None,
+    seen_seq: int | None,
+    second_opinion: bool,
+) -> Entry:
+    """Append the entry, unless its superseded entry is wrong or another decision is in force."""
+    case_id, supersedes = content.case_id, content.supersedes
     if supersedes is not None:
         _check_supersedes(config, case_id, supersedes)
     from closecall.review.conflicts import check_no_collision
@@ -250,7 +275,7 @@ def record_review(
         check_no_collision(
             config,
             case_id,
-            login,
+            content.reviewer,
             seen_seq=seen_seq,
             supersedes=supersedes,
             second_opinion=second_opinion,

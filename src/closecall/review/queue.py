@@ -148,15 +148,7 @@ def build_queue(
     triage : the analysis filters the triage tiers read (rests on the group, on the group and
         its proxies, ambiguous); None: the tiers use the flips only
     """
-    if sort not in SORT_KEYS:
-        raise UserError(f"unknown sort key '{sort}'", Fix("sort", allowed=tuple(SORT_KEYS)))
-    check_queue_numbers(band, (options or {}).get("epsilon"))
-    if rests_on_part is not None and rests_on_part not in RESTS_ON:
-        raise UserError(
-            f"unknown part '{rests_on_part}'",
-            Fix("rests_on", allowed=tuple(RESTS_ON)),
-            about="rests_on",
-        )
+    _check_request(sort, band, options, rests_on_part)
     options = options or {}
     flip_kind = _flip_kind(flips_only)
     margin = np.asarray(snap.margins(snap.reference))
@@ -169,6 +161,43 @@ def build_queue(
         keep &= close | flip
     if flip_kind is not None:
         keep &= {"any": flip, "model": kinds.model, "lens": kinds.lens}[flip_kind]
+    keep &= _case_filter(snap, group, id_prefix, exclude_rows)
+    measures = _analysis_filter(snap, keep, ambiguous_only, rests_on_part, options)
+    rows = np.flatnonzero(keep)
+    triage = triage or TriageInputs()
+    tier = triage_tiers(kinds, triage.rests_on, triage.ambiguous)
+    order = _ordered(snap, rows, sort, measures, options, margin, flip, tier)
+    counts = {
+        "cases": int(snap.n_cases),
+        "close_calls": int((close | flip).sum()),
+        **listed_counts(order, close, kinds, tier),
+    }
+    return Queue(
+        snap.id, order, margin, grid, band, sort, counts, measures, tier, triage.rests_group,
+        identical_models(snap),
+    )  # fmt: skip
+
+
+def _check_request(
+    sort: str, band: float, options: dict[str, Any] | None, rests_on_part: str | None
+) -> None:
+    """Refuse an unknown sort key or part, or a band or ε the queue cannot use."""
+    if sort not in SORT_KEYS:
+        raise UserError(f"unknown sort key '{sort}'", Fix("sort", allowed=tuple(SORT_KEYS)))
+    check_queue_numbers(band, (options or {}).get("epsilon"))
+    if rests_on_part is not None and rests_on_part not in RESTS_ON:
+        raise UserError(
+            f"unknown part '{rests_on_part}'",
+            Fix("rests_on", allowed=tuple(RESTS_ON)),
+            about="rests_on",
+        )
+
+
+def _case_filter(
+    snap: Snapshot, group: str | None, id_prefix: str | None, exclude_rows: np.ndarray | None
+) -> np.ndarray:
+    """Boolean mask of the cases of one group level, with an id prefix, not excluded."""
+    keep = np.ones(snap.n_cases, dtype=bool)
     if group is not None:
         if group not in snap.group_levels:
             raise UserError(
@@ -179,6 +208,17 @@ def build_queue(
         keep &= np.char.startswith(np.asarray(snap.case_ids), id_prefix)
     if exclude_rows is not None:
         keep &= ~exclude_rows
+    return keep
+
+
+def _analysis_filter(
+    snap: Snapshot,
+    keep: np.ndarray,
+    ambiguous_only: bool,
+    rests_on_part: str | None,
+    options: dict[str, Any],
+) -> dict[str, np.ndarray]:
+    """Narrow ``keep`` in place to ambiguous cases or those resting on a part; their measures."""
     measures: dict[str, np.ndarray] = {}
     if ambiguous_only:
         from closecall.analysis.multiplicity import ambiguous_cases
@@ -190,31 +230,32 @@ def build_queue(
 
         keep &= rests_on(snap, rests_on_part, options.get("model", "pooled"))
         measures["dependence"] = MEASURES["dependence"](snap, options)
-    rows = np.flatnonzero(keep)
+    return measures
+
+
+def _ordered(
+    snap: Snapshot,
+    rows: np.ndarray,
+    sort: str,
+    measures: dict[str, np.ndarray],
+    options: dict[str, Any],
+    margin: np.ndarray,
+    flip: np.ndarray,
+    tier: np.ndarray,
+) -> np.ndarray:
+    """The kept rows in the order of ``sort`` (a measure it needs is added to ``measures``)."""
     if sort in ("ambiguity", "dependence"):
         if sort not in measures:
             measures[sort] = MEASURES[sort](snap, options)
         key = measures[sort][rows]
-        order = rows[np.lexsort((np.abs(margin[rows]), -key))]
-    elif sort == "margin":
-        order = rows[np.argsort(np.abs(margin[rows]), kind="stable")]
-    elif sort == "id":
-        order = rows[np.argsort(np.asarray(snap.case_ids)[rows], kind="stable")]
-    elif sort == "closeness":  # flips first, then by |margin|
-        order = rows[np.lexsort((np.abs(margin[rows]), ~flip[rows]))]
-    triage = triage or TriageInputs()
-    tier = triage_tiers(kinds, triage.rests_on, triage.ambiguous)
-    if sort == "triage":
-        order = triage_order(rows, tier, margin)
-    counts = {
-        "cases": int(snap.n_cases),
-        "close_calls": int((close | flip).sum()),
-        **listed_counts(order, close, kinds, tier),
-    }
-    return Queue(
-        snap.id, order, margin, grid, band, sort, counts, measures, tier, triage.rests_group,
-        identical_models(snap),
-    )  # fmt: skip
+        return rows[np.lexsort((np.abs(margin[rows]), -key))]
+    if sort == "margin":
+        return rows[np.argsort(np.abs(margin[rows]), kind="stable")]
+    if sort == "id":
+        return rows[np.argsort(np.asarray(snap.case_ids)[rows], kind="stable")]
+    if sort == "closeness":  # flips first, then by |margin|
+        return rows[np.lexsort((np.abs(margin[rows]), ~flip[rows]))]
+    return triage_order(rows, tier, margin)
 
 
 def listed_counts(

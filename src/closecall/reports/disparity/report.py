@@ -148,77 +148,20 @@ def build_report(
     """
     check_report_parameters(n_boot, seed)
     df = check_reviews(reviews)
-    groups = group_order(df)
-    with_outcome = "outcome" in df.columns
     rates = favourable_rates(df, level=level, n_boot=n_boot, seed=seed)
     overrides = override_rates(df, level=level, seed=seed)
     conditional = tuple(
         conditional_disparity(df, d, reference_group=reference_group, level=level)
         for d in ("to_unfavourable", "to_favourable")
     )
-    errors = error_rates(df, level=level) if with_outcome else None
+    errors = error_rates(df, level=level) if "outcome" in df.columns else None
     reviewers = reviewer_tables(df, level=level, seed=seed)
     periods = by_period(df, period, level=level, seed=seed) if "time" in df.columns else None
-    warn: list[str] = [
-        "the reviewed-case rates describe close calls only; the whole-population section "
-        "gives every case"
-        if population is not None
-        else "the rates describe reviewed cases only (close calls), not every decision the "
-        "model made"
-    ]
-    small = [r.group for r in rates.rows if r.decided < SMALL_CELL]
-    if small:
-        warn.append(
-            f"fewer than {SMALL_CELL} decided reviews in group(s) {', '.join(small)}: "
-            "read the intervals, not the point values"
-        )
-    deferred = int((~df["decided"]).sum())
-    if deferred:
-        warn.append(f"{deferred} deferred review(s) have no final decision and are left out")
-    pop = None
-    if population is not None:
-        pop, missing = _population(df, population, level, n_boot, seed)
-        if missing:
-            warn.append(
-                f"{missing} reviewed case(s) are not among the cases under review and are left "
-                "out of the whole-population figures"
-            )
-    calibration = heldout = None
-    if history is not None:
-        calibration = calibration_by_group(
-            history.held_out,
-            history.y,
-            history.group_codes,
-            history.levels,
-            history.lenses,
-            level=level,
-            source=history.source,
-        )
-        heldout = held_out_error_rates(
-            history.held_out,
-            history.y,
-            history.group_codes,
-            history.levels,
-            history.lenses,
-            level=level,
-            source=history.source,
-        )
-    families = _families(overrides, conditional, reviewers, periods, calibration, heldout, errors)
-    summary = ReviewSummary(
-        reviews=len(df),
-        decided=int(df["decided"].sum()),
-        deferred=deferred,
-        groups=tuple(groups),
-        reviewers=int(df["reviewer"].nunique()),
-        with_outcome=(int((df["decided"] & df["outcome"].notna()).sum()) if with_outcome else None),
-        margin_min=float(df["margin"].min()),
-        margin_max=float(df["margin"].max()),
-        level=level,
-        n_boot=n_boot,
-        seed=seed,
-    )
+    warn = _review_warnings(df, rates, population is not None)
+    pop = None if population is None else _population(df, population, level, n_boot, seed, warn)
+    calibration, heldout = _history_sections(history, level)
     return DisparityReport(
-        summary=summary,
+        summary=_summary(df, level, n_boot, seed),
         rates=rates,
         overrides=overrides,
         conditional=conditional,
@@ -231,15 +174,89 @@ def build_report(
         calibration=calibration,
         heldout_errors=heldout,
         periods=periods,
-        families=families,
+        families=_families(
+            overrides, conditional, reviewers, periods, calibration, heldout, errors
+        ),
         test_power=_override_power(overrides),
     )
 
 
+def _review_warnings(df: pd.DataFrame, rates: RateComparison, whole: bool) -> list[str]:
+    """What the reviewed-case figures describe, small groups, and left-out deferrals."""
+    warn: list[str] = [
+        "the reviewed-case rates describe close calls only; the whole-population section "
+        "gives every case"
+        if whole
+        else "the rates describe reviewed cases only (close calls), not every decision the "
+        "model made"
+    ]
+    small = [r.group for r in rates.rows if r.decided < SMALL_CELL]
+    if small:
+        warn.append(
+            f"fewer than {SMALL_CELL} decided reviews in group(s) {', '.join(small)}: "
+            "read the intervals, not the point values"
+        )
+    deferred = int((~df["decided"]).sum())
+    if deferred:
+        warn.append(f"{deferred} deferred review(s) have no final decision and are left out")
+    return warn
+
+
+def _history_sections(
+    history: HistoryInput | None, level: float
+) -> tuple[CalibrationReport | None, HeldOutErrors | None]:
+    """Calibration and held-out error rates by group, when the history's scores are given."""
+    if history is None:
+        return None, None
+    calibration = calibration_by_group(
+        history.held_out,
+        history.y,
+        history.group_codes,
+        history.levels,
+        history.lenses,
+        level=level,
+        source=history.source,
+    )
+    heldout = held_out_error_rates(
+        history.held_out,
+        history.y,
+        history.group_codes,
+        history.levels,
+        history.lenses,
+        level=level,
+        source=history.source,
+    )
+    return calibration, heldout
+
+
+def _summary(df: pd.DataFrame, level: float, n_boot: int, seed: int) -> ReviewSummary:
+    """What the report rests on: counts of reviews, groups, reviewers and margins."""
+    with_outcome = "outcome" in df.columns
+    return ReviewSummary(
+        reviews=len(df),
+        decided=int(df["decided"].sum()),
+        deferred=int((~df["decided"]).sum()),
+        groups=tuple(group_order(df)),
+        reviewers=int(df["reviewer"].nunique()),
+        with_outcome=(int((df["decided"] & df["outcome"].notna()).sum()) if with_outcome else None),
+        margin_min=float(df["margin"].min()),
+        margin_max=float(df["margin"].max()),
+        level=level,
+        n_boot=n_boot,
+        seed=seed,
+    )
+
+
 def _population(
-    df: pd.DataFrame, population: PopulationInput, level: float, n_boot: int, seed: int
-) -> tuple[PopulationEffect, int]:
-    """The whole-population effect; reviews are matched to cases by id (vectorised)."""
+    df: pd.DataFrame,
+    population: PopulationInput,
+    level: float,
+    n_boot: int,
+    seed: int,
+    warn: list[str],
+) -> PopulationEffect:
+    """The whole-population effect; reviews are matched to cases by id (vectorised), and a
+    warning added to ``warn`` for reviewed cases that are not among them."""
     ids = pd.Index(np.asarray(population.case_ids).astype(str))
     rows = ids.get_indexer(pd.Index(df["case_id"].astype(str)))
     found = rows >= 0
@@ -254,7 +271,13 @@ def _population(
         n_boot=n_boot,
         seed=seed,
     )
-    return effect, int((~found).sum())
+    missing = int((~found).sum())
+    if missing:
+        warn.append(
+            f"{missing} reviewed case(s) are not among the cases under review and are left "
+            "out of the whole-population figures"
+        )
+    return effect
 
 
 def _override_power(overrides: OverrideComparison) -> tuple[tuple[str, Detectable], ...]:
@@ -297,6 +320,21 @@ def _families(
     errors: ErrorComparison | None,
 ) -> tuple[Family, ...]:
     """The report's tests in stated families, each corrected by Holm and Benjamini–Hochberg."""
+    out = [_review_family(overrides, conditional, reviewers, periods)]
+    if calibration is not None and heldout is not None:
+        out.append(_model_family(calibration, heldout))
+    if errors is not None:
+        out.append(_outcomes_family(errors))
+    return tuple(out)
+
+
+def _review_family(
+    overrides: OverrideComparison,
+    conditional: tuple[ConditionalFit, ...],
+    reviewers: tuple[ReviewerTable, ...],
+    periods: PeriodReport | None,
+) -> Family:
+    """Every test of whether review outcomes depend on the group, corrected as one family."""
     review: list[tuple[str, str, float | None]] = [
         ("overrides", t.name, t.p_value) for t in overrides.tests
     ]
@@ -314,75 +352,57 @@ def _families(
         review += [
             ("by period", f"{p.period}: override × group", p.test.p_value) for p in periods.periods
         ]
-    out = [
-        correct_family(
-            "review",
-            "every test in this report of whether review outcomes depend on the group: the "
-            "override × group tables, the odds ratios at equal margin, each reviewer's table"
-            + (
-                " and each period's table"
-                if periods is not None and len(periods.periods) > 1
-                else ""
-            ),
-            review,
-        )
-    ]
-    if calibration is not None and heldout is not None:
-        model: list[tuple[str, str, float | None]] = []
-        for c in calibration.rows:
-            if c.group == "all":
-                continue
-            model.append(
-                ("calibration", f"{c.model} {c.group}: intercept = 0", _finite(c.intercept_p))
-            )
-            model.append(("calibration", f"{c.model} {c.group}: slope = 1", _finite(c.slope_p)))
-        for e in heldout.rows:
-            if e.ff_gap is not None:
+    return correct_family(
+        "review",
+        "every test in this report of whether review outcomes depend on the group: the "
+        "override × group tables, the odds ratios at equal margin, each reviewer's table"
+        + (" and each period's table" if periods is not None and len(periods.periods) > 1 else ""),
+        review,
+    )
+
+
+def _model_family(calibration: CalibrationReport, heldout: HeldOutErrors) -> Family:
+    """Every test of the models on held-out history, corrected as one family."""
+    model: list[tuple[str, str, float | None]] = []
+    for c in calibration.rows:
+        if c.group == "all":
+            continue
+        model.append(("calibration", f"{c.model} {c.group}: intercept = 0", _finite(c.intercept_p)))
+        model.append(("calibration", f"{c.model} {c.group}: slope = 1", _finite(c.slope_p)))
+    for e in heldout.rows:
+        for label, gap in (("false favourable", e.ff_gap), ("false unfavourable", e.fu_gap)):
+            if gap is not None:
                 model.append(
-                    (
-                        "held-out errors",
-                        f"{e.model} {e.lens} {e.group}: false favourable",
-                        e.ff_gap.p_value,
-                    )
+                    ("held-out errors", f"{e.model} {e.lens} {e.group}: {label}", gap.p_value)
                 )
-            if e.fu_gap is not None:
-                model.append(
-                    (
-                        "held-out errors",
-                        f"{e.model} {e.lens} {e.group}: false unfavourable",
-                        e.fu_gap.p_value,
-                    )
-                )
-        out.append(
-            correct_family(
-                "model",
-                "every test of the models on held-out history: each group's calibration "
-                "intercept and slope, and each group's error rates against the reference group, "
-                "for every model and lens",
-                model,
-            )
-        )
-    if errors is not None:
-        joined: list[tuple[str, str, float | None]] = []
-        for r in errors.rows:
-            for label, gap in (
-                ("model false favourable", r.model_ff_gap),
-                ("final false favourable", r.final_ff_gap),
-                ("model false unfavourable", r.model_fu_gap),
-                ("final false unfavourable", r.final_fu_gap),
-            ):
-                if gap is not None:
-                    joined.append(("outcomes", f"{r.group}: {label}", gap.p_value))
-            joined.append(("outcomes", f"{r.group}: model vs final (McNemar)", r.mcnemar.p_value))
-        out.append(
-            correct_family(
-                "outcomes",
-                "every test on the reviewed cases with known outcomes: each group's error rates "
-                "against the reference group, model and final, and McNemar's test per group",
-                joined,
-            )
-        )
-    return tuple(out)
+    return correct_family(
+        "model",
+        "every test of the models on held-out history: each group's calibration "
+        "intercept and slope, and each group's error rates against the reference group, "
+        "for every model and lens",
+        model,
+    )
+
+
+def _outcomes_family(errors: ErrorComparison) -> Family:
+    """Every test on the reviewed cases with known outcomes, corrected as one family."""
+    joined: list[tuple[str, str, float | None]] = []
+    for r in errors.rows:
+        for label, gap in (
+            ("model false favourable", r.model_ff_gap),
+            ("final false favourable", r.final_ff_gap),
+            ("model false unfavourable", r.model_fu_gap),
+            ("final false unfavourable", r.final_fu_gap),
+        ):
+            if gap is not None:
+                joined.append(("outcomes", f"{r.group}: {label}", gap.p_value))
+        joined.append(("outcomes", f"{r.group}: model vs final (McNemar)", r.mcnemar.p_value))
+    return correct_family(
+        "outcomes",
+        "every test on the reviewed cases with known outcomes: each group's error rates "
+        "against the reference group, model and final, and McNemar's test per group",
+        joined,
+    )
 
 
 def _finite(x: float) -> float | None:

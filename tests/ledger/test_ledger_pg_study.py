@@ -555,3 +555,75 @@ def test_the_python_study_records_and_reads_a_database_ledger(
         config.unlink()
     assert entry.reviewer == team.bob and [e.hash for e in shown.entries] == [entry.hash]
     assert verified.ok and (verified.head_seq, verified.head_hash) == (1, entry.hash)
+
+
+def test_a_database_user_without_a_role_lists_the_queue_without_review_states(
+    team: Team, demo_config: Path, tmp_path: Path, cli: Any, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """``queue`` without --unreviewed reads the study, not the ledger: like a login outside
+    [review] lists with a ledger file, a database user with no role gets the list without
+    the review-state column (nothing from the ledger shows), and nothing is recorded."""
+    config = _config(demo_config, team.url, f"eve-q-{tmp_path.name}")
+    try:
+        case = str(open_study(config).snapshot.case_ids[0])
+        monkeypatch.setenv("PGUSER", team.alice)
+        _ok(cli("record", case, "--action", "defer", "--config", str(config)))
+        mine = json.loads(_ok(cli("queue", "--json", "--config", str(config))).out)
+        monkeypatch.setenv("PGUSER", team.eve)
+        res = _ok(cli("queue", "--json", "--config", str(config)))
+    finally:
+        config.unlink()
+    theirs = json.loads(res.out)
+    assert "Traceback" not in res.err and "error:" not in res.err
+    rows = theirs["rows"] if isinstance(theirs, dict) else theirs
+    alice_rows = mine["rows"] if isinstance(mine, dict) else mine
+    assert [r["case_id"] for r in rows] == [r["case_id"] for r in alice_rows]  # the same list
+    assert any(r.get("state") for r in alice_rows)  # alice sees review states
+    assert not any(r.get("state") for r in rows)  # eve sees none of the ledger
+    with open_pg_ledger(team.admin, inspect=True) as ledger:
+        assert ledger.count() == 1
+
+
+def test_keys_name_the_database_user_when_the_ledger_is_in_postgresql(
+    team: Team, demo_config: Path, tmp_path: Path, cli: Any, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """An entry in a PostgreSQL ledger names the session user, so the key is registered
+    under that name: the line ``keys init``/``keys show`` print lets the author record."""
+    monkeypatch.setenv("CLOSECALL_KEYS", str(tmp_path / "keys"))
+    monkeypatch.setenv("PGUSER", team.alice)
+    config = _config(demo_config, team.url, f"keys-{tmp_path.name}")
+    plain = _config(demo_config, str(tmp_path / "ledger.sqlite"), f"keys-sq-{tmp_path.name}")
+    try:
+        made = json.loads(_ok(cli("keys", "init", "--json", "--config", str(config))).out)
+        assert made["login"] == team.alice != current_login()
+        shown = _ok(cli("keys", "show", "--config", str(config))).out
+        line = f'{team.alice} = "{made["public_key"]}"'
+        assert line in shown and "database user" in shown
+        # a study with its ledger in a file still registers the OS login
+        assert f'{current_login()} = "' in _ok(cli("keys", "show", "--config", str(plain))).out
+        # the owner registers the printed line; alice's recording is then signed and checks
+        config.write_text(config.read_text() + f"\n[team.keys]\n{line}\n")
+        case = str(open_study(config).snapshot.case_ids[0])
+        _ok(cli("record", case, "--action", "uphold", "--config", str(config)))
+        _ok(cli("ledger", "verify", "--config", str(config)))
+    finally:
+        config.unlink()
+        plain.unlink()
+    with open_pg_ledger(team.admin, inspect=True) as ledger:
+        (entry,) = ledger.entries()
+        assert entry.reviewer == team.alice and entry.signature is not None
+        assert ledger.verify(keys={team.alice: made["public_key"]}).ok
+
+
+def test_keys_refuse_before_making_a_key_when_the_database_is_down(
+    demo_config: Path, tmp_path: Path, cli: Any, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    monkeypatch.setenv("CLOSECALL_KEYS", str(tmp_path / "keys"))
+    config = _config(demo_config, "postgresql://127.0.0.1:1/reviews", f"keys-down-{tmp_path.name}")
+    try:
+        res = cli("keys", "init", "--config", str(config))
+    finally:
+        config.unlink()
+    assert res.code == 2 and res.err.count("error:") == 1 and "127.0.0.1:1/reviews" in res.err
+    assert "Traceback" not in res.err + res.out
+    assert not (tmp_path / "keys").exists()  # nothing made: the name to register is unknown

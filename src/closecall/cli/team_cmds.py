@@ -27,41 +27,77 @@ def _registration(login: str, public: str) -> str:
     return f'{login} = "{public}"'
 
 
+def _key_name(config: Path) -> tuple[str, str]:
+    """The name an author's key is registered under, and why that name (a short note).
+
+    A study whose ledger is in PostgreSQL records as the database session user, so its key is
+    registered under that name (connecting once to ask the server); a ledger file records
+    as the OS login, which is also the answer when there is no study config here at all.
+    """
+    from closecall.review.ledger.access import current_login, ledger_login
+    from closecall.review.ledger.backend import is_database
+    from closecall.setup.config import CONFIG_NAME, load_config
+
+    found = config / CONFIG_NAME if config.is_dir() else config
+    if not found.exists() and config == Path(CONFIG_NAME):
+        return current_login(), (
+            "your OS login; for a study whose ledger is in PostgreSQL the key is registered "
+            "under your database user instead: run 'closecall keys show --config STUDY'"
+        )
+    review = load_config(config).review
+    if is_database(review.ledger):
+        return ledger_login(review), (
+            "your database user: the study's ledger is in PostgreSQL, whose entries name the "
+            "database session user"
+        )
+    return current_login(), "your OS login: the study's ledger is a file"
+
+
+def _print_registration(login: str, why: str, public: str) -> None:
+    _print("ask the study owner to add this line under [team.keys] of the study config:")
+    _print(_registration(safe_text(login), public))
+    _print(f"({safe_text(login)} is {why})")
+
+
 @keys_app.command("init")
-def keys_init(as_json: bool = JsonOption) -> None:
+def keys_init(as_json: bool = JsonOption, config: Path = ConfigOption) -> None:
     """Make your Ed25519 key pair (once per account) and print the line to register.
 
     The private key is written readable by your account only (mode 0600) under
     ~/.config/closecall/keys/ (or the folder CLOSECALL_KEYS names); it is never overwritten.
     Give the printed line to the study owner, who adds it under [team.keys] of the config.
+    The line names you as the study's ledger knows you: your OS login for a ledger file, your
+    database user for a ledger in PostgreSQL (closecall asks the server).
 
     \b
     Example:
-      closecall keys init
+      closecall keys init --config closecall.toml
     """
-    from closecall.review.ledger.access import current_login
     from closecall.review.ledger.signing import create_key
 
+    login, why = _key_name(config)  # before the key is made: a refusal leaves nothing
     private, public = create_key()
-    login = current_login()
     if as_json:
-        emit_json({"login": login, "private_key": str(private), "public_key": public})
+        emit_json(
+            {"login": login, "name_is": why, "private_key": str(private), "public_key": public}
+        )
         return
     _print(f"private key written to {safe_text(str(private))} (mode 600: keep it to yourself)")
-    _print("ask the study owner to add this line under [team.keys] of the study config:")
-    _print(_registration(safe_text(login), public))
+    _print_registration(login, why, public)
 
 
 @keys_app.command("show")
-def keys_show(as_json: bool = JsonOption) -> None:
+def keys_show(as_json: bool = JsonOption, config: Path = ConfigOption) -> None:
     """Print your public key as the line to register under [team.keys].
+
+    The line names you as the study's ledger knows you: your OS login for a ledger file, your
+    database user for a ledger in PostgreSQL.
 
     \b
     Example:
-      closecall keys show
+      closecall keys show --config closecall.toml
     """
     from closecall.core.errors import UserError
-    from closecall.review.ledger.access import current_login
     from closecall.review.ledger.signing import key_folder, load_private, public_text
 
     key = load_private()
@@ -70,11 +106,11 @@ def keys_show(as_json: bool = JsonOption) -> None:
             f"no signing key in {key_folder()} for this account", "run 'closecall keys init'"
         )
     public = public_text(key.public_key())
-    login = current_login()
+    login, why = _key_name(config)
     if as_json:
-        emit_json({"login": login, "public_key": public})
+        emit_json({"login": login, "name_is": why, "public_key": public})
         return
-    _print(_registration(safe_text(login), public))
+    _print_registration(login, why, public)
 
 
 def register(app: typer.Typer) -> None:

@@ -23,7 +23,9 @@ from closecall.tui.key_bar import KeyBar
 from closecall.tui.margin_chart import MarginChart
 from closecall.tui.session import ListSettings, ReviewSession
 
-REFRESH_SECONDS = 15.0  # how often others' claims and reviews are read again
+#: How often others' claims and reviews are read again (this screen's own claims leave the
+#: list's counts as soon as it leaves their case).
+REFRESH_SECONDS = 15.0
 
 
 class QueueScreen(Screen[None]):
@@ -254,7 +256,20 @@ class QueueScreen(Screen[None]):
         self.session.refresh_reviews()
         self.app.call_from_thread(self._after_ledger)
 
+    def on_screen_resume(self) -> None:
+        """Back from a case or a dialog: its claim is released, so stop counting it now."""
+        if self._forget_released():
+            self.query_one(CaseList).refresh()
+            self._show_counts()
+
+    def _forget_released(self) -> bool:
+        """Drop this screen's claims on cases no screen of this app has open any more (their
+        release may still be on its way to the ledger when a read returns)."""
+        open_cases = [str(getattr(s, "case_id", "")) for s in self.app.screen_stack]
+        return self.session.forget_released_claims(open_cases)
+
     def _after_ledger(self) -> None:
+        self._forget_released()
         if self.session.settings.unreviewed:
             self._apply(self.session.settings, keep_place=True)
         else:

@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import math
 import uuid
-from collections.abc import Callable
+from collections.abc import Callable, Iterable
 from dataclasses import dataclass, replace
 from datetime import UTC, datetime
 
@@ -248,6 +248,25 @@ class ReviewSession:
             return [d.case_id for d in my_drafts(self.study)]
         except AccessDenied:  # an analyst keeps no drafts
             return []
+
+    def forget_released_claims(self, open_cases: Iterable[str]) -> bool:
+        """Drop this review screen's own claims on cases it no longer has open (released a
+        moment ago from a worker), so the list and its counts need not wait for the next read
+        of the ledger; another screen's claims, the same login's included, stay. True when
+        one was dropped."""
+        still_open = set(open_cases)
+        dropped = False
+        for case_id in list(self.claims):
+            if case_id in still_open:
+                continue
+            kept = [c for c in self.claims[case_id] if c.instance != self.instance]
+            if len(kept) != len(self.claims[case_id]):
+                dropped = True
+                if kept:
+                    self.claims[case_id] = kept
+                else:
+                    del self.claims[case_id]
+        return dropped
 
     def claimed_by_others(self, case_id: str) -> list[str]:
         return [c.reviewer for c in self.claims.get(case_id, []) if c.reviewer != self.login]

@@ -544,7 +544,9 @@ class Study:
         second_opinion: bool = False,
         seen_seq: int | None = None,
     ) -> Entry:
-        """Record a reviewer's action on a case (as the process's login) in the ledger.
+        """Record a reviewer's action on a case in the ledger, in the name the ledger knows
+        the author by: the process's OS login for a ledger file, the database session user
+        for a ledger in PostgreSQL (whatever the OS login).
 
         Parameters
         ----------

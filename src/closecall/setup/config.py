@@ -432,27 +432,51 @@ def parse_config(raw: dict[str, Any], path: Path) -> StudyConfig:
                 f"{_suggest(key, sorted(sections))}; see docs/config.md",
             )
     root = path.parent
-
     study = _table(path, raw, "study")
     _check_keys(path, "study", study)
+    data = _data_config(path, raw)
+    model = _model_config(path, raw)
+    lenses = _lenses(path, raw.get("lens", [{"name": "equal-costs"}]))
+    proxies = _proxy_config(path, raw)
+    _check_parts(path, data, proxies)
+    deployed = _deployed(path, raw, data)
+    if model.reference == "deployed" and not data.deployed_score and not deployed.scorecard:
+        raise UserError(
+            f"{path}: [model] reference = 'deployed' but [data] names no deployed_score and "
+            "[deployed] no scorecard",
+            "add deployed_score = COLUMN under [data] or scorecard = FILE under [deployed], "
+            "or set reference = 'pooled'",
+        )
+    mu = _table(path, raw, "multiplicity")
+    _check_keys(path, "multiplicity", mu)
+    multiplicity = MultiplicityConfig(
+        epsilon=number(path, "multiplicity", "epsilon", mu.get("epsilon", 0.001)),
+        neighbours=whole(path, "multiplicity", "neighbours", mu.get("neighbours", 5)),
+    )
+    review = _review_config(path, raw, root)
+    team = _team(path, raw)
+    return StudyConfig(
+        path=path,
+        name=str(study.get("name", path.parent.name)),
+        seed=whole(path, "study", "seed", study.get("seed", 0)),
+        data=data,
+        model=model,
+        lenses=lenses,
+        proxies=proxies,
+        multiplicity=multiplicity,
+        review=review,
+        team=team,
+        deployed=deployed,
+    )
+
+
+def _data_config(path: Path, raw: dict[str, Any]) -> DataConfig:
+    """[data] (and [kinds]): the files, the id, outcome and group columns, the features."""
     if "data" not in raw:
         raise UserError(f"{path}: missing section [data]", "add [data] with history, id, outcome")
     d = _table(path, raw, "data")
     _check_keys(path, "data", d)
-    for required in ("history", "id", "outcome", "favourable", "group"):
-        if required not in d:
-            raise UserError(
-                f"{path}: [data] needs '{required}'"
-                + (
-                    " (the protected attribute is never chosen for you)"
-                    if required == "group"
-                    else ""
-                ),
-                'write group = ["COLUMN"] under [data]: the comments there list candidates '
-                "from 'closecall init'"
-                if required == "group"
-                else "see docs/config.md; 'closecall init DATA' writes a starting config",
-            )
+    _check_data_required(path, d)
     favourable = d["favourable"]
     if isinstance(favourable, float) and not math.isfinite(favourable):
         raise UserError(
@@ -470,7 +494,8 @@ def parse_config(raw: dict[str, Any], path: Path) -> StudyConfig:
     group = _str_tuple(path, "data", "group", d["group"])
     if not group:
         raise UserError(f"{path}: [data] group is empty", "name the group attribute column(s)")
-    data = DataConfig(
+    root = path.parent
+    return DataConfig(
         history=(root / d["history"]),
         pending=(root / d["pending"]) if d.get("pending") else None,
         id=d["id"],
@@ -484,6 +509,27 @@ def parse_config(raw: dict[str, Any], path: Path) -> StudyConfig:
         min_group_cases=whole(path, "data", "min_group_cases", d.get("min_group_cases", 30)),
     )
 
+
+def _check_data_required(path: Path, d: dict[str, Any]) -> None:
+    """Refuse a [data] table without its history, id, outcome, favourable value or group."""
+    for required in ("history", "id", "outcome", "favourable", "group"):
+        if required not in d:
+            raise UserError(
+                f"{path}: [data] needs '{required}'"
+                + (
+                    " (the protected attribute is never chosen for you)"
+                    if required == "group"
+                    else ""
+                ),
+                'write group = ["COLUMN"] under [data]: the comments there list candidates '
+                "from 'closecall init'"
+                if required == "group"
+                else "see docs/config.md; 'closecall init DATA' writes a starting config",
+            )
+
+
+def _model_config(path: Path, raw: dict[str, Any]) -> ModelConfig:
+    """[model]: penalty, folds and the reference model."""
     m = _table(path, raw, "model")
     _check_keys(path, "model", m)
     model = ModelConfig(
@@ -496,59 +542,32 @@ def parse_config(raw: dict[str, Any], path: Path) -> StudyConfig:
             f"{path}: [model] reference = {toml_text(model.reference)}",
             "set reference to 'pooled' or 'deployed'",
         )
+    return model
 
-    lenses = _lenses(path, raw.get("lens", [{"name": "equal-costs"}]))
 
+def _proxy_config(path: Path, raw: dict[str, Any]) -> ProxyConfig:
+    """[proxies]: the thresholds and the features always or never treated as proxies."""
     p = _table(path, raw, "proxies")
     _check_keys(path, "proxies", p)
-    proxies = ProxyConfig(
+    return ProxyConfig(
         association=number(path, "proxies", "association", p.get("association", 0.3)),
         influence=number(path, "proxies", "influence", p.get("influence", 0.02)),
         extra=_str_tuple(path, "proxies", "extra", p.get("extra", [])),
         never=_str_tuple(path, "proxies", "never", p.get("never", [])),
     )
-    _check_parts(path, data, proxies)
-    deployed = _deployed(path, raw, data)
-    if model.reference == "deployed" and not data.deployed_score and not deployed.scorecard:
-        raise UserError(
-            f"{path}: [model] reference = 'deployed' but [data] names no deployed_score and "
-            "[deployed] no scorecard",
-            "add deployed_score = COLUMN under [data] or scorecard = FILE under [deployed], "
-            "or set reference = 'pooled'",
-        )
 
-    mu = _table(path, raw, "multiplicity")
-    _check_keys(path, "multiplicity", mu)
-    multiplicity = MultiplicityConfig(
-        epsilon=number(path, "multiplicity", "epsilon", mu.get("epsilon", 0.001)),
-        neighbours=whole(path, "multiplicity", "neighbours", mu.get("neighbours", 5)),
-    )
 
+def _review_config(path: Path, raw: dict[str, Any], root: Path) -> ReviewConfig:
+    """[review]: the band, reason codes, who may record or read, the ledger and claims."""
     r = _table(path, raw, "review")
     _check_keys(path, "review", r)
-    review = ReviewConfig(
+    return ReviewConfig(
         band=number(path, "review", "band", r.get("band", 0.5)),
         reasons=_str_tuple(path, "review", "reasons", r.get("reasons", list(DEFAULT_REASONS))),
         reviewers=_str_tuple(path, "review", "reviewers", r.get("reviewers", [])),
         analysts=_str_tuple(path, "review", "analysts", r.get("analysts", [])),
         ledger=_ledger(path, root, r.get("ledger", "ledger.sqlite")),
         claim_minutes=number(path, "review", "claim_minutes", r.get("claim_minutes", 30.0)),
-    )
-
-    team = _team(path, raw)
-
-    return StudyConfig(
-        path=path,
-        name=str(study.get("name", path.parent.name)),
-        seed=whole(path, "study", "seed", study.get("seed", 0)),
-        data=data,
-        model=model,
-        lenses=lenses,
-        proxies=proxies,
-        multiplicity=multiplicity,
-        review=review,
-        team=team,
-        deployed=deployed,
     )
 
 

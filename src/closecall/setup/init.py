@@ -137,8 +137,73 @@ def infer_config(
     """Look at a labelled data file and draft a commented closecall.toml."""
     frame = read_table(data)
     inf = Inference(text="")
-    n = len(frame)
-    id_col = next(
+    id_col = _guess_id(frame)
+    outcome, two_valued = _guess_outcome(frame, id_col, pending)
+    favourable = _favourable_value(frame, outcome) if outcome is not None else None
+    candidates = group_candidates(frame, {c for c in (id_col, outcome) if c})
+    undecided = {str(d["column"]) for d in candidates} | (
+        set(two_valued) if outcome is None else set()
+    )
+    kinds = {c: infer_kind(frame[c]) for c in frame.columns if c not in (id_col, outcome)}
+    rel = relative_to or data.parent
+    lines = [
+        "# closecall study config, drafted by 'closecall init'. Every key: docs/config.md",
+        "# Check each value marked CHECK before you fit.",
+        "",
+        "[study]",
+        f"name = {_quote(data.stem)}",
+        "seed = 0",
+        "",
+        "[data]",
+        f"history = {_quote(_rel(data, rel))}",
+    ]
+    if pending is not None:
+        lines.append(f"pending = {_quote(_rel(pending, rel))}")
+    else:
+        lines.append('# pending = "pending.csv"   # without it, margins are cross-fitted')
+    lines += _label_lines(inf, id_col, outcome, favourable, two_valued)
+    lines += _group_lines(inf, candidates)
+    lines += _kinds_lines(kinds, undecided)
+    inf.inferred["kinds"] = kinds
+    lines += _DEFAULT_TABLES
+    inf.to_decide.append(
+        "lens: the relative costs of a wrong favourable and a wrong unfavourable decision"
+    )
+    inf.inferred["rows"] = len(frame)
+    inf.text = "\n".join(lines)
+    if id_col is None and outcome is None:
+        raise UserError(
+            f"{data}: found neither an id column nor a two-valued outcome column",
+            "is this the labelled history file?",
+        )
+    return inf
+
+
+#: The tables a drafted config ends with: defaults the user reviews.
+_DEFAULT_TABLES = [
+    "",
+    "[model]",
+    "penalty = 1.0   # ridge strength on standardised features; 0 = unpenalised",
+    "folds = 5",
+    'reference = "pooled"',
+    "",
+    "[[lens]]   # DECIDE: the costs of the two kinds of error",
+    'name = "equal-costs"',
+    "cost_false_favourable = 1",
+    "cost_false_unfavourable = 1",
+    "",
+    "[review]",
+    "band = 0.5   # close calls: |margin| <= band, in log-odds",
+    'ledger = "ledger.sqlite"',
+    "reviewers = []   # logins that may record; empty = anyone",
+    "analysts = []",
+    "",
+]
+
+
+def _guess_id(frame: pd.DataFrame) -> str | None:
+    """A unique column named like an id, else the first unique non-float column."""
+    return next(
         (c for c in frame.columns if re.search(r"id$", c, re.I) and frame[c].is_unique), None
     ) or next(
         (
@@ -148,6 +213,12 @@ def infer_config(
         ),
         None,
     )
+
+
+def _guess_outcome(
+    frame: pd.DataFrame, id_col: str | None, pending: Path | None
+) -> tuple[str | None, list[str]]:
+    """The outcome column if one stands out, and the two-valued candidates."""
     two_valued = [c for c in frame.columns if frame[c].nunique(dropna=True) == 2 and c != id_col]
     outcome = None
     if pending is not None:  # the label is what history has and pending lacks
@@ -162,39 +233,33 @@ def infer_config(
         outcome = named[0] if len(named) == 1 or (named and pending is None) else None
         if outcome is None and len(two_valued) == 1:
             outcome = two_valued[0]
-    favourable: object = None
-    if outcome is not None:
-        values = list(pd.unique(frame[outcome].dropna()))
-        yes_like = [v for v in values if str(v).strip().lower() in _FAVOURABLE_HINT]
-        if _NEGATIVE_OUTCOME.search(outcome) and len(values) == 2 and len(yes_like) == 1:
-            favourable = next(v for v in values if v is not yes_like[0])
-        else:
-            favourable = yes_like[0] if yes_like else values[0]
-        if hasattr(favourable, "item"):
-            favourable = favourable.item()
-    candidates = group_candidates(frame, {c for c in (id_col, outcome) if c})
-    candidate_names = [str(d["column"]) for d in candidates]
-    undecided = set(candidate_names) | (set(two_valued) if outcome is None else set())
-    features = [c for c in frame.columns if c not in (id_col, outcome)]
-    kinds = {c: infer_kind(frame[c]) for c in features}
+    return outcome, two_valued
 
-    rel = relative_to or data.parent
-    hist_rel = _rel(data, rel)
-    lines = [
-        "# closecall study config, drafted by 'closecall init'. Every key: docs/config.md",
-        "# Check each value marked CHECK before you fit.",
-        "",
-        "[study]",
-        f"name = {_quote(data.stem)}",
-        "seed = 0",
-        "",
-        "[data]",
-        f"history = {_quote(hist_rel)}",
-    ]
-    if pending is not None:
-        lines.append(f"pending = {_quote(_rel(pending, rel))}")
+
+def _favourable_value(frame: pd.DataFrame, outcome: str) -> object:
+    """The outcome value that looks good for the person (yes-like; the other one when the
+    column names a bad event)."""
+    values = list(pd.unique(frame[outcome].dropna()))
+    yes_like = [v for v in values if str(v).strip().lower() in _FAVOURABLE_HINT]
+    favourable: object
+    if _NEGATIVE_OUTCOME.search(outcome) and len(values) == 2 and len(yes_like) == 1:
+        favourable = next(v for v in values if v is not yes_like[0])
     else:
-        lines.append('# pending = "pending.csv"   # without it, margins are cross-fitted')
+        favourable = yes_like[0] if yes_like else values[0]
+    if hasattr(favourable, "item"):
+        favourable = favourable.item()
+    return favourable
+
+
+def _label_lines(
+    inf: Inference,
+    id_col: str | None,
+    outcome: str | None,
+    favourable: object,
+    two_valued: list[str],
+) -> list[str]:
+    """The [data] id, outcome and favourable lines; what was inferred and what to decide."""
+    lines: list[str] = []
     if id_col:
         lines.append(f"id = {_quote(id_col)}")
         inf.inferred["id"] = id_col
@@ -217,10 +282,15 @@ def infer_config(
             "outcome and favourable: which two-valued column is the label "
             f"(candidates: {', '.join(two_valued[:6]) or 'none'})"
         )
-    # the group attribute is never chosen here: fit refuses the config until the user does
-    lines.append('# group = ["..."]   # CHOOSE the protected attribute column(s); candidates:')
+    return lines
+
+
+def _group_lines(inf: Inference, candidates: list[dict[str, object]]) -> list[str]:
+    """The commented group line with its candidates: the group is never chosen here (fit
+    refuses the config until the user does)."""
+    lines = ['# group = ["..."]   # CHOOSE the protected attribute column(s); candidates:']
     lines += [f"#   {_why(d)}" for d in candidates] or ["#   (no column has 2 to 8 levels)"]
-    inf.inferred["group_candidates"] = candidate_names
+    inf.inferred["group_candidates"] = [str(d["column"]) for d in candidates]
     inf.to_decide.append(
         'group: write group = ["..."] under [data] naming the protected attribute column(s) '
         "(ask your legal and data-protection officers whether it may be processed); "
@@ -230,46 +300,25 @@ def infer_config(
             else "no column has 2 to 8 levels"
         )
     )
-    lines.append("# features = [...]   # default: every other column")
-    lines.append("# exclude = [...]    # columns to leave out")
-    lines.append('# deployed_score = "..."   # probability column of the model in use')
-    lines += ["", "[kinds]   # numeric or categorical, inferred from the data"]
+    return lines
+
+
+def _kinds_lines(kinds: dict[str, str], undecided: set[str]) -> list[str]:
+    """The remaining [data] hints and the [kinds] table (columns that may not stay features
+    commented out)."""
+    lines = [
+        "# features = [...]   # default: every other column",
+        "# exclude = [...]    # columns to leave out",
+        '# deployed_score = "..."   # probability column of the model in use',
+        "",
+        "[kinds]   # numeric or categorical, inferred from the data",
+    ]
     lines += [
         f"{'# ' if c in undecided else ''}{_quote(c)} = {_quote(k)}"
         + ("   # if it stays a feature" if c in undecided else "")
         for c, k in kinds.items()
     ]
-    inf.inferred["kinds"] = kinds
-    lines += [
-        "",
-        "[model]",
-        "penalty = 1.0   # ridge strength on standardised features; 0 = unpenalised",
-        "folds = 5",
-        'reference = "pooled"',
-        "",
-        "[[lens]]   # DECIDE: the costs of the two kinds of error",
-        'name = "equal-costs"',
-        "cost_false_favourable = 1",
-        "cost_false_unfavourable = 1",
-        "",
-        "[review]",
-        "band = 0.5   # close calls: |margin| <= band, in log-odds",
-        'ledger = "ledger.sqlite"',
-        "reviewers = []   # logins that may record; empty = anyone",
-        "analysts = []",
-        "",
-    ]
-    inf.to_decide.append(
-        "lens: the relative costs of a wrong favourable and a wrong unfavourable decision"
-    )
-    inf.inferred["rows"] = n
-    inf.text = "\n".join(lines)
-    if id_col is None and outcome is None:
-        raise UserError(
-            f"{data}: found neither an id column nor a two-valued outcome column",
-            "is this the labelled history file?",
-        )
-    return inf
+    return lines
 
 
 def _rel(path: Path, base: Path) -> str:

@@ -564,9 +564,51 @@ def load_study_data(config: DataConfig | StudyConfig) -> StudyData:
     study = config if isinstance(config, StudyConfig) else None
     cfg = config.data if isinstance(config, StudyConfig) else config
     config_path = study.path if study is not None else None
-    text_cols = (cfg.id, *cfg.group)
     hist_path = cfg.history
-    history = read_table(hist_path, text_columns=text_cols)
+    history = _read_history(cfg)
+    y = _favourable_mask(hist_path, history[cfg.outcome], cfg.favourable, cfg.outcome)
+    if y.all() or not y.any():
+        raise UserError(
+            f"{hist_path}: outcome '{cfg.outcome}' has one value only",
+            "the history needs cases with both outcomes to fit a model",
+        )
+    _check_group(hist_path, history, cfg.group)
+    features = resolve_features(cfg, history, hist_path, config_path)
+    if study is not None:
+        _check_proxy_names(study, hist_path, history, features)
+    hist_numbers = _check_feature_values(hist_path, history, features)
+    _check_history_spread(hist_path, history, features)
+    hgroup = group_labels(history, cfg.group)
+    levels, hcodes = _history_levels(cfg, hgroup)
+    if study is not None:
+        _check_folds(study, hist_path, y, hcodes, len(levels))
+    pending = pgroup = deployed = None
+    if cfg.pending is not None:
+        pending, pgroup = _read_pending(cfg, history, features, hist_numbers, levels, cfg.pending)
+        if cfg.deployed_score:
+            deployed = _deployed(cfg.pending, pending, cfg.deployed_score)
+    else:
+        _check_scale(hist_path, hist_numbers)
+        if cfg.deployed_score:
+            deployed = _deployed(hist_path, history, cfg.deployed_score)
+    return StudyData(
+        history=history,
+        pending=pending,
+        features=features,
+        group_columns=cfg.group,
+        y=y,
+        history_group=hgroup,
+        pending_group=pgroup,
+        deployed_probability=deployed,
+        notes=[],
+    )
+
+
+def _read_history(cfg: DataConfig) -> pd.DataFrame:
+    """Read the history file and check that its named columns exist, are flat and its ids
+    unique."""
+    hist_path = cfg.history
+    history = read_table(hist_path, text_columns=(cfg.id, *cfg.group))
     _check_columns(hist_path, history, [cfg.id], "id")
     _check_columns(hist_path, history, [cfg.outcome], "outcome")
     _check_columns(hist_path, history, list(cfg.group), "group")
@@ -585,19 +627,12 @@ def load_study_data(config: DataConfig | StudyConfig) -> StudyData:
         ],
     )
     _check_ids(hist_path, history, cfg.id)
-    y = _favourable_mask(hist_path, history[cfg.outcome], cfg.favourable, cfg.outcome)
-    if y.all() or not y.any():
-        raise UserError(
-            f"{hist_path}: outcome '{cfg.outcome}' has one value only",
-            "the history needs cases with both outcomes to fit a model",
-        )
-    _check_group(hist_path, history, cfg.group)
-    features = resolve_features(cfg, history, hist_path, config_path)
-    if study is not None:
-        _check_proxy_names(study, hist_path, history, features)
-    hist_numbers = _check_feature_values(hist_path, history, features)
-    _check_history_spread(hist_path, history, features)
-    hgroup = group_labels(history, cfg.group)
+    return history
+
+
+def _history_levels(cfg: DataConfig, hgroup: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The history's group levels and each case's code; refuse one level or a small one."""
+    hist_path = cfg.history
     levels, hcodes, counts = np.unique(hgroup, return_inverse=True, return_counts=True)
     if len(levels) < 2:
         raise UserError(
@@ -613,49 +648,38 @@ def load_study_data(config: DataConfig | StudyConfig) -> StudyData:
             "merge small levels into a larger one in the data, or lower [data] min_group_cases "
             "(estimates for small groups are unreliable)",
         )
-    if study is not None:
-        _check_folds(study, hist_path, y, hcodes, len(levels))
-    notes: list[str] = []
-    pending = None
-    pgroup = None
-    deployed = None
-    if cfg.pending is not None:
-        pend_path = cfg.pending
-        pending = read_table(pend_path, text_columns=text_cols)
-        _check_columns(pend_path, pending, [cfg.id], "id")
-        _check_columns(pend_path, pending, list(cfg.group), "group")
-        _check_columns(pend_path, pending, [f.name for f in features], "feature")
-        pend_deployed = [cfg.deployed_score] if cfg.deployed_score else []
-        _check_flat(pend_path, [cfg.id, *cfg.group, *pend_deployed, *(f.name for f in features)])
-        _check_ids(pend_path, pending, cfg.id)
-        _check_shared_ids(hist_path, history, pend_path, pending, cfg.id)
-        _check_group(pend_path, pending, cfg.group)
-        pend_numbers = _check_feature_values(pend_path, pending, features)
-        _check_scale(hist_path, hist_numbers, pend_path, pend_numbers)
-        pgroup = group_labels(pending, cfg.group)
-        unseen = sorted(set(np.unique(pgroup)) - set(levels))
-        if unseen:
-            raise UserError(
-                f"{pend_path}: group level '{unseen[0]}' does not occur in the history",
-                "the models cannot score a group they never saw; check the group column",
-            )
-        if cfg.deployed_score:
-            deployed = _deployed(pend_path, pending, cfg.deployed_score)
-    else:
-        _check_scale(hist_path, hist_numbers)
-        if cfg.deployed_score:
-            deployed = _deployed(hist_path, history, cfg.deployed_score)
-    return StudyData(
-        history=history,
-        pending=pending,
-        features=features,
-        group_columns=cfg.group,
-        y=y,
-        history_group=hgroup,
-        pending_group=pgroup,
-        deployed_probability=deployed,
-        notes=notes,
-    )
+    return levels, hcodes
+
+
+def _read_pending(
+    cfg: DataConfig,
+    history: pd.DataFrame,
+    features: list[Feature],
+    hist_numbers: dict[str, np.ndarray],
+    levels: np.ndarray,
+    pend_path: Path,
+) -> tuple[pd.DataFrame, np.ndarray]:
+    """Read the pending file, check it against the history, and return it with its groups."""
+    hist_path = cfg.history
+    pending = read_table(pend_path, text_columns=(cfg.id, *cfg.group))
+    _check_columns(pend_path, pending, [cfg.id], "id")
+    _check_columns(pend_path, pending, list(cfg.group), "group")
+    _check_columns(pend_path, pending, [f.name for f in features], "feature")
+    pend_deployed = [cfg.deployed_score] if cfg.deployed_score else []
+    _check_flat(pend_path, [cfg.id, *cfg.group, *pend_deployed, *(f.name for f in features)])
+    _check_ids(pend_path, pending, cfg.id)
+    _check_shared_ids(hist_path, history, pend_path, pending, cfg.id)
+    _check_group(pend_path, pending, cfg.group)
+    pend_numbers = _check_feature_values(pend_path, pending, features)
+    _check_scale(hist_path, hist_numbers, pend_path, pend_numbers)
+    pgroup = group_labels(pending, cfg.group)
+    unseen = sorted(set(np.unique(pgroup)) - set(levels))
+    if unseen:
+        raise UserError(
+            f"{pend_path}: group level '{unseen[0]}' does not occur in the history",
+            "the models cannot score a group they never saw; check the group column",
+        )
+    return pending, pgroup
 
 
 def _check_folds(

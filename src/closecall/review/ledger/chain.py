@@ -204,62 +204,15 @@ def verify_chain(
         read += 1
         if problem is not None:
             continue  # keep counting rows; only the first break is named
-        seq = row["seq"]
-        if seq != expected_seq:
-            problem = Problem(
-                "missing",
-                expected_seq,
-                f"entry {expected_seq} is missing: the sequence goes from {expected_seq - 1} "
-                f"to {seq} (deleted entries)"
-                if seq > expected_seq
-                else f"entry {seq} is out of sequence (expected {expected_seq})",
-            )
-            continue
-        try:
-            fields = {**row, "decisions": json.loads(row["decisions"])}
-            recomputed = entry_hash(fields)
-        except (ValueError, TypeError) as exc:
-            problem = Problem("malformed", seq, f"entry {seq} cannot be read: {exc}")
-            continue
-        if recomputed != row["hash"]:
-            problem = Problem(
-                "edited",
-                seq,
-                f"entry {seq} was altered after it was recorded: its fields hash to "
-                f"{recomputed[:16]}…, but it carries {str(row['hash'])[:16]}…",
-            )
-            continue
-        if row["prev_hash"] != expected_prev:
-            problem = Problem(
-                "wrong-predecessor",
-                seq,
-                f"entry {seq} does not follow entry {seq - 1}: it names predecessor "
-                f"{str(row['prev_hash'])[:16]}…, but entry {seq - 1} has hash "
-                f"{expected_prev[:16]}… (forged, reordered or replaced entries)",
-            )
+        problem, fields = _link_problem(row, expected_seq, expected_prev)
+        if problem is not None:
             continue
         authorship.check(fields)
         if anchor is not None and row["hash"] == anchor:
-            anchor_seq = seq
+            anchor_seq = row["seq"]
         verified += 1
-        expected_seq, expected_prev = seq + 1, row["hash"]
-
-    problems: list[Problem] = [problem] if problem else []
-    problems.extend(authorship.all_problems())
-    if anchor is not None and anchor_seq is None and problem is None:
-        problems.append(
-            Problem(
-                "anchor-not-found",
-                None,
-                f"the anchor {anchor[:16]}… is not in the chain of {verified} entries: entries "
-                "were removed from the end (truncated) or the chain was rewritten since the "
-                "anchor was taken",
-            )
-        )
-    for finding in findings:
-        problems.append(
-            Problem(finding.kind, None, f"{finding.message}: someone changed its structure by hand")
-        )
+        expected_seq, expected_prev = row["seq"] + 1, row["hash"]
+    problems = _all_problems(problem, authorship, anchor, anchor_seq, verified, findings)
     try:
         head_seq, head_hash = ledger.head()
     except DamagedLedger:
@@ -278,3 +231,70 @@ def verify_chain(
         unsigned=tuple(authorship.unsigned),
         keys_checked=authorship.checked,
     )
+
+
+def _link_problem(
+    row: dict[str, Any], expected_seq: int, expected_prev: str
+) -> tuple[Problem | None, dict[str, Any]]:
+    """What breaks the chain at this row (sequence, hash, predecessor), if anything; and the
+    row's fields with its decisions parsed, for the signature check."""
+    seq = row["seq"]
+    if seq != expected_seq:
+        return Problem(
+            "missing",
+            expected_seq,
+            f"entry {expected_seq} is missing: the sequence goes from {expected_seq - 1} "
+            f"to {seq} (deleted entries)"
+            if seq > expected_seq
+            else f"entry {seq} is out of sequence (expected {expected_seq})",
+        ), row
+    try:
+        fields = {**row, "decisions": json.loads(row["decisions"])}
+        recomputed = entry_hash(fields)
+    except (ValueError, TypeError) as exc:
+        return Problem("malformed", seq, f"entry {seq} cannot be read: {exc}"), row
+    if recomputed != row["hash"]:
+        return Problem(
+            "edited",
+            seq,
+            f"entry {seq} was altered after it was recorded: its fields hash to "
+            f"{recomputed[:16]}…, but it carries {str(row['hash'])[:16]}…",
+        ), fields
+    if row["prev_hash"] != expected_prev:
+        return Problem(
+            "wrong-predecessor",
+            seq,
+            f"entry {seq} does not follow entry {seq - 1}: it names predecessor "
+            f"{str(row['prev_hash'])[:16]}…, but entry {seq - 1} has hash "
+            f"{expected_prev[:16]}… (forged, reordered or replaced entries)",
+        ), fields
+    return None, fields
+
+
+def _all_problems(
+    problem: Problem | None,
+    authorship: _Authorship,
+    anchor: str | None,
+    anchor_seq: int | None,
+    verified: int,
+    findings: list[Any],
+) -> list[Problem]:
+    """The first break of the chain, then signature problems, a missing anchor and changes
+    to the ledger's structure, in that order."""
+    problems: list[Problem] = [problem] if problem else []
+    problems.extend(authorship.all_problems())
+    if anchor is not None and anchor_seq is None and problem is None:
+        problems.append(
+            Problem(
+                "anchor-not-found",
+                None,
+                f"the anchor {anchor[:16]}… is not in the chain of {verified} entries: entries "
+                "were removed from the end (truncated) or the chain was rewritten since the "
+                "anchor was taken",
+            )
+        )
+    for finding in findings:
+        problems.append(
+            Problem(finding.kind, None, f"{finding.message}: someone changed its structure by hand")
+        )
+    return problems

@@ -1,12 +1,13 @@
 """``closecall.Study``: one study, opened for analysis and review from Python.
 
-It holds the opened study (config and snapshot) and passes it to the engine functions that
-the command line and the review screen use too, so all three give the same answers.
+It holds the opened study (config and snapshot) and passes it to the engine. The command line
+and the review screen are thin views over it (they get every result from its methods), so all
+three give the same answers.
 """
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
+from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -27,9 +28,10 @@ if TYPE_CHECKING:
     import pandas as pd
 
     from closecall.analysis.margin_distribution import MarginDistribution
+    from closecall.analysis.whatif import Policy
     from closecall.core.progress import Progress
     from closecall.reports.export import ExportResult
-    from closecall.review.ledger import Entry
+    from closecall.review.ledger import Claim, Draft, Entry
     from closecall.review.ledger.verify import VerifyResult
     from closecall.setup.config import StudyConfig
     from closecall.suite.opening import OpenedStudy
@@ -86,9 +88,17 @@ class Ledger:
         return self._config
 
     def show(
-        self, *, case_id: str | None = None, reviewer: str | None = None, limit: int | None = None
+        self,
+        *,
+        case_id: str | None = None,
+        reviewer: str | None = None,
+        limit: int | None = None,
+        before: int | None = None,
     ) -> LedgerEntries:
         """Entries in sequence order, filtered; with ``limit``, the most recent ``limit``.
+
+        With ``before``, only the entries numbered below it: the smallest ``seq`` of one page
+        and the same ``limit`` give the page before it.
 
         Examples
         --------
@@ -96,8 +106,59 @@ class Ledger:
         """
         from closecall.review.decisions import ledger_entries
 
-        entries = ledger_entries(self._config, case_id=case_id, reviewer=reviewer, limit=limit)
+        entries = ledger_entries(
+            self._config, case_id=case_id, reviewer=reviewer, limit=limit, before=before
+        )
         return LedgerEntries(tuple(entries))
+
+    def check(self) -> None:
+        """Refuse (``UserError``) a ledger closecall would not record in: not a ledger, damaged,
+        or its structure changed. An absent ledger is fine (the first entry creates it).
+
+        Examples
+        --------
+        >>> Ledger.open("demo-study/closecall.toml").check()  # doctest: +SKIP
+        """
+        from closecall.review.decisions import check_ledger
+
+        check_ledger(self._config)
+
+    def may_record(self, login: str) -> bool:
+        """Whether ``login`` may record reviews in this study (``[review] reviewers``, or the
+        database's roles for a PostgreSQL ledger; docs/team.md).
+
+        Examples
+        --------
+        >>> study.ledger.may_record("alice")  # doctest: +SKIP
+        True
+        """
+        from closecall.review.ledger.access import may_record
+
+        return may_record(self._config.review, login)
+
+    def refusal(self, login: str) -> str:
+        """Why ``login`` may not record here, and whom to ask.
+
+        Examples
+        --------
+        >>> study.ledger.refusal("mallory")  # doctest: +SKIP
+        """
+        from closecall.review.ledger.access import record_refusal
+
+        return record_refusal(self._config.review, login, self._config.path)
+
+    def head_seq(self) -> int:
+        """The highest sequence number in the ledger (0 when there is none yet): pass it as
+        :meth:`Study.record`'s ``seen_seq`` when a reviewer opens a case.
+
+        Examples
+        --------
+        >>> study.ledger.head_seq()  # doctest: +SKIP
+        2
+        """
+        from closecall.review.conflicts import last_seq
+
+        return last_seq(self._config)
 
     def verify(self, anchor: str | None = None, *, allow_empty: bool = False) -> VerifyResult:
         """Check the ledger is there, structured as the schema says, and its chain intact.
@@ -191,7 +252,12 @@ class Study:
 
     @classmethod
     def open(
-        cls, config_path: str | Path = "closecall.toml", progress: Progress | None = None
+        cls,
+        config_path: str | Path = "closecall.toml",
+        progress: Progress | None = None,
+        *,
+        refit: bool = False,
+        rehash: bool = False,
     ) -> Study:
         """Read the config and load the cached snapshot, or fit the suite when there is none.
 
@@ -201,6 +267,10 @@ class Study:
             The study's ``closecall.toml`` (or its folder).
         progress
             Called with (label, done, total) while a fit runs.
+        refit
+            Fit again and replace the cached snapshot whatever state it is in.
+        rehash
+            Hash the data files afresh instead of trusting the cached digests.
 
         Examples
         --------
@@ -210,7 +280,20 @@ class Study:
         from closecall.core.progress import quiet
         from closecall.suite.opening import open_study
 
-        return cls(open_study(config_path, progress or quiet))
+        return cls(open_study(config_path, progress or quiet, refit=refit, rehash=rehash))
+
+    @staticmethod
+    def write_demo(out: str | Path, *, cases: int = 5000, seed: int = 7) -> Path:
+        """Write the invented demo study (data and config) to the folder ``out``; returns its
+        config path. A folder that already holds a study is refused.
+
+        Examples
+        --------
+        >>> study = Study.open(Study.write_demo("demo-study"))  # doctest: +SKIP
+        """
+        from closecall.setup.demo import write_demo
+
+        return write_demo(Path(out), cases=cases, seed=seed)
 
     def fit(self, refit: bool = False, progress: Progress | None = None) -> Study:
         """The study on the current data and config (a new :class:`Study`; this one is frozen).
@@ -509,7 +592,6 @@ class Study:
         >>> result.to_frame().head()  # doctest: +SKIP
         """
         from closecall.analysis.whatif import Policy, policy_from_text
-        from closecall.analysis.whatif_figures import figures_dict, whatif
 
         policy = Policy(
             model=model,
@@ -518,8 +600,22 @@ class Study:
             group_thresholds=tuple((str(k), v) for k, v in (group_thresholds or {}).items()),
         )
         other = policy_from_text(self.opened, against) if against is not None else None
+        return self.weigh(policy, other, level=level)
+
+    def weigh(
+        self, policy: Policy, against: Policy | None = None, *, level: float = 0.95
+    ) -> WhatIfResult:
+        """:meth:`whatif` for a policy already built (as the review screen's choices are).
+
+        Examples
+        --------
+        >>> first = study.policy_choices()[0]  # doctest: +SKIP
+        >>> study.weigh(first).changed  # doctest: +SKIP
+        """
+        from closecall.analysis.whatif_figures import figures_dict, whatif
+
         snap = self.opened.snapshot
-        fig = whatif(self.opened, policy, other, level=level)
+        fig = whatif(self.opened, policy, against, level=level)
         data = figures_dict(fig, snap.case_ids, snap.group_labels)
         return WhatIfResult(
             snapshot_id=str(snap.id),
@@ -532,6 +628,128 @@ class Study:
             case_ids=tuple(str(c) for c in snap.case_ids[fig.rows]),
             data=data,
         )
+
+    # ------------------------------------------------------------ drafts, claims, history
+
+    def history(self, case_id: str) -> list[Entry]:
+        """Every ledger entry of one case, oldest first (the case must be in the snapshot).
+
+        Examples
+        --------
+        >>> [e.action for e in study.history("HR-0002696")]  # doctest: +SKIP
+        """
+        from closecall.review.decisions import case_history
+
+        return case_history(self.opened, case_id)
+
+    def save_draft(
+        self, case_id: str, note: str, action: str | None = None, reason: str | None = None
+    ) -> Draft:
+        """Keep the login's unfinished note (and chosen action and reason) on a case; drafts
+        are mutable and kept apart from the append-only chain.
+
+        Examples
+        --------
+        >>> study.save_draft("HR-0002696", "income letter asked for")  # doctest: +SKIP
+        """
+        from closecall.review.decisions import save_draft
+
+        return save_draft(self.opened, case_id, note, action, reason)
+
+    def load_draft(self, case_id: str) -> Draft | None:
+        """The login's draft on a case, or None.
+
+        Examples
+        --------
+        >>> study.load_draft("HR-0002696").note  # doctest: +SKIP
+        """
+        from closecall.review.decisions import load_draft
+
+        return load_draft(self.opened, case_id)
+
+    def drop_draft(self, case_id: str) -> None:
+        """Forget the login's draft on a case (after recording, or when discarded).
+
+        Examples
+        --------
+        >>> study.drop_draft("HR-0002696")  # doctest: +SKIP
+        """
+        from closecall.review.decisions import drop_draft
+
+        drop_draft(self.opened, case_id)
+
+    def my_drafts(self) -> list[Draft]:
+        """The login's drafts, oldest first.
+
+        Examples
+        --------
+        >>> [d.case_id for d in study.my_drafts()]  # doctest: +SKIP
+        """
+        from closecall.review.decisions import my_drafts
+
+        return my_drafts(self.opened)
+
+    def claim(self, case_id: str, instance: str | None = None) -> Claim:
+        """Tell other reviewers the login is looking at a case (advice only: it never stops
+        anyone from recording); ``instance`` names the review screen holding it.
+
+        Examples
+        --------
+        >>> study.claim("HR-0002696").expires  # doctest: +SKIP
+        """
+        from closecall.review.decisions import claim_case
+
+        return claim_case(self.opened, case_id, instance)
+
+    def release_claim(self, case_id: str, instance: str | None = None) -> None:
+        """Give up the login's claim on a case (with ``instance``, only while that screen
+        holds it).
+
+        Examples
+        --------
+        >>> study.release_claim("HR-0002696")  # doctest: +SKIP
+        """
+        from closecall.review.decisions import release_claim
+
+        release_claim(self.opened, case_id, instance)
+
+    def claims(self, case_ids: Iterable[str] | None = None) -> dict[str, list[Claim]]:
+        """The claims in force, by case (of ``case_ids``, or every case).
+
+        Examples
+        --------
+        >>> study.claims(["HR-0002696"])  # doctest: +SKIP
+        """
+        from closecall.review.decisions import active_claims
+
+        return active_claims(self.opened, case_ids)
+
+    def policy_choices(self) -> list[Policy]:
+        """The policies worth weighing first, in order: the deployed scorecard with each of its
+        features' weights set to zero, every other model of the suite, and the model in force
+        under every other cost lens.
+
+        Examples
+        --------
+        >>> [p.label(study.baseline_model) for p in study.policy_choices()][:3]  # doctest: +SKIP
+        """
+        from closecall.analysis.whatif import policy_choices
+
+        return policy_choices(self.opened)
+
+    @property
+    def baseline_model(self) -> str:
+        """The model whose decision is in force: ``deployed`` when the study has a deployed
+        scorecard, else the reference model.
+
+        Examples
+        --------
+        >>> study.baseline_model  # doctest: +SKIP
+        'deployed'
+        """
+        from closecall.analysis.whatif import baseline_model
+
+        return baseline_model(self.opened.snapshot)
 
     def record(
         self,

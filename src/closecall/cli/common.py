@@ -63,7 +63,7 @@ def load(config: Path, *, quiet: bool, refit: bool = False, rehash: bool = False
 
     ``rehash`` hashes the data files afresh instead of trusting the digests cache.
     """
-    from closecall.suite.opening import open_study
+    from closecall.api.study import Study
 
     with progress_bar(not quiet) as update:
-        return open_study(config, update, refit=refit, rehash=rehash)
+        return Study.open(config, update, refit=refit, rehash=rehash).opened

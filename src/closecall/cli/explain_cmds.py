@@ -1,4 +1,4 @@
-"""Commands: explain, proxies, bands, compare — a thin layer over closecall.analysis.
+"""Commands: explain, proxies, bands, compare — a thin layer over ``closecall.Study``.
 
 Every view reads at 80 columns; decisions, flips and flags carry words or signs as well as
 colour, so nothing is told by colour alone.

@@ -1,4 +1,4 @@
-"""`closecall record` and `closecall ledger show|verify`: thin layers over review decisions."""
+"""`closecall record` and `closecall ledger show|verify`: thin layers over ``closecall.Study``."""
 
 from __future__ import annotations
 

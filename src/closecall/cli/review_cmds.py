@@ -6,7 +6,7 @@ from pathlib import Path
 
 import typer
 
-from closecall.setup.config import CONFIG_NAME, load_config
+from closecall.setup.config import CONFIG_NAME
 
 DEMO_DIR = Path("demo-study")
 
@@ -46,10 +46,10 @@ def review(
         write = None if target.exists() else DEMO_DIR
         app = ReviewApp(target, write_demo_to=write, plain_ascii=plain_ascii)
     else:
-        from closecall.review.decisions import check_ledger
+        from closecall.api.study import Ledger
 
         # a bad config or an unusable ledger is one message and exit 2, before the screen opens
-        check_ledger(load_config(config))
+        Ledger.open(config).check()
         app = ReviewApp(config, plain_ascii=plain_ascii)
     app.run()
     if app.return_code:

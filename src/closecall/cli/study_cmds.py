@@ -9,6 +9,7 @@ import typer
 from rich.table import Table
 from rich.text import Text
 
+from closecall.api.study import Study
 from closecall.cli.common import (
     ConfigOption,
     JsonOption,
@@ -25,7 +26,6 @@ from closecall.cli.output import (
 from closecall.core.text import safe_text
 from closecall.setup.config import CONFIG_NAME
 from closecall.suite.fit_flags import PROBLEM_WORDS, fits_text, grouped_flags, snapshot_flags
-from closecall.suite.opening import open_study
 
 
 def init(
@@ -90,14 +90,13 @@ def demo(
     Example: closecall demo --out demo-study --cases 5000 && cd demo-study && closecall queue
     """
     from closecall.core.shared import login_umask
-    from closecall.setup.demo import write_demo
 
     with login_umask():  # config and data: the owner's files (docs/team.md)
-        config = write_demo(out, cases=cases, seed=seed)  # refuses a folder holding a study
+        config = Study.write_demo(out, cases=cases, seed=seed)  # refuses a folder with a study
     sid = None
     if fit:
         with progress_bar(not as_json) as update:
-            sid = open_study(config, update).snapshot.id
+            sid = Study.open(config, update).snapshot_id
     if as_json:
         emit_json({"config": str(config), "cases": cases, "seed": seed, "snapshot": sid})
         return

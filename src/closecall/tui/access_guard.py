@@ -5,8 +5,8 @@ from __future__ import annotations
 
 from typing import Any
 
+from closecall.api.study import Ledger
 from closecall.core.text import safe_text
-from closecall.review.ledger.access import may_record, record_refusal
 
 
 def may_decide(screen: Any) -> bool:
@@ -15,9 +15,10 @@ def may_decide(screen: Any) -> bool:
     ``screen`` is a review screen with a ``session`` (and, on the case screen, ``say``).
     """
     session = screen.session
-    if may_record(session.config.review, session.login):
+    ledger = Ledger(session.config)
+    if ledger.may_record(session.login):
         return True
-    message = safe_text(record_refusal(session.config.review, session.login, session.config.path))
+    message = safe_text(ledger.refusal(session.login))
     say = getattr(screen, "say", None)
     if callable(say):
         say(message)

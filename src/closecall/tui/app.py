@@ -118,12 +118,12 @@ class ReviewApp(App[None]):
 
     def _other_drafts(self, case_id: str | None) -> list[str]:
         """Case ids of this login's saved drafts other than ``case_id`` (newest first)."""
-        from closecall.review.decisions import my_drafts
+        from closecall.api.study import Study
 
         if self.session is None:
             return []
         try:
-            drafts = my_drafts(self.session.study)  # one small indexed read
+            drafts = Study(self.session.study).my_drafts()  # one small indexed read
         except UserError:
             return []
         return [d.case_id for d in drafts if d.case_id != case_id]
@@ -135,7 +135,7 @@ class ReviewApp(App[None]):
 
     def _save_drafts(self) -> None:
         """Before leaving: keep the open note as a draft, withdraw this session's claims."""
-        from closecall.review.decisions import release_claim
+        from closecall.api.study import Study
         from closecall.tui.case_screen import CaseScreen
 
         dialog = self.open_dialog()
@@ -147,7 +147,7 @@ class ReviewApp(App[None]):
         for screen in self.screen_stack:
             if isinstance(screen, (CaseScreen, DecisionDialog)):
                 with contextlib.suppress(UserError):
-                    release_claim(self.session.study, screen.case_id, self.session.instance)
+                    Study(self.session.study).release_claim(screen.case_id, self.session.instance)
 
     def _hangup(self) -> None:
         """The terminal went away (SSH dropped): keep the draft, then leave."""

@@ -17,16 +17,10 @@ from textual.screen import Screen
 from textual.widgets import Static
 from textual.worker import get_current_worker
 
+from closecall.api.study import Study
 from closecall.core.errors import UserError
 from closecall.core.text import safe_text, signed
 from closecall.core.vocabulary import OPEN, STATE_OF_ACTION, decision_word
-from closecall.review.decisions import (
-    active_claims,
-    case_history,
-    claim_case,
-    load_draft,
-    release_claim,
-)
 from closecall.review.ledger import Draft, Entry
 from closecall.review.queue import others_differ
 from closecall.suite.fit_flags import PROBLEM_WORDS, case_fit_flags
@@ -196,12 +190,12 @@ class CaseScreen(Screen[None]):
         session = self.session
         case_id = str(session.snap.case_ids[row])
         try:
-            claim_case(session.study, case_id, session.instance)
+            Study(session.study).claim(case_id, session.instance)
             half = {m: session.half_width(m, row) for m in session.snap.model_names}
             explained = analysis_bridge.explain(session.study, case_id)
-            history = case_history(session.study, case_id)
-            draft = load_draft(session.study, case_id)
-            session.claims = active_claims(session.study)
+            history = Study(session.study).history(case_id)
+            draft = Study(session.study).load_draft(case_id)
+            session.claims = Study(session.study).claims()
             details = CaseDetails(row, explained, half, history, draft)
         except UserError as exc:
             details = CaseDetails(row, None, {}, [], None, error=exc.message)
@@ -276,7 +270,7 @@ class CaseScreen(Screen[None]):
     @work(thread=True, group="claims")
     def _release(self, case_id: str) -> None:
         with contextlib.suppress(UserError):  # a claim is advice and expires by itself
-            release_claim(self.session.study, case_id, self.session.instance)
+            Study(self.session.study).release_claim(case_id, self.session.instance)
 
     def action_scroll(self, step: int) -> None:
         body = self.query_one("#case-body", VerticalScroll)

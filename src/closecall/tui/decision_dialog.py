@@ -1,4 +1,4 @@
-"""The decision dialog: action, reason code, note; records through ``closecall.review.decisions``.
+"""The decision dialog: action, reason code, note; records through ``closecall.Study``.
 
 The note is kept as a draft while it is typed (saved after a short pause, in a worker), so a
 closed dialog, a quit or a dropped connection loses nothing. Recording calls
@@ -21,11 +21,11 @@ from textual.screen import ModalScreen
 from textual.timer import Timer
 from textual.widgets import Static, TextArea
 
+from closecall.api.study import Ledger, Study
 from closecall.core.errors import UserError
 from closecall.core.text import safe_text, signed
 from closecall.core.vocabulary import ACTIONS, decision_word
-from closecall.review.conflicts import ConflictingDecision, last_seq
-from closecall.review.decisions import claim_case, load_draft, release_claim
+from closecall.review.conflicts import ConflictingDecision
 from closecall.review.ledger import Entry
 from closecall.tui.choice_list import ChoiceList
 from closecall.tui.conflict_prompt import SECOND_OPINION, SUPERSEDE, ConflictPrompt
@@ -109,10 +109,10 @@ class DecisionDialog(ModalScreen[Entry | None]):
     def _load(self) -> None:
         draft = None
         try:
-            self.seen_seq = last_seq(self.session.config)
-            draft = load_draft(self.session.study, self.case_id)
+            self.seen_seq = Ledger(self.session.config).head_seq()
+            draft = Study(self.session.study).load_draft(self.case_id)
             if self._claim:
-                claim_case(self.session.study, self.case_id, self.session.instance)
+                Study(self.session.study).claim(self.case_id, self.session.instance)
         except UserError as exc:  # e.g. a ledger damaged meanwhile: say so, never crash
             self.app.call_from_thread(self.say, exc.message)
         self.app.call_from_thread(self._loaded, draft)
@@ -203,7 +203,6 @@ class DecisionDialog(ModalScreen[Entry | None]):
     def _record(
         self, value: DraftValue, supersedes: int | None = None, second_opinion: bool = False
     ) -> None:
-        from closecall.api.study import Study  # at record time: not on the first paint
 
         try:
             entry = Study(self.session.study).record(
@@ -289,7 +288,7 @@ class DecisionDialog(ModalScreen[Entry | None]):
     @work(thread=True, group="claims")
     def _release(self) -> None:
         with contextlib.suppress(UserError):  # a claim is advice and expires by itself
-            release_claim(self.session.study, self.case_id, self.session.instance)
+            Study(self.session.study).release_claim(self.case_id, self.session.instance)
 
     def say(self, message: str) -> None:
         self.query_one("#dialog-status", Static).update(message)

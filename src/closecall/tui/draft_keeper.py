@@ -10,7 +10,7 @@ from __future__ import annotations
 import threading
 from dataclasses import dataclass
 
-from closecall.review.decisions import drop_draft, save_draft
+from closecall.api.study import Study
 from closecall.suite.opening import OpenedStudy
 
 
@@ -68,7 +68,9 @@ class DraftKeeper:
                     if value is None or self.closed:
                         return written
                 if value.empty:
-                    drop_draft(self.study, self.case_id)
+                    Study(self.study).drop_draft(self.case_id)
                 else:
-                    save_draft(self.study, self.case_id, value.note, value.action, value.reason)
+                    Study(self.study).save_draft(
+                        self.case_id, value.note, value.action, value.reason
+                    )
                 self._saved = written = value

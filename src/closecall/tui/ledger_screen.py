@@ -17,9 +17,9 @@ from textual.screen import Screen
 from textual.timer import Timer
 from textual.widgets import DataTable, Input, Static
 
+from closecall.api.study import Ledger
 from closecall.core.errors import UserError
 from closecall.core.text import safe_text, signed
-from closecall.review.decisions import ledger_entries, verify_ledger
 from closecall.review.ledger import Entry, VerifyResult
 from closecall.tui.key_bar import KeyBar
 from closecall.tui.marks import ACTION_SHORT, ACTION_WORD
@@ -122,9 +122,10 @@ class LedgerScreen(Screen[None]):
     def _load(self, generation: int, before: int | None) -> None:
         reviewer, case = self.app.call_from_thread(self._filters)
         try:
-            entries = ledger_entries(
-                self.session.config, case_id=case, reviewer=reviewer, limit=PAGE + 1, before=before
+            shown = Ledger(self.session.config).show(
+                case_id=case, reviewer=reviewer, limit=PAGE + 1, before=before
             )
+            entries = list(shown.entries)
         except UserError as exc:
             self.app.call_from_thread(self._show_detail, f"✗ {exc.message}")
             return
@@ -230,7 +231,7 @@ class LedgerScreen(Screen[None]):
     def _verify(self) -> None:
         try:
             # during a session a ledger with no entries yet is normal (`ledger verify` says so)
-            result = verify_ledger(self.session.config, allow_empty=True)
+            result = Ledger(self.session.config).verify(allow_empty=True)
         except UserError as exc:
             self.app.call_from_thread(self._chain_text, f"chain ? cannot check: {exc.message}")
             return

@@ -13,9 +13,10 @@ from textual.screen import Screen
 from textual.widgets import Static
 from textual.worker import get_current_worker
 
+from closecall.api.study import Study
 from closecall.core.cautions import CAUTIONS
 from closecall.core.errors import UserError
-from closecall.suite.opening import OpenedStudy, open_study
+from closecall.suite.opening import OpenedStudy
 from closecall.tui.errors import fix_text, message_text
 from closecall.tui.fit_progress import FitProgress
 from closecall.tui.key_bar import KeyBar
@@ -85,11 +86,9 @@ class LoadingScreen(Screen[None]):
             if study is None:
                 assert self.config_path is not None
                 if self.write_demo_to is not None:
-                    from closecall.setup.demo import write_demo
-
                     progress("writing the demo study", 0, 1)
-                    self.config_path = write_demo(self.write_demo_to)
-                study = open_study(self.config_path, progress)
+                    self.config_path = Study.write_demo(self.write_demo_to)
+                study = Study.open(self.config_path, progress).opened
             session = self.make_session(study)
             prepare(session, progress)
         except UserError as exc:

@@ -96,10 +96,10 @@ class ModelScreen(Screen[None]):
 
     @work(thread=True, group="model-weights")
     def _load(self) -> None:
-        from closecall.analysis.weights import model_weights
+        from closecall.api.study import Study
 
         try:
-            data = model_weights(self.session.snap)
+            data = dict(Study(self.session.study).model().data)
         except UserError as exc:
             self.app.call_from_thread(self._show, None, f"✗ {exc.message}")
             return

@@ -23,7 +23,8 @@ from textual.screen import Screen
 from textual.widgets import Input, OptionList, Static
 from textual.widgets.option_list import Option
 
-from closecall.analysis.whatif import Policy, baseline_model, policy_choices
+from closecall.analysis.whatif import Policy
+from closecall.api.study import Study
 from closecall.core.errors import UserError
 from closecall.core.text import safe_text
 from closecall.tui.key_bar import KeyBar
@@ -165,10 +166,10 @@ class WhatIfScreen(Screen[None]):
         options = self.query_one("#policies", OptionList)
         self.query_one("#threshold-row").display = False
         try:
-            self.policies = policy_choices(self.session.study)
+            self.policies = Study(self.session.study).policy_choices()
         except UserError as exc:
             self.say(f"✗ {exc.message}")
-        base = baseline_model(self.session.snap)
+        base = Study(self.session.study).baseline_model
         for i, p in enumerate(self.policies):
             options.add_option(Option(safe_text(p.label(base)), id=str(i)))
         levels = ", ".join(self.session.snap.group_levels)
@@ -225,7 +226,7 @@ class WhatIfScreen(Screen[None]):
         self.say(
             "comparing with the decision in force"
             if self.against is None
-            else f"comparing with: {self.against.label(baseline_model(self.session.snap))}"
+            else f"comparing with: {self.against.label(Study(self.session.study).baseline_model)}"
         )
         if self.shown is not None:
             self.weigh(self.shown)
@@ -239,12 +240,8 @@ class WhatIfScreen(Screen[None]):
 
     @work(thread=True, exclusive=True, group="whatif")
     def _compute(self, policy: Policy, against: Policy | None) -> None:
-        from closecall.analysis.whatif_figures import figures_dict, whatif
-
-        snap = self.session.snap
         try:
-            fig = whatif(self.session.study, policy, against)
-            data = figures_dict(fig, snap.case_ids, snap.group_labels)
+            data = dict(Study(self.session.study).weigh(policy, against).data)
         except UserError as exc:
             self.app.call_from_thread(self._show, None, f"✗ {exc.message}")
             return

@@ -39,6 +39,16 @@ def ascii_wanted(asked: bool | None, environ: Mapping[str, str] | None = None) -
     return env.get("TERM", "") in ASCII_TERMS
 
 
+#: ``±`` where the screens lay out their text: ASCII mode's glyph table keeps one cell per
+#: glyph and would make it ``~`` (as ``≈``, ambiguous), so the screens write ``+/-`` themselves.
+PLUS_MINUS = {False: "±", True: "+/-"}
+
+
+def plus_minus(app: object) -> str:
+    """``±``, or ``+/-`` when ``app`` draws plain ASCII (``ReviewApp.plain_ascii``)."""
+    return PLUS_MINUS[bool(getattr(app, "plain_ascii", False))]
+
+
 @lru_cache(4096)
 def _plain(text: str) -> str:
     return to_ascii(text)

@@ -32,7 +32,7 @@ MEANINGS = [
     ),
     (
         "close call",
-        "A case within the review band of the threshold (±band), or one that "
+        "A case within the review band either side of the threshold, or one that "
         "another model or cost lens decides differently.",
     ),
     (

@@ -19,6 +19,7 @@ from textual.widget import Widget
 
 from closecall.core.text import signed
 from closecall.core.vocabulary import short_model
+from closecall.tui.ascii_mode import plus_minus
 from closecall.tui.marks import REFERENCE
 
 NAME_WIDTH = 10
@@ -92,7 +93,9 @@ class MarginAxis(Widget):
         d = self.data
         letters = d.lens_letters or lens_letters(d.lens_names)
         width = self.size.width or 80
-        right = 14 + 2 * len(d.lens_names)
+        pm = plus_minus(self.app)  # "+/-" in ASCII mode: the band column is 2 cells wider
+        band_w = 4 + len(pm)
+        right = 9 + band_w + 2 * len(d.lens_names)
         # every model's name whole (a cut name is a different word), the axis gives way
         name_w = max([NAME_WIDTH, *(len(short_model(line.name)) + 2 for line in d.lines)])
         cells = max(15, width - name_w - right - 1)
@@ -105,7 +108,7 @@ class MarginAxis(Widget):
 
         ticks = {pos(o): letters[k] for k, o in enumerate(d.lens_offsets) if k and abs(o) <= span}
         text = Text(no_wrap=True, overflow="crop")
-        header = f"{'':<{name_w}}{'':<{cells}} {'margin':>6} {'band':>5}  "
+        header = f"{'':<{name_w}}{'':<{cells}} {'margin':>6} {'band':>{band_w}}  "
         text.append(header + " ".join(letters) + "\n", self._style("muted"))
         for line in d.lines:
             name = (REFERENCE if line.reference else " ") + short_model(line.name)
@@ -130,10 +133,10 @@ class MarginAxis(Widget):
                     styles[pos(line.margin)] = "fav" if line.margin > 0 else "unfav"
             for ch, st in zip(row, styles, strict=True):
                 text.append(ch, self._style(st) if st else None)
-            band = "  —  " if line.half is None else f"±{line.half:.2f}"[:5]
+            band = "—".center(band_w) if line.half is None else f"{pm}{line.half:.2f}"[:band_w]
             tone = self._style("fav" if line.margin > 0 else "unfav")
             text.append(f" {signed(line.margin):>6}", tone)
-            text.append(f" {band:>5}  ")
+            text.append(f" {band:>{band_w}}  ")
             text.append(" ".join("+" if f else "−" for f in line.favourable) + "\n")
         text.append(" " * name_w)
         text.append(self._scale(cells, span, ticks), self._style("muted"))

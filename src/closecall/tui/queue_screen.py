@@ -18,6 +18,7 @@ from closecall.core.vocabulary import short_model
 from closecall.review.ledger import Entry
 from closecall.review.triage import TIER_KEYS, TIER_WORDS
 from closecall.tui.access_guard import may_decide
+from closecall.tui.ascii_mode import plus_minus
 from closecall.tui.case_list import CaseList
 from closecall.tui.key_bar import KeyBar
 from closecall.tui.margin_chart import MarginChart
@@ -117,13 +118,7 @@ class QueueScreen(Screen[None]):
         q = self.session.queue
         band = f"{self.session.band:g}"
         width = max(20, self.app.size.width - 2)
-        counts = Text(no_wrap=True, overflow="ellipsis")
-        counts.append(f"{c.get('listed', 0):,}", "bold")
-        counts.append(f" listed of {c.get('cases', 0):,} │ ")
-        counts.append(f"{c.get('within_band', 0):,} within ±{band} · {c.get('flips', 0):,} flips")
-        counts.append(f" │ {c['reviewed']:,} reviewed · {c['claimed']:,} claimed")
-        if c.get("drafts"):
-            counts.append(f" · {c['drafts']:,} draft{'s' if c['drafts'] != 1 else ''}", "bold")
+        counts = _count_lines(c, f"{plus_minus(self.app)}{band}", width)
         tiers = [
             (f"{c.get(f'tier_{key}', 0):,} {word}", "")
             for key, word in zip(TIER_KEYS, TIER_WORDS, strict=True)
@@ -132,7 +127,7 @@ class QueueScreen(Screen[None]):
         same = q.same_as if q is not None else {}
         tiers += [(f"{short_model(m)} = {short_model(o)}", "") for m, o in same.items()]
         self.query_one("#counts", Static).update(
-            Text("\n").join([counts, *_packed(tiers, width, " · ", "why first: ")])
+            Text("\n").join([*counts, *_packed(tiers, width, " · ", "why first: ")])
         )
         s = self.session.settings
         sort = q.sort if q else s.sort
@@ -394,6 +389,27 @@ class QueueScreen(Screen[None]):
 SORT_WORDS = {"triage": "triage", "closeness": "flips first", "ambiguity": "ambiguity",
               "dependence": "dependence"}  # fmt: skip
 FLIP_WORDS = {"any": "any", "model": "model", "lens": "lens-only"}
+
+
+def _count_lines(c: dict[str, int], band: str, width: int) -> list[Text]:
+    """The header's counts in three parts (listed; within the band and flips; reviewed,
+    claimed and drafts) on one line, or broken between parts where ``width`` is too short
+    (national-scale numbers, a drafts count at 80 columns): never cut."""
+    listed = Text(no_wrap=True, overflow="ellipsis")
+    listed.append(f"{c.get('listed', 0):,}", "bold")
+    listed.append(f" listed of {c.get('cases', 0):,}")
+    near = Text(f"{c.get('within_band', 0):,} within {band} · {c.get('flips', 0):,} flips")
+    mine = Text(f"{c.get('reviewed', 0):,} reviewed · {c.get('claimed', 0):,} claimed")
+    if c.get("drafts"):
+        mine.append(f" · {c['drafts']:,} draft{'s' if c['drafts'] != 1 else ''}", "bold")
+    lines = [listed]
+    for part in (near, mine):
+        if len(lines[-1].plain) + 3 + len(part.plain) > width:
+            lines.append(Text(no_wrap=True, overflow="ellipsis"))
+        else:
+            lines[-1].append(" │ ")
+        lines[-1].append_text(part)
+    return lines
 
 
 def _packed(parts: list[tuple[str, str]], width: int, gap: str, lead: str = "") -> list[Text]:

@@ -10,7 +10,9 @@ from __future__ import annotations
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
 
 from closecall.api.results import (
     DisparityResult,
@@ -33,6 +35,7 @@ if TYPE_CHECKING:
     from closecall.reports.export import ExportResult
     from closecall.review.ledger import Claim, Draft, Entry
     from closecall.review.ledger.verify import VerifyResult
+    from closecall.review.query import QueueAnswer
     from closecall.setup.config import StudyConfig
     from closecall.suite.opening import OpenedStudy
 
@@ -48,6 +51,20 @@ def study_config(config_path: str | Path = "closecall.toml") -> StudyConfig:
     from closecall.setup.config import load_config
 
     return load_config(Path(config_path))
+
+
+def reason_codes(config: StudyConfig | None = None) -> list[dict[str, Any]]:
+    """The reason codes a reviewer may give, in the config's ``[review] reasons`` order (the
+    defaults every new study starts with, without a config): each ``{"code", "meaning",
+    "default"}``, ``meaning`` None for a study's own code.
+
+    Examples
+    --------
+    >>> [c["code"] for c in reason_codes()][:2]  # doctest: +SKIP
+    """
+    from closecall.review.reasons import reason_codes as codes
+
+    return codes(config)
 
 
 class Ledger:
@@ -122,6 +139,18 @@ class Ledger:
         from closecall.review.decisions import check_ledger
 
         check_ledger(self._config)
+
+    def login(self) -> str:
+        """Who records: the database session user for a PostgreSQL ledger, else the OS login.
+
+        Examples
+        --------
+        >>> study.ledger.login()  # doctest: +SKIP
+        'alice'
+        """
+        from closecall.review.ledger import ledger_login
+
+        return ledger_login(self._config.review)
 
     def may_record(self, login: str) -> bool:
         """Whether ``login`` may record reviews in this study (``[review] reviewers``, or the
@@ -362,6 +391,45 @@ class Study:
             _snapshot=snap,
         )
 
+    def answer(
+        self,
+        query: QueueQuery | None = None,
+        *,
+        reviews: tuple[np.ndarray, dict[str, list[str]]] | None = None,
+        cache: Mapping[str, np.ndarray] | None = None,
+    ) -> QueueAnswer:
+        """The engine's answer to a query, for a view that draws the whole ranked list itself
+        (the review screen): the ranked :class:`~closecall.review.queue.Queue` and the listed
+        rows, without building a row per case.
+
+        Parameters
+        ----------
+        reviews
+            Each case's review state (:meth:`review_states`) and who claims it, when the
+            caller has them already (None: read from the ledger).
+        cache
+            Analysis measures and filters already computed, by name, to reuse.
+
+        Examples
+        --------
+        >>> answer = study.answer(QueueQuery(sort="margin"))  # doctest: +SKIP
+        >>> answer.queue.counts["listed"]  # doctest: +SKIP
+        """
+        return answer_queue(self.opened, query, reviews=reviews, cache=cache)
+
+    def review_states(self) -> np.ndarray:
+        """Every case's review state from the ledger, in snapshot order: 0 open, else 1 + the
+        index of its latest action, or the conflict code (``closecall.core.vocabulary``).
+
+        Examples
+        --------
+        >>> from closecall.core.vocabulary import STATE_NAMES  # doctest: +SKIP
+        >>> STATE_NAMES[int(study.review_states()[0])]  # doctest: +SKIP
+        """
+        from closecall.review.states import ledger_states
+
+        return ledger_states(self.opened)
+
     def explain(self, case_id: str, *, exact: bool = False, lens: str | None = None) -> Explanation:
         """Why one case is close: suite decisions, contributions, dependence, bands, neighbours.
 
@@ -508,11 +576,19 @@ class Study:
         return identical_models(self.opened.snapshot)
 
     def margin_distribution(
-        self, band: float, bins: int = 48, query: QueueQuery | None = None
+        self,
+        band: float,
+        bins: int = 48,
+        query: QueueQuery | None = None,
+        *,
+        rows: np.ndarray | None = None,
     ) -> MarginDistribution:
         """The reference margins per group in ``bins`` equal bins over ±3 review bands, with
         the count within the band (the queue's chart): of the cases ``query``'s filters keep,
         at any distance from the threshold (every case when it has no filter).
+
+        ``rows`` gives the kept rows instead of ``query`` (from :meth:`kept_rows`, computed
+        once for a list drawn many times).
 
         Examples
         --------
@@ -522,8 +598,27 @@ class Study:
         """
         from closecall.analysis.margin_distribution import kept_rows, margin_distribution
 
-        rows = None if query is None else kept_rows(self.opened, query)
+        if rows is None and query is not None:
+            rows = kept_rows(self.opened, query)
         return margin_distribution(self.opened.snapshot, band, bins, rows)
+
+    def kept_rows(
+        self,
+        query: QueueQuery,
+        *,
+        reviews: tuple[np.ndarray, dict[str, list[str]]] | None = None,
+        cache: Mapping[str, np.ndarray] | None = None,
+    ) -> np.ndarray | None:
+        """Snapshot rows a query's filters keep at any distance from the threshold (None: it
+        has no filter, every case counts); ``reviews`` and ``cache`` as in :meth:`answer`.
+
+        Examples
+        --------
+        >>> rows = study.kept_rows(QueueQuery(group="Briar"))  # doctest: +SKIP
+        """
+        from closecall.analysis.margin_distribution import kept_rows
+
+        return kept_rows(self.opened, query, reviews=reviews, cache=cache)
 
     def scorecard(self) -> Report:
         """The deployed scorecard as fitted (``[deployed] scorecard``, docs/scorecard.md): its
@@ -854,4 +949,4 @@ class Study:
         )
 
 
-__all__ = ["Ledger", "Study", "study_config"]
+__all__ = ["Ledger", "Study", "reason_codes", "study_config"]

@@ -8,7 +8,7 @@ import typer
 
 from closecall.cli.common import ConfigOption
 from closecall.cli.output import console, emit_json, safe_text
-from closecall.setup.config import CONFIG_NAME, load_config
+from closecall.setup.config import CONFIG_NAME
 
 
 def reasons(
@@ -24,10 +24,10 @@ def reasons(
     Example:
       closecall reasons --config studies/grants/closecall.toml
     """
-    from closecall.review.reasons import reason_codes
+    from closecall.api.study import reason_codes, study_config
 
     default_path = config == Path(CONFIG_NAME) and not config.exists()
-    study = None if default_path else load_config(config)
+    study = None if default_path else study_config(config)
     codes = reason_codes(study)
     source = "defaults (no study config here)" if study is None else str(study.path)
     if as_json:

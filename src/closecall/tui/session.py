@@ -14,18 +14,12 @@ from datetime import UTC, datetime
 
 import numpy as np
 
-from closecall.analysis.margin_distribution import (
-    MarginDistribution,
-    kept_rows,
-    margin_distribution,
-)
+from closecall.analysis.margin_distribution import MarginDistribution
+from closecall.api.study import Ledger, Study
 from closecall.core.errors import AccessDenied
-from closecall.review.conflicts import study_conflicts
-from closecall.review.decisions import active_claims, latest_actions, my_drafts
-from closecall.review.ledger import Claim, ledger_login
-from closecall.review.query import QueueQuery, answer_queue, awaiting_decision
+from closecall.review.ledger import Claim
+from closecall.review.query import QueueQuery, awaiting_decision
 from closecall.review.queue import Queue
-from closecall.review.states import mark_conflicts, review_states
 from closecall.suite.opening import OpenedStudy
 from closecall.tui import analysis_bridge
 
@@ -89,7 +83,7 @@ class ReviewSession:
         self.study = study
         self.snap = study.snapshot
         self.config = study.config
-        self.login = ledger_login(self.config.review)  # the database user on PostgreSQL
+        self.login = Ledger(self.config).login()  # the database user on PostgreSQL
         self.display_login = login or self.login
         self.clock = clock
         self.band = float(study.config.review.band)
@@ -174,8 +168,9 @@ class ReviewSession:
             settings = replace(settings, sort="triage")
         query = self.query(settings)
         reviews = (self.states, {c: [x.reviewer for x in cs] for c, cs in self.claims.items()})
-        answer = answer_queue(self.study, query, reviews=reviews, cache=self._analysis_cache())
-        chart_rows = kept_rows(self.study, query, reviews=reviews, cache=self._analysis_cache())
+        study = Study(self.study)
+        answer = study.answer(query, reviews=reviews, cache=self._analysis_cache())
+        chart_rows = study.kept_rows(query, reviews=reviews, cache=self._analysis_cache())
         q = answer.queue
         position = np.full(self.snap.n_cases, -1, dtype=np.int64)
         position[q.order] = np.arange(len(q.order))
@@ -237,15 +232,14 @@ class ReviewSession:
 
     def refresh_reviews(self) -> None:
         """Read each case's latest action and the claims (call from a worker)."""
-        latest = latest_actions(self.config)  # one query, however long the ledger
-        self.states = review_states(self.snap, latest)  # codes of closecall.core.vocabulary
-        self.states = mark_conflicts(self.snap, self.states, study_conflicts(self.config))
-        self.claims = active_claims(self.study)
+        study = Study(self.study)
+        self.states = study.review_states()  # codes of closecall.core.vocabulary
+        self.claims = study.claims()
         self.drafts = self._my_drafts()
 
     def _my_drafts(self) -> list[str]:
         try:
-            return [d.case_id for d in my_drafts(self.study)]
+            return [d.case_id for d in Study(self.study).my_drafts()]
         except AccessDenied:  # an analyst keeps no drafts
             return []
 
@@ -292,7 +286,7 @@ class ReviewSession:
     def group_chart(self, bins: int) -> GroupChart:
         """Reference margins per group near the threshold, in ``bins`` equal bins: of the
         cases the list's filters keep, at any distance (every case with no filter)."""
-        return margin_distribution(self.snap, self.band, bins, self.chart_rows)
+        return Study(self.study).margin_distribution(self.band, bins, rows=self.chart_rows)
 
 
 def finite(value: float | None) -> bool:

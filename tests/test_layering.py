@@ -223,7 +223,8 @@ VIEW_MAY_IMPORT: dict[str, set[str]] = {
     "closecall.analysis.margin_distribution": {"MarginDistribution"},
     "closecall.analysis.multiplicity": {"UNCERTAINTY_EPSILON"},
     "closecall.analysis.whatif": {"Policy", "parse_group_threshold"},
-    "closecall.suite.fit_flags": {"PROBLEM_WORDS", "flag_label", "fits_text"},
+    # the words of a fit flag, and its fits grouped one line per model, group and problem
+    "closecall.suite.fit_flags": {"PROBLEM_WORDS", "flag_label", "fits_text", "grouped_flags"},
     "closecall.setup.config": {"CONFIG_NAME", "DEFAULT_REASONS"},
     "closecall.setup.output_files": {
         "StudyFile",
@@ -246,8 +247,6 @@ VIEW_MAY_IMPORT: dict[str, set[str]] = {
 #: (team set-up) and the PostgreSQL commands (the database ledger).
 PENDING: set[tuple[str, str, str]] = {
     ("cli/study_cmds.py", "closecall.setup.init", "infer_config"),
-    ("cli/study_cmds.py", "closecall.suite.fit_flags", "grouped_flags"),
-    ("cli/study_cmds.py", "closecall.suite.fit_flags", "snapshot_flags"),
     ("cli/ledger_pg_cmds.py", "closecall.review.ledger.pg_store", "redact"),
     ("cli/ledger_pg_cmds.py", "closecall.review.ledger.pg_store", "setup"),
     ("cli/ledger_pg_cmds.py", "closecall.review.ledger.pg_store", "is_url"),
@@ -269,7 +268,6 @@ PENDING: set[tuple[str, str, str]] = {
     ("tui/case_list.py", "closecall.review.queue", "others_differ"),
     ("tui/case_list.py", "closecall.review.triage", "closeness_codes"),
     ("tui/case_screen.py", "closecall.review.queue", "others_differ"),
-    ("tui/case_screen.py", "closecall.suite.fit_flags", "case_fit_flags"),
 }
 
 

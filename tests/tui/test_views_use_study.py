@@ -100,3 +100,65 @@ def test_the_decision_dialog_records_through_study(
     ]
     assert [e.case_id for e in decisions.ledger_entries(study.config)] == [case]
     assert Plumbing.done[0][0] == "_recorded"
+
+
+@pytest.mark.parametrize(
+    ("args", "owner", "method"),
+    [
+        (["proxies", "--json"], "Study", "proxies"),
+        (["bands", "--json"], "Study", "bands"),
+        (["compare", "--boot", "100", "--json"], "Study", "compare"),
+        (["explain", "{case}", "--json"], "Study", "explain"),
+        (["queue", "--chart", "--json"], "Study", "margin_distribution"),
+        (["model", "--json"], "Study", "model"),
+        (["ledger", "show", "--json"], "Ledger", "show"),
+        (["ledger", "verify", "--allow-empty", "--json"], "Ledger", "verify"),
+        (["demo-reviews", "30", "--json"], "Study", "demo_reviews"),
+    ],
+)
+def test_the_commands_get_their_results_from_study(
+    study: OpenedStudy,
+    cli: Any,
+    monkeypatch: pytest.MonkeyPatch,
+    args: list[str],
+    owner: str,
+    method: str,
+) -> None:
+    """Each command's figures come from the Study (or Ledger) method of the same question
+    (observed by wrapping the method); the command succeeds as before."""
+    from closecall.api import study as api
+
+    cls = getattr(api, owner)
+    real = getattr(cls, method)
+    calls: list[str] = []
+
+    def spy(self: Any, *a: Any, **kw: Any) -> Any:
+        calls.append(method)
+        return real(self, *a, **kw)
+
+    monkeypatch.setattr(cls, method, spy)
+    case = str(study.snapshot.case_ids[0])
+    res = cli(*[a.replace("{case}", case) for a in args], "--config", str(study.config.path))
+    assert res.code == 0, res
+    assert calls, f"closecall {' '.join(args)} did not ask {owner}.{method}"
+
+
+def test_disparity_asks_study(
+    study: OpenedStudy, cli: Any, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """`closecall disparity` (text and HTML) is drawn from Study.disparity's report."""
+    config = str(study.config.path)
+    assert cli("demo-reviews", "60", "--config", config).code == 0
+    calls: list[int] = []
+    real = Study.disparity
+
+    def spy(self: Study, **kw: Any) -> Any:
+        calls.append(kw["n_boot"])
+        return real(self, **kw)
+
+    monkeypatch.setattr(Study, "disparity", spy)
+    html = study.config.path.parent.parent / "report.html"
+    res = cli("disparity", "--boot", "200", "--html", str(html), "--config", config)
+    assert res.code == 0, res
+    assert calls == [200]
+    assert "adverse impact" in res.out.lower() and html.read_text(encoding="utf-8")

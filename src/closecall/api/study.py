@@ -562,6 +562,22 @@ class Study:
         snap = self.opened.snapshot
         return Report("model", str(snap.id), model_weights(snap, level))
 
+    def fit_flags(self, case_id: str | None = None) -> list[dict[str, Any]]:
+        """The fits of the snapshot kept despite a problem (separation, no convergence…), each
+        ``{"model", "group", "fit", "problem", "detail"}``; with ``case_id``, only those of the
+        fits that scored that case.
+
+        Examples
+        --------
+        >>> [f["problem"] for f in study.fit_flags()]  # doctest: +SKIP
+        """
+        from closecall.suite.fit_flags import case_fit_flags, snapshot_flags
+
+        snap = self.opened.snapshot
+        if case_id is None:
+            return snapshot_flags(snap)
+        return case_fit_flags(snap, snap.case_index(case_id))
+
     def same_models(self) -> dict[str, str]:
         """Models of the suite that are another, earlier one: ``{later: earlier}`` (lists name
         such a model once).

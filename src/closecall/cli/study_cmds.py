@@ -25,7 +25,7 @@ from closecall.cli.output import (
 )
 from closecall.core.text import safe_text
 from closecall.setup.config import CONFIG_NAME
-from closecall.suite.fit_flags import PROBLEM_WORDS, fits_text, grouped_flags, snapshot_flags
+from closecall.suite.fit_flags import PROBLEM_WORDS, fits_text, grouped_flags
 
 
 def init(
@@ -138,7 +138,7 @@ def fit(
         "group_recoverability_auc": snap.proxies.recoverability,
         "metrics": snap.metrics,
         "notes": snap.meta.get("notes", []),
-        "fit_flags": snapshot_flags(snap),
+        "fit_flags": Study(study).fit_flags(),
     }
     if as_json:
         emit_json(payload)
@@ -167,16 +167,15 @@ def fit(
             f"group recoverable from the other features: AUC {snap.proxies.recoverability:.3f}"
         )
     )
-    _print_fit_flags(snap)
+    _print_fit_flags(snap, Study(study).fit_flags())
     for note in snap.meta.get("notes", []):
         if not str(note).startswith("fit flag:"):  # the fit flags table above shows those
             err_console.print(plain(f"note: {note}"))
 
 
-def _print_fit_flags(snap: Any) -> None:
+def _print_fit_flags(snap: Any, flags: list[dict[str, Any]]) -> None:
     """The fits the checks flagged (separation, one outcome, …), one entry per model, group
     and problem with the first fit's detail; --json lists every fit."""
-    flags = snapshot_flags(snap)
     if not flags:
         return
     console.print(

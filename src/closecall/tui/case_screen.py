@@ -23,7 +23,7 @@ from closecall.core.text import safe_text, signed
 from closecall.core.vocabulary import OPEN, STATE_OF_ACTION, decision_word
 from closecall.review.ledger import Draft, Entry
 from closecall.review.queue import others_differ
-from closecall.suite.fit_flags import PROBLEM_WORDS, case_fit_flags
+from closecall.suite.fit_flags import PROBLEM_WORDS
 from closecall.tui import analysis_bridge, card_section, case_sections
 from closecall.tui.access_guard import may_decide
 from closecall.tui.key_bar import KeyBar
@@ -299,7 +299,7 @@ def case_summary(session: ReviewSession, row: int, explained: dict[str, Any] | N
             text.append(" · rests on group")
         elif dep["rests_on_proxies"]:
             text.append(" · rests on proxies")
-    flags = case_fit_flags(snap, row)
+    flags = Study(session.study).fit_flags(str(snap.case_ids[row]))
     if flags:  # the fits that scored this case were kept despite separation or the like
         words = sorted(
             {f"{f['model']} ({PROBLEM_WORDS.get(f['problem'], f['problem'])})" for f in flags}

@@ -535,7 +535,7 @@ def test_signed_entries_verify_against_the_authors_key(team: dict[str, str]) -> 
     assert not result.ok
 
 
-# ------------------------------------------------- the pipelined append (two round trips)
+# ---------------------------------- the append: two messages, the head held for one
 
 
 def _wrap_chain(monkeypatch: pytest.MonkeyPatch, change_head: Any) -> None:
@@ -551,7 +551,7 @@ def _wrap_chain(monkeypatch: pytest.MonkeyPatch, change_head: Any) -> None:
     monkeypatch.setattr(pg_store.PgLedger, "_chain", staticmethod(chain))
 
 
-def test_the_pipelined_append_still_refuses_another_name(
+def test_the_two_message_append_still_refuses_another_name(
     team: dict[str, str], monkeypatch: pytest.MonkeyPatch
 ) -> None:
     alice = team["alice"].split("://")[1].split("@")[0]
@@ -577,7 +577,7 @@ def test_the_pipelined_append_still_refuses_another_name(
     ],
     ids=["wrong-hash", "gap", "fork"],
 )
-def test_the_pipelined_append_refuses_an_entry_that_does_not_follow_the_head(
+def test_the_two_message_append_refuses_an_entry_that_does_not_follow_the_head(
     team: dict[str, str], monkeypatch: pytest.MonkeyPatch, change: Any
 ) -> None:
     with open_pg_ledger(team["alice"]) as ledger:

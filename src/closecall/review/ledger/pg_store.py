@@ -8,18 +8,21 @@ who may do what:
   refused by triggers; only the owner can drop or alter the table.
 * Identity is the database ``session_user``: a trigger refuses an entry whose ``reviewer`` is
   not the session user, so nothing the client sends can record in someone else's name.
-* Ordering: each append locks the one-row ``head`` table (``SELECT … FOR UPDATE`` in a
-  SECURITY DEFINER function), reads the last sequence number and hash, and the insert trigger
-  checks the new entry links to that head and moves it in the same transaction. Concurrent
-  writers on any number of hosts queue on that row lock and can never fork the chain; a
-  writer killed mid-transaction leaves nothing (PostgreSQL rolls it back).
+* Ordering: each append queues on a transaction-level advisory lock, then locks the one-row
+  ``head`` table (``SELECT … FOR UPDATE`` in a SECURITY DEFINER function), reads the last
+  sequence number and hash, and the insert trigger locks that row too (for a client that
+  skipped the function), checks the new entry links to that head and moves it in the same
+  transaction. Concurrent writers on any number of hosts are serialised by that row lock and
+  can never fork the chain; a writer killed mid-transaction leaves nothing (PostgreSQL rolls
+  it back).
 * Durability: every append commits with ``synchronous_commit = on``.
 * The stored row keeps the entry's canonical JSON (``body``, the exact bytes that are hashed)
   beside its hash, so a field added to the entry format needs no change of table.
 
 References
 ----------
-PostgreSQL documentation, "Explicit Locking" (row-level locks, SELECT FOR UPDATE);
+PostgreSQL documentation, "Explicit Locking" (row-level locks, SELECT FOR UPDATE, advisory
+locks); "Message Flow" (simple query: several statements in one message);
 "Row Security Policies"; "CREATE FUNCTION" (SECURITY DEFINER, writing such functions safely);
 "WAL Configuration" (synchronous_commit).
 """
@@ -167,6 +170,10 @@ def _schema_sql(reviewer: str, analyst: str) -> list[str]:
             BEGIN
               DELETE FROM closecall.drafts d
                 WHERE d.reviewer = session_user AND d.case_id = lock_head_for.case_id;
+              -- writers queue here first, then lock the row uncontended: under contention
+              -- this cost the server less per append than queueing on the row lock
+              -- (docs/performance.md); the row lock below is what the chain relies on
+              PERFORM pg_advisory_xact_lock(hashtext('closecall.head'));
               SELECT h.seq, h.hash, session_user::text, clock_timestamp()
                 INTO seq, hash, reviewer, now
                 FROM closecall.head h WHERE h.one FOR UPDATE;
@@ -360,17 +367,18 @@ class PgLedger:
     def append(self, content: EntryContent, sign: Callable[[bytes], str] | None = None) -> Entry:
         """Number, chain and store one entry as the session user; removes the draft.
 
-        The head row is locked first, so concurrent writers queue; the server checks the link,
-        the hash and the identity before the insert stands, and the whole entry commits or
+        Writers queue for the head, so the chain never forks; the server checks the link, the
+        hash and the identity before the insert stands, and the whole entry commits or
         nothing does.
 
-        The lock is held for as short a time as the chain allows: everything that does not
-        depend on the head is prepared before it is taken, and the statements go in pipeline
-        mode (PostgreSQL's extended query protocol without a wait after each statement), so an
-        append holds the lock for one round trip to the server: (1) BEGIN, the ``supersedes``
-        check and ``closecall.lock_head_for`` (which removes the caller's draft of the case and
-        locks the head); then, once the entry is numbered, signed and hashed against that
-        head, (2) the INSERT and the COMMIT; (3) the pipeline's closing sync, after the lock.
+        The head is held for as short a time as the chain allows: everything that does not
+        depend on it is prepared before, and an append is two round trips to the server, of
+        which the lock is held for one: (1) ``BEGIN``, the ``supersedes`` check and
+        ``closecall.lock_head_for`` (which removes the caller's draft of the case, queues
+        for the head and locks its row); then, once the entry is numbered, signed and hashed
+        against that head, (2) the ``INSERT`` and the ``COMMIT``. Each round trip is one
+        message of several statements (PostgreSQL's simple query protocol, the values quoted
+        by psycopg), sent in autocommit mode so the driver adds no ``BEGIN`` of its own.
         """
         import psycopg
 
@@ -380,42 +388,11 @@ class PgLedger:
             raise RuntimeError("ledger opened read-only")
         _check_content(content)
         fields = self._unchained_fields(content)  # before the lock: all but the head's part
-        conn = self._conn
         try:
-            with conn.pipeline():
-                earlier = (
-                    None
-                    if content.supersedes is None
-                    else conn.execute(_SUPERSEDES_SQL, (content.supersedes,))
-                )
-                # round trip 1: the draft goes and the head is locked (held from here)
-                head = conn.execute(_LOCK_HEAD_SQL, (content.case_id,)).fetchone()
-                if earlier is not None:
-                    row = earlier.fetchone()
-                    if row is None or row[0] != content.case_id:
-                        raise ValueError(
-                            f"entry {content.supersedes} is not an earlier entry for "
-                            f"{content.case_id}"
-                        )
-                assert head is not None
-                body = self._chain(fields, head, sign)
-                conn.execute(
-                    _INSERT_SQL,
-                    (
-                        fields["seq"],
-                        content.case_id,
-                        content.action,
-                        body,
-                        fields["hash"],
-                        fields["prev_hash"],
-                    ),
-                )
-                conn.commit()  # round trip 2: INSERT + COMMIT; the lock goes with the commit
+            self._store(content, fields, sign)
         except psycopg.errors.InsufficientPrivilege as exc:
-            conn.rollback()
             raise self._denied("record reviews", exc) from None
         except psycopg.errors.UndefinedFunction:
-            conn.rollback()
             raise UserError(
                 f"{self.path}: the ledger database was set up by an earlier closecall "
                 "(closecall.lock_head_for is missing); nothing was recorded",
@@ -424,8 +401,8 @@ class PgLedger:
             ) from None
         except psycopg.errors.SerializationFailure:
             # the server refused an entry that does not follow the head: a client bug, not a
-            # lost connection (an OperationalError too); the entry and the draft's removal go
-            conn.rollback()
+            # lost connection (an OperationalError too); the entry and the draft's removal
+            # were rolled back
             raise
         except psycopg.OperationalError as exc:
             raise UserError(
@@ -435,11 +412,62 @@ class PgLedger:
                 "is stored whole or not at all; your draft is kept until it is), then record "
                 "again if it is not there",
             ) from None
-        except BaseException:
-            if not conn.closed:
-                conn.rollback()
-            raise
         return Entry(**fields)
+
+    def _store(
+        self, content: EntryContent, fields: dict[str, Any], sign: Callable[[bytes], str] | None
+    ) -> None:
+        """The two round trips of :meth:`append` (``fields`` completed in place)."""
+        import psycopg
+
+        conn = self._conn
+        conn.autocommit = True  # the transaction is the BEGIN … COMMIT sent below
+        try:
+            with psycopg.ClientCursor(conn) as cur:
+                if content.supersedes is None:
+                    cur.execute(_BEGIN_SQL, (content.case_id,))
+                else:
+                    cur.execute(_BEGIN_CHECKED_SQL, (content.supersedes, content.case_id))
+                    cur.nextset()
+                    row = cur.fetchone()
+                    if row is None or row[0] != content.case_id:
+                        raise ValueError(
+                            f"entry {content.supersedes} is not an earlier entry for "
+                            f"{content.case_id}"
+                        )
+                cur.nextset()
+                head = cur.fetchone()  # the head is locked from here to the COMMIT
+                assert head is not None
+                body = self._chain(fields, head, sign)
+                cur.execute(
+                    _INSERT_COMMIT_SQL,
+                    (
+                        fields["seq"],
+                        content.case_id,
+                        content.action,
+                        body,
+                        fields["hash"],
+                        fields["prev_hash"],
+                    ),
+                )
+        finally:
+            self._end()
+
+    def _end(self) -> None:
+        """Back to the connection's usual mode; an append that did not reach its COMMIT is
+        rolled back (the entry, the draft's removal and the head lock go)."""
+        from psycopg.pq import TransactionStatus
+
+        conn = self._conn
+        if conn.closed:
+            return
+        status = conn.info.transaction_status
+        if status in (TransactionStatus.INTRANS, TransactionStatus.INERROR):
+            conn.execute("ROLLBACK")  # the append's own BEGIN (sent in autocommit mode)
+        elif status != TransactionStatus.IDLE:  # interrupted mid-statement: the server
+            conn.close()  # rolls back what this session had begun when it goes
+            return
+        conn.autocommit = False
 
     @staticmethod
     def _unchained_fields(content: EntryContent) -> dict[str, Any]:
@@ -995,12 +1023,19 @@ def verify_database(
         return verify_opened(ledger, ledger.path, anchor, allow_empty=allow_empty, keys=keys)
 
 
-_SUPERSEDES_SQL = "SELECT case_id FROM closecall.entries WHERE seq = %s"
-_LOCK_HEAD_SQL = "SELECT * FROM closecall.lock_head_for(%s)"
+#: An append's first message: the transaction, the draft's removal and the head lock.
+_BEGIN_SQL = "BEGIN; SELECT * FROM closecall.lock_head_for(%s)"
+#: The same, for a correction: first, the case of the entry it supersedes.
+_BEGIN_CHECKED_SQL = (
+    "BEGIN; SELECT case_id FROM closecall.entries WHERE seq = %s; "
+    "SELECT * FROM closecall.lock_head_for(%s)"
+)
 _INSERT_SQL = (
     "INSERT INTO closecall.entries (seq, case_id, action, body, hash, prev_hash) "
     "VALUES (%s, %s, %s, %s, %s, %s)"
 )
+#: An append's second message: the entry and the durable commit that releases the head.
+_INSERT_COMMIT_SQL = _INSERT_SQL + "; COMMIT"
 _COPY_SQL = _INSERT_SQL
 
 

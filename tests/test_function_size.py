@@ -15,15 +15,7 @@ LIMIT = 80
 
 #: module:function -> why it is still long (each one a candidate for the next split).
 ALLOWED: dict[str, str] = {
-    "review/demo_reviews.py:simulate_reviews": "the demo's simulated reviewers (to split)",
-    "suite/scorecard.py:load_scorecard": "card parsing with a refusal per field (to split)",
-    "analysis/multiplicity.py:exact_band": "the exact band's optimisation (to split)",
     "review/ledger/pg_store.py:_schema_sql": "one SQL script as a string (data, not steps)",
-    "reports/disparity/population.py:population_effect": "rates, effect, intervals (to split)",
-    "reports/disparity/rates.py:favourable_rates": "rates, ratios, intervals (to split)",
-    "analysis/deployed_card.py:explain_card": "the scorecard's explanation (to split)",
-    "reports/disparity/contingency.py:independence_test": "test, exact fall-back (to split)",
-    "suite/solver.py:_separation_lp": "one linear programme (to split)",
     "analysis/comparison.py:compare_models": "bootstrap comparison (to split)",
     "reports/disparity/errors_by_group.py:error_rates": "rates, intervals, tests (to split)",
     "reports/disparity/html_sections.py:calibration_section": "one HTML section (to split)",

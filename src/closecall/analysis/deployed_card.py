@@ -214,49 +214,13 @@ def explain_card(
     factor = card.factor
 
     def lo(x: float) -> float | None:
-        return None if factor is None else float(x) / factor
+        return _logodds(factor, x)
 
-    cp = dep.contributions_points[0]
-    order = np.argsort(-np.abs(cp), kind="stable")
-    contributions = [
-        {
-            "feature": dep.features[j],
-            "role": dep.roles[j],
-            "value": values.get(dep.features[j]),
-            "points": float(dep.points[0, j]),
-            "mean_points": float(dep.mean_points[j]),
-            "contribution_points": float(cp[j]),
-            "contribution": lo(cp[j]),
-        }
-        for j in order
-    ]
     margin_pts = float(dep.margin_points[0])
     gp, pp, rest = (float(dep.part_points(r)[0]) for r in ("group", "proxy", "other"))
     favourable = margin_pts >= 0
-    levels, swapped, carried = card_counterparts(snap, dep)
-    own = int(snap.group_codes[i])
-    counterparts = []
-    for h, label in enumerate(levels):
-        if h == own:
-            continue
-        s = float(swapped[0, h])
-        row: dict[str, Any] = {
-            "group": label,
-            "margin_group_swapped": s,
-            "decision_group_swapped": decision_word(s >= 0),
-            "flips_group_swapped": (s >= 0) != favourable,
-            "margin_carried": None,
-            "decision_carried": None,
-            "flips_carried": None,
-        }
-        if carried is not None:
-            c = float(carried[0, h])
-            row.update(
-                margin_carried=c,
-                decision_carried=decision_word(c >= 0),
-                flips_carried=(c >= 0) != favourable,
-            )
-        counterparts.append(row)
+    contributions = _card_contributions(dep, values)
+    counterparts = _card_counterpart_rows(snap, dep, i, favourable)
     probability = None
     if card.offset is not None and factor is not None:
         probability = float(1.0 / (1.0 + np.exp(-(dep.total[0] - card.offset) / factor)))
@@ -294,3 +258,58 @@ def explain_card(
         "cannot": list(meta.get("cannot", [])),
         "notes": list(meta.get("notes", [])) + list(card.notes),
     }
+
+
+def _logodds(factor: float | None, x: float) -> float | None:
+    """Card points in log-odds (None for a card without a scaling)."""
+    return None if factor is None else float(x) / factor
+
+
+def _card_contributions(dep: CardDependence, values: dict[str, Any]) -> list[dict[str, Any]]:
+    """Each feature's points on the case against its mean, largest first."""
+    cp = dep.contributions_points[0]
+    order = np.argsort(-np.abs(cp), kind="stable")
+    return [
+        {
+            "feature": dep.features[j],
+            "role": dep.roles[j],
+            "value": values.get(dep.features[j]),
+            "points": float(dep.points[0, j]),
+            "mean_points": float(dep.mean_points[j]),
+            "contribution_points": float(cp[j]),
+            "contribution": _logodds(dep.card.factor, cp[j]),
+        }
+        for j in order
+    ]
+
+
+def _card_counterpart_rows(
+    snap: Snapshot, dep: CardDependence, i: int, favourable: bool
+) -> list[dict[str, Any]]:
+    """The card's margin (points) with the group swapped to each other level, and with the
+    features that go with the group carried over (when the card can say)."""
+    levels, swapped, carried = card_counterparts(snap, dep)
+    own = int(snap.group_codes[i])
+    counterparts = []
+    for h, label in enumerate(levels):
+        if h == own:
+            continue
+        s = float(swapped[0, h])
+        row: dict[str, Any] = {
+            "group": label,
+            "margin_group_swapped": s,
+            "decision_group_swapped": decision_word(s >= 0),
+            "flips_group_swapped": (s >= 0) != favourable,
+            "margin_carried": None,
+            "decision_carried": None,
+            "flips_carried": None,
+        }
+        if carried is not None:
+            c = float(carried[0, h])
+            row.update(
+                margin_carried=c,
+                decision_carried=decision_word(c >= 0),
+                flips_carried=(c >= 0) != favourable,
+            )
+        counterparts.append(row)
+    return counterparts

@@ -42,6 +42,7 @@ quadratic approximation and the Wald interval).
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
@@ -395,7 +396,50 @@ def exact_band(
         check_number("the loss slack", eps, 0, low_open=True, example="1.92")
     else:
         check_number("epsilon", eps, 0, EPSILON_MAX, low_open=True, example="0.002")
-    i = snap.case_index(case_id)
+    p = _tilt_problem(snap, snap.case_index(case_id), model, lens, eps, absolute)
+    m_hat = float(p.c @ p.w_hat) - p.t
+    hw = float(np.sqrt(2.0 * p.slack * p.quad))
+    with np.errstate(over="ignore", invalid="ignore"):  # far tilts may overflow: handled
+        low, high = _edge(p, -1.0), _edge(p, 1.0)
+    return {
+        "case_id": str(case_id),
+        "model": model,
+        "epsilon": eps,
+        "absolute": absolute,
+        "slack": float(p.slack),
+        "best_objective": float(p.f_hat),
+        "margin": m_hat,
+        "low": low,
+        "high": high,
+        "closed_low": m_hat - hw,
+        "closed_high": m_hat + hw,
+        "one_outcome": bool(p.toward),
+    }
+
+
+@dataclass(frozen=True)
+class _TiltProblem:
+    """One case's fitted row, ready for the tilted problems: the design ``Xt`` and outcomes
+    ``y`` it was fitted on, the case's row ``c``, the threshold's logit ``t``, the optimum
+    ``w_hat`` with its loss ``f_hat`` and Hessian form ``quad`` = c'H⁻¹c, the absolute
+    ``slack``, and ``toward`` (±1 when the training rows hold one outcome value, else 0)."""
+
+    Xt: np.ndarray
+    y: np.ndarray
+    penalty: Any
+    c: np.ndarray
+    t: float
+    w_hat: np.ndarray
+    f_hat: float
+    quad: float
+    slack: float
+    toward: float
+
+
+def _tilt_problem(
+    snap: Snapshot, i: int, model: str, lens: str | None, eps: float, absolute: bool
+) -> _TiltProblem:
+    """Fit the case's row at tilt 0 and set up its equally-good set."""
     _, row_of_case = snap.weights(model)
     r = int(np.asarray(row_of_case)[i])
     fr = fitted_row(snap, model, r)
@@ -418,81 +462,72 @@ def exact_band(
     slack = eps if absolute else eps * f_hat
     chol = np.linalg.cholesky(H)
     quad = float(c @ cho_solve((chol, True), c))
-    m_hat = float(c @ w_hat) - t
-    hw = float(np.sqrt(2.0 * slack * quad))
+    return _TiltProblem(Xt, y, fr.penalty, c, t, w_hat, f_hat, quad, slack, toward)
 
-    def edge(sign: float) -> float:
-        """The margin at the set's edge in direction sign·x̃; ±inf when it has none.
 
-        The loss grows only linearly far out, so beyond some tilt the tilted problem has no
-        minimum; such a tilt counts as "past the edge" (excess = +inf), which keeps the
-        excess increasing in the tilt and the search a bisection.
-        """
+def _edge(p: _TiltProblem, sign: float) -> float:
+    """The margin at the set's edge in direction sign·x̃; ±inf when it has none.
 
-        if toward and (sign == toward or slack <= 0.0):
-            return toward * np.inf
-        last = {"w": w_hat}  # warm start from the previous tilt's solution
+    The loss grows only linearly far out, so beyond some tilt the tilted problem has no
+    minimum; such a tilt counts as "past the edge" (excess = +inf), which keeps the
+    excess increasing in the tilt and the search a bisection.
+    """
+    if p.toward and (sign == p.toward or p.slack <= 0.0):
+        return p.toward * np.inf
+    last = {"w": p.w_hat}  # warm start from the previous tilt's solution
 
-        def excess(log_tau: float) -> float:
-            try:
-                w = _tilted_minimum(Xt, y, fr.penalty, sign * c, float(np.exp(log_tau)), last["w"])
-            except np.linalg.LinAlgError:
-                return np.inf
-            value = penalised_objective(w, Xt, y, fr.penalty, derivatives=False)[0]
-            if not np.isfinite(value):
-                return np.inf
-            last["w"] = w
-            return value - f_hat - slack
+    def excess(log_tau: float) -> float:
+        try:
+            w = _tilted_minimum(p.Xt, p.y, p.penalty, sign * p.c, float(np.exp(log_tau)), last["w"])
+        except np.linalg.LinAlgError:
+            return np.inf
+        value = penalised_objective(w, p.Xt, p.y, p.penalty, derivatives=False)[0]
+        if not np.isfinite(value):
+            return np.inf
+        last["w"] = w
+        return value - p.f_hat - p.slack
 
-        guess = float(np.log(np.sqrt(2.0 * slack / quad)))  # the quadratic model's tilt
-        step = 0.05  # widen a tight bracket around the guess until the sign changes
-        lo_ = hi_ = guess
-        e_hi = excess(guess)
-        if e_hi < 0:
-            while e_hi < 0:
-                lo_, hi_ = hi_, hi_ + step
-                e_hi = excess(hi_)
-                step *= 2.0
-                if hi_ > guess + MAX_LOG_TILT:
-                    return sign * np.inf
+    guess = float(np.log(np.sqrt(2.0 * p.slack / p.quad)))  # the quadratic model's tilt
+    bracket = _bracket(excess, guess)
+    if bracket is None:
+        return sign * np.inf
+    from scipy.optimize import brentq
+
+    log_tau = brentq(excess, bracket[0], bracket[1], xtol=1e-7, rtol=1e-9)
+    w = _tilted_minimum(p.Xt, p.y, p.penalty, sign * p.c, float(np.exp(log_tau)), last["w"])
+    return float(p.c @ w) - p.t
+
+
+def _bracket(excess: Callable[[float], float], guess: float) -> tuple[float, float] | None:
+    """Log-tilts (lo, hi) about ``guess`` with excess(lo) < 0 ≤ excess(hi), hi's finite;
+    None when the set has no edge that way."""
+    step = 0.05  # widen a tight bracket around the guess until the sign changes
+    lo_ = hi_ = guess
+    e_hi = excess(guess)
+    if e_hi < 0:
+        while e_hi < 0:
+            lo_, hi_ = hi_, hi_ + step
+            e_hi = excess(hi_)
+            step *= 2.0
+            if hi_ > guess + MAX_LOG_TILT:
+                return None
+    else:
+        while True:
+            lo_ = hi_ - step
+            e_lo = excess(lo_)
+            if e_lo < 0:
+                break
+            hi_, e_hi = lo_, e_lo
+            step *= 2.0
+    while not np.isfinite(e_hi):  # bisect until the upper end has a minimum
+        if hi_ - lo_ < 1e-9:
+            # the loss stays within the slack however far w moves: an unpenalised fit of
+            # (quasi-)separated data has such directions
+            return None
+        mid = (lo_ + hi_) / 2.0
+        e_mid = excess(mid)
+        if e_mid < 0:
+            lo_ = mid
         else:
-            while True:
-                lo_ = hi_ - step
-                e_lo = excess(lo_)
-                if e_lo < 0:
-                    break
-                hi_, e_hi = lo_, e_lo
-                step *= 2.0
-        while not np.isfinite(e_hi):  # bisect until the upper end has a minimum
-            if hi_ - lo_ < 1e-9:
-                # the loss stays within the slack however far w moves: an unpenalised fit of
-                # (quasi-)separated data has such directions
-                return sign * np.inf
-            mid = (lo_ + hi_) / 2.0
-            e_mid = excess(mid)
-            if e_mid < 0:
-                lo_ = mid
-            else:
-                hi_, e_hi = mid, e_mid
-        from scipy.optimize import brentq
-
-        log_tau = brentq(excess, lo_, hi_, xtol=1e-7, rtol=1e-9)
-        w = _tilted_minimum(Xt, y, fr.penalty, sign * c, float(np.exp(log_tau)), last["w"])
-        return float(c @ w) - t
-
-    with np.errstate(over="ignore", invalid="ignore"):  # far tilts may overflow: handled
-        low, high = edge(-1.0), edge(1.0)
-    return {
-        "case_id": str(case_id),
-        "model": model,
-        "epsilon": eps,
-        "absolute": absolute,
-        "slack": float(slack),
-        "best_objective": float(f_hat),
-        "margin": m_hat,
-        "low": low,
-        "high": high,
-        "closed_low": m_hat - hw,
-        "closed_high": m_hat + hw,
-        "one_outcome": bool(toward),
-    }
+            hi_, e_hi = mid, e_mid
+    return lo_, hi_

@@ -84,6 +84,51 @@ def simulate_reviews(
         Bad counts, an unknown group, no unreviewed cases, or a ledger with real reviews.
     """
     config = study.config
+    nb, done = _check_request(study, n, seed, bias, reviewers, biased_reviewers)
+    snap = study.snapshot
+    margin = snap.margins(snap.reference)
+    groups = np.asarray(snap.group_labels).astype(str)
+    biased_group = _biased_group(margin, groups, biased_group)
+    pool = _case_pool(study, margin, done, n)
+    rng = np.random.default_rng(seed)
+    chosen = rng.choice(pool, size=min(n, len(pool)), replace=False)
+    reviewer_of = rng.integers(0, reviewers, size=len(chosen))
+    is_biased = reviewer_of < nb
+    actions = simulate_actions(
+        margin[chosen],
+        np.where(is_biased, groups[chosen], ""),  # only biased reviewers see the group
+        rng,
+        biased_group=biased_group,
+        bias=bias,
+        base_rate=base_rate,
+    )
+    reasons = [r for r in config.review.reasons if r != "other"] or list(config.review.reasons)
+    reason_pick = rng.integers(0, len(reasons), size=len(chosen))
+    note = f"Simulated review for the demo (closecall demo-reviews, seed {seed}); not a decision."
+    contents = []
+    for k, i in enumerate(chosen):  # one entry per simulated review, not per case of the study
+        action = check_action(str(actions[k]))
+        reason = None if action in (UPHOLD, DEFER) else reasons[int(reason_pick[k])]
+        contents.append(
+            _entry(study, int(i), f"{SIM_PREFIX}{int(reviewer_of[k]) + 1}", action, reason, note)
+        )
+    with open_any_ledger(config.review.ledger) as ledger:
+        for content in contents:
+            ledger.append(content)
+    return len(contents)
+
+
+def _check_request(
+    study: OpenedStudy,
+    n: int,
+    seed: int,
+    bias: float,
+    reviewers: int,
+    biased_reviewers: int | None,
+) -> tuple[int, set[str]]:
+    """Refuse a database ledger, bad counts or a ledger with real reviews; the number of
+    biased reviewers and the cases already reviewed."""
+    config = study.config
     if is_database(config.review.ledger):
         raise UserError(
             f"{config.path}: [review] ledger names a PostgreSQL database, which records every "
@@ -111,20 +156,28 @@ def simulate_reviews(
             "with them",
             "simulate only on a fresh demo study (a new demo written into an empty folder)",
         )
-    snap = study.snapshot
-    margin = snap.margins(snap.reference)
-    groups = np.asarray(snap.group_labels).astype(str)
+    return nb, done
+
+
+def _biased_group(margin: np.ndarray, groups: np.ndarray, biased_group: str | None) -> str:
+    """The group named (checked), or the one with the lowest favourable share."""
     levels = sorted(set(groups.tolist()))
     if biased_group is None:
         shares = {g: float((margin[groups == g] > 0).mean()) for g in levels}
-        biased_group = min(levels, key=lambda g: (shares[g], g))
-    elif biased_group not in levels:
+        return min(levels, key=lambda g: (shares[g], g))
+    if biased_group not in levels:
         raise UserError(
             f"'{biased_group}' is not a group of this study",
             Fix("biased_group", allowed=tuple(levels)),
             about="biased_group",
         )
+    return biased_group
 
+
+def _case_pool(study: OpenedStudy, margin: np.ndarray, done: set[str], n: int) -> np.ndarray:
+    """Rows of the unreviewed (pending) close calls, widened to the nearest cases when there
+    are fewer than ``n``."""
+    snap = study.snapshot
     ids = np.asarray(snap.case_ids).astype(str)
     open_case = ~np.isin(ids, np.array(sorted(done), dtype=str))
     pending = np.asarray(snap.outcome) < 0
@@ -134,49 +187,32 @@ def simulate_reviews(
     if len(candidates) == 0:
         raise UserError("every case already has a review", "start from a fresh demo study")
     dist = np.abs(margin[candidates])
-    pool = candidates[dist <= config.review.band]
+    pool = candidates[dist <= study.config.review.band]
     if len(pool) < n:
         pool = candidates[np.argsort(dist, kind="stable")[: min(n, len(candidates))]]
-    rng = np.random.default_rng(seed)
-    chosen = rng.choice(pool, size=min(n, len(pool)), replace=False)
-    reviewer_of = rng.integers(0, reviewers, size=len(chosen))
-    is_biased = reviewer_of < nb
-    actions = simulate_actions(
-        margin[chosen],
-        np.where(is_biased, groups[chosen], ""),  # only biased reviewers see the group
-        rng,
-        biased_group=biased_group,
-        bias=bias,
-        base_rate=base_rate,
+    return pool
+
+
+def _entry(
+    study: OpenedStudy, row: int, reviewer: str, action: str, reason: str | None, note: str
+) -> EntryContent:
+    """One simulated reviewer's entry on the case at ``row``, with every model's decision."""
+    config, snap = study.config, study.snapshot
+    decisions = snap.decisions_for(row)
+    ref = decisions[snap.reference]
+    return EntryContent(
+        reviewer=reviewer,
+        case_id=str(np.asarray(snap.case_ids)[row]),
+        snapshot_id=str(snap.id),
+        current_snapshot_id=None,
+        reference_model=snap.reference,
+        reference_decision=str(ref["decision"]),
+        reference_margin=float(ref["margin"]),
+        decisions={
+            m: {"decision": str(d["decision"]), "margin": float(d["margin"])}
+            for m, d in decisions.items()
+        },
+        action=action,
+        reason=check_reason(config, action, reason),
+        note=check_note(action, note),
     )
-    reasons = [r for r in config.review.reasons if r != "other"] or list(config.review.reasons)
-    reason_pick = rng.integers(0, len(reasons), size=len(chosen))
-    note = f"Simulated review for the demo (closecall demo-reviews, seed {seed}); not a decision."
-    contents = []
-    for k, i in enumerate(chosen):  # one entry per simulated review, not per case of the study
-        action = check_action(str(actions[k]))
-        reason = None if action in (UPHOLD, DEFER) else reasons[int(reason_pick[k])]
-        decisions = snap.decisions_for(int(i))
-        ref = decisions[snap.reference]
-        contents.append(
-            EntryContent(
-                reviewer=f"{SIM_PREFIX}{int(reviewer_of[k]) + 1}",
-                case_id=str(ids[i]),
-                snapshot_id=str(snap.id),
-                current_snapshot_id=None,
-                reference_model=snap.reference,
-                reference_decision=str(ref["decision"]),
-                reference_margin=float(ref["margin"]),
-                decisions={
-                    m: {"decision": str(d["decision"]), "margin": float(d["margin"])}
-                    for m, d in decisions.items()
-                },
-                action=action,
-                reason=check_reason(config, action, reason),
-                note=check_note(action, note),
-            )
-        )
-    with open_any_ledger(config.review.ledger) as ledger:
-        for content in contents:
-            ledger.append(content)
-    return len(contents)

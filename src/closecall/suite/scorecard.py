@@ -383,103 +383,13 @@ def load_scorecard(path: str | Path, data_columns: Collection[str]) -> Scorecard
     value_col, raw_rows, settings = _raw_rows(path)
     kind = "points" if value_col == "points" else "coefficients"
     columns = set(map(str, data_columns))
-
-    def setting(key: str, *, positive: bool = False) -> float | None:
-        if key not in settings:
-            return None
-        where, text = settings[key]
-        value = _number(path, where, key, text, empty=None)
-        if positive and value <= 0:
-            raise UserError(
-                f"{path}: {where}: {key} = {value:g} must be above 0",
-                f"write {key} as a positive number; {DOCS}",
-            )
-        return value
-
-    intercept = setting("intercept") or 0.0
-    cutoff = setting("cutoff")
-    if cutoff is None:
-        raise UserError(
-            f"{path}: the card gives no cut-off",
-            "add a row '(cutoff)' (CSV) or a key cutoff = ... (TOML): the score at or above "
-            "which the favourable decision is taken"
-            + (" (in log-odds for a coefficients card)" if kind == "coefficients" else "")
-            + f"; {DOCS}",
-        )
-    pdo = setting("pdo", positive=True)
-    anchor_points = setting("anchor_points")
-    anchor_odds = setting("anchor_odds", positive=True)
-    if kind == "coefficients" and (pdo or anchor_points is not None or anchor_odds):
-        raise UserError(
-            f"{path}: a coefficients card is already in log-odds: it takes no pdo or anchor",
-            f"remove pdo, anchor_points and anchor_odds from the card; {DOCS}",
-        )
-    if (anchor_points is None) != (anchor_odds is None):
-        raise UserError(
-            f"{path}: the card gives one of anchor_points and anchor_odds without the other",
-            f"give both (the score at which the odds are anchor_odds to 1) or neither; {DOCS}",
-        )
-    if anchor_points is not None and pdo is None:
-        raise UserError(
-            f"{path}: the card gives an anchor but no pdo (points to double the odds)",
-            f"add pdo, or remove the anchor; {DOCS}",
-        )
-
-    rows: list[CardRow] = []
-    for where, row in raw_rows:
-        name = str(row.get("feature", "")).strip()
-        if not name:
-            raise UserError(
-                f"{path}: {where}: 'feature' is empty",
-                f"name the data column the row scores; {DOCS}",
-            )
-        if name not in columns:
-            raise UserError(
-                f"{path}: {where}: feature '{name}' is not a column of the data",
-                f"{_nearest(name, columns)}name a column of the study's data files",
-            )
-        value = _number(path, where, value_col, row.get(value_col, ""), empty=None)
-        level_raw = row.get("level", "")
-        level = None if level_raw == "" else _level_text(level_raw)
-        low_raw, high_raw = row.get("low", ""), row.get("high", "")
-        has_bin = not (low_raw == "" and high_raw == "")
-        if level is not None and has_bin:
-            raise UserError(
-                f"{path}: {where}: feature '{name}' row gives both a level and a bin",
-                "a row scores one category (level) or one numeric range (low, high), not both",
-            )
-        if level is not None and level == "":
-            raise UserError(f"{path}: {where}: 'level' is blank", "write the category's text")
-        if level is None:
-            if kind == "coefficients" and has_bin:
-                raise UserError(
-                    f"{path}: {where}: a coefficients card gives a numeric feature one "
-                    "coefficient per unit, not bins",
-                    f"leave low and high empty for '{name}'; {DOCS}",
-                )
-            if kind == "points" and not has_bin:
-                raise UserError(
-                    f"{path}: {where}: feature '{name}' row gives neither a level nor a bin",
-                    "give a category in 'level', or a numeric range in 'low' and 'high' "
-                    f"(an empty end is open); {DOCS}",
-                )
-            low = _number(path, where, "low", low_raw, empty=-math.inf)
-            high = _number(path, where, "high", high_raw, empty=math.inf)
-            if not low < high:
-                raise UserError(
-                    f"{path}: {where}: feature '{name}' bin [{low:g}, {high:g}) is empty: "
-                    "low must be below high",
-                    "a bin holds low ≤ value < high: correct the two ends",
-                )
-        else:
-            low, high = -math.inf, math.inf
-        rows.append(CardRow(name, level, low, high, value, where))
+    intercept, cutoff, pdo, anchor_points, anchor_odds = _card_settings(path, settings, kind)
+    rows = [_card_row(path, where, row, columns, kind, value_col) for where, row in raw_rows]
     if not rows:
         raise UserError(f"{path}: the card has no feature rows", f"add the card's rows; {DOCS}")
     features = tuple(dict.fromkeys(r.feature for r in rows))
     for feat in features:
         _check_feature(path, kind, feat, [r for r in rows if r.feature == feat])
-
     card = Scorecard(
         source=path,
         kind=kind,
@@ -502,6 +412,110 @@ def load_scorecard(path: str | Path, data_columns: Collection[str]) -> Scorecard
         )
         return replace(card, factor=factor, offset=offset, scaling="card")
     return card
+
+
+def _setting(
+    path: Path, settings: dict[str, Any], key: str, *, positive: bool = False
+) -> float | None:
+    """One of the card's settings as a number (None when absent); ``positive``: above 0."""
+    if key not in settings:
+        return None
+    where, text = settings[key]
+    value = _number(path, where, key, text, empty=None)
+    if positive and value <= 0:
+        raise UserError(
+            f"{path}: {where}: {key} = {value:g} must be above 0",
+            f"write {key} as a positive number; {DOCS}",
+        )
+    return value
+
+
+def _card_settings(
+    path: Path, settings: dict[str, Any], kind: str
+) -> tuple[float, float, float | None, float | None, float | None]:
+    """Intercept, cut-off, pdo and anchor, refusing a missing cut-off or a partial or
+    impossible scaling."""
+    intercept = _setting(path, settings, "intercept") or 0.0
+    cutoff = _setting(path, settings, "cutoff")
+    if cutoff is None:
+        raise UserError(
+            f"{path}: the card gives no cut-off",
+            "add a row '(cutoff)' (CSV) or a key cutoff = ... (TOML): the score at or above "
+            "which the favourable decision is taken"
+            + (" (in log-odds for a coefficients card)" if kind == "coefficients" else "")
+            + f"; {DOCS}",
+        )
+    pdo = _setting(path, settings, "pdo", positive=True)
+    anchor_points = _setting(path, settings, "anchor_points")
+    anchor_odds = _setting(path, settings, "anchor_odds", positive=True)
+    if kind == "coefficients" and (pdo or anchor_points is not None or anchor_odds):
+        raise UserError(
+            f"{path}: a coefficients card is already in log-odds: it takes no pdo or anchor",
+            f"remove pdo, anchor_points and anchor_odds from the card; {DOCS}",
+        )
+    if (anchor_points is None) != (anchor_odds is None):
+        raise UserError(
+            f"{path}: the card gives one of anchor_points and anchor_odds without the other",
+            f"give both (the score at which the odds are anchor_odds to 1) or neither; {DOCS}",
+        )
+    if anchor_points is not None and pdo is None:
+        raise UserError(
+            f"{path}: the card gives an anchor but no pdo (points to double the odds)",
+            f"add pdo, or remove the anchor; {DOCS}",
+        )
+    return intercept, cutoff, pdo, anchor_points, anchor_odds
+
+
+def _card_row(
+    path: Path, where: str, row: dict[str, Any], columns: set[str], kind: str, value_col: str
+) -> CardRow:
+    """One feature row of the card: a level, a bin or (coefficients) a per-unit weight."""
+    name = str(row.get("feature", "")).strip()
+    if not name:
+        raise UserError(
+            f"{path}: {where}: 'feature' is empty",
+            f"name the data column the row scores; {DOCS}",
+        )
+    if name not in columns:
+        raise UserError(
+            f"{path}: {where}: feature '{name}' is not a column of the data",
+            f"{_nearest(name, columns)}name a column of the study's data files",
+        )
+    value = _number(path, where, value_col, row.get(value_col, ""), empty=None)
+    level_raw = row.get("level", "")
+    level = None if level_raw == "" else _level_text(level_raw)
+    low_raw, high_raw = row.get("low", ""), row.get("high", "")
+    has_bin = not (low_raw == "" and high_raw == "")
+    if level is not None and has_bin:
+        raise UserError(
+            f"{path}: {where}: feature '{name}' row gives both a level and a bin",
+            "a row scores one category (level) or one numeric range (low, high), not both",
+        )
+    if level is not None and level == "":
+        raise UserError(f"{path}: {where}: 'level' is blank", "write the category's text")
+    if level is not None:
+        return CardRow(name, level, -math.inf, math.inf, value, where)
+    if kind == "coefficients" and has_bin:
+        raise UserError(
+            f"{path}: {where}: a coefficients card gives a numeric feature one "
+            "coefficient per unit, not bins",
+            f"leave low and high empty for '{name}'; {DOCS}",
+        )
+    if kind == "points" and not has_bin:
+        raise UserError(
+            f"{path}: {where}: feature '{name}' row gives neither a level nor a bin",
+            "give a category in 'level', or a numeric range in 'low' and 'high' "
+            f"(an empty end is open); {DOCS}",
+        )
+    low = _number(path, where, "low", low_raw, empty=-math.inf)
+    high = _number(path, where, "high", high_raw, empty=math.inf)
+    if not low < high:
+        raise UserError(
+            f"{path}: {where}: feature '{name}' bin [{low:g}, {high:g}) is empty: "
+            "low must be below high",
+            "a bin holds low ≤ value < high: correct the two ends",
+        )
+    return CardRow(name, level, low, high, value, where)
 
 
 def _check_feature(path: Path, kind: str, feat: str, rows: list[CardRow]) -> None:

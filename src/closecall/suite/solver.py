@@ -40,7 +40,7 @@ from collections.abc import Callable, Sequence
 from concurrent.futures import ThreadPoolExecutor
 from contextlib import AbstractContextManager, nullcontext
 from dataclasses import dataclass, field
-from typing import TypeVar
+from typing import Any, TypeVar
 
 import numpy as np
 from scipy.linalg import cho_factor, cho_solve, eigh, solve_triangular
@@ -817,75 +817,9 @@ def _separation_lp(
 
     Returns (kind or None, rows strictly separated, direction over [intercept, cols]).
     """
-    p = blocks[0].shape[1]
-    starts = np.cumsum([0] + [len(b) for b in blocks])
-    n = int(starts[-1])
-    k = len(cols) + 1
-    c = np.zeros(k)
-    for X, y in zip(blocks, labels, strict=True):
-        sign = 2.0 * y - 1.0
-        c[0] += sign.sum()
-        c[1:] += (sign @ X)[cols]
-
-    def gather(idx: np.ndarray) -> np.ndarray:
-        rows = np.empty((len(idx), k))
-        which = np.searchsorted(starts, idx, side="right") - 1
-        for b in np.unique(which):
-            sel = which == b
-            local = idx[sel] - starts[b]
-            rows[sel, 0] = 1.0
-            rows[sel, 1:] = blocks[b][local][:, cols]
-            rows[sel] *= (2.0 * labels[b][local] - 1.0)[:, None]
-        return rows
-
-    def full_beta(beta: np.ndarray) -> np.ndarray:
-        out = np.zeros(p + 1)
-        out[0] = beta[0]
-        out[cols + 1] = beta[1:]
-        return out
-
-    def solve(maximin: bool) -> tuple[np.ndarray, np.ndarray] | None:
-        from scipy.optimize import linprog  # here: reading a snapshot must not import it
-
-        seed = np.unique(np.linspace(0, n - 1, min(n, LP_ROWS)).astype(np.int64))
-        work = seed
-        for _ in range(LP_ROUNDS):
-            A = gather(work)
-            if maximin:  # variables [beta, t]: maximise t, a_i·beta ≥ t
-                res = linprog(
-                    np.r_[np.zeros(k), -1.0],
-                    A_ub=np.column_stack([-A, np.ones(len(A))]),
-                    b_ub=np.zeros(len(A)),
-                    bounds=[(-1.0, 1.0)] * k + [(None, 1.0)],
-                    method="highs",
-                    options=_LP_OPTIONS,
-                )
-            else:
-                res = linprog(
-                    -c,
-                    A_ub=-A,
-                    b_ub=np.zeros(len(A)),
-                    bounds=[(-1.0, 1.0)] * k,
-                    method="highs",
-                    options=_LP_OPTIONS,
-                )
-            if res.status != 0 or res.x is None:
-                return None
-            beta = np.asarray(res.x[:k], dtype=np.float64)
-            s = _signed_rows(blocks, labels, full_beta(beta))
-            if maximin:
-                t = float(res.x[k])
-                low = s < t - LP_VIOLATION
-            else:
-                low = s < -LP_VIOLATION
-            if not low.any():
-                return beta, s
-            bad = np.flatnonzero(low)
-            worst = bad[np.argsort(s[bad], kind="stable")[:LP_ROWS]]
-            work = np.union1d(work, worst)
-        return None
-
-    first = solve(maximin=False)
+    lp = _SeparationLP.of(blocks, labels, cols)
+    n, k = lp.n, lp.k
+    first = _solve_separation(lp, maximin=False)
     if first is None:  # not settled within LP_ROUNDS: report it as a possible separation
         return "unresolved", 0, np.zeros(k)
     beta, s = first
@@ -894,10 +828,110 @@ def _separation_lp(
         return None, 0, np.zeros(k)
     if strict == n:
         return "complete", n, beta
-    second = solve(maximin=True)
+    second = _solve_separation(lp, maximin=True)
     if second is not None and float(second[1].min()) > LP_ROW_TOL:
         return "complete", n, second[0]
     return "quasi-complete", strict, beta
+
+
+@dataclass(frozen=True)
+class _SeparationLP:
+    """The separation program's data: the row blocks and labels, the columns in play, each
+    block's first row, and the objective ``c`` = Σ_i a_i over [intercept, cols]."""
+
+    blocks: Sequence[np.ndarray]
+    labels: Sequence[np.ndarray]
+    cols: np.ndarray
+    starts: np.ndarray
+    c: np.ndarray
+
+    @property
+    def n(self) -> int:
+        return int(self.starts[-1])
+
+    @property
+    def k(self) -> int:
+        return len(self.cols) + 1
+
+    @classmethod
+    def of(
+        cls, blocks: Sequence[np.ndarray], labels: Sequence[np.ndarray], cols: np.ndarray
+    ) -> _SeparationLP:
+        starts = np.cumsum([0] + [len(b) for b in blocks])
+        c = np.zeros(len(cols) + 1)
+        for X, y in zip(blocks, labels, strict=True):
+            sign = 2.0 * y - 1.0
+            c[0] += sign.sum()
+            c[1:] += (sign @ X)[cols]
+        return cls(blocks, labels, cols, starts, c)
+
+    def gather(self, idx: np.ndarray) -> np.ndarray:
+        """The signed rows a_i = (2y_i − 1)·[1, x_i[cols]] for global row numbers ``idx``."""
+        rows = np.empty((len(idx), self.k))
+        which = np.searchsorted(self.starts, idx, side="right") - 1
+        for b in np.unique(which):
+            sel = which == b
+            local = idx[sel] - self.starts[b]
+            rows[sel, 0] = 1.0
+            rows[sel, 1:] = self.blocks[b][local][:, self.cols]
+            rows[sel] *= (2.0 * self.labels[b][local] - 1.0)[:, None]
+        return rows
+
+    def full_beta(self, beta: np.ndarray) -> np.ndarray:
+        """A direction over [intercept, cols] spread over [intercept, every column]."""
+        out = np.zeros(self.blocks[0].shape[1] + 1)
+        out[0] = beta[0]
+        out[self.cols + 1] = beta[1:]
+        return out
+
+
+def _lp_solve_once(lp: _SeparationLP, A: np.ndarray, maximin: bool) -> Any:
+    """One program on the working rows ``A``: maximise Σ a_i·beta (or, ``maximin``, t with
+    a_i·beta ≥ t) subject to a_i·beta ≥ 0 and −1 ≤ beta ≤ 1."""
+    from scipy.optimize import linprog  # here: reading a snapshot must not import it
+
+    k = lp.k
+    if maximin:  # variables [beta, t]: maximise t, a_i·beta ≥ t
+        return linprog(
+            np.r_[np.zeros(k), -1.0],
+            A_ub=np.column_stack([-A, np.ones(len(A))]),
+            b_ub=np.zeros(len(A)),
+            bounds=[(-1.0, 1.0)] * k + [(None, 1.0)],
+            method="highs",
+            options=_LP_OPTIONS,
+        )
+    return linprog(
+        -lp.c,
+        A_ub=-A,
+        b_ub=np.zeros(len(A)),
+        bounds=[(-1.0, 1.0)] * k,
+        method="highs",
+        options=_LP_OPTIONS,
+    )
+
+
+def _solve_separation(lp: _SeparationLP, maximin: bool) -> tuple[np.ndarray, np.ndarray] | None:
+    """Constraint generation: solve on a working set of rows, add the most violated rows of
+    all, repeat; (direction, every row's a_i·beta), or None if not settled in LP_ROUNDS."""
+    n, k = lp.n, lp.k
+    work = np.unique(np.linspace(0, n - 1, min(n, LP_ROWS)).astype(np.int64))
+    for _ in range(LP_ROUNDS):
+        res = _lp_solve_once(lp, lp.gather(work), maximin)
+        if res.status != 0 or res.x is None:
+            return None
+        beta = np.asarray(res.x[:k], dtype=np.float64)
+        s = _signed_rows(lp.blocks, lp.labels, lp.full_beta(beta))
+        if maximin:
+            t = float(res.x[k])
+            low = s < t - LP_VIOLATION
+        else:
+            low = s < -LP_VIOLATION
+        if not low.any():
+            return beta, s
+        bad = np.flatnonzero(low)
+        worst = bad[np.argsort(s[bad], kind="stable")[:LP_ROWS]]
+        work = np.union1d(work, worst)
+    return None
 
 
 _LP_OPTIONS = {

@@ -70,44 +70,13 @@ def independence_test(
     frozen = tuple(tuple(int(v) for v in r) for r in full)
     base: dict[str, Any] = {"name": name, "rows": rows, "columns": columns, "table": frozen}
     if t.shape[0] < 2 or t.shape[1] < 2:
-        why = (
-            f"every case falls in one column ({', '.join(np.asarray(columns)[keep_c])})"
-            if t.shape[1] < 2
-            else "fewer than two groups have cases"
-        )
-        return IndependenceTest(
-            **base,
-            method="not run",
-            statistic=None,
-            statistic_name=None,
-            dof=None,
-            p_value=None,
-            min_expected=None,
-            note=f"no test: {why}",
-        )
+        return _not_run(base, t, columns, keep_c)
     expected = stats.contingency.expected_freq(t)
     min_exp = float(expected.min())
     dropped = _dropped_note(rows, keep_r)
-    kept_rows = [r for r, k in zip(rows, keep_r, strict=True) if k]
     if t.shape == (2, 2):
-        res = stats.fisher_exact(t, alternative="two-sided")
-        smaller = int(t.sum(axis=0).min())
-        if smaller < FEW_EVENTS:
-            few = (
-                f"only {smaller} case(s) in the rarer column: the exact test is valid but can "
-                "detect only very large differences"
-            )
-            dropped = few if dropped is None else f"{few}; {dropped}"
-        return IndependenceTest(
-            **base,
-            method="fisher-exact",
-            statistic=float(res.statistic),
-            statistic_name=f"odds ratio {kept_rows[0]} vs {kept_rows[1]}",
-            dof=None,
-            p_value=float(res.pvalue),
-            min_expected=min_exp,
-            note=dropped,
-        )
+        kept_rows = [r for r, k in zip(rows, keep_r, strict=True) if k]
+        return _fisher_2x2(base, t, kept_rows, min_exp, dropped)
     share_below = float((expected < MIN_EXPECTED).mean())
     if min_exp >= 1.0 and share_below <= MAX_SHARE_BELOW:
         chi2, p, dof, _ = stats.chi2_contingency(t, correction=False)
@@ -139,6 +108,55 @@ def independence_test(
         p_value=float(res.pvalue),
         min_expected=min_exp,
         note=note if dropped is None else f"{note}; {dropped}",
+    )
+
+
+def _not_run(
+    base: dict[str, Any], t: np.ndarray, columns: tuple[str, ...], keep_c: np.ndarray
+) -> IndependenceTest:
+    """No test: the table left after dropping empty rows and columns is smaller than 2×2."""
+    why = (
+        f"every case falls in one column ({', '.join(np.asarray(columns)[keep_c])})"
+        if t.shape[1] < 2
+        else "fewer than two groups have cases"
+    )
+    return IndependenceTest(
+        **base,
+        method="not run",
+        statistic=None,
+        statistic_name=None,
+        dof=None,
+        p_value=None,
+        min_expected=None,
+        note=f"no test: {why}",
+    )
+
+
+def _fisher_2x2(
+    base: dict[str, Any],
+    t: np.ndarray,
+    kept_rows: list[str],
+    min_exp: float,
+    dropped: str | None,
+) -> IndependenceTest:
+    """Fisher's exact test of a 2×2 table, noting a rare column it can hardly detect in."""
+    res = stats.fisher_exact(t, alternative="two-sided")
+    smaller = int(t.sum(axis=0).min())
+    if smaller < FEW_EVENTS:
+        few = (
+            f"only {smaller} case(s) in the rarer column: the exact test is valid but can "
+            "detect only very large differences"
+        )
+        dropped = few if dropped is None else f"{few}; {dropped}"
+    return IndependenceTest(
+        **base,
+        method="fisher-exact",
+        statistic=float(res.statistic),
+        statistic_name=f"odds ratio {kept_rows[0]} vs {kept_rows[1]}",
+        dof=None,
+        p_value=float(res.pvalue),
+        min_expected=min_exp,
+        note=dropped,
     )
 
 

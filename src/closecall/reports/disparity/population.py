@@ -19,6 +19,7 @@ from __future__ import annotations
 import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 from numpy.typing import NDArray
@@ -126,17 +127,87 @@ def population_effect(
     names = [str(v) for v, k in zip(levels, keep, strict=True) if k]
     reviewed = np.bincount(codes[rows], minlength=G)[keep]
     decided = np.bincount(codes[rows[dec]], minlength=G)[keep]
-    mk = cells[:, 0] + cells[:, 1]
-    fk = cells[:, 0] + cells[:, 2]
-    m_rate, f_rate = proportion(mk, n), proportion(fk, n)
-    m_lo, m_hi = wilson_interval(mk, n, level)
-    f_lo, f_hi = wilson_interval(fk, n, level)
-    ref_m, ref_f = int(np.argmax(m_rate)), int(np.argmax(f_rate))
-    m_air = m_rate / m_rate[ref_m] if m_rate[ref_m] > 0 else np.full(len(n), np.nan)
-    f_air = f_rate / f_rate[ref_f] if f_rate[ref_f] > 0 else np.full(len(n), np.nan)
-    mal, mah, mam = air_intervals(mk, n, ref_m, level)
-    fal, fah, fam = air_intervals(fk, n, ref_f, level)
+    m = _rates(cells[:, 0] + cells[:, 1], n, level)
+    f = _rates(cells[:, 0] + cells[:, 2], n, level)
+    c_lo, c_hi, lc_lo, lc_hi = _bootstrap_changes(cells, m["ref"], f["ref"], n_boot, seed, level)
+    out = [
+        PopulationGroup(
+            group=names[i],
+            cases=int(n[i]),
+            reviewed=int(reviewed[i]),
+            decided=int(decided[i]),
+            changed_to_favourable=int(cells[i, 2]),
+            changed_to_unfavourable=int(cells[i, 1]),
+            change=float(f["rate"][i] - m["rate"][i]),
+            change_low=float(c_lo[i]),
+            change_high=float(c_hi[i]),
+            **_rate_fields("model", m, i),
+            **_rate_fields("final", f, i),
+        )
+        for i in range(len(n))
+    ]
+    m_air, f_air = m["air"], f["air"]
+    lowest_m = float(np.nanmin(m_air)) if np.isfinite(m_air).any() else np.nan
+    lowest_f = float(np.nanmin(f_air)) if np.isfinite(f_air).any() else np.nan
+    return PopulationEffect(
+        rows=tuple(out),
+        cases=int(n.sum()),
+        reviewed=len(rows),
+        decided=int(dec.sum()),
+        model_reference=names[m["ref"]],
+        final_reference=names[f["ref"]],
+        lowest_model_air=lowest_m,
+        lowest_final_air=lowest_f,
+        lowest_air_change=lowest_f - lowest_m,
+        lowest_air_change_low=float(lc_lo[0]),
+        lowest_air_change_high=float(lc_hi[0]),
+        level=level,
+        notes=_notes(levels, keep, out),
+    )
 
+
+def _rates(k: NDArray[np.integer], n: NDArray[np.integer], level: float) -> dict[str, Any]:
+    """Favourable counts ``k`` of ``n`` cases per group: rates with Wilson intervals, the
+    highest-rate reference group, and adverse impact ratios with their intervals."""
+    rate = proportion(k, n)
+    low, high = wilson_interval(k, n, level)
+    ref = int(np.argmax(rate))
+    air = rate / rate[ref] if rate[ref] > 0 else np.full(len(n), np.nan)
+    air_low, air_high, air_method = air_intervals(k, n, ref, level)
+    return {
+        "k": k,
+        "rate": rate,
+        "low": low,
+        "high": high,
+        "ref": ref,
+        "air": air,
+        "air_low": air_low,
+        "air_high": air_high,
+        "air_method": air_method,
+    }
+
+
+def _rate_fields(prefix: str, r: dict[str, Any], i: int) -> dict[str, Any]:
+    """Group ``i``'s model or final fields of a :class:`PopulationGroup`."""
+    air = float(r["air"][i])
+    return {
+        f"{prefix}_favourable": int(r["k"][i]),
+        f"{prefix}_rate": float(r["rate"][i]),
+        f"{prefix}_low": float(r["low"][i]),
+        f"{prefix}_high": float(r["high"][i]),
+        f"{prefix}_air": air,
+        f"{prefix}_air_low": r["air_low"][i],
+        f"{prefix}_air_high": r["air_high"][i],
+        f"{prefix}_air_method": r["air_method"][i],
+        f"{prefix}_flag": four_fifths_flag(air),
+    }
+
+
+def _bootstrap_changes(
+    cells: NDArray[np.int64], ref_m: int, ref_f: int, n_boot: int, seed: int, level: float
+) -> tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.float64], NDArray[np.float64]]:
+    """Percentile intervals of each group's rate change and of the change in the lowest
+    ratio, from a seeded bootstrap of each group's 2×2 cells."""
     rng = np.random.default_rng(seed)
     draws = bootstrap_cells(cells, n_boot, rng)
     bn = draws.sum(axis=2).astype(float)
@@ -147,38 +218,13 @@ def population_effect(
         low_change = np.nanmin(bf / bf[:, [ref_f]], axis=1) - np.nanmin(bm / bm[:, [ref_m]], axis=1)
     c_lo, c_hi = percentile_interval(bf - bm, level)
     lc_lo, lc_hi = percentile_interval(low_change[:, None], level)
-    out = [
-        PopulationGroup(
-            group=names[i],
-            cases=int(n[i]),
-            reviewed=int(reviewed[i]),
-            decided=int(decided[i]),
-            changed_to_favourable=int(cells[i, 2]),
-            changed_to_unfavourable=int(cells[i, 1]),
-            model_favourable=int(mk[i]),
-            model_rate=float(m_rate[i]),
-            model_low=float(m_lo[i]),
-            model_high=float(m_hi[i]),
-            final_favourable=int(fk[i]),
-            final_rate=float(f_rate[i]),
-            final_low=float(f_lo[i]),
-            final_high=float(f_hi[i]),
-            change=float(f_rate[i] - m_rate[i]),
-            change_low=float(c_lo[i]),
-            change_high=float(c_hi[i]),
-            model_air=float(m_air[i]),
-            model_air_low=mal[i],
-            model_air_high=mah[i],
-            model_air_method=mam[i],
-            model_flag=four_fifths_flag(float(m_air[i])),
-            final_air=float(f_air[i]),
-            final_air_low=fal[i],
-            final_air_high=fah[i],
-            final_air_method=fam[i],
-            final_flag=four_fifths_flag(float(f_air[i])),
-        )
-        for i in range(len(n))
-    ]
+    return c_lo, c_hi, lc_lo, lc_hi
+
+
+def _notes(
+    levels: Sequence[str], keep: NDArray[np.bool_], out: list[PopulationGroup]
+) -> tuple[str, ...]:
+    """Groups with no case under review, and ratios whose interval spans the 0.8 line."""
     notes: list[str] = []
     missing = [str(v) for v, k in zip(levels, keep, strict=True) if not k]
     if missing:
@@ -193,20 +239,4 @@ def population_effect(
                     f"group {r.group}: the {label} ratio over every case, {air:.2f}, has an "
                     f"interval ({lo:.2f} to {hi:.2f}) that spans 0.8: the flag is not settled"
                 )
-    lowest_m = float(np.nanmin(m_air)) if np.isfinite(m_air).any() else np.nan
-    lowest_f = float(np.nanmin(f_air)) if np.isfinite(f_air).any() else np.nan
-    return PopulationEffect(
-        rows=tuple(out),
-        cases=int(n.sum()),
-        reviewed=len(rows),
-        decided=int(dec.sum()),
-        model_reference=names[ref_m],
-        final_reference=names[ref_f],
-        lowest_model_air=lowest_m,
-        lowest_final_air=lowest_f,
-        lowest_air_change=lowest_f - lowest_m,
-        lowest_air_change_low=float(lc_lo[0]),
-        lowest_air_change_high=float(lc_hi[0]),
-        level=level,
-        notes=tuple(notes),
-    )
+    return tuple(notes)

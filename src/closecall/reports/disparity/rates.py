@@ -5,6 +5,7 @@ from __future__ import annotations
 import warnings
 from collections.abc import Mapping
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -146,27 +147,102 @@ def favourable_rates(
     """
     df = check_reviews(reviews)
     groups = group_order(df)
-    decided = df[df["decided"]]
-    # cells per group: model fav & final fav, model fav & final unfav, model unfav & final fav,
-    # model unfav & final unfav
-    gi = pd.Index(groups).get_indexer(pd.Index(decided["group"]))
-    cell = (~decided["model_fav"].to_numpy()) * 2 + (~decided["final_fav"].to_numpy())
-    cells = np.bincount(gi * 4 + cell, minlength=4 * len(groups)).reshape(len(groups), 4)
+    cells = _decided_cells(df, groups)
     reviewed = df["group"].value_counts().reindex(groups, fill_value=0).to_numpy()
     deferred = df.loc[~df["decided"], "group"].value_counts().reindex(groups, fill_value=0)
-
     n = cells.sum(axis=1)
-    model_k = cells[:, 0] + cells[:, 1]
-    final_k = cells[:, 0] + cells[:, 2]
-    model_rate = proportion(model_k, n)
-    final_rate = proportion(final_k, n)
-    model_lo, model_hi = wilson_interval(model_k, n, level)
-    final_lo, final_hi = wilson_interval(final_k, n, level)
-    model_air = adverse_impact_ratios(dict(zip(groups, model_rate, strict=True)))
-    final_air = adverse_impact_ratios(dict(zip(groups, final_rate, strict=True)))
-    ref_m = int(np.argmax(model_rate))
-    ref_f = int(np.argmax(final_rate))
+    m = _side(cells[:, 0] + cells[:, 1], n, groups, level)
+    f = _side(cells[:, 0] + cells[:, 2], n, groups, level)
+    boot = _bootstrap(cells, m["ref"], f["ref"], n_boot, seed, level)
+    rows = [
+        GroupRates(
+            group=g,
+            reviewed=int(reviewed[i]),
+            deferred=int(deferred.iloc[i]),
+            decided=int(n[i]),
+            change=float(f["rate"][i] - m["rate"][i]),
+            change_low=float(boot["change_lo"][i]),
+            change_high=float(boot["change_hi"][i]),
+            **_side_fields("model", m, boot["m_air_lo"], boot["m_air_hi"], i, g),
+            **_side_fields("final", f, boot["f_air_lo"], boot["f_air_hi"], i, g),
+        )
+        for i, g in enumerate(groups)
+    ]
+    model_rate, final_rate = m["rate"], f["rate"]
+    notes = _rate_notes(rows, model_rate, final_rate)
+    lowest_m = float(np.nanmin(list(m["air"].values()))) if model_rate.max() > 0 else np.nan
+    lowest_f = float(np.nanmin(list(f["air"].values()))) if final_rate.max() > 0 else np.nan
+    return RateComparison(
+        rows=tuple(rows),
+        model_reference=groups[m["ref"]],
+        final_reference=groups[f["ref"]],
+        lowest_model_air=lowest_m,
+        lowest_final_air=lowest_f,
+        lowest_air_change=lowest_f - lowest_m,
+        lowest_air_change_low=float(boot["lc_lo"][0]),
+        lowest_air_change_high=float(boot["lc_hi"][0]),
+        level=level,
+        n_boot=n_boot,
+        seed=seed,
+        notes=notes,
+    )
 
+
+def _decided_cells(df: pd.DataFrame, groups: list[str]) -> np.ndarray:
+    """Decided reviews per group in four cells: model favourable and final favourable, model
+    favourable and final unfavourable, model unfavourable and final favourable, both
+    unfavourable."""
+    decided = df[df["decided"]]
+    gi = pd.Index(groups).get_indexer(pd.Index(decided["group"]))
+    cell = (~decided["model_fav"].to_numpy()) * 2 + (~decided["final_fav"].to_numpy())
+    return np.bincount(gi * 4 + cell, minlength=4 * len(groups)).reshape(len(groups), 4)
+
+
+def _side(k: np.ndarray, n: np.ndarray, groups: list[str], level: float) -> dict[str, Any]:
+    """One side (model or final): rates with Wilson intervals, the reference (highest-rate)
+    group, adverse impact ratios and their Katz (or Koopman) intervals."""
+    rate = proportion(k, n)
+    low, high = wilson_interval(k, n, level)
+    ref = int(np.argmax(rate))
+    ratio_low, ratio_high, ratio_method = air_intervals(k, n, ref, level)
+    return {
+        "k": k,
+        "rate": rate,
+        "low": low,
+        "high": high,
+        "air": adverse_impact_ratios(dict(zip(groups, rate, strict=True))),
+        "ref": ref,
+        "ratio_low": ratio_low,
+        "ratio_high": ratio_high,
+        "ratio_method": ratio_method,
+    }
+
+
+def _side_fields(
+    prefix: str, side: dict[str, Any], air_lo: np.ndarray, air_hi: np.ndarray, i: int, g: str
+) -> dict[str, Any]:
+    """Group ``i``'s model or final fields of a :class:`GroupRates`."""
+    ref = side["ref"]
+    return {
+        f"{prefix}_favourable": int(side["k"][i]),
+        f"{prefix}_rate": float(side["rate"][i]),
+        f"{prefix}_low": float(side["low"][i]),
+        f"{prefix}_high": float(side["high"][i]),
+        f"{prefix}_air": side["air"][g],
+        f"{prefix}_air_low": float(air_lo[i]) if i != ref else np.nan,
+        f"{prefix}_air_high": float(air_hi[i]) if i != ref else np.nan,
+        f"{prefix}_flag": four_fifths_flag(side["air"][g]),
+        f"{prefix}_air_ratio_low": side["ratio_low"][i],
+        f"{prefix}_air_ratio_high": side["ratio_high"][i],
+        f"{prefix}_air_ratio_method": side["ratio_method"][i],
+    }
+
+
+def _bootstrap(
+    cells: np.ndarray, ref_m: int, ref_f: int, n_boot: int, seed: int, level: float
+) -> dict[str, np.ndarray]:
+    """Percentile intervals from a seeded bootstrap stratified by group: the change in each
+    group's rate, each ratio, and the change in the lowest ratio."""
     rng = np.random.default_rng(seed)
     draws = bootstrap_cells(cells, n_boot, rng)
     bn = draws.sum(axis=2).astype(float)
@@ -175,68 +251,15 @@ def favourable_rates(
         bf = (draws[:, :, 0] + draws[:, :, 2]) / bn
         bm_air = bm / bm[:, [ref_m]]
         bf_air = bf / bf[:, [ref_f]]
-    change_lo, change_hi = percentile_interval(bf - bm, level)
-    m_air_lo, m_air_hi = percentile_interval(bm_air, level)
-    f_air_lo, f_air_hi = percentile_interval(bf_air, level)
+    out: dict[str, np.ndarray] = {}
+    out["change_lo"], out["change_hi"] = percentile_interval(bf - bm, level)
+    out["m_air_lo"], out["m_air_hi"] = percentile_interval(bm_air, level)
+    out["f_air_lo"], out["f_air_hi"] = percentile_interval(bf_air, level)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN replicates stay NaN
         low_change = np.nanmin(bf_air, axis=1) - np.nanmin(bm_air, axis=1)
-    lc_lo, lc_hi = percentile_interval(low_change[:, None], level)
-    mal, mah, mam = air_intervals(model_k, n, ref_m, level)
-    fal, fah, fam = air_intervals(final_k, n, ref_f, level)
-
-    rows = []
-    for i, g in enumerate(groups):
-        rows.append(
-            GroupRates(
-                group=g,
-                reviewed=int(reviewed[i]),
-                deferred=int(deferred.iloc[i]),
-                decided=int(n[i]),
-                model_favourable=int(model_k[i]),
-                model_rate=float(model_rate[i]),
-                model_low=float(model_lo[i]),
-                model_high=float(model_hi[i]),
-                final_favourable=int(final_k[i]),
-                final_rate=float(final_rate[i]),
-                final_low=float(final_lo[i]),
-                final_high=float(final_hi[i]),
-                change=float(final_rate[i] - model_rate[i]),
-                change_low=float(change_lo[i]),
-                change_high=float(change_hi[i]),
-                model_air=model_air[g],
-                model_air_low=float(m_air_lo[i]) if i != ref_m else np.nan,
-                model_air_high=float(m_air_hi[i]) if i != ref_m else np.nan,
-                model_flag=four_fifths_flag(model_air[g]),
-                final_air=final_air[g],
-                final_air_low=float(f_air_lo[i]) if i != ref_f else np.nan,
-                final_air_high=float(f_air_hi[i]) if i != ref_f else np.nan,
-                final_flag=four_fifths_flag(final_air[g]),
-                model_air_ratio_low=mal[i],
-                model_air_ratio_high=mah[i],
-                model_air_ratio_method=mam[i],
-                final_air_ratio_low=fal[i],
-                final_air_ratio_high=fah[i],
-                final_air_ratio_method=fam[i],
-            )
-        )
-    notes = _rate_notes(rows, model_rate, final_rate)
-    lowest_m = float(np.nanmin(list(model_air.values()))) if model_rate.max() > 0 else np.nan
-    lowest_f = float(np.nanmin(list(final_air.values()))) if final_rate.max() > 0 else np.nan
-    return RateComparison(
-        rows=tuple(rows),
-        model_reference=groups[ref_m],
-        final_reference=groups[ref_f],
-        lowest_model_air=lowest_m,
-        lowest_final_air=lowest_f,
-        lowest_air_change=lowest_f - lowest_m,
-        lowest_air_change_low=float(lc_lo[0]),
-        lowest_air_change_high=float(lc_hi[0]),
-        level=level,
-        n_boot=n_boot,
-        seed=seed,
-        notes=notes,
-    )
+    out["lc_lo"], out["lc_hi"] = percentile_interval(low_change[:, None], level)
+    return out
 
 
 def _rate_notes(

@@ -241,12 +241,12 @@ VIEW_MAY_IMPORT: dict[str, set[str]] = {
     "closecall.reports.disparity.heldout": {"RateGap"},
     "closecall.reports.disparity.power": {"Detectable"},
 }
+
 #: Engine computations views still call themselves, to move behind ``Study`` (each entry is
 #: (view module, engine module, name); the list only shrinks): the words of a listed row drawn
-#: from the ranked queue (case list, case screen), ``init``, the team commands
-#: (team set-up) and the PostgreSQL commands (the database ledger).
+#: from the ranked queue (case list, case screen), the team commands (team set-up) and the
+#: PostgreSQL commands (the database ledger).
 PENDING: set[tuple[str, str, str]] = {
-    ("cli/study_cmds.py", "closecall.setup.init", "infer_config"),
     ("cli/ledger_pg_cmds.py", "closecall.review.ledger.pg_store", "redact"),
     ("cli/ledger_pg_cmds.py", "closecall.review.ledger.pg_store", "setup"),
     ("cli/ledger_pg_cmds.py", "closecall.review.ledger.pg_store", "is_url"),

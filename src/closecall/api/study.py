@@ -37,6 +37,7 @@ if TYPE_CHECKING:
     from closecall.review.ledger.verify import VerifyResult
     from closecall.review.query import QueueAnswer
     from closecall.setup.config import StudyConfig
+    from closecall.setup.init import Inference
     from closecall.suite.opening import OpenedStudy
 
 
@@ -51,6 +52,30 @@ def study_config(config_path: str | Path = "closecall.toml") -> StudyConfig:
     from closecall.setup.config import load_config
 
     return load_config(Path(config_path))
+
+
+def draft_config(
+    data: str | Path,
+    pending: str | Path | None = None,
+    *,
+    relative_to: str | Path | None = None,
+) -> Inference:
+    """A commented ``closecall.toml`` drafted from a labelled data file (its ``text``),
+    what was inferred (``inferred``) and what is left to decide (``to_decide``); nothing
+    is written. Paths in the text are relative to ``relative_to`` (the config's folder).
+
+    Examples
+    --------
+    >>> draft = draft_config("history.csv", "pending.csv")  # doctest: +SKIP
+    >>> print(draft.to_decide)  # doctest: +SKIP
+    """
+    from closecall.setup.init import infer_config
+
+    return infer_config(
+        Path(data),
+        None if pending is None else Path(pending),
+        None if relative_to is None else Path(relative_to),
+    )
 
 
 def reason_codes(config: StudyConfig | None = None) -> list[dict[str, Any]]:
@@ -965,4 +990,4 @@ class Study:
         )
 
 
-__all__ = ["Ledger", "Study", "reason_codes", "study_config"]
+__all__ = ["Ledger", "Study", "draft_config", "reason_codes", "study_config"]

@@ -47,9 +47,9 @@ def init(
     if pending is not None:
         inputs.append(StudyFile(pending.resolve(), "the pending data file named here", "data"))
     check_config_output(out, inputs, force=force)
-    from closecall.setup.init import infer_config
+    from closecall.api.study import draft_config
 
-    inf = infer_config(data, pending, relative_to=out.resolve().parent)
+    inf = draft_config(data, pending, relative_to=out.resolve().parent)
     # the config is read by every reviewer of the study and written by its owner only: the
     # login's own umask applies (not the study umask, docs/team.md)
     from closecall.core.shared import login_umask

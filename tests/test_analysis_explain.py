@@ -5,13 +5,16 @@ from __future__ import annotations
 import json
 import re
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pandas as pd
 import pytest
+from scipy.special import expit, logit
 
 from analysis_helpers import hmda_study
 from closecall.analysis.explain import explain_case
+from closecall.analysis.fitted_rows import fitted_row
 from closecall.suite.opening import OpenedStudy, open_study
 
 KEYS = {
@@ -43,19 +46,64 @@ def _closest(study: OpenedStudy) -> str:
     return str(snap.case_ids[int(np.argmin(np.abs(np.asarray(snap.margins("pooled")))))])
 
 
+def _plain_case(study: OpenedStudy, i: int) -> dict[str, Any]:
+    """One case of the pooled model recomputed with NumPy from the stored weights and design,
+    not through closecall.analysis: the margin w₀ + xᵀw − logit(t); each source feature's
+    contribution w_j (x_j − E[x_j]) summed over its design columns and the baseline at E[x]
+    (Lundberg & Lee 2017, linear SHAP); the margin without the group's and the proxies'
+    contributions; and the equally-good band's lower edge margin − √(2 ε f* x̃ᵀH⁻¹x̃) (Marx,
+    Calmon & Ustun 2020) with f* and H written out on the fitted row's training rows."""
+    snap = study.snapshot
+    W, row_of_case = snap.weights("pooled")
+    r = int(np.asarray(row_of_case)[i])
+    w = np.asarray(W)[r]
+    x = np.asarray(snap.X)[i]
+    mu = np.asarray(snap.hist_X).mean(axis=0)
+    t = logit(snap.lenses[0].threshold)
+    margin = float(w[0] + x @ w[1:] - t)
+    source = np.array(snap.meta["column_source"])
+    parts = w[1:] * (x - mu)
+    contributions = {str(f): float(parts[source == f].sum()) for f in dict.fromkeys(source)}
+    neutralised = {f.name for f in snap.encoder.features if f.is_group} | set(snap.proxies.proxies)
+    fr = fitted_row(snap, "pooled", r)
+    Xh = np.asarray(snap.hist_X)[fr.train][:, fr.mask]
+    Xt = np.column_stack([np.ones(len(Xh)), Xh])
+    y = np.asarray(snap.hist_y, dtype=float)[fr.train]
+    eta = Xt @ fr.active
+    best = float(np.sum(np.where(y == 1, np.logaddexp(0.0, -eta), np.logaddexp(0.0, eta))))
+    best += 0.5 * fr.penalty * float(fr.active[1:] @ fr.active[1:])
+    p = expit(eta)
+    H = Xt.T @ (Xt * (p * (1 - p))[:, None])
+    H[1:, 1:] += fr.penalty * np.eye(Xh.shape[1])
+    xt = np.r_[1.0, x[fr.mask]]
+    quad = float(xt @ np.linalg.solve(H, xt))
+    eps = float(study.config.multiplicity.epsilon)
+    return {
+        "margin": margin,
+        "baseline": float(w[0] + mu @ w[1:] - t),
+        "contributions": contributions,
+        "margin_neutral": margin - sum(v for f, v in contributions.items() if f in neutralised),
+        "equally_good_low": margin - float(np.sqrt(2.0 * eps * best * quad)),
+    }
+
+
 def test_explain_case_keys_values_and_json(demo_study: OpenedStudy, demo_config: Path) -> None:
     case = _closest(demo_study)
     d = explain_case(demo_study, case, exact=True)
     assert set(d) == KEYS
     json.dumps(d, allow_nan=False)  # plain JSON, no NaN or infinity
+    plain = _plain_case(demo_study, int(d["row"]))
     dep = d["dependence"]
-    total = dep["baseline"] + sum(c["contribution"] for c in dep["contributions"])
-    assert total == pytest.approx(d["margin"], abs=1e-12)
-    assert dep["margin_neutral"] == pytest.approx(d["margin"] - dep["dependence"])
-    assert d["decisions"]["pooled"]["margin"] == pytest.approx(d["margin"])
+    assert d["margin"] == pytest.approx(plain["margin"], abs=1e-10)
+    assert d["decisions"]["pooled"]["margin"] == pytest.approx(plain["margin"], abs=1e-10)
+    assert dep["baseline"] == pytest.approx(plain["baseline"], abs=1e-10)
+    got = {c["feature"]: c["contribution"] for c in dep["contributions"]}
+    assert got == pytest.approx(plain["contributions"], abs=1e-10)
+    assert dep["margin_neutral"] == pytest.approx(plain["margin_neutral"], abs=1e-10)
     b = d["bands"]
     assert b["uncertainty"]["low"] < d["margin"] < b["uncertainty"]["high"]
-    assert b["exact"]["closed_low"] == pytest.approx(b["equally_good"]["low"], abs=1e-6)
+    for low in (b["equally_good"]["low"], b["exact"]["closed_low"]):
+        assert low == pytest.approx(plain["equally_good_low"], abs=1e-6)
     assert {c["group"] for c in d["counterparts"]} == set(demo_study.snapshot.group_levels) - {
         d["group"]
     }

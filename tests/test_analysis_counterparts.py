@@ -68,9 +68,11 @@ def test_swapped_margins_are_the_model_at_the_changed_design(demo_study: OpenedS
             x = np.asarray(snap.X[i], dtype=float).copy()
             x[gcols] = hX[np.flatnonzero(hg == h)[0], gcols]
             assert cp.swapped[k, h] == pytest.approx(w[0] + x @ w[1:] - t, abs=1e-10)
-        own = codes[i]
-        assert cp.swapped[k, own] == pytest.approx(cp.margin[k])
-        assert cp.transported[k, own] == pytest.approx(cp.margin[k])
+        own = codes[i]  # its own group: the case's margin, scored here from its own design
+        plain = w[0] + np.asarray(snap.X[i], dtype=float) @ w[1:] - t
+        assert cp.margin[k] == pytest.approx(plain, abs=1e-10)
+        assert cp.swapped[k, own] == pytest.approx(plain, abs=1e-10)
+        assert cp.transported[k, own] == pytest.approx(plain, abs=1e-10)
 
 
 def test_carried_proxies_land_in_the_other_groups_distribution(demo_study: OpenedStudy) -> None:

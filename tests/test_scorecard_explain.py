@@ -20,7 +20,7 @@ from closecall.analysis.deployed_card import card_counterparts, card_dependence
 from closecall.analysis.explain import explain_case
 from closecall.setup.demo import write_demo
 from closecall.suite.opening import OpenedStudy, open_study
-from scorecard_helpers import card_study, demo_points, without_card
+from scorecard_helpers import card_study, demo_points, demo_points_by_feature, without_card
 
 FACTOR = 20 / math.log(2)  # PDO 20 (common practice: factor = PDO / ln 2)
 
@@ -52,16 +52,24 @@ def test_card_reasons_add_up_to_its_margin(
     assert c["margin_points"] == points - 500
     # margin in log-odds = (points − cut-off) / (PDO / ln 2)
     assert c["margin"] == pytest.approx((points - 500) / FACTOR, abs=1e-12)
-    total = sum(r["contribution_points"] for r in c["contributions"]) + c["baseline_points"]
-    assert total == pytest.approx(c["margin_points"], abs=1e-9)
-    total_lo = sum(r["contribution"] for r in c["contributions"]) + c["baseline"]
-    assert total_lo == pytest.approx(c["margin"], abs=1e-12)
+    # each feature's points on the case against the history's average points of the feature,
+    # recomputed with pandas from the card's rows; the baseline is the average case's margin
+    by_feature = demo_points_by_feature(pending[pending["application_id"] == case]).iloc[0]
+    mean = demo_points_by_feature(history).mean()
+    plain = by_feature - mean
+    got = {r["feature"]: r["contribution_points"] for r in c["contributions"]}
+    assert got == pytest.approx(plain.to_dict(), abs=1e-9)
+    got_lo = {r["feature"]: r["contribution"] for r in c["contributions"]}
+    assert got_lo == pytest.approx((plain / FACTOR).to_dict(), abs=1e-12)
+    assert c["baseline_points"] == pytest.approx(474 + mean.sum() - 500, abs=1e-9)
+    assert c["baseline"] == pytest.approx((474 + mean.sum() - 500) / FACTOR, abs=1e-12)
     # the group part of a Briar case: −18 points minus the history's average heritage points
     briar_share = float((history["heritage"] == "Briar").mean())
-    assert c["group_part_points"] == pytest.approx(-18 - (-18 * briar_share), abs=1e-9)
-    assert c["group_part"] == pytest.approx(c["group_part_points"] / FACTOR)
-    assert c["margin_group_neutral_points"] == pytest.approx(points - 500 - c["group_part_points"])
-    assert c["rests_on_group"] == ((points >= 500) != (c["margin_group_neutral_points"] >= 0))
+    group_part = -18 - (-18 * briar_share)
+    assert c["group_part_points"] == pytest.approx(group_part, abs=1e-9)
+    assert c["group_part"] == pytest.approx(group_part / FACTOR, abs=1e-12)
+    assert c["margin_group_neutral_points"] == pytest.approx(points - 500 - group_part, abs=1e-9)
+    assert c["rests_on_group"] == ((points >= 500) != (points - 500 - group_part >= 0))
     roles = {r["feature"]: r["role"] for r in c["contributions"]}
     assert roles["heritage"] == "group"
     assert roles["depot_distance_km"] == "proxy"  # flagged by the study's proxy detection

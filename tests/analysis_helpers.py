@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -121,3 +122,41 @@ penalty = 1.0
 """
     )
     return config
+
+
+def plain_band_terms(snap: Any, model: str = "pooled") -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Each case's margin w₀ + xᵀw − logit(t) (operative lens), its fitted row's best penalised
+    loss f* and x̃ᵀH⁻¹x̃, written out with NumPy on the row's training rows (negative
+    log-likelihood + λ/2·‖β‖², intercept unpenalised; H = X̃ᵀWX̃ + λI), not read from the
+    snapshot's stored margins, objective or quadratic form. The equally-good band is then
+    margin ± √(2 ε f* x̃ᵀH⁻¹x̃) and the Wald band margin ± √(χ²₁(0.95) x̃ᵀH⁻¹x̃) (Marx, Calmon
+    & Ustun 2020). One pass per fitted row, not per case."""
+    from scipy.special import expit, logit
+
+    from closecall.analysis.fitted_rows import fitted_row
+
+    W, row_of_case = snap.weights(model)
+    row_of_case = np.asarray(row_of_case)
+    X = np.asarray(snap.X, dtype=float)
+    t = logit(snap.lenses[0].threshold)
+    margin = np.empty(snap.n_cases)
+    best = np.empty(snap.n_cases)
+    quad = np.empty(snap.n_cases)
+    for r in np.unique(row_of_case):
+        fr = fitted_row(snap, model, int(r))
+        Xh = np.asarray(snap.hist_X)[fr.train][:, fr.mask]
+        Xt = np.column_stack([np.ones(len(Xh)), Xh])
+        y = np.asarray(snap.hist_y, dtype=float)[fr.train]
+        eta = Xt @ fr.active
+        loss = float(np.sum(np.where(y == 1, np.logaddexp(0.0, -eta), np.logaddexp(0.0, eta))))
+        loss += 0.5 * fr.penalty * float(fr.active[1:] @ fr.active[1:])
+        p = expit(eta)
+        H = Xt.T @ (Xt * (p * (1 - p))[:, None])
+        H[1:, 1:] += fr.penalty * np.eye(Xh.shape[1])
+        cases = np.flatnonzero(row_of_case == r)
+        w = np.asarray(W)[int(r)]
+        margin[cases] = w[0] + X[cases] @ w[1:] - t
+        xt = np.column_stack([np.ones(len(cases)), X[cases][:, fr.mask]])
+        best[cases] = loss
+        quad[cases] = np.einsum("ij,ij->i", xt, np.linalg.solve(H, xt.T).T)
+    return margin, best, quad

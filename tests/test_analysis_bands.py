@@ -12,7 +12,7 @@ import statsmodels.api as sm
 from scipy.special import logit
 from scipy.stats import chi2
 
-from analysis_helpers import HMDA_FEATURES, hmda_study, one_file_demo
+from analysis_helpers import HMDA_FEATURES, hmda_study, one_file_demo, plain_band_terms
 from closecall.analysis.fitted_rows import fitted_row, penalised_objective, row_cholesky, tilde
 from closecall.analysis.multiplicity import (
     UNCERTAINTY_EPSILON,
@@ -171,7 +171,12 @@ def test_exact_band_agrees_with_the_closed_form_for_small_epsilon(hmda0: OpenedS
     wald = exact_band(hmda0, case, UNCERTAINTY_EPSILON, absolute=True)
     assert wald["slack"] == UNCERTAINTY_EPSILON
     i = snap.case_index(case)
-    assert wald["closed_high"] - wald["margin"] == pytest.approx(b.uncertainty[i], rel=1e-4)
+    margin, _, quad = plain_band_terms(snap)  # x̃ᵀH⁻¹x̃ written out with NumPy
+    assert wald["margin"] == pytest.approx(margin[i], abs=1e-9)
+    # the Wald half-width √(χ²₁(0.95)·x̃ᵀH⁻¹x̃), the quantile from scipy.stats.chi2
+    wald_half = np.sqrt(chi2.ppf(0.95, 1) * quad[i])
+    assert wald["closed_high"] - wald["margin"] == pytest.approx(wald_half, rel=1e-4)
+    assert b.uncertainty[i] == pytest.approx(wald_half, rel=1e-4)
     assert wald["low"] < wald["margin"] < wald["high"]
     wide = exact_band(hmda0, case, 0.05)
     gap_small = abs(small["high"] - small["closed_high"]) / half
@@ -186,16 +191,25 @@ def test_ambiguity_curve_and_discrepancy(hmda0: OpenedStudy) -> None:
     eps = 0.01
     b = bands(snap, "pooled", eps)
     rows = {r["group"]: r for r in ambiguity_by_group(snap, "pooled", eps)}
-    assert rows["all"]["ambiguity"] == pytest.approx(
-        float((np.abs(b.margin) <= b.equally_good).mean())
-    )
-    assert rows["all"]["uncertain"] == pytest.approx(float(b.uncertain.mean()))
+    # shares recomputed with NumPy from the weights, design and fitted rows, not from bands()
+    margin, best, quad = plain_band_terms(snap)
+    np.testing.assert_allclose(b.margin, margin, atol=1e-9)
+    straddles = np.abs(margin) <= np.sqrt(2.0 * eps * best * quad)
+    uncertain = np.abs(margin) <= np.sqrt(chi2.ppf(0.95, 1) * quad)  # scipy.stats.chi2
+    codes = np.asarray(snap.group_codes)
+    assert rows["all"]["ambiguity"] == pytest.approx(float(straddles.mean()))
+    assert rows["all"]["uncertain"] == pytest.approx(float(uncertain.mean()))
+    for g, level in enumerate(snap.group_levels):
+        assert rows[level]["ambiguity"] == pytest.approx(float(straddles[codes == g].mean()))
     for r in rows.values():
         assert 0 < r["discrepancy_at_least"] <= r["ambiguity"]
     curve = epsilon_curve(snap, "pooled", (0.001, 0.01, 0.1))
     shares = [c["all"] for c in curve]
     assert shares == sorted(shares) and shares[0] < shares[-1]
-    assert curve[1]["all"] == pytest.approx(rows["all"]["ambiguity"])
+    assert curve[1]["all"] == pytest.approx(float(straddles.mean()))
+    assert curve[0]["all"] == pytest.approx(
+        float((np.abs(margin) <= np.sqrt(2.0 * 0.001 * best * quad)).mean())
+    )
 
 
 def test_discrepancy_search_finds_most_of_the_best_single_model(tmp_path: Path) -> None:

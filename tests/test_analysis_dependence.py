@@ -6,11 +6,10 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from scipy.special import expit, logit
+from scipy.special import logit
 
-from analysis_helpers import group_copy_study
+from analysis_helpers import group_copy_study, plain_band_terms
 from closecall.analysis.dependence import dependence, dependence_by_group
-from closecall.analysis.fitted_rows import fitted_row
 from closecall.review.queue import build_queue, queue_rows
 from closecall.suite.opening import OpenedStudy, open_study
 from closecall.suite.proxies import cramers_v
@@ -118,33 +117,6 @@ def _plain_parts(snap: Snapshot) -> tuple[np.ndarray, np.ndarray, np.ndarray, np
     return margin, group_part, proxy_part, np.abs(np.column_stack(by_feature))
 
 
-def _plain_band_terms(snap: Snapshot) -> tuple[np.ndarray, np.ndarray]:
-    """Each case's best penalised loss f* and x̃ᵀH⁻¹x̃ of the pooled model, written out here
-    with NumPy on its fitted row's training rows (negative log-likelihood + λ/2·‖β‖², the
-    intercept unpenalised; H = X̃ᵀWX̃ + λI), not read from the snapshot's stored objective and
-    quadratic form (Marx, Calmon & Ustun 2020, the equally-good band's closed form)."""
-    _, row_of_case = snap.weights("pooled")
-    row_of_case = np.asarray(row_of_case)
-    best = np.empty(snap.n_cases)
-    quad = np.empty(snap.n_cases)
-    for r in np.unique(row_of_case):  # one pass per fitted row, not per case
-        fr = fitted_row(snap, "pooled", int(r))
-        Xh = np.asarray(snap.hist_X)[fr.train][:, fr.mask]
-        Xt = np.column_stack([np.ones(len(Xh)), Xh])
-        y = np.asarray(snap.hist_y, dtype=float)[fr.train]
-        eta = Xt @ fr.active
-        loss = float(np.sum(np.where(y == 1, np.logaddexp(0.0, -eta), np.logaddexp(0.0, eta))))
-        loss += 0.5 * fr.penalty * float(fr.active[1:] @ fr.active[1:])
-        p = expit(eta)
-        H = Xt.T @ (Xt * (p * (1 - p))[:, None])
-        H[1:, 1:] += fr.penalty * np.eye(Xh.shape[1])
-        cases = np.flatnonzero(row_of_case == r)
-        xt = np.column_stack([np.ones(len(cases)), np.asarray(snap.X)[cases][:, fr.mask]])
-        best[cases] = loss
-        quad[cases] = np.einsum("ij,ij->i", xt, np.linalg.solve(H, xt.T).T)
-    return best, quad
-
-
 def test_queue_filters_and_sorts_by_the_analysis(demo_study: OpenedStudy) -> None:
     """The queue's analysis filters and sorts against values recomputed in the test: the
     decision flips when the group's (and proxies') contributions are removed; the band
@@ -163,7 +135,7 @@ def test_queue_filters_and_sorts_by_the_analysis(demo_study: OpenedStudy) -> Non
         assert sorted(q.order.tolist()) == np.flatnonzero(mask).tolist()
         assert mask.sum() > 0
     eps = 0.001
-    best, quad = _plain_band_terms(snap)
+    _, best, quad = plain_band_terms(snap)  # f* and x̃ᵀH⁻¹x̃ written out with NumPy
     straddles = np.abs(margin) <= np.sqrt(2.0 * eps * best * quad)
     q = build_queue(snap, band=10.0, ambiguous_only=True, options={"epsilon": eps})
     assert sorted(q.order.tolist()) == np.flatnonzero(straddles).tolist() and straddles.any()

@@ -6,7 +6,9 @@ import json
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 import pytest
+from scipy.special import logit
 
 from closecall.review.queue import build_queue, queue_rows
 from closecall.setup.demo import TRUE, write_demo
@@ -82,14 +84,29 @@ def test_same_inputs_give_the_same_results_in_a_new_folder(tmp_path: Path) -> No
 def test_queue_ranks_flips_first_then_closeness(demo_study) -> None:  # type: ignore[no-untyped-def]
     snap = demo_study.snapshot
     q = build_queue(snap, band=0.5)
-    margin = np.asarray(q.margin)[q.order]
-    flip = q.grid.flip[q.order]
-    assert np.all(np.diff(flip.astype(int)) <= 0)  # flips first
-    for part in (flip, ~flip):
-        assert np.all(np.diff(np.abs(margin[part])) >= 0)
-    assert np.all((np.abs(margin) <= 0.5) | flip)
+    # Reference: the order rebuilt with pandas from the snapshot's log-odds (not the queue's
+    # grid): a flip is any model × lens decision other than the reference model's under the
+    # first lens; close calls are |margin| <= band; flips first, then the smallest |margin|.
+    cols = [
+        np.asarray(snap.logit(m)) > logit(lens.threshold)
+        for m in snap.model_names
+        for lens in snap.lenses
+    ]
+    ref = np.asarray(snap.logit(snap.reference)) > logit(snap.lenses[0].threshold)
+    plain_flip = np.any([c != ref for c in cols], axis=0)
+    frame = pd.DataFrame(
+        {
+            "flip": plain_flip,
+            "closeness": np.abs(
+                np.asarray(snap.logit(snap.reference)) - logit(snap.lenses[0].threshold)
+            ),
+        }
+    )
+    kept = frame[(frame["closeness"] <= 0.5) | frame["flip"]]
+    expected = kept.sort_values(["flip", "closeness"], ascending=[False, True], kind="stable")
+    assert q.order.tolist() == expected.index.tolist()
     only = build_queue(snap, band=0.5, flips_only=True, group="Briar")
-    assert len(only) and np.all(q.grid.flip[only.order])
+    assert len(only) and np.all(plain_flip[only.order])
     assert set(np.asarray(snap.group_labels)[only.order]) == {"Briar"}
     rows = queue_rows(snap, only, 0, 3)
     assert rows[0]["differs"] and rows[0]["group"] == "Briar"

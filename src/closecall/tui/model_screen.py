@@ -2,7 +2,9 @@
 
 One scrolling text: per model, each weight per unit (or per category against its reference
 level) with standard error, odds ratio and 95 % interval; the intercept; each lens's threshold.
-Group weights are marked ``[group]``, flagged proxies ``[proxy]``: words, not colour.
+Group weights are marked ``[group]``, flagged proxies ``[proxy]``: words, not colour. A deployed
+scorecard is shown whole: each feature's levels or ranges with their points, the base points,
+the cut-off and the points that double the odds.
 """
 
 from __future__ import annotations
@@ -67,6 +69,65 @@ def weights_text(data: dict[str, Any], term_width: int = 28) -> Text:
             f"\n{card['model']}: the scorecard {safe_text(card['file'])}\n"
             "  points, not weights: a case's points are in its case view\n"
         )
+        if data.get("card"):
+            out.append_text(card_text(data["card"], _marked_features(data), term_width))
+    return out
+
+
+def _marked_features(data: dict[str, Any]) -> dict[str, str]:
+    """Feature → ``[group]`` or ``[proxy]``, from the fitted models' marked terms."""
+    marks: dict[str, str] = {}
+    for m in data["models"]:
+        for r in m["rows"]:
+            feature = str(r["term"]).split("=")[0].split(":")[0]
+            if r["group"]:
+                marks[feature] = " [group]"
+            elif r["proxy"]:
+                marks.setdefault(feature, " [proxy]")
+    return marks
+
+
+def _points(value: float) -> str:
+    return f"{value:+g}".replace("-", "−") if value else "0"
+
+
+def _bin(row: dict[str, Any]) -> str:
+    """A card row's level, or its range ``[low, high)`` in words."""
+    if row.get("level") is not None:
+        return safe_text(str(row["level"]))
+    low, high = float(row["low"]), float(row["high"])
+    if math.isinf(low) and math.isinf(high):
+        return "any value"
+    if math.isinf(low):
+        return f"below {high:g}"
+    if math.isinf(high):
+        return f"{low:g} or more"
+    return f"{low:g} to under {high:g}"
+
+
+def card_text(card: dict[str, Any], marks: dict[str, str], term_width: int = 28) -> Text:
+    """The whole deployed card (docs/scorecard.md): every feature's levels or ranges with
+    their points, the intercept, the cut-off and the points-to-odds scale."""
+    out = Text(no_wrap=True, overflow="ellipsis")
+    unit = "points" if card.get("kind", "points") == "points" else "log-odds"
+    out.append(
+        f"  base {_num(card['intercept']).removesuffix('.000')} {unit} · cut-off "
+        f"{_num(card['cutoff']).removesuffix('.000')}: favourable at or above it\n"
+    )
+    if card.get("pdo"):
+        out.append(f"  {card['pdo']:g} points double the odds\n")
+    head = f"  {'feature':<{term_width - 2}} {'level or range':<22} {unit:>8}\n"
+    out.append(head, "underline")
+    last = None
+    for row in card["rows"]:
+        feature = str(row["feature"])
+        name = "" if feature == last else safe_text(feature) + marks.get(feature, "")
+        last = feature
+        if len(name) > term_width - 2:
+            name = name[: term_width - 3] + "…"
+        level = _bin(row)
+        level = level if len(level) <= 22 else level[:21] + "…"
+        out.append(f"  {name:<{term_width - 2}} {level:<22} {_points(float(row['points'])):>8}\n")
     return out
 
 
@@ -99,7 +160,10 @@ class ModelScreen(Screen[None]):
         from closecall.api.study import Study
 
         try:
-            data = dict(Study(self.session.study).model().data)
+            study = Study(self.session.study)
+            data = dict(study.model().data)
+            if data.get("scorecard"):  # the whole card, beside the fitted models' weights
+                data["card"] = study.scorecard().data["card"]
         except UserError as exc:
             self.app.call_from_thread(self._show, None, f"✗ {exc.message}")
             return

@@ -14,6 +14,7 @@ from closecall.core.errors import UserError
 from closecall.reports.disparity import build_report
 from closecall.reports.disparity.errors_by_group import error_rates
 from closecall.reports.disparity.html import render_html
+from closecall.reports.disparity.report import PopulationInput
 from disparity_sim import review_table, table_from_counts
 
 
@@ -107,3 +108,42 @@ def test_html_is_self_contained_and_escaped() -> None:
     assert "<script>" not in html
     assert "&lt;script&gt;" in html
     assert not re.search(r'(src|href)="(https?:)?//', html)  # nothing fetched from elsewhere
+
+
+def test_summary_and_warnings_count_by_hand() -> None:
+    """The summary and the warnings against pandas counts of the review table: decided and
+    deferred reviews, reviewers, margins, groups largest first; a warning for the deferrals,
+    for each group under SMALL_CELL decided reviews (30, common practice), and for reviewed
+    cases missing from the cases under review."""
+    reviews = review_table(400, 8, groups=("A", "B", "C"), shares=(0.6, 0.35, 0.05))
+    decided = reviews[reviews["final_decision"].notna()]
+    deferred = int((reviews["action"] == "defer").sum())
+    assert deferred == len(reviews) - len(decided) > 0
+    counts = decided["group"].value_counts()
+    order = sorted(counts.index, key=lambda g: (-counts[g], g))
+    small = [g for g in order if counts[g] < 30]
+    assert small == ["C"]  # the table is built so that one group is small
+    # every reviewed case but the first three, and 50 unreviewed ones, are under review
+    ids = np.r_[reviews["case_id"].to_numpy()[3:], [f"U-{i}" for i in range(50)]]
+    levels = ["A", "B", "C"]
+    groups = np.r_[reviews["group"].to_numpy()[3:], np.array(["A", "B"] * 25)]
+    population = PopulationInput(
+        case_ids=ids,
+        group_codes=np.array([levels.index(g) for g in groups]),
+        levels=levels,
+        model_favourable=np.r_[reviews["margin"].to_numpy()[3:] > 0, np.zeros(50, dtype=bool)],
+    )
+    rep = build_report(reviews, n_boot=200, seed=1, population=population)
+    s = rep.summary
+    assert (s.reviews, s.decided, s.deferred) == (400, len(decided), deferred)
+    assert s.reviewers == reviews["reviewer"].nunique()
+    assert (s.margin_min, s.margin_max) == (reviews["margin"].min(), reviews["margin"].max())
+    assert list(s.groups) == order
+    assert len(rep.warnings) == 4
+    assert rep.warnings[0].startswith("the reviewed-case rates describe close calls only")
+    assert f"in group(s) {', '.join(small)}:" in rep.warnings[1]
+    assert rep.warnings[2].startswith(f"{deferred} deferred review(s) have no final decision")
+    assert rep.warnings[3].startswith("3 reviewed case(s) are not among the cases under review")
+    alone = build_report(decided, n_boot=200, seed=1)
+    assert alone.warnings[0].startswith("the rates describe reviewed cases only")
+    assert len(alone.warnings) == 2  # the small group; no deferral, no population

@@ -16,6 +16,7 @@ from typing import Any
 
 import psycopg
 import pytest
+from ledger_helpers import content
 from pg_server import PgServer
 
 from closecall.core.errors import UserError
@@ -627,3 +628,40 @@ def test_keys_refuse_before_making_a_key_when_the_database_is_down(
     assert res.code == 2 and res.err.count("error:") == 1 and "127.0.0.1:1/reviews" in res.err
     assert "Traceback" not in res.err + res.out
     assert not (tmp_path / "keys").exists()  # nothing made: the name to register is unknown
+
+
+def _neighbours(data: Any) -> list[dict[str, Any]]:
+    """The similar past cases anywhere in ``explain --json``'s answer."""
+    if isinstance(data, dict):
+        if isinstance(data.get("neighbours"), list):
+            return list(data["neighbours"])
+        return [n for v in data.values() for n in _neighbours(v)]
+    if isinstance(data, list):
+        return [n for v in data for n in _neighbours(v)]
+    return []
+
+
+def test_a_database_user_without_a_role_explains_without_the_reviews_of_similar_cases(
+    team: Team, demo_config: Path, tmp_path: Path, cli: Any, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """``explain`` reads the study; only its similar cases' reviews come from the ledger, and
+    a database user with no role gets none of them (and no error), while a reviewer does."""
+    config = _config(demo_config, team.url, f"eve-x-{tmp_path.name}")
+    try:
+        case = str(open_study(config).snapshot.case_ids[0])
+        monkeypatch.setenv("PGUSER", team.alice)
+        args = ("explain", case, "--json", "--config", str(config))
+        near = _neighbours(json.loads(_ok(cli(*args)).out))
+        assert near, "explain --json lists similar cases"
+        with open_pg_ledger(team.url) as ledger:  # a review of a past case, as alice
+            ledger.append(content("as a past case", case_id=near[0]["case_id"], action="defer"))
+        seen = _neighbours(json.loads(_ok(cli(*args)).out))
+        monkeypatch.setenv("PGUSER", team.eve)
+        res = _ok(cli(*args))
+    finally:
+        config.unlink()
+    assert seen[0]["review"]["action"] == "defer"  # alice sees the review
+    assert "error:" not in res.err and "Traceback" not in res.err
+    hidden = _neighbours(json.loads(res.out))
+    assert [n["case_id"] for n in hidden] == [n["case_id"] for n in seen]
+    assert all(n["review"] is None for n in hidden)  # eve sees none of the ledger

@@ -525,19 +525,18 @@ class Study:
         --------
         >>> study.bands(epsilon=0.002).to_dict()["groups"]  # doctest: +SKIP
         """
-        import math
-
         from closecall.analysis.multiplicity import (
             EPSILON_CURVE,
+            EPSILON_MAX,
             UNCERTAINTY_EPSILON,
             ambiguity_by_group,
             epsilon_curve,
         )
+        from closecall.core.numbers import check_number
 
         opened = self.opened
-        eps = float(opened.config.multiplicity.epsilon if epsilon is None else epsilon)
-        if not (math.isfinite(eps) and eps > 0):
-            raise UserError(f"epsilon must be a number > 0, not {eps}", "pass e.g. 0.002")
+        eps = opened.config.multiplicity.epsilon if epsilon is None else epsilon
+        eps = check_number("epsilon", eps, 0, EPSILON_MAX, low_open=True, example="0.002")
         snap = opened.snapshot
         groups = ambiguity_by_group(snap, "pooled", eps, lens, seed=opened.config.seed)
         curve = epsilon_curve(snap, "pooled", tuple(sorted({*EPSILON_CURVE, eps})), lens)

@@ -87,7 +87,8 @@ class EntryContent:
     Parameters
     ----------
     reviewer
-        OS login name of the recording process.
+        Who records: the OS login for a ledger file; a PostgreSQL ledger replaces it with the
+        database session user when it numbers the entry.
     case_id
         The reviewed case.
     snapshot_id

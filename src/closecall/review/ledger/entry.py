@@ -125,6 +125,38 @@ class EntryContent:
     supersedes: int | None = None
 
 
+def entry_fields(
+    content: EntryContent,
+    *,
+    seq: int | None,
+    time: str | None,
+    reviewer: str | None,
+    prev_hash: str | None,
+) -> dict[str, Any]:
+    """An entry's signed fields: ``content`` (its decisions as plain JSON types) and the
+    chain's part, which a ledger fills in under its head lock (None until then)."""
+    return {
+        "seq": seq,
+        "format": ENTRY_FORMAT,
+        "time": time,
+        "reviewer": reviewer,
+        "case_id": content.case_id,
+        "snapshot_id": content.snapshot_id,
+        "current_snapshot_id": content.current_snapshot_id,
+        "reference_model": content.reference_model,
+        "reference_decision": content.reference_decision,
+        "reference_margin": (
+            None if content.reference_margin is None else float(content.reference_margin)
+        ),
+        "decisions": json.loads(canonical_json(content.decisions)),
+        "action": content.action,
+        "reason": content.reason,
+        "note": content.note,
+        "supersedes": content.supersedes,
+        "prev_hash": prev_hash,
+    }
+
+
 @dataclass(frozen=True)
 class Entry:
     """A recorded, chained ledger entry. Never edited: corrections are new entries."""

@@ -49,6 +49,7 @@ from closecall.review.ledger.entry import (
     Entry,
     EntryContent,
     canonical_json,
+    entry_fields,
 )
 
 if TYPE_CHECKING:
@@ -472,26 +473,7 @@ class PgLedger:
     @staticmethod
     def _unchained_fields(content: EntryContent) -> dict[str, Any]:
         """An entry's fields that do not depend on the head (filled in under the lock)."""
-        return {
-            "seq": None,
-            "format": ENTRY_FORMAT,
-            "time": None,
-            "reviewer": None,
-            "case_id": content.case_id,
-            "snapshot_id": content.snapshot_id,
-            "current_snapshot_id": content.current_snapshot_id,
-            "reference_model": content.reference_model,
-            "reference_decision": content.reference_decision,
-            "reference_margin": (
-                None if content.reference_margin is None else float(content.reference_margin)
-            ),
-            "decisions": json.loads(canonical_json(content.decisions)),
-            "action": content.action,
-            "reason": content.reason,
-            "note": content.note,
-            "supersedes": content.supersedes,
-            "prev_hash": None,
-        }
+        return entry_fields(content, seq=None, time=None, reviewer=None, prev_hash=None)
 
     @staticmethod
     def _chain(

@@ -36,12 +36,12 @@ from closecall.review.ledger import schema
 from closecall.review.ledger.damage import DamagedLedger, NoLedger
 from closecall.review.ledger.drafts import Claims, Drafts, delete_draft, utc_iso, utc_now
 from closecall.review.ledger.entry import (
-    ENTRY_FORMAT,
     GENESIS_HASH,
     HASHED_FIELDS,
     Entry,
     EntryContent,
     canonical_json,
+    entry_fields,
     entry_hash,
     signed_message,
 )
@@ -303,7 +303,6 @@ class Ledger:
         entry is stored unsigned.
         """
         _check_content(content)
-        decisions = json.loads(canonical_json(content.decisions))  # plain JSON types only
         with self._write() as conn:
             last = conn.execute(
                 "SELECT seq, hash FROM entries ORDER BY seq DESC LIMIT 1"
@@ -317,29 +316,16 @@ class Ledger:
                     raise ValueError(
                         f"entry {content.supersedes} is not an earlier entry for {content.case_id}"
                     )
-            fields: dict[str, Any] = {
-                "seq": seq,
-                "format": ENTRY_FORMAT,
-                "time": utc_iso(utc_now()),
-                "reviewer": content.reviewer,
-                "case_id": content.case_id,
-                "snapshot_id": content.snapshot_id,
-                "current_snapshot_id": content.current_snapshot_id,
-                "reference_model": content.reference_model,
-                "reference_decision": content.reference_decision,
-                "reference_margin": (
-                    None if content.reference_margin is None else float(content.reference_margin)
-                ),
-                "decisions": decisions,
-                "action": content.action,
-                "reason": content.reason,
-                "note": content.note,
-                "supersedes": content.supersedes,
-                "prev_hash": prev_hash,
-            }
+            fields = entry_fields(
+                content,
+                seq=seq,
+                time=utc_iso(utc_now()),
+                reviewer=content.reviewer,
+                prev_hash=prev_hash,
+            )
             fields["signature"] = sign(signed_message(fields)) if sign is not None else None
             fields["hash"] = entry_hash(fields)
-            row = {**fields, "decisions": canonical_json(decisions).decode("utf-8")}
+            row = {**fields, "decisions": canonical_json(fields["decisions"]).decode("utf-8")}
             conn.execute(
                 f"INSERT INTO entries ({', '.join(_COLUMNS)}) "
                 f"VALUES ({', '.join('?' for _ in _COLUMNS)})",

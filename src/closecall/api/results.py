@@ -230,17 +230,9 @@ class DisparityResult(Report):
         --------
         >>> study.disparity(n_boot=500).headline()  # doctest: +SKIP
         """
-        from closecall.reports.disparity.html import headline_text
+        from closecall.reports.disparity.html import report_headline
 
-        r, s = self.report.rates, self.report.summary
-        return headline_text(
-            r.lowest_model_air,
-            r.lowest_final_air,
-            r.lowest_air_change,
-            r.lowest_air_change_low,
-            r.lowest_air_change_high,
-            f"{100 * s.level:.0f}%",
-        )
+        return report_headline(self.report)
 
     def html(self) -> str:
         """The whole report as one self-contained HTML document.

@@ -257,7 +257,7 @@ def _header_part(report: DisparityReport) -> list[str]:
         ("written by", f"closecall {__version__}"),
     ]
     parts.append(_table(["", ""], facts, left=2))
-    parts.append(f'<div class="box">{_h(_headline(report))}</div>')
+    parts.append(f'<div class="box">{_h(report_headline(report))}</div>')
     parts.append('<ul class="note">' + "".join(f"<li>{_h(c)}</li>" for c in CAUTIONS) + "</ul>")
     parts.append(sections.population_section(report))
     return parts
@@ -503,7 +503,7 @@ def _closing_part(report: DisparityReport) -> list[str]:
     return parts
 
 
-def _headline(report: DisparityReport) -> str:
+def report_headline(report: DisparityReport) -> str:
     """One sentence: did review narrow or widen the largest gap?"""
     r = report.rates
     lvl = f"{100 * report.summary.level:.0f}%"

@@ -157,6 +157,29 @@ def test_distance_words_on_the_rows(demo_config: Path, cli: Any) -> None:
         assert r["closeness"] == want, r
 
 
+def test_the_review_list_reads_the_rows_words_from_the_answer(
+    demo_config: Path, demo_study: OpenedStudy, cli: Any
+) -> None:
+    """The words the review list draws for a row (distance, who decides otherwise) and its
+    header's attribute come from Study.answer and Study: the same as `closecall queue --json`."""
+    from closecall.api.study import Study
+
+    data = _queue(cli, demo_config, "--all", "--sort", "margin")
+    study = Study(demo_study)
+    answer = study.answer(QueueQuery(all_cases=True, sort="margin"))
+    codes = answer.closeness_codes()
+    assert codes.shape == (demo_study.snapshot.n_cases,)
+    rows = [int(r) for r in answer.listed]
+    assert len(rows) == len(data["rows"])
+    for r, shown in list(zip(rows, data["rows"], strict=True))[::17]:
+        assert CLOSENESS_WORDS[int(codes[r])] == shown["closeness"], shown
+        assert answer.others_differ(r) == shown["others_differ"], shown
+    assert any(answer.others_differ(r) for r in rows) and not all(
+        answer.others_differ(r) for r in rows
+    )
+    assert study.group_attribute == data["group_attribute"] == "heritage"
+
+
 def test_an_unknown_kind_of_flip_is_refused() -> None:
     with pytest.raises(UserError, match="kind of flip 'sideways'"):
         QueueQuery(flips="sideways")

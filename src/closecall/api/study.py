@@ -380,6 +380,17 @@ class Study:
         return str(self.opened.snapshot.id)
 
     @property
+    def group_attribute(self) -> str:
+        """The group attribute's name (its columns joined with ``/``), as headers show it.
+
+        Examples
+        --------
+        >>> study.group_attribute  # doctest: +SKIP
+        'heritage'
+        """
+        return group_attribute(self.opened.snapshot)
+
+    @property
     def ledger(self) -> Ledger:
         """The review ledger: ``show``, ``verify``, ``export``.
 
@@ -410,7 +421,7 @@ class Study:
             counts=dict(answer.queue.counts),
             case_ids=tuple(str(c) for c in snap.case_ids[listed]),
             measures=tuple(answer.queue.measures),
-            group_attribute=group_attribute(snap),
+            group_attribute=self.group_attribute,
             same_as=dict(answer.queue.same_as),
             _answer=answer,
             _snapshot=snap,

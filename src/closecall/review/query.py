@@ -26,9 +26,10 @@ from closecall.review.queue import (
     SORT_KEYS,
     Queue,
     build_queue,
+    others_differ,
     queue_rows,
 )
-from closecall.review.triage import TriageInputs
+from closecall.review.triage import TriageInputs, closeness_codes
 
 if TYPE_CHECKING:
     from closecall.suite.opening import OpenedStudy
@@ -199,6 +200,34 @@ class QueueAnswer:
         """Snapshot rows listed, in order, after the limit."""
         limit = self.query.limit
         return self.queue.order if limit is None else self.queue.order[:limit]
+
+    def closeness_codes(self) -> np.ndarray:
+        """Every case's distance from the threshold in words, as (n,) int8 codes into
+        :data:`closecall.review.triage.CLOSENESS_WORDS` (snapshot order), cut by the queue's band.
+
+        Examples
+        --------
+        >>> from closecall.review.triage import CLOSENESS_WORDS  # doctest: +SKIP
+        >>> answer = study.answer()  # doctest: +SKIP
+        >>> CLOSENESS_WORDS[answer.closeness_codes()[answer.listed[0]]]  # doctest: +SKIP
+        'on the line'
+        """
+        return closeness_codes(self.queue.margin, self.queue.band)
+
+    def others_differ(self, row: int) -> list[str]:
+        """Who decides the case at snapshot row ``row`` otherwise than the reference model, in
+        words, most telling first: the other models under the operative lens (a model identical
+        to an earlier one named once), then the reference model's other cost lenses
+        (``cautious lens``); only when neither does, the other ``model@lens`` pairs. Empty:
+        every model and lens agrees.
+
+        Examples
+        --------
+        >>> answer = study.answer()  # doctest: +SKIP
+        >>> answer.others_differ(int(answer.listed[0]))  # doctest: +SKIP
+        ['unaware', 'cautious lens']
+        """
+        return others_differ(self.queue, self.queue.grid.differs_at(row))
 
     def rows(self, snapshot: Any) -> list[dict[str, Any]]:
         """Plain rows of the listed cases, with ``state`` and ``claimed_by`` when readable."""

@@ -24,14 +24,7 @@ from textual.strip import Strip
 
 from closecall.core.text import percent, safe_text, signed
 from closecall.core.vocabulary import OPEN, TO_FAVOURABLE, TO_UNFAVOURABLE, UPHELD, short_model
-from closecall.review.queue import group_attribute, others_differ
-from closecall.review.triage import (
-    CLOSENESS_WORDS,
-    PROXIES_WORD,
-    TIER_WORDS,
-    TIERS,
-    closeness_codes,
-)
+from closecall.review.triage import CLOSENESS_WORDS, PROXIES_WORD, TIER_WORDS, TIERS
 from closecall.tui.marks import (
     AMBIGUOUS,
     CLAIM_MINE,
@@ -75,7 +68,7 @@ class Layout:
         rank = max(3, len(f"{listed:,}"))
         case = min(16, max(4, snap.case_ids.dtype.itemsize // 4 or 10))
         labels = [len(safe_text(g)) for g in snap.group_levels]
-        group = min(12, max(5, len(group_attribute(snap)), *labels))
+        group = min(12, max(5, len(session.group_attribute), *labels))
         fixed = 2 + rank + 1 + case + 1 + group + 1 + DISTANCE_WIDTH + 1 + WHY_WIDTH + 1
         fixed += STATE_WIDTH
         room = width - 1 - fixed - DIFFERS_MIN - 1
@@ -151,11 +144,9 @@ class CaseList(ScrollView, can_focus=True):
     def reload(self, keep_row: int | None = None) -> None:
         """Take the session's current queue; keep the cursor on ``keep_row`` if still listed
         (None: the cursor goes to the top, as after a change of filter or order)."""
-        q = self.session.queue
-        self._order = q.order if q is not None else np.zeros(0, dtype=np.int64)
-        self._near = (
-            closeness_codes(q.margin, q.band) if q is not None else np.zeros(0, dtype=np.int8)
-        )
+        answer = self.session.answer
+        self._order = answer.queue.order if answer is not None else np.zeros(0, dtype=np.int64)
+        self._near = answer.closeness_codes() if answer is not None else np.zeros(0, dtype=np.int8)
         self._layout = None
         self.virtual_size = Size(self.size.width, len(self._order) + 1)
         target = 0
@@ -260,8 +251,7 @@ class CaseList(ScrollView, can_focus=True):
 
     def _header(self, width: int, base: Style) -> Strip:
         lay = self.layout_for(width)
-        snap = self.session.snap
-        attribute = _fit(safe_text(group_attribute(snap)), lay.group)
+        attribute = _fit(safe_text(self.session.group_attribute), lay.group)
         differs = DIFFERS_HEADER if lay.differs >= len(DIFFERS_HEADER) else "who differs"
         text = (
             f"  {'#':>{lay.rank}} {'case':<{lay.case}} {attribute:<{lay.group}} "
@@ -283,8 +273,9 @@ class CaseList(ScrollView, can_focus=True):
     def _row(self, position: int, width: int, base: Style) -> Strip:
         session = self.session
         snap = session.snap
-        q = session.queue
-        assert q is not None
+        answer = session.answer
+        assert answer is not None
+        q = answer.queue
         lay = self.layout_for(width)
         r = int(self._order[position])
         is_cursor = position == self.cursor
@@ -303,7 +294,7 @@ class CaseList(ScrollView, can_focus=True):
             Segment(f"{_fit(group, lay.group):<{lay.group}} ", row_base),
             Segment(f"{CLOSENESS_WORDS[int(self._near[r])]:<{DISTANCE_WIDTH}} ", tone),
             Segment(f"{self._why(r):<{WHY_WIDTH}} ", flag),
-            Segment(f"{_names(others_differ(q, q.grid.differs_at(r)), lay.differs)} ", row_base),
+            Segment(f"{_names(answer.others_differ(r), lay.differs)} ", row_base),
         ]
         if lay.margin:
             segs.append(Segment(f"{signed(margin):>6} ", tone))

@@ -22,7 +22,6 @@ from closecall.core.errors import UserError
 from closecall.core.text import safe_text, signed
 from closecall.core.vocabulary import OPEN, STATE_OF_ACTION, decision_word
 from closecall.review.ledger import Draft, Entry
-from closecall.review.queue import others_differ
 from closecall.suite.fit_flags import PROBLEM_WORDS
 from closecall.tui import analysis_bridge, card_section, case_sections
 from closecall.tui.access_guard import may_decide
@@ -284,12 +283,12 @@ class CaseScreen(Screen[None]):
 def case_summary(session: ReviewSession, row: int, explained: dict[str, Any] | None) -> Text:
     """One line on why this case is here: the decision, who disagrees, what it rests on."""
     snap = session.snap
-    q = session.queue
+    answer = session.answer
     margin = float(snap.margins(snap.reference)[row])
     text = Text()
     text.append(f"{snap.reference}: {decision_word(margin > 0)} {signed(margin)}", "bold")
-    if q is not None:  # who decides otherwise, by name (closecall.review.queue.others_differ)
-        names = others_differ(q, q.grid.differs_at(row))
+    if answer is not None:  # who decides otherwise, by name
+        names = answer.others_differ(row)
         text.append(f" · {safe_text(', '.join(names))} differ" if names else " · all agree")
     if explained is not None:
         if explained["bands"]["equally_good"]["straddles_zero"]:

@@ -18,7 +18,7 @@ from closecall.analysis.margin_distribution import MarginDistribution
 from closecall.api.study import Ledger, Study
 from closecall.core.errors import AccessDenied
 from closecall.review.ledger import Claim
-from closecall.review.query import QueueQuery, awaiting_decision
+from closecall.review.query import QueueAnswer, QueueQuery, awaiting_decision
 from closecall.review.queue import Queue
 from closecall.suite.opening import OpenedStudy
 from closecall.tui import analysis_bridge
@@ -87,8 +87,11 @@ class ReviewSession:
         self.display_login = login or self.login
         self.clock = clock
         self.band = float(study.config.review.band)
+        #: The group attribute's name, as the list's header shows it.
+        self.group_attribute = Study(study).group_attribute
         self.settings = ListSettings()
-        self.queue: Queue | None = None
+        #: The current list: the ranked queue and the words of its rows (None: not built yet).
+        self.answer: QueueAnswer | None = None
         self.states = np.zeros(self.snap.n_cases, dtype=np.int8)
         self.claims: dict[str, list[Claim]] = {}
         #: This review screen's id: its claims carry it, and it releases only those.
@@ -103,6 +106,11 @@ class ReviewSession:
         self._position: np.ndarray | None = None
         #: The rows the chart counts: those the list's filters keep (None: every case).
         self.chart_rows: np.ndarray | None = None
+
+    @property
+    def queue(self) -> Queue | None:
+        """The ranked queue of the current list (None: not built yet)."""
+        return None if self.answer is None else self.answer.queue
 
     # ------------------------------------------------------------------ measures
 
@@ -174,7 +182,7 @@ class ReviewSession:
         q = answer.queue
         position = np.full(self.snap.n_cases, -1, dtype=np.int64)
         position[q.order] = np.arange(len(q.order))
-        self.settings, self.queue, self._position = settings, q, position
+        self.settings, self.answer, self._position = settings, answer, position
         self.chart_rows = chart_rows
         return q
 

@@ -219,6 +219,8 @@ VIEW_MAY_IMPORT: dict[str, set[str]] = {
     "closecall.review.ledger": {"Entry", "Draft", "Claim", "VerifyResult", "canonical_json"},
     "closecall.review.ledger.verify": {"VerifyResult"},
     "closecall.review.ledger.entry": {"HASHED_FIELDS"},
+    # is the database a command names a PostgreSQL URL (checked before any ledger is opened)
+    "closecall.review.ledger.pg_store": {"is_url"},
     "closecall.review.conflicts": {"ConflictingDecision"},
     "closecall.review.decisions": {"check_text"},
     "closecall.analysis.margin_distribution": {"MarginDistribution"},
@@ -243,13 +245,11 @@ VIEW_MAY_IMPORT: dict[str, set[str]] = {
     "closecall.reports.disparity.power": {"Detectable"},
 }
 
-#: Whole view modules still calling the engine for their work, to move behind ``Study`` (each
-#: is being changed by its own area's work meanwhile, so no name list is kept for them): the
-#: team and key commands (team set-up, signing keys) and the PostgreSQL set-up commands.
-PENDING_MODULES: dict[str, str] = {
-    "cli/team_cmds.py": "keys, team check/setup, anchor: the team set-up",
-    "cli/ledger_pg_cmds.py": "ledger setup/migrate on PostgreSQL: the database ledger",
-}
+#: Whole view modules still calling the engine for their work, to move behind ``Study`` (the
+#: list only shrinks). None left: the team and key commands go through ``closecall.api.team``
+#: and ``Ledger.anchor``, the PostgreSQL set-up commands through
+#: ``closecall.api.ledger_database``.
+PENDING_MODULES: dict[str, str] = {}
 
 #: Engine computations views still call themselves, to move behind ``Study`` (each entry is
 #: (view module, engine module, name); the list only shrinks). None left: the review list reads

@@ -20,6 +20,7 @@ _WHERE = {
     "QueueAnswer": "closecall.review.query",
     "QueueResult": "closecall.api.results",
     "Explanation": "closecall.api.results",
+    "LedgerAnchor": "closecall.api.results",
     "LedgerEntries": "closecall.api.results",
     "Report": "closecall.api.results",
     "WhatIfResult": "closecall.api.results",
@@ -43,6 +44,7 @@ __all__ = [
     "Explanation",
     "ExportResult",
     "Ledger",
+    "LedgerAnchor",
     "LedgerEntries",
     "MarginDistribution",
     "Policy",
@@ -63,6 +65,7 @@ if TYPE_CHECKING:
     from closecall.api.results import (
         DisparityResult,
         Explanation,
+        LedgerAnchor,
         LedgerEntries,
         QueueResult,
         Report,

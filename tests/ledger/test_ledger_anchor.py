@@ -80,3 +80,22 @@ def test_a_ledger_that_does_not_verify_is_not_anchored(tmp_path: Path, cli: Any)
     r = cli("ledger", "anchor", "--config", str(config))
     assert r.code == 2 and "not anchored" in r.err
     assert not (tmp_path / "anchors" / "study.anchor").exists()
+
+
+def test_the_library_anchors_as_the_command_does(tmp_path: Path, cli: Any) -> None:
+    """Ledger.anchor writes the head the command writes, and its to_dict is the command's JSON."""
+    import json
+
+    from closecall import Ledger, LedgerAnchor
+
+    config = _study(tmp_path)
+    shown = json.loads(cli("ledger", "anchor", "--json", "--config", str(config)).out)
+    anchored = Ledger.open(config).anchor(tmp_path / "anchors" / "library.anchor")
+    assert isinstance(anchored, LedgerAnchor) and anchored.seq == 3
+    assert (anchored.seq, anchored.hash) == (shown["seq"], shown["hash"])
+    assert shown["anchor"] == str(tmp_path / "anchors" / "study.anchor")
+    assert anchored.to_dict() == {**shown, "anchor": str(anchored.path)}
+    written = anchored.path.read_text()
+    assert written == (tmp_path / "anchors" / "study.anchor").read_text()
+    assert written == f"closecall-anchor 3 {anchored.hash}\n"
+

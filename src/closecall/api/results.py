@@ -5,6 +5,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 from dataclasses import dataclass, field
+from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
@@ -285,6 +286,34 @@ class LedgerEntries:
         return pd.DataFrame(
             {n: [getattr(e, n) for e in self.entries] for n in names}, columns=list(names)
         )
+
+
+@dataclass(frozen=True)
+class LedgerAnchor:
+    """The ledger's head, verified and written to the anchor file.
+
+    Attributes
+    ----------
+    path
+        The anchor file written.
+    seq, hash
+        The head entry's sequence number and chain hash, as the file now holds them.
+    """
+
+    path: Path
+    seq: int
+    hash: str
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready: ``anchor`` (the file), ``seq`` and ``hash`` (as ``closecall ledger anchor
+        --json``).
+
+        Examples
+        --------
+        >>> study.ledger.anchor("/srv/anchors/grants.anchor").to_dict()["seq"]  # doctest: +SKIP
+        20
+        """
+        return {"anchor": str(self.path), "seq": self.seq, "hash": self.hash}
 
 
 @dataclass(frozen=True)

@@ -17,6 +17,7 @@ import numpy as np
 from closecall.api.results import (
     DisparityResult,
     Explanation,
+    LedgerAnchor,
     LedgerEntries,
     QueueResult,
     Report,
@@ -225,6 +226,25 @@ class Ledger:
         from closecall.review.decisions import verify_ledger
 
         return verify_ledger(self._config, anchor, allow_empty=allow_empty)
+
+    def anchor(self, out: str | Path | None = None) -> LedgerAnchor:
+        """Verify the ledger and write its head (sequence number and hash) to the anchor file:
+        ``out``, or ``[team] anchor`` of the config. From then on :meth:`verify` checks that the
+        chain still holds that entry, so a deleted, emptied or replaced ledger fails; keep the
+        file where the reviewers cannot write (docs/team.md).
+
+        Refused (``UserError``, nothing written) when no anchor file is named, the ledger does
+        not verify, or the anchor's folder is not writable by this login.
+
+        Examples
+        --------
+        >>> Ledger.open("/srv/grants/closecall.toml").anchor().seq  # doctest: +SKIP
+        20
+        """
+        from closecall.review.decisions import anchor_ledger
+
+        path, result = anchor_ledger(self._config, None if out is None else Path(out))
+        return LedgerAnchor(path, result.head_seq, result.head_hash)
 
     def export(
         self,

@@ -21,13 +21,13 @@ def setup(
     Creates the schema, the append-only guards and the two group roles; add members with
     GRANT closecall_reviewer TO alice.
     """
-    from closecall.review.ledger.pg_store import redact
-    from closecall.review.ledger.pg_store import setup as pg_setup
+    from closecall.api.ledger_database import set_up_ledger_database
 
-    pg_setup(url, reviewer_role, analyst_role)
+    ready = set_up_ledger_database(url, reviewer_role=reviewer_role, analyst_role=analyst_role)
     console.print(
-        f"ledger ready in {redact(url)}\n"
-        f"  record: GRANT {reviewer_role} TO <user>;   read only: GRANT {analyst_role} TO <user>;",
+        f"ledger ready in {ready.url}\n"
+        f"  record: GRANT {ready.reviewer_role} TO <user>;   "
+        f"read only: GRANT {ready.analyst_role} TO <user>;",
         markup=False,
         highlight=False,
     )
@@ -38,41 +38,22 @@ def migrate(
     target: str = typer.Option(..., "--to", help="An empty, set-up ledger database URL."),
 ) -> None:
     """Copy every entry of a ledger into an empty PostgreSQL ledger; verify both sides."""
+    from closecall.api.ledger_database import migrate_ledger
     from closecall.core.errors import UserError
-    from closecall.review.ledger.backend import open_any_ledger
-    from closecall.review.ledger.pg_store import is_url, open_pg_ledger, redact
-    from closecall.review.ledger.pg_store import migrate as pg_migrate
+    from closecall.review.ledger.pg_store import is_url
 
-    if not is_url(target):
+    if not is_url(target):  # worded with the flag, before any ledger is opened
         raise UserError(
             f"--to {target}: not a PostgreSQL URL", "give the target as postgresql://HOST/DB"
         )
-    with open_any_ledger(source, readonly=True) as ledger:
-        before = ledger.verify()
-        if not before.ok:
-            assert before.problem is not None
-            raise UserError(
-                f"{source}: the source ledger does not verify ({before.problem.message})",
-                "run 'closecall ledger verify' on it and restore it from a backup first",
-            )
-        pg_migrate(ledger, target)
-    with open_pg_ledger(target, inspect=True) as copied:
-        after = copied.verify()
-    if not after.ok:
-        assert after.problem is not None
-        raise UserError(
-            f"{redact(target)}: the copy does not verify ({after.problem.message})",
-            "drop and set up the target database again, then migrate again",
-        )
+    moved = migrate_ledger(source, target)
     console.print(
-        f"copied {after.verified} entries; both chains verify\n"
-        f"  {source}: head {before.head_seq} {before.head_hash}\n"
-        f"  {redact(target)}: head {after.head_seq} {after.head_hash}",
+        f"copied {moved.copied} entries; both chains verify\n"
+        f"  {moved.source}: head {moved.head_seq} {moved.head_hash}\n"
+        f"  {moved.target}: head {moved.head_seq} {moved.head_hash}",
         markup=False,
         highlight=False,
     )
-    if (before.head_seq, before.head_hash) != (after.head_seq, after.head_hash):
-        raise UserError("the head hashes differ", "tell the study's supervisor")
 
 
 def register_ledger_team(ledger_app: typer.Typer) -> None:

@@ -3,14 +3,17 @@
 
 from __future__ import annotations
 
-from dataclasses import asdict
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import typer
 
 from closecall.cli.common import ConfigOption, JsonOption
 from closecall.cli.output import console, emit_json
 from closecall.core.text import safe_text
+
+if TYPE_CHECKING:
+    from closecall.api.team import KeyRegistration, TeamCheck
 
 keys_app = typer.Typer(
     help="Your signing key: every entry you record carries your signature.\n\n\b\n"
@@ -23,40 +26,10 @@ def _print(text: str) -> None:
     console.print(text, markup=False, highlight=False, soft_wrap=True)
 
 
-def _registration(login: str, public: str) -> str:
-    return f'{login} = "{public}"'
-
-
-def _key_name(config: Path) -> tuple[str, str]:
-    """The name an author's key is registered under, and why that name (a short note).
-
-    A study whose ledger is in PostgreSQL records as the database session user, so its key is
-    registered under that name (connecting once to ask the server); a ledger file records
-    as the OS login, which is also the answer when there is no study config here at all.
-    """
-    from closecall.review.ledger.access import current_login, ledger_login
-    from closecall.review.ledger.backend import is_database
-    from closecall.setup.config import CONFIG_NAME, load_config
-
-    found = config / CONFIG_NAME if config.is_dir() else config
-    if not found.exists() and config == Path(CONFIG_NAME):
-        return current_login(), (
-            "your OS login; for a study whose ledger is in PostgreSQL the key is registered "
-            "under your database user instead: run 'closecall keys show --config STUDY'"
-        )
-    review = load_config(config).review
-    if is_database(review.ledger):
-        return ledger_login(review), (
-            "your database user: the study's ledger is in PostgreSQL, whose entries name the "
-            "database session user"
-        )
-    return current_login(), "your OS login: the study's ledger is a file"
-
-
-def _print_registration(login: str, why: str, public: str) -> None:
+def _print_registration(key: KeyRegistration) -> None:
     _print("ask the study owner to add this line under [team.keys] of the study config:")
-    _print(_registration(safe_text(login), public))
-    _print(f"({safe_text(login)} is {why})")
+    _print(f'{safe_text(key.login)} = "{key.public_key}"')
+    _print(f"({safe_text(key.login)} is {key.name_is})")
 
 
 @keys_app.command("init")
@@ -73,17 +46,15 @@ def keys_init(as_json: bool = JsonOption, config: Path = ConfigOption) -> None:
     Example:
       closecall keys init --config closecall.toml
     """
-    from closecall.review.ledger.signing import create_key
+    from closecall.api.team import make_signing_key
 
-    login, why = _key_name(config)  # before the key is made: a refusal leaves nothing
-    private, public = create_key()
+    made = make_signing_key(config)  # the name is settled first: a refusal leaves nothing
     if as_json:
-        emit_json(
-            {"login": login, "name_is": why, "private_key": str(private), "public_key": public}
-        )
+        emit_json(made.to_dict())
         return
-    _print(f"private key written to {safe_text(str(private))} (mode 600: keep it to yourself)")
-    _print_registration(login, why, public)
+    where = safe_text(str(made.private_key))
+    _print(f"private key written to {where} (mode 600: keep it to yourself)")
+    _print_registration(made)
 
 
 @keys_app.command("show")
@@ -97,20 +68,13 @@ def keys_show(as_json: bool = JsonOption, config: Path = ConfigOption) -> None:
     Example:
       closecall keys show --config closecall.toml
     """
-    from closecall.core.errors import UserError
-    from closecall.review.ledger.signing import key_folder, load_private, public_text
+    from closecall.api.team import signing_key
 
-    key = load_private()
-    if key is None:
-        raise UserError(
-            f"no signing key in {key_folder()} for this account", "run 'closecall keys init'"
-        )
-    public = public_text(key.public_key())
-    login, why = _key_name(config)
+    key = signing_key(config)
     if as_json:
-        emit_json({"login": login, "name_is": why, "public_key": public})
+        emit_json(key.to_dict())
         return
-    _print_registration(login, why, public)
+    _print_registration(key)
 
 
 def register(app: typer.Typer) -> None:
@@ -126,6 +90,12 @@ team_app = typer.Typer(
 )
 
 
+def _print_problems(check: TeamCheck) -> None:
+    for p in check.problems:
+        _print(f"  {safe_text(p.where)}: {safe_text(p.message)}")
+        _print(f"    fix: {safe_text(p.fix)}")
+
+
 @team_app.command("check")
 def team_check(as_json: bool = JsonOption, config: Path = ConfigOption) -> None:
     """List what is wrong with the study folder's group and modes, its files, the config's
@@ -137,20 +107,17 @@ def team_check(as_json: bool = JsonOption, config: Path = ConfigOption) -> None:
     Example:
       closecall team check --config /srv/grants/closecall.toml
     """
-    from closecall.review.team import check_team
-    from closecall.setup.config import load_config
+    from closecall.api.team import check_team_setup
 
-    problems = check_team(load_config(config))
+    check = check_team_setup(config)
     if as_json:
-        emit_json({"ok": not problems, "problems": [asdict(p) for p in problems]})
-    elif not problems:
+        emit_json(check.to_dict())
+    elif check.ok:
         _print("team set-up: sound (nothing to fix)")
     else:
-        _print(f"team set-up: {len(problems)} problem(s)")
-        for p in problems:
-            _print(f"  {safe_text(p.where)}: {safe_text(p.message)}")
-            _print(f"    fix: {safe_text(p.fix)}")
-    if problems:
+        _print(f"team set-up: {len(check.problems)} problem(s)")
+        _print_problems(check)
+    if not check.ok:
         raise typer.Exit(1)
 
 
@@ -180,24 +147,15 @@ def team_setup(
       sudo closecall team setup --group reviewers --readers grants-readers \\
           --config /srv/gate/grants/closecall.toml
     """
-    from closecall.core.errors import UserError
-    from closecall.review.team import check_team, setup_team
-    from closecall.setup.config import load_config
+    from closecall.api.team import set_up_team
 
-    cfg = load_config(config)
-    try:
-        done = setup_team(cfg, group, readers)
-    except KeyError as exc:
-        missing = exc.args[0] if exc.args else group
-        raise UserError(f"no group {missing} on this server", "sudo groupadd NAME first") from None
-    for line in done:
+    done = set_up_team(config, group=group, readers=readers)
+    for line in done.changes:
         _print(safe_text(line))
-    problems = check_team(cfg)
-    _print(f"team set-up: {'sound' if not problems else f'{len(problems)} problem(s) left'}")
-    for p in problems:
-        _print(f"  {safe_text(p.where)}: {safe_text(p.message)}")
-        _print(f"    fix: {safe_text(p.fix)}")
-    if problems:
+    check = done.check
+    _print(f"team set-up: {'sound' if check.ok else f'{len(check.problems)} problem(s) left'}")
+    _print_problems(check)
+    if not check.ok:
         raise typer.Exit(1)
 
 
@@ -219,15 +177,14 @@ def ledger_anchor(
     Example:
       closecall ledger anchor --config /srv/grants/closecall.toml
     """
-    from closecall.review.decisions import anchor_ledger
-    from closecall.setup.config import load_config
+    from closecall.api.study import Ledger
 
-    path, result = anchor_ledger(load_config(config), out)
+    anchored = Ledger.open(config).anchor(out)
     if as_json:
-        emit_json({"anchor": str(path), "seq": result.head_seq, "hash": result.head_hash})
+        emit_json(anchored.to_dict())
         return
-    _print(f"anchored entry {result.head_seq} in {safe_text(str(path))}")
-    _print(f"head {result.head_seq} {result.head_hash}")
+    _print(f"anchored entry {anchored.seq} in {safe_text(str(anchored.path))}")
+    _print(f"head {anchored.seq} {anchored.hash}")
 
 
 def register_ledger_anchor(ledger_app: typer.Typer) -> None:

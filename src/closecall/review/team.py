@@ -319,10 +319,18 @@ def _file_problems(path: Path, gid: int, group: str, readers: bool = False) -> l
     return out
 
 
+def _gid(group: str) -> int:
+    """The id of the group named ``group``; UserError when the server has no such group."""
+    try:
+        return grp.getgrnam(group).gr_gid
+    except KeyError:
+        raise UserError(f"no group {group} on this server", "sudo groupadd NAME first") from None
+
+
 def _require_gate(root: Path, readers: str) -> None:
     """The study folder's parent must already be the readers' gate: in their group, entered by
     the group, closed to others. Never changed here: it may be someone's home folder."""
-    readers_gid = grp.getgrnam(readers).gr_gid
+    readers_gid = _gid(readers)
     gate = root.resolve().parent
     gst = gate.stat()
     gmode = stat.S_IMODE(gst.st_mode)
@@ -350,11 +358,12 @@ def setup_team(
     ------
     PermissionError
         The login may not change a file's group or mode (the CLI names the file).
-    KeyError
-        ``group`` is not a group on this server.
+    UserError
+        ``group`` or ``readers`` is not a group on this server, or the study folder's parent
+        is not the readers' gate.
     """
     root = config.root
-    gid = grp.getgrnam(group).gr_gid if group else root.stat().st_gid
+    gid = _gid(group) if group else root.stat().st_gid
     name = _group(gid)
     done = []
     if readers is not None:

@@ -99,3 +99,11 @@ def test_the_library_anchors_as_the_command_does(tmp_path: Path, cli: Any) -> No
     assert written == (tmp_path / "anchors" / "study.anchor").read_text()
     assert written == f"closecall-anchor 3 {anchored.hash}\n"
 
+
+def test_an_anchor_in_a_missing_folder_is_refused(tmp_path: Path, cli: Any) -> None:
+    config = _study(tmp_path)
+    out = tmp_path / "nowhere" / "study.anchor"
+    r = cli("ledger", "anchor", "--out", str(out), "--config", str(config))
+    assert r.code == 2 and "Traceback" not in r.err and r.err.count("error:") == 1
+    assert f"{out.parent}: no such folder for the anchor file" in r.err
+    assert "install -d" in r.err and not out.parent.exists()

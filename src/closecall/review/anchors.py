@@ -73,3 +73,14 @@ def write_anchor(path: Path, seq: int, head: str) -> None:
         from closecall.core.shared import permission_error
 
         raise permission_error(folder, "write the anchor in") from None
+    except FileNotFoundError:
+        raise UserError(
+            f"{folder}: no such folder for the anchor file",
+            "make it first, writable by the supervisor only: "
+            f"sudo install -d -m 755 -o SUPERVISOR {folder}",
+        ) from None
+    except OSError as exc:
+        raise UserError(
+            f"{folder}: cannot write the anchor file there ({exc.strerror})",
+            "name an anchor file in a folder the supervisor can write",
+        ) from None

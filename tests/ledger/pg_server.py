@@ -113,6 +113,10 @@ class PgServer:
             "UTF8",
             "--locale=C.UTF-8",
         )
+        self._pg_ctl_start()
+
+    def _pg_ctl_start(self) -> None:
+        data = self.folder / "data"
         opts = (
             f"-c listen_addresses=127.0.0.1 -c port={self.port} "
             f"-c unix_socket_directories={self.socket_dir} -c fsync=on "
@@ -131,6 +135,13 @@ class PgServer:
             opts,
             "start",
         )
+
+    def crash_and_restart(self) -> None:
+        """Stop the server as a crash would (``pg_ctl stop -m immediate``: every process quits
+        at once, nothing in shared memory is written out) and start it again on the same data
+        folder; on start it replays the WAL that reached the disk."""
+        self._run("pg_ctl", "-D", str(self.folder / "data"), "-m", "immediate", "-w", "stop")
+        self._pg_ctl_start()
 
     def stop(self) -> None:
         """Stop the server; its folder (every test database, a few hundred MB after a full

@@ -15,7 +15,14 @@ who may do what:
   transaction. Concurrent writers on any number of hosts are serialised by that row lock and
   can never fork the chain; a writer killed mid-transaction leaves nothing (PostgreSQL rolls
   it back).
-* Durability: every append commits with ``synchronous_commit = on``.
+* Durability: an append returns only once its entry is on disk. The entry's own commit
+  releases the head before its flush (``synchronous_commit = off`` for that transaction
+  alone); the append then commits a transaction that writes one small WAL record with
+  ``synchronous_commit = on``, whose flush covers the entry, since WAL is written and flushed
+  in order. So the disk's flush is outside the head's lock and concurrent writers share
+  flushes; a crash can take back only entries whose appends had not returned, and always
+  from the end of the chain (a later entry's WAL lies after its predecessor's), never from
+  its middle.
 * The stored row keeps the entry's canonical JSON (``body``, the exact bytes that are hashed)
   beside its hash, so a field added to the entry format needs no change of table.
 
@@ -24,7 +31,10 @@ References
 PostgreSQL documentation, "Explicit Locking" (row-level locks, SELECT FOR UPDATE, advisory
 locks); "Message Flow" (simple query: several statements in one message);
 "Row Security Policies"; "CREATE FUNCTION" (SECURITY DEFINER, writing such functions safely);
-"WAL Configuration" (synchronous_commit).
+"WAL Configuration" (synchronous_commit), "Asynchronous Commit". Releasing locks before the
+commit's log flush: DeWitt, Katz, Olken, Shapiro, Stonebraker & Wood, "Implementation techniques
+for main memory database systems", SIGMOD 1984; Johnson, Pandis, Stoica, Athanassoulis &
+Ailamaki, "Aether: a scalable approach to logging", PVLDB 3(1), 2010 (early lock release).
 """
 
 from __future__ import annotations
@@ -377,7 +387,11 @@ class PgLedger:
         which the lock is held for one: (1) ``BEGIN``, the ``supersedes`` check and
         ``closecall.lock_head_for`` (which removes the caller's draft of the case, queues
         for the head and locks its row); then, once the entry is numbered, signed and hashed
-        against that head, (2) the ``INSERT`` and the ``COMMIT``. Each round trip is one
+        against that head, (2) the ``INSERT`` and its ``COMMIT``, which releases the head
+        without waiting for the disk, then a small synchronous commit whose flush covers the
+        entry: the append returns only once the entry is durable, but the next writer does not
+        wait for this writer's flush (early lock release; the flushes of writers waiting at
+        once are shared, PostgreSQL's group commit). Each round trip is one
         message of several statements (PostgreSQL's simple query protocol, the values quoted
         by psycopg), sent in autocommit mode so the driver adds no ``BEGIN`` of its own.
         """
@@ -419,38 +433,34 @@ class PgLedger:
         self, content: EntryContent, fields: dict[str, Any], sign: Callable[[bytes], str] | None
     ) -> None:
         """The two round trips of :meth:`append` (``fields`` completed in place)."""
-        import psycopg
-
         conn = self._conn
         conn.autocommit = True  # the transaction is the BEGIN … COMMIT sent below
         try:
-            with psycopg.ClientCursor(conn) as cur:
-                if content.supersedes is None:
-                    cur.execute(_BEGIN_SQL, (content.case_id,))
-                else:
-                    cur.execute(_BEGIN_CHECKED_SQL, (content.supersedes, content.case_id))
-                    cur.nextset()
-                    row = cur.fetchone()
-                    if row is None or row[0] != content.case_id:
-                        raise ValueError(
-                            f"entry {content.supersedes} is not an earlier entry for "
-                            f"{content.case_id}"
-                        )
-                cur.nextset()
-                head = cur.fetchone()  # the head is locked from here to the COMMIT
-                assert head is not None
-                body = self._chain(fields, head, sign)
-                cur.execute(
-                    _INSERT_COMMIT_SQL,
-                    (
-                        fields["seq"],
-                        content.case_id,
-                        content.action,
-                        body,
-                        fields["hash"],
-                        fields["prev_hash"],
-                    ),
-                )
+            case = _literal(conn, content.case_id)
+            if content.supersedes is None:
+                *_, head_result = _send(conn, _BEGIN_SQL.format(case=case))
+            else:
+                checked = _BEGIN_CHECKED_SQL.format(seq=int(content.supersedes), case=case)
+                _, earlier, head_result = _send(conn, checked)
+                if earlier.ntuples == 0 or earlier.get_value(0, 0) != content.case_id.encode():
+                    raise ValueError(
+                        f"entry {content.supersedes} is not an earlier entry for {content.case_id}"
+                    )
+            head = _load_row(conn, head_result)  # the head is locked from here to the COMMIT
+            body = self._chain(fields, head, sign)
+            values = (content.action, body, fields["hash"], fields["prev_hash"])
+            action, body_, hash_, prev = (_literal(conn, v) for v in values)
+            _send(
+                conn,
+                _INSERT_COMMIT_SQL.format(
+                    seq=int(fields["seq"]),
+                    case=case,
+                    action=action,
+                    body=body_,
+                    hash=hash_,
+                    prev=prev,
+                ),
+            )
         finally:
             self._end()
 
@@ -755,10 +765,28 @@ class PgLedger:
     def verify(
         self, anchor: str | None = None, keys: Mapping[str, str] | None = None
     ) -> VerifyResult:
-        """Recompute the chain (and, with ``keys``, check signatures), as for the file."""
+        """Recompute the chain (and, with ``keys``, check signatures), as for the file; the
+        head it reports is on disk (:meth:`wait_durable`), so an anchor never names an entry a
+        crash could still take back."""
         from closecall.review.ledger.chain import verify_chain
 
-        return verify_chain(self, anchor, keys)
+        result = verify_chain(self, anchor, keys)
+        self.wait_durable()
+        return result
+
+    def wait_durable(self, timeout: float = 5.0) -> bool:
+        """Wait until the server's WAL is on disk up to where it was written when called, so
+        every entry this session could read is durable (an append releases the head before
+        its flush; see ``_INSERT_COMMIT_SQL``). Reads only; False if not flushed in time."""
+        import time
+
+        (written,) = self._read("SELECT pg_current_wal_insert_lsn()")[0]
+        deadline = time.monotonic() + timeout
+        while True:
+            (done,) = self._read("SELECT pg_current_wal_flush_lsn() >= %s::pg_lsn", (written,))[0]
+            if done or time.monotonic() > deadline:
+                return bool(done)
+            time.sleep(0.002)
 
 
 def _expected_grants(reviewer: str, analyst: str) -> set[tuple[str, str, str]]:
@@ -1002,23 +1030,82 @@ def verify_database(
     from closecall.review.ledger.verify import verify_opened
 
     with open_pg_ledger(url, inspect=True) as ledger:
-        return verify_opened(ledger, ledger.path, anchor, allow_empty=allow_empty, keys=keys)
+        result = verify_opened(ledger, ledger.path, anchor, allow_empty=allow_empty, keys=keys)
+        ledger.wait_durable()  # the head reported (and anchored) is on disk
+        return result
 
 
-#: An append's first message: the transaction, the draft's removal and the head lock.
-_BEGIN_SQL = "BEGIN; SELECT * FROM closecall.lock_head_for(%s)"
+#: An append's first message: the transaction, the draft's removal and the head lock (the
+#: values are quoted by libpq, see :func:`_literal`).
+_BEGIN_SQL = "BEGIN; SELECT * FROM closecall.lock_head_for({case})"
 #: The same, for a correction: first, the case of the entry it supersedes.
 _BEGIN_CHECKED_SQL = (
-    "BEGIN; SELECT case_id FROM closecall.entries WHERE seq = %s; "
-    "SELECT * FROM closecall.lock_head_for(%s)"
+    "BEGIN; SELECT case_id FROM closecall.entries WHERE seq = {seq}; "
+    "SELECT * FROM closecall.lock_head_for({case})"
 )
 _INSERT_SQL = (
     "INSERT INTO closecall.entries (seq, case_id, action, body, hash, prev_hash) "
     "VALUES (%s, %s, %s, %s, %s, %s)"
 )
-#: An append's second message: the entry and the durable commit that releases the head.
-_INSERT_COMMIT_SQL = _INSERT_SQL + "; COMMIT"
+#: An append's second message: the entry, committed without waiting for the disk (which
+#: releases the head at once), then a transaction that writes one small record to the WAL (a
+#: transactional logical-decoding message, prefix ``closecall.durable``, which any role may
+#: emit) and commits with ``synchronous_commit = on`` (the session's setting). That commit
+#: returns once the WAL is on disk up to its own record, which lies after the entry's: the
+#: append returns only when the entry is durable, while the next writer already holds the
+#: head. (A transaction that writes no WAL of its own, e.g. one that only takes an id, commits
+#: without waiting for the flush.)
+_INSERT_COMMIT_SQL = (
+    "SET LOCAL synchronous_commit = off; "
+    "INSERT INTO closecall.entries (seq, case_id, action, body, hash, prev_hash) "
+    "VALUES ({seq}, {case}, {action}, {body}, {hash}, {prev}); "
+    "COMMIT; SELECT pg_logical_emit_message(true, 'closecall.durable', '')"
+)
 _COPY_SQL = _INSERT_SQL
+
+
+def _literal(conn: psycopg.Connection[Any], value: str) -> str:
+    """``value`` as an SQL string literal, quoted by libpq (``PQescapeLiteral``)."""
+    from psycopg import pq
+
+    return pq.Escaping(conn.pgconn).escape_literal(value.encode("utf-8")).decode("utf-8")
+
+
+def _send(conn: psycopg.Connection[Any], query: str) -> list[Any]:
+    """Send ``query`` (several statements, simple query protocol) and return every result.
+
+    An append's two messages go through libpq directly (psycopg's ``pq`` layer) rather than
+    a cursor: the same protocol and quoting, less Python per append, which on a 2-core
+    machine shared with the server is the rate's bound (docs/performance.md). A statement's
+    error is raised as psycopg's exception for its SQLSTATE; a lost connection as
+    ``psycopg.OperationalError``.
+    """
+    import psycopg
+    from psycopg import pq
+
+    pgconn = conn.pgconn
+    with conn.lock:
+        pgconn.send_query(query.encode("utf-8"))
+        results = []
+        while (result := pgconn.get_result()) is not None:
+            results.append(result)
+    for result in results:
+        if result.status == pq.ExecStatus.FATAL_ERROR:
+            error = psycopg.errors.error_from_result(result, encoding=conn.info.encoding)
+            if pgconn.status == pq.ConnStatus.BAD:
+                raise psycopg.OperationalError(str(error))
+            raise error
+    return results
+
+
+def _load_row(conn: psycopg.Connection[Any], result: Any) -> tuple[Any, ...]:
+    """The first row of ``result`` as Python values (psycopg's loaders: a timestamptz as an
+    aware datetime)."""
+    from psycopg.adapt import Transformer
+
+    transformer = Transformer(conn)
+    transformer.set_pgresult(result)
+    return tuple(transformer.load_row(0, tuple))
 
 
 def open_pg_ledger(url: str, *, readonly: bool = False, inspect: bool = False) -> PgLedger:

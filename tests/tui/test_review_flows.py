@@ -345,3 +345,17 @@ def test_chain_state_names_the_broken_entry() -> None:
     )
     ok = VerifyResult(True, 3, 3, 3, "cd" * 32, None, None, None)
     assert chain_state(ok) == "chain ✓ verified · 3 entries · head 3 cdcdcdcdcdcdcdcd…"
+
+
+@synchronous
+async def test_a_warm_up_that_ends_after_the_screen_went_is_ignored(study: OpenedStudy) -> None:
+    """The list's warm-up (a thread) ends by redrawing the list; when the app has quit
+    meanwhile, that redraw finds no list and must do nothing (it raised NoMatches)."""
+    from closecall.tui.queue_screen import QueueScreen
+
+    app = ReviewApp(study=study, login="reviewer")
+    async with app.run_test(size=SIZE) as pilot:
+        await open_queue(pilot)
+        screen = app.screen
+        assert isinstance(screen, QueueScreen)
+    screen._measured()  # what call_from_thread runs when the warm-up ends late

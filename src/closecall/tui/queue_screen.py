@@ -92,8 +92,13 @@ class QueueScreen(Screen[None]):
         self.app.call_from_thread(self._measured)
 
     def _measured(self) -> None:
-        self.query_one(CaseList).refresh()
-        if str(self.query_one("#status", Static).render()).startswith("measuring"):
+        if not self.is_mounted:  # the screen went (the app quit) while the warm-up ran
+            return
+        cases, status = self.query(CaseList), self.query("#status")
+        if not cases or not status:  # being taken down: nothing left to redraw
+            return
+        cases.first().refresh()
+        if str(status.first(Static).render()).startswith("measuring"):
             self.say("")
 
     # ------------------------------------------------------------------ header lines

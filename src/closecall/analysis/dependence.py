@@ -36,9 +36,9 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-from scipy.special import logit
 
 from closecall.analysis.groups import group_slices
+from closecall.core.numbers import logit
 from closecall.suite.snapshot import Snapshot
 
 BLOCK_ROWS = 100_000

@@ -98,3 +98,15 @@ def check_count(
 ) -> int:
     """A whole count ≥ ``low`` (and ≤ ``high``)."""
     return int(check_number(name, value, low, high, whole=True, example=example))
+
+
+def logit(p: float) -> float:
+    """The log-odds ``log(p / (1 - p))`` of a probability in (0, 1), computed as SciPy's
+    ``scipy.special.logit`` does (SciPy 1.17: the plain formula away from 1/2, and
+    ``log1p(s) - log1p(-s)`` with ``s = 2 (p - 1/2)`` for 0.3 <= p <= 0.65, where the plain one
+    loses digits), so thresholds match it to the bit without importing ``scipy.special``
+    (a fifth of a second at every start of ``closecall queue``)."""
+    if p < 0.3 or p > 0.65:
+        return math.log(p / (1.0 - p))
+    s = 2.0 * (p - 0.5)
+    return math.log1p(s) - math.log1p(-s)

@@ -15,7 +15,6 @@ from __future__ import annotations
 from collections.abc import Sequence
 
 import numpy as np
-import pandas as pd
 
 from closecall.core.errors import Fix, UserError
 from closecall.review.ledger import Entry, NoLedger
@@ -149,6 +148,8 @@ def conflicted_cases(entries: Sequence[Entry]) -> list[str]:
     """
     if not entries:
         return []
+    import pandas as pd  # here, not at start-up: most commands never need it
+
     frame = pd.DataFrame(
         {
             "seq": np.fromiter((e.seq for e in entries), dtype=np.int64, count=len(entries)),

@@ -27,10 +27,9 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
-from scipy.special import logit
 
 from closecall.core.errors import Fix, UserError
-from closecall.core.numbers import check_count, check_number
+from closecall.core.numbers import check_count, check_number, logit
 from closecall.core.vocabulary import decision_word, model_at_lens, short_model
 from closecall.review.triage import (
     CLOSENESS_WORDS,

@@ -10,10 +10,12 @@ reported.
 from __future__ import annotations
 
 from dataclasses import asdict, dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
-import pandas as pd
+
+if TYPE_CHECKING:  # pandas is imported where data is encoded, not when a snapshot loads
+    import pandas as pd
 
 MISSING_LEVEL = "(missing)"
 
@@ -35,6 +37,8 @@ MAX_STANDARD_SCORE = 1e6
 
 def numeric_values(col: pd.Series) -> np.ndarray:
     """A numeric column as float64, anything that is not a number as NaN (missing)."""
+    import pandas as pd
+
     return pd.to_numeric(col, errors="coerce").to_numpy(dtype=float)
 
 
@@ -96,6 +100,8 @@ class Encoder:
 
     def transform(self, frame: pd.DataFrame) -> tuple[np.ndarray, dict[str, int]]:
         """Design matrix for a frame, and counts of unseen category values per column."""
+        import pandas as pd
+
         unseen: dict[str, int] = {}
         n = len(frame)
         # per design block: (first column, width, values); numeric values are the finished
@@ -147,6 +153,8 @@ def _assemble(n: int, p: int, parts: list[tuple[int, int, np.ndarray]]) -> np.nd
 def _category_codes(col: pd.Series) -> tuple[np.ndarray, np.ndarray]:
     """Each row's index into the column's distinct values, and those values as stripped text
     (missing as its own level). The text work is done once per distinct value."""
+    import pandas as pd
+
     codes, uniques = pd.factorize(col, use_na_sentinel=True)
     labels = _category_strings(pd.Series(np.asarray(uniques, dtype=object), dtype=object))
     labels = np.append(labels, MISSING_LEVEL).astype(object)

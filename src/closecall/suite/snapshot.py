@@ -31,17 +31,17 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any, NoReturn
 
 import numpy as np
-from scipy.special import logit
 
 from closecall import __version__
 from closecall.core.errors import Fix, UserError
+from closecall.core.numbers import logit
 from closecall.core.shared import permission_error, share_dir
 from closecall.core.vocabulary import decision_word
 from closecall.setup.config import CostLens, StudyConfig
-from closecall.setup.encode import Encoder
 from closecall.setup.files import require_file
 
-if TYPE_CHECKING:  # heavy modules, needed only when fitting
+if TYPE_CHECKING:  # heavy modules, needed only when fitting or encoding (pandas)
+    from closecall.setup.encode import Encoder
     from closecall.suite.fit import SuiteResult
     from closecall.suite.proxies import ProxyReport
 
@@ -306,6 +306,8 @@ class Snapshot:
     # ---- design and history
     @cached_property
     def encoder(self) -> Encoder:
+        from closecall.setup.encode import Encoder  # imports pandas: not at start-up
+
         return Encoder.from_json(self.meta["encoder"])
 
     @property

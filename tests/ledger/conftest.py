@@ -7,24 +7,15 @@ import os
 from collections.abc import Iterator
 
 import pytest
-from pg_server import NoServer, PgServer, start_server
+from pg_server import PgServer, running_server
 
 _names = itertools.count(1)
 
 
 @pytest.fixture(scope="session")
 def pg_server() -> Iterator[PgServer]:
-    """A running PostgreSQL server; in CI (CI=true) a missing server fails, never skips."""
-    try:
-        server = start_server()
-    except NoServer as exc:
-        if os.environ.get("CI", "").lower() == "true":
-            pytest.fail(str(exc))
-        pytest.skip(str(exc))
-    try:
-        yield server
-    finally:
-        server.stop()
+    """A running PostgreSQL server for the whole session."""
+    yield from running_server()
 
 
 @pytest.fixture

@@ -17,6 +17,7 @@ import shutil
 import socket
 import subprocess
 import tempfile
+from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -157,6 +158,23 @@ class PgServer:
             )
         except OSError:
             shutil.rmtree(self.folder, ignore_errors=True)
+
+
+def running_server(settings: tuple[str, ...] = ()) -> Iterator[PgServer]:
+    """For a pytest fixture: a server started with ``settings``, stopped after; in CI
+    (CI=true) a missing server fails the test, never skips it."""
+    import pytest
+
+    try:
+        server = start_server(settings)
+    except NoServer as exc:
+        if os.environ.get("CI", "").lower() == "true":
+            pytest.fail(str(exc))
+        pytest.skip(str(exc))
+    try:
+        yield server
+    finally:
+        server.stop()
 
 
 def start_server(settings: tuple[str, ...] = ()) -> PgServer:

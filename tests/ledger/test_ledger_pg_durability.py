@@ -11,12 +11,11 @@ WAL buffers would be lost here; a crash can only take back what no append has co
 
 from __future__ import annotations
 
-import os
 from collections.abc import Iterator
 
 import pytest
 from ledger_helpers import content
-from pg_server import NoServer, PgServer, start_server
+from pg_server import PgServer, running_server
 
 from closecall.review.ledger.pg_store import open_pg_ledger, setup
 
@@ -24,16 +23,7 @@ from closecall.review.ledger.pg_store import open_pg_ledger, setup
 @pytest.fixture(scope="module")
 def lazy_server() -> Iterator[PgServer]:
     """A server of its own (it is crashed), whose WAL writer waits 10 s between rounds."""
-    try:
-        server = start_server(("wal_writer_delay=10s", "wal_writer_flush_after=0"))
-    except NoServer as exc:
-        if os.environ.get("CI", "").lower() == "true":
-            pytest.fail(str(exc))
-        pytest.skip(str(exc))
-    try:
-        yield server
-    finally:
-        server.stop()
+    yield from running_server(("wal_writer_delay=10s", "wal_writer_flush_after=0"))
 
 
 def test_every_returned_append_survives_a_crash(lazy_server: PgServer) -> None:

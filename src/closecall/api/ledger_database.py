@@ -7,7 +7,7 @@ results show them with any password hidden.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import asdict, dataclass
 from pathlib import Path
 from typing import Any
 
@@ -40,11 +40,7 @@ class LedgerDatabase:
         >>> LedgerDatabase("postgresql://db/reviews", "rev", "ro").to_dict()["reviewer_role"]
         'rev'
         """
-        return {
-            "url": self.url,
-            "reviewer_role": self.reviewer_role,
-            "analyst_role": self.analyst_role,
-        }
+        return asdict(self)
 
 
 @dataclass(frozen=True)
@@ -74,13 +70,7 @@ class LedgerMigration:
         --------
         >>> migrate_ledger("ledger.sqlite", "postgresql://db/reviews").to_dict()  # doctest: +SKIP
         """
-        return {
-            "source": self.source,
-            "target": self.target,
-            "copied": self.copied,
-            "head_seq": self.head_seq,
-            "head_hash": self.head_hash,
-        }
+        return asdict(self)
 
 
 def _check_database_url(url: str, what: str) -> None:

@@ -225,20 +225,22 @@ def _with_reviews(config: Any, nb: dict[str, Any]) -> dict[str, Any]:
     damaged ledger is refused (UserError), never read as "no reviews".
     """
     from closecall.core.errors import AccessDenied
-    from closecall.review.decisions import ledger_entries
+    from closecall.review.ledger import NoLedger
+    from closecall.review.ledger.access import require_read
+    from closecall.review.ledger.backend import ledger_present, open_any_ledger
 
     for n in nb["neighbours"]:
         n["review"] = None
-    from closecall.review.ledger.backend import ledger_present
-
     if not ledger_present(config.review.ledger):
         return nb
     try:
-        for n in nb["neighbours"]:
-            entries = ledger_entries(config, case_id=n["case_id"], limit=1)
-            if entries:
-                e = entries[-1]
-                n["review"] = {"action": e.action, "reason": e.reason, "seq": e.seq}
-    except AccessDenied:
-        pass
+        require_read(config.review, config.path)
+        with open_any_ledger(config.review.ledger, readonly=True) as ledger:  # once for all
+            for n in nb["neighbours"]:
+                entries = ledger.entries(case_id=n["case_id"], limit=1)
+                if entries:
+                    e = entries[-1]
+                    n["review"] = {"action": e.action, "reason": e.reason, "seq": e.seq}
+    except (NoLedger, AccessDenied):
+        pass  # no ledger after all, or this login may not read it: no reviews shown
     return nb

@@ -104,6 +104,26 @@ class TestSharedFiles:
         assert current == 0o022, oct(current)
 
 
+    def test_a_library_fit_makes_cache_folders_the_group_can_write(
+        self, study_dir: Path, umask_022: None
+    ) -> None:
+        # before: a notebook (umask 022) fitting a team's study made .closecall and its
+        # snapshots folder 2755: the next member's refit could not write a snapshot
+        import shutil
+
+        from closecall import Study
+
+        os.chmod(study_dir, 0o2770)  # a team's folder: group rwx, setgid
+        shutil.rmtree(study_dir / ".closecall")
+        Study.open(_config(study_dir))  # fits: no snapshot left
+        folders = [study_dir / ".closecall", study_dir / ".closecall" / "snapshots"]
+        for folder in folders:
+            assert _mode(folder) & 0o070 == 0o070, (folder, oct(_mode(folder)))
+            assert _mode(folder) & stat.S_ISGID, folder
+            assert _mode(folder) & 0o007 == 0, folder  # nothing for others in a group study
+        assert os.umask(0o022) == 0o022  # the caller's umask untouched
+
+
 class TestClaims:
     def test_a_frozen_old_screen_leaves_the_live_screens_claim(self, study_dir: Path) -> None:
         # before: a review screen that finally exited deleted the claim that a newer screen

@@ -127,6 +127,30 @@ def share_dir(folder: Path) -> None:
     os.chmod(folder, shared_dir_mode(folder))
 
 
+def make_shared_dirs(folder: Path) -> None:
+    """Create ``folder`` and any missing parents, each new one with the shared folder mode
+    (:func:`shared_dir_mode`) whatever the process umask: a library caller keeps its own
+    umask (022 makes 0755 folders the group cannot write), yet the cache it creates in a
+    team's study must let the next member refit; in a study with readers (:func:`has_readers`
+    of the nearest existing folder) others may read them too. Folders that already exist are
+    left as they are."""
+    missing = []
+    current = Path(folder)
+    while not current.exists():
+        missing.append(current)
+        if current.parent == current:
+            break
+        current = current.parent
+    readers = _readers or has_readers(current)  # a study with readers, seen from its folder
+    for new in reversed(missing):
+        try:
+            new.mkdir()
+        except FileExistsError:  # made meanwhile by another process: theirs stands
+            continue
+        mode = shared_dir_mode(new) | (READ_DIR_BITS if readers else 0)
+        os.chmod(new, mode)
+
+
 def describe(path: Path) -> str:
     """``path (owner alice, group reviewers, mode 0640)`` for the path or, when it does not
     exist, for its nearest existing parent."""

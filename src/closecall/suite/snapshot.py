@@ -35,7 +35,7 @@ import numpy as np
 from closecall import __version__
 from closecall.core.errors import Fix, UserError
 from closecall.core.numbers import logit
-from closecall.core.shared import permission_error, share_dir
+from closecall.core.shared import make_shared_dirs, permission_error, share_dir
 from closecall.core.vocabulary import decision_word
 from closecall.setup.config import CostLens, StudyConfig
 from closecall.setup.files import require_file
@@ -129,7 +129,7 @@ def cached_file_digest(path: Path, cache_dir: Path, *, fresh: bool = False) -> s
     fresh_table[key] = digest
     tmp = cache.with_name(f".digests.{os.getpid()}.tmp")
     try:
-        cache_dir.mkdir(parents=True, exist_ok=True)
+        make_shared_dirs(cache_dir)
         tmp.write_text(json.dumps(fresh_table))
         os.replace(tmp, cache)
     except OSError:  # a read-only study folder, or something odd in the cache's place
@@ -463,7 +463,7 @@ def save_snapshot(config: StudyConfig, snap: Snapshot, *, replace: bool = False)
     """
     final = snapshot_dir(config, snap.id)
     try:
-        final.parent.mkdir(parents=True, exist_ok=True)
+        make_shared_dirs(final.parent)
         tmp = Path(tempfile.mkdtemp(prefix=f".{snap.id}-", dir=final.parent))
         share_dir(tmp)  # mkdtemp makes 0700: the team's other members must read it
     except PermissionError as exc:

@@ -19,7 +19,6 @@ ALLOWED: dict[str, str] = {
     "analysis/comparison.py:compare_models": "bootstrap comparison (to split)",
     "reports/disparity/errors_by_group.py:error_rates": "rates, intervals, tests (to split)",
     "reports/disparity/html_sections.py:calibration_section": "one HTML section (to split)",
-    "review/query.py:answer_queue": "one queue request answered (to split)",
     "reports/disparity/calibration.py:calibration_by_group": "bins, curves, tests (to split)",
     "review/team.py:check_team": "one check per file and account (to split)",
     "cli/whatif_cmds.py:whatif": "a view's options and printing (to split)",

@@ -33,6 +33,7 @@ from closecall.review.triage import TriageInputs, closeness_codes
 
 if TYPE_CHECKING:
     from closecall.suite.opening import OpenedStudy
+    from closecall.suite.snapshot import Snapshot
 
 #: Sorts by a per-case analysis measure (largest first, then nearest the threshold).
 MEASURE_SORTS = ("ambiguity", "dependence")
@@ -294,11 +295,43 @@ def answer_queue(
     """
     query = query or QueueQuery()
     snap = study.snapshot
-    if query.model is not None and query.model not in snap.model_names:
+    _require_model(snap, query.model)
+    states, claimed = _review_states(study, query, reviews)
+    triage = _triage_inputs(study, query, cache)
+    keep, measures = _filters_and_measures(study, query, cache, states)
+    q = build_queue(
+        snap,
+        band=float(study.config.review.band if query.band is None else query.band),
+        group=query.group,
+        flips_only=query.flips or False,
+        close_only=not (query.all_cases or query.changed_by is not None),
+        sort="closeness" if query.sort in MEASURE_SORTS else query.sort,
+        id_prefix=query.id_prefix,
+        exclude_rows=None if keep.all() else ~keep,
+        triage=triage,
+    )
+    if query.sort in MEASURE_SORTS:
+        _sort_by_measure(q, query.sort, measures[query.sort])
+    q.measures.update(measures)
+    _count_reviews(q, snap.case_ids, states, claimed)
+    return QueueAnswer(query, q, states, claimed)
+
+
+def _require_model(snap: Snapshot, model: str | None) -> None:
+    """Refuse a model the study's suite does not have (None: the reference)."""
+    if model is not None and model not in snap.model_names:
         raise UserError(
-            f"no model '{query.model}' in this study's suite",
+            f"no model '{model}' in this study's suite",
             f"choose one of: {', '.join(snap.model_names)}",
         )
+
+
+def _review_states(
+    study: OpenedStudy,
+    query: QueueQuery,
+    reviews: tuple[np.ndarray, dict[str, list[str]]] | None,
+) -> tuple[np.ndarray | None, dict[str, list[str]]]:
+    """Every case's state code and the claims: the caller's, else the ledger's if readable."""
     if reviews is None:
         from closecall.review.states import study_review_states
 
@@ -311,12 +344,20 @@ def answer_queue(
             "listing unreviewed cases needs to read the ledger, and this login may not",
             "ask for your login to be listed under [review] reviewers or analysts",
         )
-    states, claimed = reviews if reviews is not None else (None, {})
-    keep = np.ones(snap.n_cases, dtype=bool)
+    return reviews if reviews is not None else (None, {})
+
+
+def _filters_and_measures(
+    study: OpenedStudy,
+    query: QueueQuery,
+    cache: Mapping[str, np.ndarray] | None,
+    states: np.ndarray | None,
+) -> tuple[np.ndarray, dict[str, np.ndarray]]:
+    """The cases the query's filters keep, and the per-case measures its filters and sort read."""
+    keep = np.ones(study.snapshot.n_cases, dtype=bool)
     if query.unreviewed and states is not None:
         keep &= awaiting_decision(states)
     measures: dict[str, np.ndarray] = {}
-    triage = _triage_inputs(study, query, cache)
     if query.ambiguous:
         keep &= _analysis(study, "ambiguous", query, cache)
         measures["ambiguity"] = _analysis(study, "ambiguity", query, cache)
@@ -327,32 +368,29 @@ def answer_queue(
         measures[query.sort] = _analysis(study, query.sort, query, cache)
     if query.changed_by is not None:
         keep &= _changed_by(study, query.changed_by)
-    q = build_queue(
-        snap,
-        band=float(study.config.review.band if query.band is None else query.band),
-        group=query.group,
-        flips_only=query.flips or False,
-        close_only=not (query.all_cases or query.changed_by is not None),
-        sort="closeness" if query.sort in MEASURE_SORTS else query.sort,
-        id_prefix=query.id_prefix,
-        exclude_rows=None if keep.all() else ~keep,
-        triage=triage,
-    )
-    if query.sort in MEASURE_SORTS:  # build_queue's rule: largest first, then nearest zero
-        key, rows = measures[query.sort], q.order
-        q.order = rows[np.lexsort((np.abs(q.margin[rows]), -key[rows]))]
-        q.sort = query.sort
-    q.measures.update(measures)
-    if states is not None:  # among the listed cases, like every other count but two
+    return keep, measures
+
+
+def _sort_by_measure(q: Queue, sort: str, key: np.ndarray) -> None:
+    """Reorder the listed cases by a measure (build_queue's rule: largest, then nearest zero)."""
+    rows = q.order
+    q.order = rows[np.lexsort((np.abs(q.margin[rows]), -key[rows]))]
+    q.sort = sort
+
+
+def _count_reviews(
+    q: Queue, case_ids: np.ndarray, states: np.ndarray | None, claimed: dict[str, list[str]]
+) -> None:
+    """Count the reviewed, deferred and claimed cases among the listed ones (as all but two are)."""
+    if states is not None:
         listed = states[q.order]
         q.counts["reviewed"] = int(np.count_nonzero(~awaiting_decision(listed)))
         q.counts["deferred"] = int(np.count_nonzero(listed == DEFERRED_STATE))
     if claimed:
-        ids = snap.case_ids[q.order]
+        ids = case_ids[q.order]
         q.counts["claimed"] = int(
             np.count_nonzero(np.isin(ids, [c for c, who in claimed.items() if who]))
         )
-    return QueueAnswer(query, q, states, claimed)
 
 
 def _changed_by(study: OpenedStudy, policy: str) -> np.ndarray:

@@ -128,72 +128,90 @@ def compare_models(
     lens_obj = snap.lens(lens)
     y = np.asarray(snap.hist_y)
     hg = np.asarray(snap.hist_group_codes)
-    oof = {
-        m: np.asarray(snap.arrays[f"oof__{m}"], dtype=float)
-        for m in snap.model_names
-        if f"oof__{m}" in snap.arrays
-    }
-    oof = {m: e for m, e in oof.items() if len(e) == len(y) and not np.isnan(e).all()}
+    oof = _out_of_fold_scores(snap, len(y))
     if baseline not in oof:
         raise ValueError(f"baseline model '{baseline}' has no out-of-fold scores")
     models = [m for m in oof if m != baseline]
     ok = np.all([~np.isnan(e) for e in oof.values()], axis=0)
     losses = {m: case_losses(e, y, lens_obj.threshold) for m, e in oof.items()}
     result = ModelComparison(baseline, lens_obj.name, level, n_boot, seed)
-    alpha = (1.0 - level) / 2.0
     G = len(snap.group_levels)
     for gi, label in [*enumerate(snap.group_levels), (G, "all")]:
         sel = ok & (np.ones_like(ok) if gi == G else hg == gi)
-        n = int(sel.sum())
-        if n == 0:
-            continue
-        base = np.column_stack([losses[baseline][k][sel] for k in METRICS])
-        diffs = np.hstack(
-            [np.column_stack([losses[m][k][sel] for k in METRICS]) - base for m in models]
-        )
-        rng = np.random.default_rng([seed, gi])
-        boot = block_bootstrap_means(diffs, n_boot, rng)
-        lo = np.quantile(boot, alpha, axis=0)
-        hi = np.quantile(boot, 1.0 - alpha, axis=0)
-        mean_diff = diffs.mean(axis=0)
-        for a, m in enumerate(models):
-            for b, k in enumerate(METRICS):
-                j = a * len(METRICS) + b
-                verdict = (
-                    "errs less"
-                    if hi[j] < 0
-                    else "errs more"
-                    if lo[j] > 0
-                    else "no clear difference"
-                )
-                result.rows.append(
-                    {
-                        "group": label,
-                        "cases": n,
-                        "model": m,
-                        "metric": k,
-                        "value": float(losses[m][k][sel].mean()),
-                        "baseline_value": float(base[:, b].mean()),
-                        "difference": float(mean_diff[j]),
-                        "low": float(lo[j]),
-                        "high": float(hi[j]),
-                        "verdict": verdict,
-                    }
-                )
+        if sel.any():
+            _compare_in_group(result, losses, models, sel, label, np.random.default_rng([seed, gi]))
+    result.tradeoffs = _tradeoffs(result.rows, models)
+    return result
+
+
+def _out_of_fold_scores(snap: Snapshot, n_history: int) -> dict[str, np.ndarray]:
+    """Each model's out-of-fold history log-odds, for the models that scored the whole history."""
+    oof = {
+        m: np.asarray(snap.arrays[f"oof__{m}"], dtype=float)
+        for m in snap.model_names
+        if f"oof__{m}" in snap.arrays
+    }
+    return {m: e for m, e in oof.items() if len(e) == n_history and not np.isnan(e).all()}
+
+
+def _compare_in_group(
+    result: ModelComparison,
+    losses: dict[str, dict[str, np.ndarray]],
+    models: list[str],
+    sel: np.ndarray,
+    label: str,
+    rng: np.random.Generator,
+) -> None:
+    """Add one group's paired differences with their bootstrap intervals, and its best models."""
+    n = int(sel.sum())
+    base = np.column_stack([losses[result.baseline][k][sel] for k in METRICS])
+    diffs = np.hstack(
+        [np.column_stack([losses[m][k][sel] for k in METRICS]) - base for m in models]
+    )
+    boot = block_bootstrap_means(diffs, result.n_boot, rng)
+    alpha = (1.0 - result.level) / 2.0
+    lo = np.quantile(boot, alpha, axis=0)
+    hi = np.quantile(boot, 1.0 - alpha, axis=0)
+    mean_diff = diffs.mean(axis=0)
+    for a, m in enumerate(models):
         for b, k in enumerate(METRICS):
-            values = {baseline: float(base[:, b].mean())}
-            values.update({m: float(losses[m][k][sel].mean()) for m in models})
-            winner = min(values, key=lambda name: values[name])
-            result.best.append(
-                {"group": label, "metric": k, "model": winner, "value": values[winner]}
+            j = a * len(METRICS) + b
+            result.rows.append(
+                {
+                    "group": label,
+                    "cases": n,
+                    "model": m,
+                    "metric": k,
+                    "value": float(losses[m][k][sel].mean()),
+                    "baseline_value": float(base[:, b].mean()),
+                    "difference": float(mean_diff[j]),
+                    "low": float(lo[j]),
+                    "high": float(hi[j]),
+                    "verdict": _verdict(lo[j], hi[j]),
+                }
             )
+    for b, k in enumerate(METRICS):
+        values = {result.baseline: float(base[:, b].mean())}
+        values.update({m: float(losses[m][k][sel].mean()) for m in models})
+        winner = min(values, key=lambda name: values[name])
+        result.best.append({"group": label, "metric": k, "model": winner, "value": values[winner]})
+
+
+def _verdict(low: float, high: float) -> str:
+    """A difference's verdict from its interval: wholly below zero, wholly above, or neither."""
+    return "errs less" if high < 0 else "errs more" if low > 0 else "no clear difference"
+
+
+def _tradeoffs(rows: list[dict[str, Any]], models: list[str]) -> list[dict[str, Any]]:
+    """Each model and metric that errs clearly less for one group and clearly more for another."""
+    tradeoffs = []
     for m in models:
         for k in METRICS:
-            mine = [r for r in result.rows if r["model"] == m and r["metric"] == k]
+            mine = [r for r in rows if r["model"] == m and r["metric"] == k]
             helped = [
                 r["group"] for r in mine if r["group"] != "all" and r["verdict"] == "errs less"
             ]
             hurt = [r["group"] for r in mine if r["group"] != "all" and r["verdict"] == "errs more"]
             if helped and hurt:
-                result.tradeoffs.append({"model": m, "metric": k, "helps": helped, "hurts": hurt})
-    return result
+                tradeoffs.append({"model": m, "metric": k, "helps": helped, "hurts": hurt})
+    return tradeoffs

@@ -359,3 +359,28 @@ async def test_a_warm_up_that_ends_after_the_screen_went_is_ignored(study: Opene
         screen = app.screen
         assert isinstance(screen, QueueScreen)
     screen._measured()  # what call_from_thread runs when the warm-up ends late
+
+
+@synchronous
+async def test_keys_that_arrive_together_choose_in_each_list_in_turn(study: OpenedStudy) -> None:
+    """Over a slow link keys arrive together: "3 2 x" reaches the app before the action list
+    has handled "3". The action list takes the 3, the reason list the 2, the note the x (it
+    took 1 then 2 as actions, leaving no reason)."""
+    from textual import events
+    from textual.widgets import TextArea
+
+    from closecall.tui.choice_list import ChoiceList
+
+    app = ReviewApp(study=study, login="reviewer")
+    async with app.run_test(size=SIZE) as pilot:
+        await open_queue(pilot)
+        await pilot.press("d")
+        await wait_until(pilot, lambda: isinstance(app.screen, DecisionDialog))
+        await pilot.pause()
+        for key in "32x":  # all three queued before any is handled
+            app.post_message(events.Key(key, key))
+        dialog = _dialog(app)
+        note = dialog.query_one("#note", TextArea)
+        await wait_until(pilot, lambda: note.text == "x", timeout=5.0)
+        assert dialog.query_one("#action", ChoiceList).chosen == 2  # override → unfavourable
+        assert dialog.query_one("#reason", ChoiceList).chosen == 1  # the first reason code

@@ -2,13 +2,18 @@
 
 Both marks are glyphs, so the list reads the same without colour. Enter chooses the option
 under the cursor; a digit chooses that option directly (space is page down on every other
-screen, so it chooses nothing here).
+screen, so it chooses nothing here). A list made with ``hand_to`` passes the focus to that
+widget as soon as a choice is made, within the same key press, and passes on the keys that
+were typed after it but reached the list before the focus had moved: typing ``2 1`` quickly
+(or over a slow link, where keys arrive together) chooses in two lists, never twice in one,
+and a note typed straight after loses no letter.
 """
 
 from __future__ import annotations
 
 from textual import events
 from textual.message import Message
+from textual.widget import Widget
 from textual.widgets import OptionList
 from textual.widgets.option_list import Option
 
@@ -34,8 +39,11 @@ class ChoiceList(OptionList):
         chosen: int | None = None,
         *,
         id: str | None = None,
+        hand_to: str | None = None,
     ) -> None:
         self.values = [v for v, _ in choices]
+        self.hand_to = hand_to
+        self._passed_to: Widget | None = None
         self.labels = [label for _, label in choices]
         self.chosen = chosen
         self._focused = False
@@ -72,7 +80,16 @@ class ChoiceList(OptionList):
         super().watch_highlighted(highlighted)
         self._redraw()
 
+    def _hand_over(self) -> None:
+        """Focus ``hand_to`` now (not when a message about the choice is handled)."""
+        if self.hand_to is None or self.screen.focused is not self:
+            return
+        target = self.screen.query_one(f"#{self.hand_to}")
+        self.screen.set_focus(target)  # at once (Widget.focus waits for the next refresh)
+        self._passed_to = target
+
     def on_focus(self) -> None:
+        self._passed_to = None
         self._focused = True
         if self.highlighted is None:
             self.highlighted = self.chosen or 0
@@ -85,10 +102,17 @@ class ChoiceList(OptionList):
     def on_option_list_option_selected(self, event: OptionList.OptionSelected) -> None:
         event.stop()
         self.choose(event.option_index)
+        self._hand_over()
 
     def on_key(self, event: events.Key) -> None:
+        if self._passed_to is not None and self.screen.focused is not self:  # set at once
+            event.stop()  # typed after the choice, sent here before the focus moved: pass it on
+            event.prevent_default()
+            self._passed_to.post_message(events.Key(event.key, event.character))
+            return
         if event.character and event.character.isdigit():
             i = int(event.character) - 1
             if 0 <= i < len(self.labels):
                 event.stop()
                 self.choose(i)
+                self._hand_over()

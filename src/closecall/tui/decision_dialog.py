@@ -90,10 +90,16 @@ class DecisionDialog(ModalScreen[Entry | None]):
             with Horizontal(id="dialog-choices"):
                 with Vertical(id="action-box"):
                     yield Static("Action", classes="field-label")
-                    yield ChoiceList([(a, ACTION_LABELS[a]) for a in ACTIONS], id="action")
+                    yield ChoiceList(
+                        [(a, ACTION_LABELS[a]) for a in ACTIONS], id="action", hand_to="reason"
+                    )
                 with Vertical(id="reason-box"):
                     yield Static("Reason (needed to override)", classes="field-label")
-                    yield ChoiceList([(None, "— none —"), *((r, r) for r in reasons)], id="reason")
+                    yield ChoiceList(
+                        [(None, "— none —"), *((r, r) for r in reasons)],
+                        id="reason",
+                        hand_to="note",
+                    )
             yield Static(
                 "Note (stored exactly as typed; needed to override)", classes="field-label"
             )
@@ -161,11 +167,7 @@ class DecisionDialog(ModalScreen[Entry | None]):
 
     @on(ChoiceList.Chosen)
     def _chosen(self, event: ChoiceList.Chosen) -> None:
-        self._changed()
-        if event.control.id == "action":
-            self.query_one("#reason", ChoiceList).focus()
-        else:
-            self.query_one("#note", TextArea).focus()
+        self._changed()  # the list itself has passed the focus on (ChoiceList.hand_to)
 
     def _save_draft(self) -> None:
         if self.keeper.unsaved:

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import NamedTuple
 
 import numpy as np
 import pandas as pd
@@ -110,6 +111,28 @@ def error_rates(reviews: pd.DataFrame, *, level: float = 0.95) -> ErrorCompariso
     NeurIPS 2016 (error rates by group). E. B. Wilson, JASA 22 (1927) 209-212.
     Q. McNemar, Psychometrika 12 (1947) 153-157 (model against final on the same cases).
     """
+    df = _reviews_with_outcomes(reviews)
+    known = df["decided"] & df["outcome"].notna()
+    d = _KnownOutcomes.of(df[known])
+    groups = group_order(df)
+    ref = groups[0]
+    ref_counts = d.counts(ref)
+    rows = tuple(
+        _group_errors(d, name, None if name == ref else ref_counts, level) for name in groups
+    )
+    missing = int((df["decided"] & df["outcome"].isna()).sum())
+    return ErrorComparison(
+        rows=rows,
+        without_outcome=missing,
+        level=level,
+        notes=_notes(rows, missing, bool(known.any())),
+        reference_group=ref,
+        mcnemar_all=mcnemar_exact(d.model_right, d.final_right),
+    )
+
+
+def _reviews_with_outcomes(reviews: pd.DataFrame) -> pd.DataFrame:
+    """The checked review table, refused without an outcome column or with an unknown outcome."""
     if "outcome" not in reviews.columns:
         raise UserError(
             "review table: no outcome column",
@@ -124,67 +147,114 @@ def error_rates(reviews: pd.DataFrame, *, level: float = 0.95) -> ErrorCompariso
             f"review table: row {row + 1}: outcome {outcome.iloc[row]!r} is not favourable, "
             "unfavourable or empty"
         )
-    groups = group_order(df)
-    known = df["decided"] & outcome.notna()
-    d = df[known]
-    out_fav = (d["outcome"] == FAVOURABLE).to_numpy()
-    model_fav = d["model_fav"].to_numpy()
-    final_fav = d["final_fav"].to_numpy()
-    g = d["group"].to_numpy()
-    rows: list[GroupErrors] = []
-    notes: list[str] = []
-    ref = groups[0]
+    return df
 
-    def rate(k: int, n: int) -> ErrorRate:
-        lo, hi = wilson_interval(k, n, level)
-        return ErrorRate(k, n, float(proportion(k, n)), float(lo), float(hi))
 
-    def counts(name: str) -> tuple[int, int, int, int, int, int]:
-        m = g == name
-        pos, neg = out_fav & m, ~out_fav & m
-        return (
+class _Counts(NamedTuple):
+    """One group's cases by outcome, and each kind of error of the model and of the final."""
+
+    favourable: int
+    unfavourable: int
+    model_ff: int
+    final_ff: int
+    model_fu: int
+    final_fu: int
+
+
+@dataclass(frozen=True)
+class _KnownOutcomes:
+    """The decided reviews with a known outcome, as arrays (one entry per review)."""
+
+    out_fav: np.ndarray
+    model_fav: np.ndarray
+    final_fav: np.ndarray
+    group: np.ndarray
+
+    @classmethod
+    def of(cls, d: pd.DataFrame) -> _KnownOutcomes:
+        """The arrays of a checked review table's decided rows with an outcome."""
+        return cls(
+            (d["outcome"] == FAVOURABLE).to_numpy(),
+            d["model_fav"].to_numpy(),
+            d["final_fav"].to_numpy(),
+            d["group"].to_numpy(),
+        )
+
+    @property
+    def model_right(self) -> np.ndarray:
+        """Where the model's decision matches the outcome."""
+        return np.asarray(self.model_fav == self.out_fav)
+
+    @property
+    def final_right(self) -> np.ndarray:
+        """Where the final decision matches the outcome."""
+        return np.asarray(self.final_fav == self.out_fav)
+
+    def counts(self, name: str) -> _Counts:
+        """One group's outcome counts and error counts."""
+        m = self.group == name
+        pos, neg = self.out_fav & m, ~self.out_fav & m
+        return _Counts(
             int(pos.sum()),
             int(neg.sum()),
-            int((model_fav & neg).sum()),
-            int((final_fav & neg).sum()),
-            int((~model_fav & pos).sum()),
-            int((~final_fav & pos).sum()),
+            int((self.model_fav & neg).sum()),
+            int((self.final_fav & neg).sum()),
+            int((~self.model_fav & pos).sum()),
+            int((~self.final_fav & pos).sum()),
         )
 
-    rp, rn, rmff, rfff, rmfu, rffu = counts(ref)
-    for name in groups:  # loop over groups, not cases
-        m = g == name
-        npos, nneg, mff, fff, mfu, ffu = counts(name)
-        other = name != ref
-        rows.append(
-            GroupErrors(
-                group=name,
-                with_outcome=int(m.sum()),
-                outcome_favourable=npos,
-                outcome_unfavourable=nneg,
-                model_false_favourable=rate(mff, nneg),
-                final_false_favourable=rate(fff, nneg),
-                model_false_unfavourable=rate(mfu, npos),
-                final_false_unfavourable=rate(ffu, npos),
-                mcnemar=mcnemar_exact((model_fav == out_fav)[m], (final_fav == out_fav)[m]),
-                model_ff_gap=rate_gap(mff, nneg, rmff, rn, level) if other else None,
-                final_ff_gap=rate_gap(fff, nneg, rfff, rn, level) if other else None,
-                model_fu_gap=rate_gap(mfu, npos, rmfu, rp, level) if other else None,
-                final_fu_gap=rate_gap(ffu, npos, rffu, rp, level) if other else None,
-            )
-        )
-        if m.sum() == 0:
-            notes.append(f"group {name}: no decided review has a known outcome")
-    missing = int((df["decided"] & outcome.isna()).sum())
+
+def _rate(k: int, n: int, level: float) -> ErrorRate:
+    """k errors among n cases, with a Wilson interval."""
+    lo, hi = wilson_interval(k, n, level)
+    return ErrorRate(k, n, float(proportion(k, n)), float(lo), float(hi))
+
+
+def _group_errors(d: _KnownOutcomes, name: str, ref: _Counts | None, level: float) -> GroupErrors:
+    """One group's error rates, its McNemar test and its gaps to the reference (None: is it)."""
+    m = d.group == name
+    c = d.counts(name)
+    gaps = _gaps(c, ref, level)
+    return GroupErrors(
+        group=name,
+        with_outcome=int(m.sum()),
+        outcome_favourable=c.favourable,
+        outcome_unfavourable=c.unfavourable,
+        model_false_favourable=_rate(c.model_ff, c.unfavourable, level),
+        final_false_favourable=_rate(c.final_ff, c.unfavourable, level),
+        model_false_unfavourable=_rate(c.model_fu, c.favourable, level),
+        final_false_unfavourable=_rate(c.final_fu, c.favourable, level),
+        mcnemar=mcnemar_exact(d.model_right[m], d.final_right[m]),
+        model_ff_gap=gaps[0],
+        final_ff_gap=gaps[1],
+        model_fu_gap=gaps[2],
+        final_fu_gap=gaps[3],
+    )
+
+
+def _gaps(
+    c: _Counts, ref: _Counts | None, level: float
+) -> tuple[RateGap | None, RateGap | None, RateGap | None, RateGap | None]:
+    """The four error rates' gaps to the reference group's (model and final, ff and fu)."""
+    if ref is None:
+        return None, None, None, None
+    return (
+        rate_gap(c.model_ff, c.unfavourable, ref.model_ff, ref.unfavourable, level),
+        rate_gap(c.final_ff, c.unfavourable, ref.final_ff, ref.unfavourable, level),
+        rate_gap(c.model_fu, c.favourable, ref.model_fu, ref.favourable, level),
+        rate_gap(c.final_fu, c.favourable, ref.final_fu, ref.favourable, level),
+    )
+
+
+def _notes(rows: tuple[GroupErrors, ...], missing: int, any_known: bool) -> tuple[str, ...]:
+    """What the rates leave out: groups with no outcome, decided reviews without one."""
+    notes = [
+        f"group {r.group}: no decided review has a known outcome"
+        for r in rows
+        if r.with_outcome == 0
+    ]
     if missing:
         notes.append(f"{missing} decided review(s) have no known outcome and are left out")
-    if not known.any():
+    if not any_known:
         notes.append("no decided review has a known outcome: error rates cannot be computed")
-    return ErrorComparison(
-        rows=tuple(rows),
-        without_outcome=missing,
-        level=level,
-        notes=tuple(notes),
-        reference_group=ref,
-        mcnemar_all=mcnemar_exact(model_fav == out_fav, final_fav == out_fav),
-    )
+    return tuple(notes)

@@ -16,6 +16,7 @@ from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 
 from closecall.core.text import safe_text
+from closecall.reports.disparity.calibration import GroupCalibration
 from closecall.reports.disparity.heldout import RateGap
 from closecall.reports.disparity.power import Detectable
 from closecall.reports.disparity.rates import FOUR_FIFTHS
@@ -304,6 +305,7 @@ def calibration_figure(report: DisparityReport) -> Figure:
 
 
 def calibration_section(report: DisparityReport) -> str:
+    """Calibration by model and group: curves, fits, reliability bins, power, notes, limits."""
     c = report.calibration
     if c is None:
         return ""
@@ -315,74 +317,16 @@ def calibration_section(report: DisparityReport) -> str:
     ]
     if c.models:
         parts.append(png(calibration_figure(report), "reliability curves by model and group"))
-    rows = []
-    for r in c.rows:
-        eff = "; ".join(
-            f"{th.lens}: t {_pct(th.threshold)} acts as {_pct(th.effective)}"
-            f"{_ci(th.effective_low, th.effective_high)}; a case at t is really "
-            f"{_pct(th.at_threshold)}{_ci(th.at_threshold_low, th.at_threshold_high)}"
-            for th in r.thresholds
-        )
-        rows.append(
-            [
-                r.model,
-                r.group,
-                f"{r.cases:,}",
-                f"{_pct(r.mean_predicted)} / {_pct(r.observed)}",
-                f"{r.intercept:+.2f}{_ci(r.intercept_low, r.intercept_high, False)}"
-                if _ok(r.intercept)
-                else "—",
-                f"{_num(r.slope)}{_ci(r.slope_low, r.slope_high, False)}",
-                eff or "—",
-                r.verdict + (f"; {r.note}" if r.note else ""),
-            ]
-        )
-    parts.append(
-        table(
-            [
-                "model",
-                "group",
-                "cases",
-                "mean predicted / observed",
-                "intercept a₀",
-                "slope b",
-                "effective threshold",
-                "verdict",
-            ],
-            rows,
-            2,
-        )
-    )
+    parts.append(_calibration_table(c.rows))
     parts.append(
         '<p class="note">Intercept: logit P(y) = a₀ + η with η the held-out log-odds as '
         "offset. Slope: logit P(y) = a + b·η. Effective threshold: the model probability p* "
         "with a + b·logit(p*) = logit(t); delta-method intervals. Wald intervals from the "
         "maximum-likelihood fit (Cox 1958).</p>"
     )
-    bins = []
-    for r in c.rows:
-        for i, b in enumerate(r.bins):
-            bins.append(
-                [
-                    r.model,
-                    r.group,
-                    str(i + 1),
-                    f"{_pct(b.p_low)} to {_pct(b.p_high)}",
-                    str(b.cases),
-                    _pct(b.mean_predicted),
-                    f"{_pct(b.observed)}{_ci(b.low, b.high)}",
-                ]
-            )
+    bins = _reliability_bins_table(c.rows)
     if bins:
-        parts.append(
-            "<details><summary>Reliability bins (every model and group)</summary>"
-            + table(
-                ["model", "group", "bin", "predicted range", "cases", "mean predicted", "observed"],
-                bins,
-                2,
-            )
-            + "</details>"
-        )
+        parts.append(bins)
     parts.append(
         power(
             (f"{r.model} {r.group} slope", r.slope_detectable)
@@ -393,6 +337,74 @@ def calibration_section(report: DisparityReport) -> str:
     parts.append(notes(c.notes))
     parts.append(limits(report, "calibration"))
     return "\n".join(parts)
+
+
+def _effective_thresholds(r: GroupCalibration) -> str:
+    """What each lens threshold acts as for this group, and what a case at it really is."""
+    return "; ".join(
+        f"{th.lens}: t {_pct(th.threshold)} acts as {_pct(th.effective)}"
+        f"{_ci(th.effective_low, th.effective_high)}; a case at t is really "
+        f"{_pct(th.at_threshold)}{_ci(th.at_threshold_low, th.at_threshold_high)}"
+        for th in r.thresholds
+    )
+
+
+def _calibration_table(rows: Sequence[GroupCalibration]) -> str:
+    """One row per model and group: predicted against observed, intercept, slope, verdict."""
+    cells = [
+        [
+            r.model,
+            r.group,
+            f"{r.cases:,}",
+            f"{_pct(r.mean_predicted)} / {_pct(r.observed)}",
+            f"{r.intercept:+.2f}{_ci(r.intercept_low, r.intercept_high, False)}"
+            if _ok(r.intercept)
+            else "—",
+            f"{_num(r.slope)}{_ci(r.slope_low, r.slope_high, False)}",
+            _effective_thresholds(r) or "—",
+            r.verdict + (f"; {r.note}" if r.note else ""),
+        ]
+        for r in rows
+    ]
+    head = [
+        "model",
+        "group",
+        "cases",
+        "mean predicted / observed",
+        "intercept a₀",
+        "slope b",
+        "effective threshold",
+        "verdict",
+    ]
+    return table(head, cells, 2)
+
+
+def _reliability_bins_table(rows: Sequence[GroupCalibration]) -> str:
+    """Every model and group's reliability bins, folded away ("" when there are none)."""
+    bins = [
+        [
+            r.model,
+            r.group,
+            str(i + 1),
+            f"{_pct(b.p_low)} to {_pct(b.p_high)}",
+            str(b.cases),
+            _pct(b.mean_predicted),
+            f"{_pct(b.observed)}{_ci(b.low, b.high)}",
+        ]
+        for r in rows
+        for i, b in enumerate(r.bins)
+    ]
+    if not bins:
+        return ""
+    return (
+        "<details><summary>Reliability bins (every model and group)</summary>"
+        + table(
+            ["model", "group", "bin", "predicted range", "cases", "mean predicted", "observed"],
+            bins,
+            2,
+        )
+        + "</details>"
+    )
 
 
 # --------------------------------------------------------------------------- held-out errors

@@ -279,48 +279,64 @@ def calibration_by_group(
         subsets = [*((str(lv), codes == i) for i, lv in enumerate(levels)), ("all", None)]
         for name, sel in subsets:  # per group (a handful), vectorised within
             use = valid if sel is None else valid & sel
-            eta, yv = eta_all[use], yy[use]
-            n, ev = len(eta), int(yv.sum())
-            note = None
-            if n == 0 or ev in (0, n):
-                rows.append(_empty(model, name, n, ev, "no cases, or every outcome the same"))
-                continue
-            a0, se0, a, b, cov, ok = recalibration(eta, yv)
-            if not ok:
-                rows.append(_empty(model, name, n, ev, "the recalibration fit did not converge"))
-                continue
-            se_b = float(np.sqrt(cov[1, 1]))
-            if min(ev, n - ev) < 100:
-                note = (
-                    f"only {min(ev, n - ev)} cases in the rarer outcome: calibration estimates "
-                    "are rough (common practice asks for at least 100)"
-                )
-            problems = _problems(a0 - z * se0, a0 + z * se0, b - z * se_b, b + z * se_b)
             rows.append(
-                GroupCalibration(
-                    model=model,
-                    group=name,
-                    cases=n,
-                    events=ev,
-                    mean_predicted=float(expit(eta).mean()),
-                    observed=float(ev / n),
-                    intercept=a0,
-                    intercept_low=a0 - z * se0,
-                    intercept_high=a0 + z * se0,
-                    intercept_p=float(2 * stats.norm.sf(abs(a0 / se0))),
-                    slope=b,
-                    slope_low=b - z * se_b,
-                    slope_high=b + z * se_b,
-                    slope_p=float(2 * stats.norm.sf(abs((b - 1.0) / se_b))),
-                    slope_detectable=detectable_shift(se_b, 1.0, "calibration slope"),
-                    bins=reliability_bins(eta, yv, bins, level),
-                    thresholds=effective_thresholds(a, b, cov, lenses, z),
-                    problems=problems,
-                    verdict=_verdict(problems),
-                    note=note,
-                )
+                _group_calibration(model, name, eta_all[use], yy[use], lenses, level, bins, z)
             )
     return CalibrationReport(tuple(rows), tuple(models), source, level, tuple(notes))
+
+
+def _group_calibration(
+    model: str,
+    group: str,
+    eta: NDArray[np.float64],
+    y: NDArray[np.float64],
+    lenses: Sequence[tuple[str, float]],
+    level: float,
+    bins: int,
+    z: float,
+) -> GroupCalibration:
+    """One model's calibration on one group's cases (not estimated when it cannot be)."""
+    n, ev = len(eta), int(y.sum())
+    if n == 0 or ev in (0, n):
+        return _empty(model, group, n, ev, "no cases, or every outcome the same")
+    a0, se0, a, b, cov, ok = recalibration(eta, y)
+    if not ok:
+        return _empty(model, group, n, ev, "the recalibration fit did not converge")
+    se_b = float(np.sqrt(cov[1, 1]))
+    problems = _problems(a0 - z * se0, a0 + z * se0, b - z * se_b, b + z * se_b)
+    return GroupCalibration(
+        model=model,
+        group=group,
+        cases=n,
+        events=ev,
+        mean_predicted=float(expit(eta).mean()),
+        observed=float(ev / n),
+        intercept=a0,
+        intercept_low=a0 - z * se0,
+        intercept_high=a0 + z * se0,
+        intercept_p=float(2 * stats.norm.sf(abs(a0 / se0))),
+        slope=b,
+        slope_low=b - z * se_b,
+        slope_high=b + z * se_b,
+        slope_p=float(2 * stats.norm.sf(abs((b - 1.0) / se_b))),
+        slope_detectable=detectable_shift(se_b, 1.0, "calibration slope"),
+        bins=reliability_bins(eta, y, bins, level),
+        thresholds=effective_thresholds(a, b, cov, lenses, z),
+        problems=problems,
+        verdict=_verdict(problems),
+        note=_rarer_outcome_note(n, ev),
+    )
+
+
+def _rarer_outcome_note(n: int, events: int) -> str | None:
+    """A warning when the rarer outcome has fewer than 100 cases (None otherwise)."""
+    rarer = min(events, n - events)
+    if rarer >= 100:
+        return None
+    return (
+        f"only {rarer} cases in the rarer outcome: calibration estimates "
+        "are rough (common practice asks for at least 100)"
+    )
 
 
 def _empty(model: str, group: str, n: int, ev: int, why: str) -> GroupCalibration:

@@ -34,8 +34,9 @@ def _frame(n: int = 120, seed: int = 0) -> pd.DataFrame:
     )
 
 
-def _study(tmp_path: Path, frame: pd.DataFrame | None = None, config: str | None = None,
-           extra: str = "") -> Path:
+def _study(
+    tmp_path: Path, frame: pd.DataFrame | None = None, config: str | None = None, extra: str = ""
+) -> Path:
     (frame if frame is not None else _frame()).to_csv(tmp_path / "history.csv", index=False)
     text = (config or BASE_CONFIG).replace("[data_extra]\n", extra)
     (tmp_path / "closecall.toml").write_text(text)
@@ -190,8 +191,12 @@ def test_unseen_pending_categories_are_reported(tmp_path: Path, cli) -> None:  #
     pending["id"] = [f"p{i}" for i in range(40)]
     pending.loc[[0, 1], "sector"] = "new-sector"
     pending.to_csv(tmp_path / "pending.csv", index=False)
-    config = _study(tmp_path, config=BASE_CONFIG.replace(
-        'history = "history.csv"', 'history = "history.csv"\npending = "pending.csv"'))
+    config = _study(
+        tmp_path,
+        config=BASE_CONFIG.replace(
+            'history = "history.csv"', 'history = "history.csv"\npending = "pending.csv"'
+        ),
+    )
     res = cli("fit", "--config", str(config), "--json")
     assert res.code == 0, res
     import json
@@ -205,8 +210,12 @@ def test_unknown_pending_group_level(tmp_path: Path, cli) -> None:  # type: igno
     pending["id"] = [f"p{i}" for i in range(40)]
     pending.loc[3, "grp"] = "Z"
     pending.to_csv(tmp_path / "pending.csv", index=False)
-    config = _study(tmp_path, config=BASE_CONFIG.replace(
-        'history = "history.csv"', 'history = "history.csv"\npending = "pending.csv"'))
+    config = _study(
+        tmp_path,
+        config=BASE_CONFIG.replace(
+            'history = "history.csv"', 'history = "history.csv"\npending = "pending.csv"'
+        ),
+    )
     _fails(cli, config, "pending.csv", "group level 'Z'")
 
 

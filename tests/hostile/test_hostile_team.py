@@ -103,7 +103,6 @@ class TestSharedFiles:
         current = os.umask(0o022)
         assert current == 0o022, oct(current)
 
-
     def test_a_library_fit_makes_cache_folders_the_group_can_write(
         self, study_dir: Path, umask_022: None
     ) -> None:

@@ -43,7 +43,9 @@ def _histogram(study: OpenedStudy, keep: np.ndarray, edges: np.ndarray) -> list[
     ]
 
 
-def test_cli_chart_counts_the_model_flips_at_any_distance(study_config: Path, study: OpenedStudy, cli) -> None:  # type: ignore[no-untyped-def]  # noqa: E501
+def test_cli_chart_counts_the_model_flips_at_any_distance(
+    study_config: Path, study: OpenedStudy, cli
+) -> None:  # type: ignore[no-untyped-def]
     res = cli("queue", "--config", str(study_config), "--json", "--chart", "--flips", "model",
               "--limit", "1")  # fmt: skip
     assert res.code == 0, res
@@ -61,7 +63,9 @@ def test_cli_chart_counts_the_model_flips_at_any_distance(study_config: Path, st
     assert within == data["counts"]["within_band"]
 
 
-def test_cli_chart_under_a_group_shows_that_group_only(study_config: Path, study: OpenedStudy, cli) -> None:  # type: ignore[no-untyped-def]  # noqa: E501
+def test_cli_chart_under_a_group_shows_that_group_only(
+    study_config: Path, study: OpenedStudy, cli
+) -> None:  # type: ignore[no-untyped-def]
     level, other = study.snapshot.group_levels[:2]
     res = cli("queue", "--config", str(study_config), "--json", "--chart", "--group", level)
     dist = json.loads(res.out)["distribution"]
@@ -77,7 +81,9 @@ def test_cli_chart_under_a_group_shows_that_group_only(study_config: Path, study
     assert f"counted: the {n:,} cases the filters keep, at any distance" in table.out
 
 
-def test_cli_chart_with_no_filter_counts_every_case(study_config: Path, study: OpenedStudy, cli) -> None:  # type: ignore[no-untyped-def]  # noqa: E501
+def test_cli_chart_with_no_filter_counts_every_case(
+    study_config: Path, study: OpenedStudy, cli
+) -> None:  # type: ignore[no-untyped-def]
     res = cli("queue", "--config", str(study_config), "--json", "--chart", "--limit", "1")
     dist = json.loads(res.out)["distribution"]
     assert dist["counted"] == "every case"

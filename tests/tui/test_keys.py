@@ -199,4 +199,3 @@ async def test_ledger_verify_and_filters_say_what_they_do(study: OpenedStudy) ->
         await wait_until(pilot, lambda: "type a reviewer's login" in screen_text(app))
         await pilot.press("escape", "slash")
         await wait_until(pilot, lambda: "type a case id" in screen_text(app))
-

@@ -9,9 +9,7 @@ import numpy as np
 ALL = "all"
 
 
-def group_slices(
-    codes: np.ndarray, levels: Sequence[str]
-) -> Iterator[tuple[int, str, np.ndarray]]:
+def group_slices(codes: np.ndarray, levels: Sequence[str]) -> Iterator[tuple[int, str, np.ndarray]]:
     """(index, label, mask) for each group level, then (len(levels), "all", everything).
 
     Levels with no cases are skipped.

@@ -16,7 +16,6 @@ LIMIT = 80
 #: module:function -> why it is still long (each one a candidate for the next split).
 ALLOWED: dict[str, str] = {
     "review/ledger/pg_store.py:_schema_sql": "one SQL script as a string (data, not steps)",
-    "review/team.py:check_team": "one check per file and account (to split)",
     "cli/whatif_cmds.py:whatif": "a view's options and printing (to split)",
     "suite/solver.py:fit_logit_blocks": "the streamed Newton iteration (to split)",
 }

@@ -69,13 +69,30 @@ def check_team(config: StudyConfig) -> list[TeamProblem]:
     """Every way the study folder, its files, the config and the login lists differ from the
     team set-up of docs/team.md (empty: the set-up is sound). Reads only."""
     root = config.root
-    problems: list[TeamProblem] = []
     st = root.stat()
     gid = st.st_gid
     group = _group(gid)
     mode = stat.S_IMODE(st.st_mode)
     members = group_members(gid)
-    if members <= {_name(st.st_uid)}:
+    problems = _study_folder_problems(root, _name(st.st_uid), mode, group, members)
+    config_path = config.path
+    readers = has_readers(root) or mode & 0o005 == 0o005  # open to others: a gate is needed
+    gate = gate_folder(root) if readers else None
+    problems += _config_problems(config_path, st.st_uid)
+    if readers:
+        problems += _config_unreadable(config_path)
+    problems += _tree_problems(root, config_path, gid, group, readers)
+    problems += _reader_problems(config, root, mode, members, readers, gate)
+    problems += _login_problems(config, members, group)
+    return problems
+
+
+def _study_folder_problems(
+    root: Path, owner: str, mode: int, group: str, members: set[str]
+) -> list[TeamProblem]:
+    """The study folder's own group and mode: shared, group rwx, setgid, sticky, not o+w."""
+    problems = []
+    if members <= {owner}:
         problems.append(
             TeamProblem(
                 str(root),
@@ -110,56 +127,68 @@ def check_team(config: StudyConfig) -> list[TeamProblem]:
                 f"chmod o-w {_q(root)}",
             )
         )
-    config_path = config.path
-    readers = has_readers(root) or mode & 0o005 == 0o005  # open to others: a gate is needed
-    gate = gate_folder(root) if readers else None
-    problems += _config_problems(config_path, st.st_uid)
-    if readers and not os.stat(config_path).st_mode & stat.S_IROTH:
-        problems.append(
-            TeamProblem(
-                str(config_path),
-                "the config is not readable by others: the readers cannot open the study",
-                f"chmod o+r {_q(config_path)}",
-            )
+    return problems
+
+
+def _config_unreadable(config_path: Path) -> list[TeamProblem]:
+    """The config, when the readers (others) cannot read it."""
+    if os.stat(config_path).st_mode & stat.S_IROTH:
+        return []
+    return [
+        TeamProblem(
+            str(config_path),
+            "the config is not readable by others: the readers cannot open the study",
+            f"chmod o+r {_q(config_path)}",
         )
+    ]
+
+
+def _tree_problems(
+    root: Path, config_path: Path, gid: int, group: str, readers: bool
+) -> list[TeamProblem]:
+    """Every file and folder under the study folder but the config and symbolic links."""
+    problems = []
     for dirpath, dirnames, filenames in os.walk(root):
         for name in [*dirnames, *filenames]:
             path = Path(dirpath) / name
             if path == config_path or path.is_symlink():
                 continue
             problems += _file_problems(path, gid, group, readers)
-    problems += _reader_problems(config, root, mode, members, readers, gate)
+    return problems
+
+
+def _login_problems(config: StudyConfig, members: set[str], group: str) -> list[TeamProblem]:
+    """Listed reviewers outside the study group or unknown here; listed analysts unknown here."""
+    problems = []
+    config_path = config.path
     for login in config.review.reviewers:
-        if login not in members:
-            try:
-                pwd.getpwnam(login)
-            except KeyError:
-                problems.append(
-                    TeamProblem(
-                        login,
-                        f"reviewer {login} is not a login on this server",
-                        f"correct [review] reviewers in {_q(config_path)}",
-                    )
-                )
-                continue
+        if login in members:
+            continue
+        if not _login_exists(login):
             problems.append(
                 TeamProblem(
                     login,
-                    f"reviewer {login} is not in the study group {group}: cannot write the ledger",
-                    f"usermod -aG {group} {login}",
+                    f"reviewer {login} is not a login on this server",
+                    f"correct [review] reviewers in {_q(config_path)}",
                 )
             )
-    for login in config.review.analysts:
-        try:
-            pwd.getpwnam(login)
-        except KeyError:
-            problems.append(
-                TeamProblem(
-                    login,
-                    f"analyst {login} is not a login on this server",
-                    f"correct [review] analysts in {_q(config_path)}",
-                )
+            continue
+        problems.append(
+            TeamProblem(
+                login,
+                f"reviewer {login} is not in the study group {group}: cannot write the ledger",
+                f"usermod -aG {group} {login}",
             )
+        )
+    problems += [
+        TeamProblem(
+            login,
+            f"analyst {login} is not a login on this server",
+            f"correct [review] analysts in {_q(config_path)}",
+        )
+        for login in config.review.analysts
+        if not _login_exists(login)
+    ]
     return problems
 
 

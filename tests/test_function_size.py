@@ -17,7 +17,6 @@ LIMIT = 80
 ALLOWED: dict[str, str] = {
     "review/ledger/pg_store.py:_schema_sql": "one SQL script as a string (data, not steps)",
     "cli/whatif_cmds.py:whatif": "a view's options and printing (to split)",
-    "suite/solver.py:fit_logit_blocks": "the streamed Newton iteration (to split)",
 }
 
 

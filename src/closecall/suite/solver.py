@@ -403,29 +403,9 @@ def fit_logit_blocks(
     tol : stop when the largest gradient entry of the mean objective and half the Newton
         decrement per case are both at most tol
     """
-    p = blocks[0].shape[1]
     objective = _Objective(blocks, labels, mask, penalty)
-    active, n = objective.active, objective.n
-    theta = np.zeros(p + 1)
-    coarse = None
-    if warm is not None:
-        theta[0] = warm.intercept
-        theta[active[1:]] = warm.coef[active[1:] - 1]
-    elif start is None and n >= 4 * COARSE_ROWS:
-        coarse = _coarse_start(blocks, labels, mask, penalty, n)
-    if start is not None:
-        state = _Newton(theta, start.objective, start.gradient, start.hessian, True)
-    elif hessian_guess is not None:
-        f, g, _ = objective(theta, False)
-        state = _Newton(theta, f, g, hessian_guess, False)
-    elif coarse is not None:
-        theta = coarse[0]
-        f, g, _ = objective(theta, False)
-        state = _Newton(theta, f, g, coarse[1], False)
-    else:
-        f, g, H = objective(theta, True)
-        assert H is not None
-        state = _Newton(theta, f, g, H, True)
+    n = objective.n
+    state = _first_state(objective, blocks, labels, mask, penalty, warm, start, hessian_guess)
     run = _newton(objective, state, tol, max_iter)
     cold = warm is None and start is None and hessian_guess is None
     if not cold and not _settled(run, n):
@@ -439,6 +419,45 @@ def fit_logit_blocks(
         _, _, H_end = objective(run.theta, True, want_loss=False)
         assert H_end is not None
         run.H, run.fresh, run.H_at = H_end, True, run.theta.copy()
+    return _as_fit(run, objective.active, blocks[0].shape[1], n)
+
+
+def _first_state(
+    objective: _Objective,
+    blocks: Sequence[np.ndarray],
+    labels: Sequence[np.ndarray],
+    mask: np.ndarray,
+    penalty: float,
+    warm: LogitFit | None,
+    start: StartState | None,
+    hessian_guess: np.ndarray | None,
+) -> _Newton:
+    """Where Newton's method starts: the warm fit or zero (or a subsample's fit), and the
+    objective, gradient and Hessian there (given, guessed or computed)."""
+    active, n = objective.active, objective.n
+    theta = np.zeros(blocks[0].shape[1] + 1)
+    coarse = None
+    if warm is not None:
+        theta[0] = warm.intercept
+        theta[active[1:]] = warm.coef[active[1:] - 1]
+    elif start is None and n >= 4 * COARSE_ROWS:
+        coarse = _coarse_start(blocks, labels, mask, penalty, n)
+    if start is not None:
+        return _Newton(theta, start.objective, start.gradient, start.hessian, True)
+    if hessian_guess is not None:
+        f, g, _ = objective(theta, False)
+        return _Newton(theta, f, g, hessian_guess, False)
+    if coarse is not None:
+        theta = coarse[0]
+        f, g, _ = objective(theta, False)
+        return _Newton(theta, f, g, coarse[1], False)
+    f, g, H = objective(theta, True)
+    assert H is not None
+    return _Newton(theta, f, g, H, True)
+
+
+def _as_fit(run: _Newton, active: np.ndarray, p: int, n: int) -> LogitFit:
+    """The fit in the full design space (zeros outside the active columns) from Newton's run."""
     coef = np.zeros(p)
     coef[active[1:] - 1] = run.theta[active[1:]]
     hess = run.H if run.fresh else None

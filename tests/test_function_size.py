@@ -16,7 +16,6 @@ LIMIT = 80
 #: module:function -> why it is still long (each one a candidate for the next split).
 ALLOWED: dict[str, str] = {
     "review/ledger/pg_store.py:_schema_sql": "one SQL script as a string (data, not steps)",
-    "cli/whatif_cmds.py:whatif": "a view's options and printing (to split)",
 }
 
 

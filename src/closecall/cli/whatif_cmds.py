@@ -179,6 +179,11 @@ def whatif(
     if as_json:
         emit_json(data)
         return
+    _print_result(result, data, cases)
+
+
+def _print_result(result: WhatIfResult, data: dict[str, Any], cases: bool) -> None:
+    """The what-if's figures as text: the counts, the three tables, notes, changed cases."""
     _say(f"baseline: {result.baseline}")
     _say(f"policy:   {result.policy}")
     _say(
@@ -196,22 +201,27 @@ def whatif(
     for note in data["notes"]:
         _say(f"note: {note}")
     if cases and data["changed_cases"]:
-        table = Table(title="Changed cases", box=box.SIMPLE, title_justify="left", pad_edge=False)
-        for head in ("case", "group", "direction", "baseline margin", "policy margin"):
-            table.add_column(head, justify="right" if "margin" in head else "left")
-        for r in data["changed_cases"]:
-            table.add_row(
-                safe_text(r["case_id"]),
-                safe_text(r["group"]),
-                r["direction"],
-                signed(r["baseline_margin"]),
-                signed(r["policy_margin"]),
-            )
-        console.print(table)
+        console.print(_changed_cases_table(data["changed_cases"]))
     _say(
         "Intervals read these cases as a sample of the cases the policy would meet; the "
         "counts are exact for them. Evidence for review, not a finding (docs/whatif.md)."
     )
+
+
+def _changed_cases_table(rows: list[dict[str, Any]]) -> Table:
+    """Every changed case: its group, the direction and both margins."""
+    table = Table(title="Changed cases", box=box.SIMPLE, title_justify="left", pad_edge=False)
+    for head in ("case", "group", "direction", "baseline margin", "policy margin"):
+        table.add_column(head, justify="right" if "margin" in head else "left")
+    for r in rows:
+        table.add_row(
+            safe_text(r["case_id"]),
+            safe_text(r["group"]),
+            r["direction"],
+            signed(r["baseline_margin"]),
+            signed(r["policy_margin"]),
+        )
+    return table
 
 
 def _run(

@@ -225,22 +225,19 @@ def _with_reviews(config: Any, nb: dict[str, Any]) -> dict[str, Any]:
     damaged ledger is refused (UserError), never read as "no reviews".
     """
     from closecall.core.errors import AccessDenied
-    from closecall.review.ledger import NoLedger
-    from closecall.review.ledger.access import require_read
-    from closecall.review.ledger.backend import ledger_present, open_any_ledger
+    from closecall.review.decisions import latest_entries
+    from closecall.review.ledger.backend import ledger_present
 
     for n in nb["neighbours"]:
         n["review"] = None
     if not ledger_present(config.review.ledger):
         return nb
-    try:
-        require_read(config.review, config.path)
-        with open_any_ledger(config.review.ledger, readonly=True) as ledger:  # once for all
-            for n in nb["neighbours"]:
-                entries = ledger.entries(case_id=n["case_id"], limit=1)
-                if entries:
-                    e = entries[-1]
-                    n["review"] = {"action": e.action, "reason": e.reason, "seq": e.seq}
-    except (NoLedger, AccessDenied):
-        pass  # no ledger after all, or this login may not read it: no reviews shown
+    try:  # one ledger connection for all the similar cases
+        latest = latest_entries(config, [n["case_id"] for n in nb["neighbours"]])
+    except AccessDenied:
+        return nb  # this login may not read the ledger: no reviews shown
+    for n in nb["neighbours"]:
+        e = latest.get(n["case_id"])
+        if e is not None:
+            n["review"] = {"action": e.action, "reason": e.reason, "seq": e.seq}
     return nb

@@ -382,6 +382,22 @@ def ledger_entries(
         return []
 
 
+def latest_entries(config: StudyConfig, case_ids: Iterable[str]) -> dict[str, Entry]:
+    """The latest entry of each of ``case_ids`` that has one, read through one ledger
+    connection; empty without a ledger. Needs read permission (reviewers or analysts)."""
+    require_read(config.review, config.path)
+    found: dict[str, Entry] = {}
+    try:
+        with open_any_ledger(config.review.ledger, readonly=True) as ledger:
+            for case_id in case_ids:
+                entries = ledger.entries(case_id=case_id, limit=1)
+                if entries:
+                    found[case_id] = entries[-1]
+    except NoLedger:
+        pass
+    return found
+
+
 def latest_actions(config: StudyConfig) -> list[tuple[str, str]]:
     """(case_id, action) of every reviewed case's latest entry; empty without a ledger.
 

@@ -113,13 +113,15 @@ def login_umask() -> Iterator[None]:
 
 def shared_dir_mode(folder: Path) -> int:
     """The mode a folder closecall made under ``folder``'s parent should have: 0770 (0775 in a
-    study with readers), plus the setgid bit when the parent has it (so the group carries on
-    down)."""
+    study with readers, or under a folder set up for them, :func:`has_readers`, as a library
+    caller's process, whose umask closecall leaves alone, sees it), plus the setgid bit when
+    the parent has it (so the group carries on down)."""
     try:
         parent = folder.parent.stat().st_mode
     except OSError:
         parent = 0
-    return DIR_MODE | (READ_DIR_BITS if _readers else 0) | (parent & stat.S_ISGID)
+    readers = _readers or (parent & READ_DIR_BITS == READ_DIR_BITS and bool(parent & stat.S_ISGID))
+    return DIR_MODE | (READ_DIR_BITS if readers else 0) | (parent & stat.S_ISGID)
 
 
 def share_dir(folder: Path) -> None:
@@ -131,9 +133,8 @@ def make_shared_dirs(folder: Path) -> None:
     """Create ``folder`` and any missing parents, each new one with the shared folder mode
     (:func:`shared_dir_mode`) whatever the process umask: a library caller keeps its own
     umask (022 makes 0755 folders the group cannot write), yet the cache it creates in a
-    team's study must let the next member refit; in a study with readers (:func:`has_readers`
-    of the nearest existing folder) others may read them too. Folders that already exist are
-    left as they are."""
+    team's study must let the next member refit; under a folder set up for readers others may
+    read them too. Folders that already exist are left as they are."""
     missing = []
     current = Path(folder)
     while not current.exists():
@@ -141,14 +142,12 @@ def make_shared_dirs(folder: Path) -> None:
         if current.parent == current:
             break
         current = current.parent
-    readers = _readers or has_readers(current)  # a study with readers, seen from its folder
     for new in reversed(missing):
         try:
             new.mkdir()
         except FileExistsError:  # made meanwhile by another process: theirs stands
             continue
-        mode = shared_dir_mode(new) | (READ_DIR_BITS if readers else 0)
-        os.chmod(new, mode)
+        share_dir(new)
 
 
 def describe(path: Path) -> str:

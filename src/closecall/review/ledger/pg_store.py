@@ -393,7 +393,7 @@ class PgLedger:
         wait for this writer's flush (early lock release; the flushes of writers waiting at
         once are shared, PostgreSQL's group commit). Each round trip is one
         message of several statements (PostgreSQL's simple query protocol, the values quoted
-        by psycopg), sent in autocommit mode so the driver adds no ``BEGIN`` of its own.
+        by libpq), sent in autocommit mode so the driver adds no ``BEGIN`` of its own.
         """
         import psycopg
 
@@ -1043,10 +1043,8 @@ _BEGIN_CHECKED_SQL = (
     "BEGIN; SELECT case_id FROM closecall.entries WHERE seq = {seq}; "
     "SELECT * FROM closecall.lock_head_for({case})"
 )
-_INSERT_SQL = (
-    "INSERT INTO closecall.entries (seq, case_id, action, body, hash, prev_hash) "
-    "VALUES (%s, %s, %s, %s, %s, %s)"
-)
+_INSERT_INTO = "INSERT INTO closecall.entries (seq, case_id, action, body, hash, prev_hash) "
+_INSERT_SQL = _INSERT_INTO + "VALUES (%s, %s, %s, %s, %s, %s)"
 #: An append's second message: the entry, committed without waiting for the disk (which
 #: releases the head at once), then a transaction that writes one small record to the WAL (a
 #: transactional logical-decoding message, prefix ``closecall.durable``, which any role may
@@ -1057,8 +1055,8 @@ _INSERT_SQL = (
 #: without waiting for the flush.)
 _INSERT_COMMIT_SQL = (
     "SET LOCAL synchronous_commit = off; "
-    "INSERT INTO closecall.entries (seq, case_id, action, body, hash, prev_hash) "
-    "VALUES ({seq}, {case}, {action}, {body}, {hash}, {prev}); "
+    + _INSERT_INTO
+    + "VALUES ({seq}, {case}, {action}, {body}, {hash}, {prev}); "
     "COMMIT; SELECT pg_logical_emit_message(true, 'closecall.durable', '')"
 )
 _COPY_SQL = _INSERT_SQL

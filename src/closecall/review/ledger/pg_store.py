@@ -34,7 +34,8 @@ locks); "Message Flow" (simple query: several statements in one message);
 "WAL Configuration" (synchronous_commit), "Asynchronous Commit". Releasing locks before the
 commit's log flush: DeWitt, Katz, Olken, Shapiro, Stonebraker & Wood, "Implementation techniques
 for main memory database systems", SIGMOD 1984; Johnson, Pandis, Stoica, Athanassoulis &
-Ailamaki, "Aether: a scalable approach to logging", PVLDB 3(1), 2010 (early lock release).
+Ailamaki, "Aether: a scalable approach to logging", PVLDB 3(1), 2010 (early lock release)
+(both cited from memory).
 """
 
 from __future__ import annotations
